@@ -1,0 +1,152 @@
+"""The rigid body about its fixed point, and the flat parameter array the kernels read."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+
+STANDARD_GRAVITY = 9.80665  # m/s^2, the conventional standard value (CGPM 1901)
+
+# Named indices into the float64 parameter array every kernel receives.
+P_I1 = 0
+P_I2 = 1
+P_I3 = 2
+P_INV1 = 3  # 1/I1, kept so that kernels multiply instead of divide
+P_INV2 = 4
+P_INV3 = 5
+P_MGX = 6  # M g chi_1: weight times centre-of-mass coordinates in body axes
+P_MGY = 7
+P_MGZ = 8  # M g l for a top with its centre of mass on axis 3
+NPARAM = 9
+
+# Relative tolerance for "symmetric" and "on the axis": bodies built from geometry carry
+# round-off in their moments, and an exactly solvable case should still be recognised.
+SYMMETRY_RTOL = 1e-12
+
+
+class BodyError(ValueError):
+    """A body description that cannot be a rigid body; the message names the field."""
+
+
+def _positive_finite(name: str, value: float) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.floating, np.integer)):
+        raise BodyError(f"{name}: expected a number, got {type(value).__name__}")
+    value = float(value)
+    if not math.isfinite(value):
+        raise BodyError(f"{name}: must be finite, got {value}")
+    if value <= 0.0:
+        raise BodyError(f"{name}: must be positive, got {value}")
+    return value
+
+
+def _finite(name: str, value: float) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.floating, np.integer)):
+        raise BodyError(f"{name}: expected a number, got {type(value).__name__}")
+    value = float(value)
+    if not math.isfinite(value):
+        raise BodyError(f"{name}: must be finite, got {value}")
+    return value
+
+
+@dataclass(frozen=True)
+class RigidBody:
+    """A rigid body turning about a fixed point in uniform gravity -g e_z.
+
+    inertia: principal moments (I1, I2, I3) about the fixed point, kg m^2.
+    com: centre of mass in the principal body axes, m (zero for a free body).
+    """
+
+    mass: float
+    inertia: tuple[float, float, float]
+    com: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    gravity: float = STANDARD_GRAVITY
+
+    def __post_init__(self) -> None:
+        mass = _positive_finite("mass", self.mass)
+        if len(self.inertia) != 3:
+            raise BodyError(f"inertia: expected 3 principal moments, got {len(self.inertia)}")
+        if len(self.com) != 3:
+            raise BodyError(f"com: expected 3 coordinates, got {len(self.com)}")
+        inertia = tuple(_positive_finite(f"inertia[{i}]", v) for i, v in enumerate(self.inertia))
+        com = tuple(_finite(f"com[{i}]", v) for i, v in enumerate(self.com))
+        gravity = _finite("gravity", self.gravity)
+        if gravity < 0.0:
+            raise BodyError(f"gravity: must not be negative, got {gravity}")
+        # Each principal moment is at most the sum of the other two (equality: a flat body).
+        for i in range(3):
+            others = inertia[(i + 1) % 3] + inertia[(i + 2) % 3]
+            if inertia[i] > others * (1.0 + 1e-12):
+                raise BodyError(
+                    f"inertia[{i}]: {inertia[i]:.6g} exceeds the sum of the other two "
+                    f"({others:.6g}); no rigid body has these principal moments"
+                )
+        object.__setattr__(self, "mass", mass)
+        object.__setattr__(self, "inertia", inertia)
+        object.__setattr__(self, "com", com)
+        object.__setattr__(self, "gravity", gravity)
+
+    @property
+    def weight(self) -> float:
+        return self.mass * self.gravity
+
+    @property
+    def symmetric(self) -> bool:
+        """I1 == I2 (to round-off): the free flow is exactly solvable in closed form."""
+        i1, i2, _ = self.inertia
+        return abs(i1 - i2) <= SYMMETRY_RTOL * max(i1, i2)
+
+    @property
+    def com_on_axis(self) -> bool:
+        c1, c2, c3 = self.com
+        scale = max(abs(c1), abs(c2), abs(c3), 1e-300)
+        return abs(c1) <= SYMMETRY_RTOL * scale and abs(c2) <= SYMMETRY_RTOL * scale
+
+    @property
+    def lagrange_top(self) -> bool:
+        """Symmetric with its centre of mass on the figure axis: the exactly solvable heavy top,
+        the only body the canonical Euler-angle form describes."""
+        return self.symmetric and self.com_on_axis
+
+    @property
+    def kovalevskaya(self) -> bool:
+        """I1 == I2 == 2 I3 with the centre of mass in the equatorial plane (and off the pivot)."""
+        i1, i2, i3 = self.inertia
+        c1, c2, c3 = self.com
+        r = math.hypot(c1, c2)
+        return (
+            self.symmetric
+            and abs(i1 - 2.0 * i3) <= SYMMETRY_RTOL * i1
+            and r > 0.0
+            and abs(c3) <= SYMMETRY_RTOL * r
+        )
+
+    @property
+    def mgl(self) -> float:
+        """M g l: weight times the signed distance of the centre of mass along axis 3."""
+        return self.weight * self.com[2]
+
+    def params(self) -> np.ndarray:
+        """The flat parameter array the kernels read (see the P_* indices)."""
+        p = np.empty(NPARAM, dtype=np.float64)
+        i1, i2, i3 = self.inertia
+        if self.symmetric:
+            # Make I1 == I2 bit-for-bit so that kernels see one symmetric body.
+            i2 = i1
+        p[P_I1], p[P_I2], p[P_I3] = i1, i2, i3
+        p[P_INV1], p[P_INV2], p[P_INV3] = 1.0 / i1, 1.0 / i2, 1.0 / i3
+        w = self.weight
+        c1, c2, c3 = self.com
+        if self.com_on_axis:
+            c1 = c2 = 0.0
+        p[P_MGX], p[P_MGY], p[P_MGZ] = w * c1, w * c2, w * c3
+        return p
+
+    def as_dict(self) -> dict:
+        return {
+            "mass": self.mass,
+            "inertia": list(self.inertia),
+            "com": list(self.com),
+            "gravity": self.gravity,
+        }

@@ -1,0 +1,72 @@
+"""Equations of motion in both state forms, as numba kernels that write into a given array.
+
+`rhs(form, y, p, dy)` is the one entry point integrator kernels call by name: a module-level
+jitted function switching on the form, which numba caches across processes (DEVELOPERS.md).
+"""
+
+from __future__ import annotations
+
+import math
+
+from numba import njit
+
+from .body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from .forms import FORM_EULER
+from .quaternion import vertical_in_body
+
+
+@njit(cache=True)
+def rhs_euler(y, p, dy):
+    """Hamilton's equations of the symmetric heavy top in (phi, theta, psi, p_phi, p_theta, p_psi)."""
+    theta = y[1]
+    p_phi = y[3]
+    p_theta = y[4]
+    p_psi = y[5]
+    s = math.sin(theta)
+    c = math.cos(theta)
+    inv1 = p[P_INV1]
+    a = p_phi - p_psi * c
+    r = a * inv1 / (s * s)  # phidot
+    dy[0] = r
+    dy[1] = p_theta * inv1
+    dy[2] = p_psi * p[P_INV3] - c * r
+    dy[3] = 0.0
+    dy[4] = r * (a * c / s - p_psi * s) + p[P_MGZ] * s
+    dy[5] = 0.0
+
+
+@njit(cache=True)
+def rhs_body(y, p, dy):
+    """Euler-Poisson equations: m' = m x w + M g (Gamma x chi), q' = q (0, w) / 2."""
+    q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
+    m1, m2, m3 = y[4], y[5], y[6]
+    w1 = m1 * p[P_INV1]
+    w2 = m2 * p[P_INV2]
+    w3 = m3 * p[P_INV3]
+    g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
+    cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
+    dy[0] = 0.5 * (-q1 * w1 - q2 * w2 - q3 * w3)
+    dy[1] = 0.5 * (q0 * w1 + q2 * w3 - q3 * w2)
+    dy[2] = 0.5 * (q0 * w2 - q1 * w3 + q3 * w1)
+    dy[3] = 0.5 * (q0 * w3 + q1 * w2 - q2 * w1)
+    dy[4] = m2 * w3 - m3 * w2 + (g2 * cz - g3 * cy)
+    dy[5] = m3 * w1 - m1 * w3 + (g3 * cx - g1 * cz)
+    dy[6] = m1 * w2 - m2 * w1 + (g1 * cy - g2 * cx)
+
+
+@njit(cache=True)
+def rhs(form, y, p, dy):
+    if form == FORM_EULER:
+        rhs_euler(y, p, dy)
+    else:
+        rhs_body(y, p, dy)
+
+
+@njit(cache=True)
+def singular(form, y):
+    """True where the state has left the domain of its form (Euler angles at the pole)."""
+    if form == FORM_EULER:
+        theta = y[1]
+        return not (theta > 0.0 and theta < math.pi)
+    return False
+

@@ -1,0 +1,89 @@
+"""Conserved quantities in both forms.
+
+energy  H = T + V                      (every body)
+p_phi   L.e_z, vertical momentum        (every body: gravity exerts no torque about e_z)
+p_psi   L.e3, spin momentum             (exact when I1 = I2 and the centre of mass is on axis 3)
+norm    |q|                             (body form; 1 in the Euler form)
+kov     Kovalevskaya's integral |(w1 + i w2)^2 - c (G1 + i G2)|^2, c = M g |chi| / I3, in body
+        axes turned so that chi lies on axis 1 (a first integral when I1 = I2 = 2 I3 and chi is
+        in the equatorial plane; derived from the Euler-Poisson equations, see Kovalevskaya 1889)
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit
+
+from .body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from .forms import FORM_EULER
+from .quaternion import vertical_in_body
+
+INV_ENERGY = 0
+INV_P_PHI = 1
+INV_P_PSI = 2
+INV_NORM = 3
+INV_KOV = 4
+N_INVARIANTS = 5
+INVARIANT_NAMES = ("energy", "p_phi", "p_psi", "norm", "kovalevskaya")
+
+
+@njit(cache=True)
+def _unit_vertical(y):
+    q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
+    n2 = q0 * q0 + q1 * q1 + q2 * q2 + q3 * q3
+    g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
+    return g1 / n2, g2 / n2, g3 / n2, math.sqrt(n2)
+
+
+@njit(cache=True)
+def invariants(form, y, p, out):
+    """Write energy, p_phi, p_psi, |q| and Kovalevskaya's integral into out (5)."""
+    if form == FORM_EULER:
+        theta = y[1]
+        s = math.sin(theta)
+        c = math.cos(theta)
+        a = y[3] - y[5] * c
+        out[INV_ENERGY] = (
+            0.5 * y[4] * y[4] * p[P_INV1]
+            + 0.5 * a * a * p[P_INV1] / (s * s)
+            + 0.5 * y[5] * y[5] * p[P_INV3]
+            + p[P_MGZ] * c
+        )
+        out[INV_P_PHI] = y[3]
+        out[INV_P_PSI] = y[5]
+        out[INV_NORM] = 1.0
+        out[INV_KOV] = math.nan
+        return
+    g1, g2, g3, nq = _unit_vertical(y)
+    m1, m2, m3 = y[4], y[5], y[6]
+    w1 = m1 * p[P_INV1]
+    w2 = m2 * p[P_INV2]
+    w3 = m3 * p[P_INV3]
+    out[INV_ENERGY] = 0.5 * (m1 * w1 + m2 * w2 + m3 * w3) + (
+        p[P_MGX] * g1 + p[P_MGY] * g2 + p[P_MGZ] * g3
+    )
+    out[INV_P_PHI] = m1 * g1 + m2 * g2 + m3 * g3
+    out[INV_P_PSI] = m3
+    out[INV_NORM] = nq
+    r = math.hypot(p[P_MGX], p[P_MGY])
+    if r > 0.0:
+        ca = p[P_MGX] / r
+        sa = p[P_MGY] / r
+        x1 = w1 * ca + w2 * sa
+        x2 = -w1 * sa + w2 * ca
+        h1 = g1 * ca + g2 * sa
+        h2 = -g1 * sa + g2 * ca
+        k = r * p[P_INV3]
+        re = x1 * x1 - x2 * x2 - k * h1
+        im = 2.0 * x1 * x2 - k * h2
+        out[INV_KOV] = re * re + im * im
+    else:
+        out[INV_KOV] = math.nan
+
+
+def invariants_of(form: int, y: np.ndarray, params: np.ndarray) -> dict[str, float]:
+    out = np.empty(N_INVARIANTS)
+    invariants(form, np.ascontiguousarray(y, dtype=np.float64), params, out)
+    return dict(zip(INVARIANT_NAMES, (float(v) for v in out), strict=True))
