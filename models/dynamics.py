@@ -17,7 +17,7 @@ from .quaternion import vertical_in_body
 
 @njit(cache=True)
 def rhs_euler(y, p, dy):
-    """Hamilton's equations of the symmetric heavy top in (phi, theta, psi, p_phi, p_theta, p_psi)."""
+    """Hamilton's equations of the symmetric heavy top, canonical Euler-angle variables."""
     theta = y[1]
     p_phi = y[3]
     p_theta = y[4]
@@ -69,4 +69,3 @@ def singular(form, y):
         theta = y[1]
         return not (theta > 0.0 and theta < math.pi)
     return False
-

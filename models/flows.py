@@ -44,7 +44,7 @@ def kick_euler(h, y, p):
 
 @njit(cache=True)
 def kick_body(h, y, p):
-    """Potential flow: q fixed, m += h M g (Gamma x chi). Leaves m3 untouched when chi is on axis 3."""
+    """Potential flow: q fixed, m += h M g (Gamma x chi); m3 untouched when chi is on axis 3."""
     g1, g2, g3 = vertical_in_body(y[0], y[1], y[2], y[3])
     cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
     y[4] += h * (g2 * cz - g3 * cy)

@@ -1,0 +1,1 @@
+"""One module per `topdrift` subcommand: add_parser(subparsers) and run(args)."""

@@ -1,0 +1,152 @@
+"""The contract every integrator meets.
+
+A `Method` is metadata plus a way to start a `Stepper`. A `Stepper` is a run in progress: it owns
+the current state, the controller's state (adaptive methods) and the counters the kernels keep,
+and it advances to a requested time. Asking for an output time never changes the step sequence:
+fixed-step methods need the output times to fall on the step grid (the runner arranges that),
+adaptive methods reach them by dense output while the controller goes its own way.
+
+Everything a stepper holds is a value: `snapshot()` returns plain numbers and arrays and
+`restore()` takes them back, so a resumed run repeats the same bits.
+"""
+
+from __future__ import annotations
+
+from abc import ABC, abstractmethod
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from topdrift.models import FORM_NAMES, RigidBody
+
+# Counters, kept by the kernels themselves in one int64 array.
+C_STEPS = 0  # accepted steps
+C_REJECTED = 1  # rejected steps (adaptive methods)
+C_EVALS = 2  # right-hand-side evaluations, or sub-flow evaluations for splittings
+N_COUNTERS = 3
+
+# Status codes returned by kernels and steppers.
+ST_OK = 0
+ST_DIVERGED = 1  # a non-finite state
+ST_SINGULAR = 2  # the state left the domain of its form (Euler angles at the pole)
+ST_STEP_UNDERFLOW = 3  # an adaptive step fell below round-off of t
+ST_NO_CONVERGENCE = 4  # an implicit solve did not converge
+ST_FAILED = 5  # any other failure reported by a library (scipy references)
+STATUS_NAMES = ("ok", "diverged", "singular", "step-underflow", "no-convergence", "failed")
+
+FAMILIES = ("explicit-rk", "adaptive-rk", "splitting", "gauss-legendre", "reference", "external")
+KEEPS = ("energy", "p_phi", "p_psi", "norm")
+
+
+class MethodRefused(ValueError):
+    """The method cannot run this case, form or setting; the message says why."""
+
+
+@dataclass(frozen=True)
+class MethodInfo:
+    name: str
+    family: str
+    order: int
+    symplectic: bool
+    forms: tuple[str, ...]
+    control: str  # "step" or "tolerance"
+    keeps: tuple[str, ...]
+    compensated: bool
+    description: str
+    source: str = ""  # where the coefficients come from
+
+    def __post_init__(self) -> None:
+        if self.control not in ("step", "tolerance"):
+            raise ValueError(f"{self.name}: control must be 'step' or 'tolerance'")
+        for f in self.forms:
+            if f not in FORM_NAMES:
+                raise ValueError(f"{self.name}: unknown form {f!r}")
+        for k in self.keeps:
+            if k not in KEEPS:
+                raise ValueError(f"{self.name}: unknown invariant {k!r} in keeps")
+
+    def as_json(self) -> dict:
+        return {
+            "name": self.name,
+            "family": self.family,
+            "order": self.order,
+            "symplectic": self.symplectic,
+            "forms": list(self.forms),
+            "control": self.control,
+            "keeps": list(self.keeps),
+            "compensated": self.compensated,
+            "description": self.description,
+        }
+
+
+@dataclass
+class Stepper(ABC):
+    """A run in progress. Subclasses fill in `advance_to`, `snapshot` and `restore`."""
+
+    form: int
+    params: np.ndarray
+    t: float
+    y: np.ndarray
+    counters: np.ndarray = field(default_factory=lambda: np.zeros(N_COUNTERS, dtype=np.int64))
+    status: int = ST_OK
+    # Time at which a failure was detected (the last good step's end), NaN while ok.
+    t_fail: float = float("nan")
+
+    @abstractmethod
+    def advance_to(self, t_end: float) -> int:
+        """Advance to t_end; afterwards self.t == t_end and self.y is the state there, or
+        self.status is not ST_OK and self.t_fail says when. Returns self.status."""
+
+    @abstractmethod
+    def snapshot(self) -> dict:
+        """Everything needed to continue bit for bit: names to floats, ints or arrays."""
+
+    @abstractmethod
+    def restore(self, snap: dict) -> None:
+        """Take back a snapshot made by the same method and settings."""
+
+
+class Method(ABC):
+    info: MethodInfo
+
+    @property
+    def name(self) -> str:
+        return self.info.name
+
+    def default_form(self, body: RigidBody) -> str:
+        """The first of the method's forms that can describe this body."""
+        for f in self.info.forms:
+            if f == "body" or body.lagrange_top:
+                return f
+        raise MethodRefused(
+            f"{self.name}: works only in the Euler-angle form, which needs a symmetric body "
+            f"(I1 = I2) with its centre of mass on axis 3; this body is not one"
+        )
+
+    def check(self, body: RigidBody, form: str, settings: dict) -> None:
+        """Refuse up front, with the reason, what this method cannot run."""
+        if form not in self.info.forms:
+            raise MethodRefused(
+                f"{self.name}: has no {form!r} form (it runs in {', '.join(self.info.forms)})"
+            )
+        if form == "euler" and not body.lagrange_top:
+            raise MethodRefused(
+                f"{self.name}: the Euler-angle form needs a symmetric body (I1 = I2) with its "
+                f"centre of mass on axis 3; use the body form"
+            )
+        if self.info.control == "step":
+            h = settings.get("step")
+            if not isinstance(h, float) or not h > 0.0 or h == float("inf"):
+                raise MethodRefused(f"{self.name}: needs a positive finite step, got {h!r}")
+        else:
+            for key in ("rtol", "atol"):
+                v = settings.get(key)
+                if not isinstance(v, float) or not v > 0.0 or v == float("inf"):
+                    raise MethodRefused(f"{self.name}: needs a positive finite {key}, got {v!r}")
+
+    @abstractmethod
+    def start(
+        self, form: int, params: np.ndarray, t0: float, y0: np.ndarray, settings: dict
+    ) -> Stepper:
+        """A stepper at (t0, y0). settings: {"step": h} or {"rtol": r, "atol": a}, plus any
+        method-specific keys the method documents."""

@@ -1,0 +1,3 @@
+"""Placeholder until this family lands."""
+
+METHODS = []
