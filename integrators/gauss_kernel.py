@@ -1,0 +1,168 @@
+"""The one kernel behind every Gauss-Legendre method: fixed steps of an s-stage implicit Runge-Kutta
+method given by its tableau, the stage equations solved by fixed-point iteration to round-off.
+
+Stage equations in increment form, Z_i = Y_i - y_n = h sum_j a_ij f(y_n + Z_j): the Z are small,
+so their round-off is small against y_n (Hairer, McLachlan and Razakarivony, "Achieving Brouwer's
+law with implicit Runge-Kutta methods", BIT 48 (2008) 231-243, from memory). The iteration stops
+when the largest change of Z is zero or no longer decreases (the same paper's criterion); it has
+converged if that last change was at round-off level, and it gives up after `max_iter` sweeps.
+The update y_{n+1} = y_n + h sum_i b_i F_i is added either plainly or with Kahan's compensated
+summation, carrying the compensation from step to step (Hairer, Lubich, Wanner, Geometric
+Numerical Integration, sec. VIII.5).
+
+The starting guess for Z comes from the last step's collocation polynomial extrapolated over the
+new step (matrix E in gauss_tableau), or, for a first step or after the step changed sign, from
+Z_i = c_i h f(y_n). Everything is in caller-owned flat arrays: nothing is allocated per step.
+"""
+
+from __future__ import annotations
+
+import math
+
+from numba import njit
+
+from topdrift.models.dynamics import rhs, singular
+
+from .base import C_EVALS, C_STEPS, ST_DIVERGED, ST_NO_CONVERGENCE, ST_OK, ST_SINGULAR
+
+# A stalled iteration counts as converged only if its last change is below this fraction of the
+# largest stage increment. Round-off stalls near 1e-16 relative (times 1/(1 - rate) for slow
+# contraction); an iteration that does not contract stalls near 1. The gap is wide on purpose.
+STALL_RTOL = 1e-10
+
+# Layout of the persistent float64 `memo` array.
+M_HPREV = 0  # step of the stages kept in fprev; NaN when there are none
+N_MEMO = 1
+
+# Layout of the persistent int64 `iters` array.
+I_TOTAL = 0  # fixed-point sweeps, summed over steps
+I_MAX = 1  # most sweeps in one step
+N_ITERS = 2
+
+
+@njit(cache=True)
+def gauss_steps(
+    form,
+    y,
+    p,
+    h,
+    nsteps,
+    a,
+    b,
+    c,
+    e,
+    compensated,
+    max_iter,
+    comp,
+    fprev,
+    memo,
+    work,
+    counters,
+    iters,
+):
+    """Take up to nsteps steps of size h in place on y. Returns (status, steps taken).
+
+    work holds 2*s*n + 4*n floats. A failed step is not committed: y, comp, fprev stay at the
+    last good step.
+    """
+    n = y.shape[0]
+    s = b.shape[0]
+    sn = s * n
+    # Views into the work array: stage increments, stage derivatives, one stage value,
+    # one derivative, the candidate new state and its compensation.
+    z = work[0:sn]
+    f = work[sn : 2 * sn]
+    ys = work[2 * sn : 2 * sn + n]
+    dy = work[2 * sn + n : 2 * sn + 2 * n]
+    ynew = work[2 * sn + 2 * n : 2 * sn + 3 * n]
+    cnew = work[2 * sn + 3 * n : 2 * sn + 4 * n]
+    done = 0
+    for _ in range(nsteps):
+        # Starting guess.
+        if memo[M_HPREV] == h:
+            for i in range(s):
+                for k in range(n):
+                    acc = 0.0
+                    for j in range(s):
+                        acc += e[i * s + j] * fprev[j * n + k]
+                    z[i * n + k] = h * acc
+        else:
+            rhs(form, y, p, dy)
+            counters[C_EVALS] += 1
+            for i in range(s):
+                for k in range(n):
+                    z[i * n + k] = c[i] * h * dy[k]
+        # Fixed-point sweeps.
+        status = ST_NO_CONVERGENCE
+        prev = math.inf
+        sweeps = 0
+        for _it in range(max_iter):
+            for i in range(s):
+                for k in range(n):
+                    ys[k] = y[k] + z[i * n + k]
+                rhs(form, ys, p, dy)
+                for k in range(n):
+                    f[i * n + k] = dy[k]
+            counters[C_EVALS] += s
+            sweeps += 1
+            delta = 0.0
+            zmax = 0.0
+            for i in range(s):
+                for k in range(n):
+                    acc = 0.0
+                    for j in range(s):
+                        acc += a[i * s + j] * f[j * n + k]
+                    znew = h * acc
+                    d = abs(znew - z[i * n + k])
+                    # NaN-safe: a NaN change makes delta NaN, caught below.
+                    if not d <= delta:
+                        delta = d
+                    az = abs(znew)
+                    if az > zmax:
+                        zmax = az
+                    z[i * n + k] = znew
+            if not math.isfinite(delta):
+                status = ST_DIVERGED
+                break
+            if delta == 0.0:
+                status = ST_OK
+                break
+            if delta >= prev:
+                status = ST_OK if prev <= STALL_RTOL * zmax else ST_NO_CONVERGENCE
+                break
+            prev = delta
+        iters[I_TOTAL] += sweeps
+        if sweeps > iters[I_MAX]:
+            iters[I_MAX] = sweeps
+        if status != ST_OK:
+            return status, done
+        # Update, with the derivatives of the last sweep.
+        finite = True
+        for k in range(n):
+            acc = 0.0
+            for i in range(s):
+                acc += b[i] * f[i * n + k]
+            inc = h * acc
+            if compensated:
+                x = inc + comp[k]
+                yk = y[k] + x
+                cnew[k] = (y[k] - yk) + x
+            else:
+                yk = y[k] + inc
+                cnew[k] = 0.0
+            ynew[k] = yk
+            if not math.isfinite(yk):
+                finite = False
+        if not finite:
+            return ST_DIVERGED, done
+        if singular(form, ynew):
+            return ST_SINGULAR, done
+        for k in range(n):
+            y[k] = ynew[k]
+            comp[k] = cnew[k]
+        for k in range(sn):
+            fprev[k] = f[k]
+        memo[M_HPREV] = h
+        counters[C_STEPS] += 1
+        done += 1
+    return ST_OK, done
