@@ -10,6 +10,8 @@ import sys
 # Subcommand modules, in the order `topdrift --help` lists them.
 COMMANDS = (
     "methods",
+    "run",
+    "summary",
 )
 
 EXIT_OK = 0

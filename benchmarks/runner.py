@@ -1,0 +1,527 @@
+"""The long-horizon runner: one case, one method, one setting, sampled at uniform times.
+
+A run advances its stepper from sample to sample (t_k = k T / (n - 1), t = 0 and T included), so
+memory stays constant however many steps the horizon takes; dense output between steps is the
+adaptive stepper's job, and for fixed-step methods the step is rounded down to divide the sample
+interval. Samples are buffered and written in batches, each batch followed by a checkpoint
+(stepper snapshot, sample index, metric accumulators, time spent), so that `resume` continues a
+killed or interrupted run to the same bits as one that never stopped.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import math
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from topdrift.integrators import (
+    ST_DIVERGED,
+    ST_OK,
+    ST_SINGULAR,
+    STATUS_NAMES,
+    Method,
+    MethodRefused,
+    Stepper,
+)
+from topdrift.integrators import get as get_method
+from topdrift.models import FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
+
+from .errors import UserError
+from .metrics import Accumulator, finish
+from .sampling import N_SCALARS, S_ENERGY, S_NORM, S_P_PHI, S_P_PSI, record_sample
+from .store import RunGroup, utc_now
+
+FLUSH_EVERY_S = 2.0
+BATCH_ROWS = 4096
+
+
+@dataclass
+class StopFlag:
+    """Set by a signal handler; the runner looks at it after every sample."""
+
+    signum: int = 0
+
+    @property
+    def requested(self) -> bool:
+        return self.signum != 0
+
+
+@dataclass
+class RunPlan:
+    """Everything a run needs, validated before any file is touched."""
+
+    case: object
+    method: Method
+    form: str
+    horizon: float
+    samples: int
+    settings: dict  # stored with the run: requested and used values
+    stepper_settings: dict  # what the stepper is given
+    y0: np.ndarray | None  # start state in `form`; None when it cannot be written in it
+    params: np.ndarray
+    exact: object | None
+    run_id: str
+    notes: list[str] = field(default_factory=list)
+    start_singular: str = ""  # why the start has no state in this form (the pole)
+
+    @property
+    def form_code(self) -> int:
+        return form_code(self.form)
+
+    @property
+    def label(self) -> str:
+        return f"{self.case.name} {self.method.name} {self.run_id[:8]}"
+
+    def sample_time(self, k: int) -> float:
+        if k == self.samples - 1:
+            return self.horizon
+        return self.horizon * k / (self.samples - 1)
+
+
+@dataclass
+class RunResult:
+    run_id: str
+    status: str
+    metrics: dict
+    detail: str = ""
+
+
+def _positive(name: str, v) -> float:
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        raise UserError(f"{name}: expected a number, got {v!r}") from None
+    if not (math.isfinite(v) and v > 0.0):
+        raise UserError(f"{name}: must be a positive finite number, got {v!r}")
+    return v
+
+
+def start_state(case, form: str) -> np.ndarray:
+    """The case's start state in `form` as a fresh C-contiguous float64 array.
+
+    Raises SingularAttitude for a start on the vertical in the Euler form (see plan_run)."""
+    if form == "euler" and case.body.lagrange_top and math.sin(case.start.theta) == 0.0:
+        raise SingularAttitude(
+            f"{case.name}: the start is on the vertical (sin(theta) = 0), where the Euler form "
+            "is singular; the body form can run it"
+        )
+    y = case.state(form)
+    return np.ascontiguousarray(np.array(y, dtype=np.float64))
+
+
+def make_run_id(
+    case_toml: str, method: str, form: str, settings: dict, horizon: float, samples: int
+) -> str:
+    """A stable hash of what determines the run's numbers."""
+    key = json.dumps(
+        {
+            "case_toml": case_toml,
+            "method": method,
+            "form": form,
+            "settings": settings,
+            "horizon": repr(float(horizon)),
+            "samples": int(samples),
+        },
+        sort_keys=True,
+    )
+    return hashlib.sha256(key.encode()).hexdigest()[:16]
+
+
+def plan_run(
+    case,
+    method_name: str,
+    *,
+    step=None,
+    rtol=None,
+    atol=None,
+    form=None,
+    horizon=None,
+    samples=None,
+) -> RunPlan:
+    """Validate a run and settle its settings; raises UserError or MethodRefused (exit 2)."""
+    method = get_method(method_name)
+    body = case.body
+    horizon = _positive("--horizon", case.horizon if horizon is None else horizon)
+    n = case.samples if samples is None else samples
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 2:
+        raise UserError(f"--samples: need a whole number of at least 2 (t = 0 and T), got {n!r}")
+    n = int(n)
+    notes = []
+    if form is None:
+        form = method.default_form(body)
+    elif form not in FORM_NAMES:
+        raise UserError(f"--form: expected one of {', '.join(FORM_NAMES)}, got {form!r}")
+    interval = horizon / (n - 1)
+    if method.info.control == "step":
+        if step is None:
+            raise UserError(f"{method.name}: a fixed-step method needs --step")
+        if rtol is not None or atol is not None:
+            raise UserError(f"{method.name}: a fixed-step method takes --step, not --rtol/--atol")
+        h_req = _positive("--step", step)
+        per = max(1, math.ceil(interval / h_req))
+        h = interval / per
+        settings = {"step": h, "step_requested": h_req, "steps_per_sample": per}
+        stepper_settings = {"step": h}
+        if h != h_req:
+            notes.append(
+                f"step rounded down from {h_req:.17g} to {h:.17g} so that {per} steps fill "
+                f"each sample interval of {interval:.17g}"
+            )
+    else:
+        if step is not None:
+            raise UserError(f"{method.name}: an adaptive method takes --rtol [--atol], not --step")
+        if rtol is None:
+            raise UserError(f"{method.name}: an adaptive method needs --rtol")
+        r = _positive("--rtol", rtol)
+        a = r * 1e-3 if atol is None else _positive("--atol", atol)
+        settings = {"rtol": r, "atol": a}
+        stepper_settings = {"rtol": r, "atol": a}
+    method.check(body, form, stepper_settings)
+    params = body.params()
+    start_singular = ""
+    try:
+        y0 = start_state(case, form)
+    except SingularAttitude as exc:
+        # The Euler form cannot hold a start at the pole: the run is recorded as singular at 0.
+        y0 = None
+        start_singular = str(exc)
+    if y0 is not None and y0.shape != (FORM_SIZE[form_code(form)],):
+        raise UserError(f"{case.name}: start state has shape {y0.shape} for the {form} form")
+    exact = None
+    if y0 is not None and body.lagrange_top:
+        exact = _exact_solution(body, form, y0, notes)
+    run_id = make_run_id(case.toml_text, method.name, form, settings, horizon, n)
+    plan = RunPlan(
+        case,
+        method,
+        form,
+        horizon,
+        n,
+        settings,
+        stepper_settings,
+        y0,
+        params,
+        exact,
+        run_id,
+        notes,
+        start_singular,
+    )
+    if y0 is not None:
+        warm_up(plan)  # compiles, and lets start() refuse before any file exists
+    return plan
+
+
+def _exact_solution(body, form: str, y0: np.ndarray, notes: list[str]):
+    try:
+        from topdrift.models.exact import ExactUnavailable, LagrangeTop
+    except ImportError:
+        notes.append("no exact solution: topdrift.models.exact is not available")
+        return None
+    try:
+        return LagrangeTop.from_state(body, form, y0)
+    except ExactUnavailable as exc:
+        notes.append(f"no exact solution: {exc}")
+        return None
+
+
+class _Buffers:
+    """Preallocated sample rows between flushes, plus the scratch arrays of record_sample."""
+
+    def __init__(self, rows: int, width: int):
+        self.state = np.zeros((rows, width))
+        self.euler = np.zeros((rows, 3))
+        self.quat = np.zeros((rows, 4))
+        self.mom = np.zeros((rows, 3))
+        self.axis = np.zeros((rows, 3))
+        self.scal = np.zeros((rows, N_SCALARS))
+        self.t = np.zeros(rows)
+        self.ye = np.zeros(6)
+        self.yb = np.zeros(7)
+        self.inv = np.zeros(5)
+        self.rows = rows
+
+    def record(self, form: int, y: np.ndarray, p: np.ndarray, j: int) -> bool:
+        return record_sample(
+            form,
+            y,
+            p,
+            j,
+            self.state,
+            self.euler,
+            self.quat,
+            self.mom,
+            self.axis,
+            self.scal,
+            self.ye,
+            self.yb,
+            self.inv,
+        )
+
+
+def warm_up(plan: RunPlan) -> None:
+    """Compile every kernel the run calls, on throwaway copies, before any clock starts."""
+    interval = plan.horizon / (plan.samples - 1)
+    w = plan.method.start(
+        plan.form_code, plan.params.copy(), 0.0, plan.y0.copy(), dict(plan.stepper_settings)
+    )
+    if "step" in plan.stepper_settings:
+        h = plan.stepper_settings["step"]
+        w.advance_to(2.0 * h)
+    else:
+        w.advance_to(interval * 1e-6)
+    w.snapshot()
+    b = _Buffers(1, plan.y0.shape[0])
+    b.record(plan.form_code, plan.y0, plan.params, 0)
+
+
+def _exact_rows(plan: RunPlan, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    e = np.array(plan.exact.euler(t), dtype=np.float64).reshape(-1, 3)
+    e[:, 0] = np.arctan2(np.sin(e[:, 0]), np.cos(e[:, 0]))
+    e[:, 2] = np.arctan2(np.sin(e[:, 2]), np.cos(e[:, 2]))
+    a = np.array(plan.exact.axis(t), dtype=np.float64).reshape(-1, 3)
+    return e, a
+
+
+def versions() -> dict:
+    import platform
+    import sys
+    from importlib.metadata import PackageNotFoundError, version
+
+    out = {"python": sys.version.split()[0]}
+    for pkg in ("topdrift", "numpy", "scipy", "numba", "h5py"):
+        try:
+            out[pkg] = version(pkg)
+        except PackageNotFoundError:
+            out[pkg] = None
+    cpu = platform.processor() or platform.machine()
+    try:
+        with open("/proc/cpuinfo") as fh:
+            for line in fh:
+                if line.startswith("model name"):
+                    cpu = line.split(":", 1)[1].strip()
+                    break
+    except OSError:
+        pass
+    out["cpu"] = cpu
+    return out
+
+
+def run_attrs(plan: RunPlan) -> dict:
+    c = plan.case
+    return {
+        "case": c.name,
+        "case_toml": c.toml_text,
+        "method": plan.method.name,
+        "form": plan.form,
+        "settings": json.dumps(plan.settings),
+        "horizon": float(plan.horizon),
+        "samples": int(plan.samples),
+        "created": utc_now(),
+        "versions": json.dumps(versions()),
+        "notes": json.dumps(plan.notes),
+    }
+
+
+class _Run:
+    """The mutable part of a run in progress; its state() is the checkpoint."""
+
+    def __init__(self, plan: RunPlan, group: RunGroup):
+        self.plan = plan
+        self.group = group
+        self.k = 0  # next sample to take
+        self.wall = 0.0
+        self.stepper: Stepper | None = None
+        self.acc: Accumulator | None = None
+
+    def checkpoint(self) -> None:
+        s = self.stepper
+        self.group.write_checkpoint(
+            {
+                "run": {
+                    "sample": self.k,
+                    "wall_s": self.wall,
+                    "t": float(s.t),
+                    "y": np.array(s.y, dtype=np.float64),
+                    "counters": np.array(s.counters, dtype=np.int64),
+                },
+                "stepper": s.snapshot(),
+                "metrics": self.acc.state(),
+            }
+        )
+
+    def restore(self) -> None:
+        cp = self.group.read_checkpoint()
+        if cp is None or "run" not in cp:
+            raise UserError(f"run {self.plan.run_id}: no checkpoint to resume from; use --force")
+        p = self.plan
+        self.k = int(cp["run"]["sample"])
+        self.wall = float(cp["run"]["wall_s"])
+        self.stepper = p.method.start(
+            p.form_code, p.params.copy(), 0.0, p.y0.copy(), dict(p.stepper_settings)
+        )
+        self.stepper.restore(cp["stepper"])
+        self.stepper.counters[:] = cp["run"]["counters"]
+        if not (
+            self.stepper.t == cp["run"]["t"] and np.array_equal(self.stepper.y, cp["run"]["y"])
+        ):
+            raise UserError(f"run {p.run_id}: the stepper did not restore its checkpoint exactly")
+        self.acc = Accumulator.from_state(cp["metrics"])
+        self.group.truncate(self.k)
+
+
+def execute(
+    plan: RunPlan,
+    f,
+    *,
+    resume: bool = False,
+    progress=None,
+    stop: StopFlag | None = None,
+    flush_every: float = FLUSH_EVERY_S,
+) -> RunResult:
+    """Run a plan into the open store f (creating or continuing its group)."""
+    stop = stop or StopFlag()
+    has_exact = plan.exact is not None
+    width = FORM_SIZE[plan.form_code]
+    if resume:
+        group = RunGroup(f, plan.run_id)
+        run = _Run(plan, group)
+        run.restore()
+        group.set(status="running")
+        group.flush()
+    else:
+        group = RunGroup.create(f, plan.run_id, run_attrs(plan), width, has_exact)
+        run = _Run(plan, group)
+    if plan.y0 is None:
+        return _end_at_start_singular(plan, group)
+    if not resume:
+        run.stepper = plan.method.start(
+            plan.form_code, plan.params.copy(), 0.0, plan.y0.copy(), dict(plan.stepper_settings)
+        )
+    return _loop(plan, run, has_exact, progress, stop, flush_every)
+
+
+def _end_at_start_singular(plan: RunPlan, group: RunGroup) -> RunResult:
+    metrics = {"t_fail": 0.0}
+    group.set(status="singular", detail=plan.start_singular)
+    group.set_metrics(metrics)
+    group.flush()
+    return RunResult(plan.run_id, "singular", metrics, plan.start_singular)
+
+
+def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
+    form = plan.form_code
+    p = plan.params
+    n = plan.samples
+    s = run.stepper
+    buf = _Buffers(min(BATCH_ROWS, n), FORM_SIZE[form])
+    j = 0
+    status = "ok"
+    detail = ""
+    t_fail = None
+    last_flush = time.perf_counter()
+    if progress:
+        progress.begin(run.k, int(s.counters[0]))
+
+    def flush() -> None:
+        nonlocal j, last_flush
+        if j:
+            tb = buf.t[:j].copy()
+            batch = {
+                "t": tb,
+                "state": buf.state[:j],
+                "euler": buf.euler[:j],
+                "quaternion": buf.quat[:j],
+                "momentum": buf.mom[:j],
+                "invariants/energy": buf.scal[:j, S_ENERGY],
+                "invariants/p_phi": buf.scal[:j, S_P_PHI],
+                "invariants/p_psi": buf.scal[:j, S_P_PSI],
+                "invariants/norm": buf.scal[:j, S_NORM],
+            }
+            ee = ea = None
+            if has_exact:
+                ee, ea = _exact_rows(plan, tb)
+                batch["exact/euler"] = ee
+                batch["exact/axis"] = ea
+            run.acc.update(buf.scal[:j], buf.euler[:j], buf.axis[:j], ee, ea)
+            run.group.append(batch)
+        run.checkpoint()
+        m = run.acc.maxima_dict()
+        m["steps"] = int(s.counters[0])
+        run.group.set_metrics(m)
+        run.group.flush()
+        j = 0
+        last_flush = time.perf_counter()
+        if progress:
+            progress.flushed(run.k, int(s.counters[0]))
+
+    if run.k == 0:
+        buf.t[0] = 0.0
+        if not buf.record(form, s.y, p, 0):
+            raise UserError(f"{plan.case.name}: the start state is not finite")
+        run.acc = Accumulator.at_start(buf.scal[0], buf.mom[0], p, has_exact, form != 0)
+        j = 1
+        run.k = 1
+    clock = time.perf_counter
+    while run.k < n:
+        tk = plan.sample_time(run.k)
+        t0 = clock()
+        try:
+            st = s.advance_to(tk)
+        except MethodRefused as exc:
+            run.wall += clock() - t0
+            status, detail, t_fail = "failed", str(exc), float(s.t)
+            break
+        run.wall += clock() - t0
+        if st != ST_OK:
+            t_fail = float(s.t_fail) if math.isfinite(s.t_fail) else float(s.t)
+            if st == ST_SINGULAR:
+                status = "singular"
+            elif st == ST_DIVERGED:
+                status = "diverged"
+            else:
+                status = "failed"
+            detail = f"stepper reported {STATUS_NAMES[st]} at t = {t_fail:.17g}"
+            break
+        buf.t[j] = tk
+        if not buf.record(form, s.y, p, j):
+            status, t_fail = "diverged", tk
+            detail = f"non-finite state at t = {tk:.17g}"
+            break
+        e_rel = abs(buf.scal[j, S_ENERGY] - run.acc.e0) / run.acc.e_scale
+        j += 1
+        run.k += 1
+        if not e_rel <= 1.0:
+            status, t_fail = "diverged", tk
+            detail = f"relative energy error {e_rel:.3g} > 1 at t = {tk:.17g}"
+            break
+        if progress:
+            progress.update(run.k, int(s.counters[0]))
+        if run.k < n and (j == buf.rows or stop.requested or clock() - last_flush >= flush_every):
+            flush()
+            if stop.requested:
+                metrics = _final_metrics(run, None)
+                run.group.set_metrics(metrics)
+                run.group.set(status="interrupted")
+                run.group.flush()
+                if progress:
+                    progress.end("interrupted")
+                return RunResult(plan.run_id, "interrupted", metrics)
+    flush()
+    metrics = _final_metrics(run, t_fail)
+    run.group.set_metrics(metrics)
+    run.group.set(status=status, detail=detail)
+    run.group.flush()
+    if progress:
+        progress.end(status)
+    return RunResult(plan.run_id, status, metrics, detail)
+
+
+def _final_metrics(run: _Run, t_fail) -> dict:
+    g = run.group.g
+    t = g["t"][()]
+    energy = g["invariants/energy"][()]
+    return finish(run.acc, run.stepper.counters, run.wall, t, energy, t_fail)
