@@ -10,6 +10,8 @@ import sys
 # Subcommand modules, in the order `topdrift --help` lists them.
 COMMANDS = (
     "methods",
+    "describe",
+    "cases",
     "run",
     "summary",
 )
