@@ -356,3 +356,17 @@ def test_installed_command_prints_no_traceback(tmp_path):
         "use one of rad/s, deg/s, rev/s, rpm, rev/min\n"
     )
     assert sorted(p.name for p in tmp_path.iterdir()) == ["case.toml"]
+
+
+def test_readme_example_case_parses():
+    # The full example in the README's "Case files" section is part of the contract.
+    import re
+    from pathlib import Path
+
+    readme = Path(__file__).resolve().parents[1] / "README.md"
+    section = readme.read_text(encoding="utf-8").split("## Case files", 1)[1]
+    example = re.search(r"```toml\n(.*?)```", section, re.S).group(1)
+    case = parse_case(example, "README example")
+    assert case.name == "brass-top"
+    assert case.start.psi_rate == pytest.approx(40 * math.pi, rel=1e-15)  # 1200 rpm
+    assert case.run == {"method": "dop853", "rtol": 1e-10, "atol": 1e-12}
