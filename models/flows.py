@@ -122,3 +122,159 @@ def flow_b(form, h, y, p):
         kick_euler(h, y, p)
     else:
         kick_body(h, y, p)
+
+
+# Increment forms of the sub-flows, for compensated summation: each writes d = flow(y) - y
+# into d (same length as y) without forming flow(y) first, so that no increment is computed as
+# the difference of two nearly equal numbers (cos(a) - 1 is written -2 sin^2(a/2)). The
+# integrator adds d to y with compensation; y itself is not changed here.
+
+
+@njit(cache=True)
+def drift_euler_increment(h, y, p, d):
+    d[0] = 0.0
+    d[1] = h * y[4] * p[P_INV1]
+    d[2] = h * y[5] * p[P_INV3]
+    d[3] = 0.0
+    d[4] = 0.0
+    d[5] = 0.0
+
+
+@njit(cache=True)
+def kick_euler_increment(h, y, p, d):
+    theta = y[1]
+    p_psi = y[5]
+    s = math.sin(theta)
+    c = math.cos(theta)
+    a = y[3] - p_psi * c
+    r = a * p[P_INV1] / (s * s)
+    d[0] = h * r
+    d[1] = 0.0
+    d[2] = -h * c * r
+    d[3] = 0.0
+    d[4] = h * (r * (a * c / s - p_psi * s) + p[P_MGZ] * s)
+    d[5] = 0.0
+
+
+@njit(cache=True)
+def kick_body_increment(h, y, p, d):
+    g1, g2, g3 = vertical_in_body(y[0], y[1], y[2], y[3])
+    cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
+    d[0] = 0.0
+    d[1] = 0.0
+    d[2] = 0.0
+    d[3] = 0.0
+    d[4] = h * (g2 * cz - g3 * cy)
+    d[5] = h * (g3 * cx - g1 * cz)
+    if cx != 0.0 or cy != 0.0:
+        d[6] = h * (g1 * cy - g2 * cx)
+    else:
+        d[6] = 0.0
+
+
+@njit(cache=True)
+def _free_symmetric_increment(h, q0, q1, q2, q3, m1, m2, m3, p):
+    """Increment of free_symmetric: q' - q = (qL - 1)(q qe3) + q (qe3 - 1), then the same
+    one-step renormalisation, q'' - q = (q' - q) + q' (1 - |q'|^2) / 2."""
+    lx, ly, lz = rotate(q0, q1, q2, q3, m1, m2, m3)
+    lnorm = math.sqrt(lx * lx + ly * ly + lz * lz)
+    # qe3 = (cos hb, 0, 0, sin hb); qe3 - 1 = (-2 sin^2(hb/2), 0, 0, sin hb)
+    beta = h * (p[P_INV3] - p[P_INV1]) * m3
+    hb = 0.5 * beta
+    s_hb = math.sin(hb)
+    s_qb = math.sin(0.5 * hb)
+    e0 = -2.0 * s_qb * s_qb
+    e3 = s_hb
+    # q qe3 = q + q (qe3 - 1)
+    r0, r1, r2, r3 = qmul(q0, q1, q2, q3, e0, 0.0, 0.0, e3)
+    dq0, dq1, dq2, dq3 = r0, r1, r2, r3
+    if lnorm > 0.0:
+        half = 0.5 * h * lnorm * p[P_INV1]
+        sh = math.sin(half) / lnorm
+        s_q = math.sin(0.5 * half)
+        a0 = -2.0 * s_q * s_q
+        u0, u1, u2, u3 = qmul(a0, sh * lx, sh * ly, sh * lz, q0 + r0, q1 + r1, q2 + r2, q3 + r3)
+        dq0 += u0
+        dq1 += u1
+        dq2 += u2
+        dq3 += u3
+    n0 = q0 + dq0
+    n1 = q1 + dq1
+    n2 = q2 + dq2
+    n3 = q3 + dq3
+    g = 0.5 * (1.0 - (n0 * n0 + n1 * n1 + n2 * n2 + n3 * n3))
+    # m(h) = Rot(e3, -beta) m: cos(beta) - 1 = -2 sin^2(beta/2), sin(beta) = 2 sin(hb) cos(hb)
+    cb1 = -2.0 * s_hb * s_hb
+    sb = 2.0 * s_hb * (1.0 + e0)
+    return (
+        dq0 + n0 * g,
+        dq1 + n1 * g,
+        dq2 + n2 * g,
+        dq3 + n3 * g,
+        m1 * cb1 + m2 * sb,
+        m2 * cb1 - m1 * sb,
+    )
+
+
+@njit(cache=True)
+def _turn_axis2_increment(h, q0, q1, q2, q3, m1, m2, m3, p):
+    """Increment of turn_axis2: q (qe2 - 1) with qe2 - 1 = (-2 sin^2(hb/2), 0, sin hb, 0)."""
+    beta = h * (p[P_INV2] - p[P_INV1]) * m2
+    hb = 0.5 * beta
+    s_hb = math.sin(hb)
+    s_qb = math.sin(0.5 * hb)
+    e0 = -2.0 * s_qb * s_qb
+    dq0, dq1, dq2, dq3 = qmul(q0, q1, q2, q3, e0, 0.0, s_hb, 0.0)
+    cb1 = -2.0 * s_hb * s_hb
+    sb = 2.0 * s_hb * (1.0 + e0)
+    return dq0, dq1, dq2, dq3, m1 * cb1 - m3 * sb, m1 * sb + m3 * cb1
+
+
+@njit(cache=True)
+def free_body_increment(h, y, p, d):
+    """Increment of free_body, written into d; y is left as it is. For I1 != I2 the three
+    pieces are evaluated in turn and their increments summed (never y_end - y)."""
+    q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
+    m1, m2, m3 = y[4], y[5], y[6]
+    if p[P_I1] == p[P_I2]:
+        d0, d1, d2, d3, dm1, dm2 = _free_symmetric_increment(h, q0, q1, q2, q3, m1, m2, m3, p)
+        d[0] = d0
+        d[1] = d1
+        d[2] = d2
+        d[3] = d3
+        d[4] = dm1
+        d[5] = dm2
+        d[6] = 0.0
+        return
+    a0, a1, a2, a3, am1, am3 = _turn_axis2_increment(0.5 * h, q0, q1, q2, q3, m1, m2, m3, p)
+    r0, r1, r2, r3 = q0 + a0, q1 + a1, q2 + a2, q3 + a3
+    rm1, rm3 = m1 + am1, m3 + am3
+    b0, b1, b2, b3, bm1, bm2 = _free_symmetric_increment(h, r0, r1, r2, r3, rm1, m2, rm3, p)
+    r0, r1, r2, r3 = r0 + b0, r1 + b1, r2 + b2, r3 + b3
+    rm1, rm2 = rm1 + bm1, m2 + bm2
+    c0, c1, c2, c3, cm1, cm3 = _turn_axis2_increment(0.5 * h, r0, r1, r2, r3, rm1, rm2, rm3, p)
+    d[0] = a0 + b0 + c0
+    d[1] = a1 + b1 + c1
+    d[2] = a2 + b2 + c2
+    d[3] = a3 + b3 + c3
+    d[4] = am1 + bm1 + cm1
+    d[5] = bm2
+    d[6] = am3 + cm3
+
+
+@njit(cache=True)
+def increment_a(form, h, y, p, d):
+    """flow_a(form, h, y, p) - y, written into d, y unchanged (compensated summation)."""
+    if form == FORM_EULER:
+        drift_euler_increment(h, y, p, d)
+    else:
+        free_body_increment(h, y, p, d)
+
+
+@njit(cache=True)
+def increment_b(form, h, y, p, d):
+    """flow_b(form, h, y, p) - y, written into d, y unchanged (compensated summation)."""
+    if form == FORM_EULER:
+        kick_euler_increment(h, y, p, d)
+    else:
+        kick_body_increment(h, y, p, d)
