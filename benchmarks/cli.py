@@ -14,6 +14,9 @@ COMMANDS = (
     "cases",
     "run",
     "summary",
+    "plot",
+    "report",
+    "sweep",
 )
 
 EXIT_OK = 0
