@@ -4,8 +4,8 @@ method given by its tableau, the stage equations solved by fixed-point iteration
 Stage equations in increment form, Z_i = Y_i - y_n = h sum_j a_ij f(y_n + Z_j): the Z are small,
 so their round-off is small against y_n (Hairer, McLachlan and Razakarivony, "Achieving Brouwer's
 law with implicit Runge-Kutta methods", BIT 48 (2008) 231-243, from memory). The iteration stops
-when the largest change of Z is zero or no longer decreases (the same paper's criterion); it has
-converged if that last change was at round-off level, and it gives up after `max_iter` sweeps.
+when the largest change of Z is zero or no longer decreases once it is at round-off level (the
+same paper's criterion), and gives up after `max_iter` sweeps (ST_NO_CONVERGENCE).
 The update y_{n+1} = y_n + h sum_i b_i F_i is added either plainly or with Kahan's compensated
 summation, carrying the compensation from step to step (Hairer, Lubich, Wanner, Geometric
 Numerical Integration, sec. VIII.5).
@@ -25,9 +25,11 @@ from topdrift.models.dynamics import rhs, singular
 
 from .base import C_EVALS, C_STEPS, ST_DIVERGED, ST_NO_CONVERGENCE, ST_OK, ST_SINGULAR
 
-# A stalled iteration counts as converged only if its last change is below this fraction of the
-# largest stage increment. Round-off stalls near 1e-16 relative (times 1/(1 - rate) for slow
-# contraction); an iteration that does not contract stalls near 1. The gap is wide on purpose.
+# A stalled iteration counts as converged only if its last change is below this fraction of
+# max|Z| + max|y_n|, with Z after the first sweep (a scale taken later would grow with a diverging
+# iteration). Round-off stalls near 1e-16 of that (times 1/(1 - rate) for slow contraction; |y_n|
+# enters because rounding y_n + Z feeds back through f, which matters when the motion is slow);
+# an iteration that does not contract stalls near max|Z|. The gap is wide on purpose.
 STALL_RTOL = 1e-10
 
 # Layout of the persistent float64 `memo` array.
@@ -92,9 +94,15 @@ def gauss_steps(
             for i in range(s):
                 for k in range(n):
                     z[i * n + k] = c[i] * h * dy[k]
+        ymax = 0.0
+        for k in range(n):
+            ay = abs(y[k])
+            if ay > ymax:
+                ymax = ay
         # Fixed-point sweeps.
         status = ST_NO_CONVERGENCE
         prev = math.inf
+        zscale = 0.0
         sweeps = 0
         for _it in range(max_iter):
             for i in range(s):
@@ -122,13 +130,19 @@ def gauss_steps(
                         zmax = az
                     z[i * n + k] = znew
             if not math.isfinite(delta):
-                status = ST_DIVERGED
+                # Non-finite on the first sweep: the rhs itself is, next to y_n. Later: the
+                # iteration ran away.
+                status = ST_DIVERGED if sweeps == 1 else ST_NO_CONVERGENCE
                 break
             if delta == 0.0:
                 status = ST_OK
                 break
-            if delta >= prev:
-                status = ST_OK if prev <= STALL_RTOL * zmax else ST_NO_CONVERGENCE
+            # Stalled at round-off: done. A change that stops decreasing while still large is
+            # not a stall (early sweeps need not contract monotonically); sweep on to the cap.
+            if sweeps == 1:
+                zscale = zmax + ymax
+            if delta >= prev and prev <= STALL_RTOL * zscale:
+                status = ST_OK
                 break
             prev = delta
         iters[I_TOTAL] += sweeps
