@@ -34,12 +34,8 @@ def exact_summary(case: Case) -> tuple[dict | None, str | None]:
     """(summary, reason it is unavailable). (None, None) when the body is not a Lagrange top."""
     if not case.body.lagrange_top:
         return None, None
-    try:
-        from topdrift.models.exact import ExactUnavailable, LagrangeTop
-    except ModuleNotFoundError as exc:
-        if exc.name != "topdrift.models.exact":
-            raise
-        return None, "the exact solution (topdrift.models.exact) is not installed"
+    from topdrift.models.exact import ExactUnavailable, LagrangeTop
+
     try:
         top = LagrangeTop.from_state(case.body, FORM_BODY, case.body_state())
         summary = top.summary()

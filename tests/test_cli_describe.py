@@ -34,12 +34,9 @@ def test_describe_demo_json_has_the_documented_keys(capsys):
     assert {"energy", "p_phi", "p_psi"} <= set(info["invariants"])
     assert [p["name"] for p in info["wheel"]["parts"]] == ["rim", "tyre", "hub", "spokes", "axle"]
     assert info["start"]["rates"]["psi_rate"] == pytest.approx(20 * math.pi)  # 600 rpm
-    exact = info["exact"]
-    if exact is None:  # the exact solution may be missing, and then it must say why
-        assert info["exact_unavailable"]
-    else:
-        keys = {"theta_min", "theta_max", "nutation_period", "precession_per_period"}
-        assert keys | {"mean_precession_rate", "motion"} <= set(exact)
+    keys = {"theta_min", "theta_max", "nutation_period", "precession_per_period"}
+    assert keys | {"mean_precession_rate", "motion"} <= set(info["exact"])
+    assert "exact_unavailable" not in info
 
 
 def test_describe_by_name_and_by_path_agree(capsys):
@@ -106,7 +103,6 @@ def _cubic(info):
     "name", ["demo-wheel", "looping-nutation", "cusped-release", "pole-passage", "sleeping-below"]
 )
 def test_exact_summary_against_the_cubic(capsys, name):
-    pytest.importorskip("topdrift.models.exact")
     info = _json(capsys, ["describe", name, "--json"])
     theta_min, theta_max, period = _cubic(info)
     x = info["exact"]
@@ -165,3 +161,17 @@ def test_cases_json_lists_the_library(capsys):
     assert main(["cases"]) == 0
     out, _ = capsys.readouterr()
     assert "demo-wheel" in out and "chaotic-asymmetric" in out
+
+
+def test_exact_refusal_is_reported(capsys, monkeypatch):
+    from topdrift.models import exact
+
+    def refuse(*args, **kwargs):
+        raise exact.ExactUnavailable("theta: a test refusal")
+
+    monkeypatch.setattr(exact.LagrangeTop, "from_state", classmethod(refuse))
+    info = _json(capsys, ["describe", "--demo", "--json"])
+    assert info["exact"] is None and info["exact_unavailable"] == "theta: a test refusal"
+    assert main(["describe", "--demo"]) == 0
+    out, _ = capsys.readouterr()
+    assert "exact motion  unavailable: theta: a test refusal" in out
