@@ -20,6 +20,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import mpmath
 import numpy as np
 
 _HLW = (
@@ -81,20 +82,24 @@ def triple_jump(order: int) -> tuple[float, ...]:
     as Phi(g1 h) Phi(g0 h) Phi(g1 h), g1 = 1/(2 - 2^(1/(2k+1))), g0 = 1 - 2 g1.
     Closed form: Yoshida, Phys. Lett. A 150 (1990) 262, eq. (4.14)-(4.15) (from memory);
     Suzuki, Phys. Lett. A 146 (1990) 319; Creutz and Gocksch, PRL 63 (1989) 9."""
-    weights = [1.0]
-    for k in range(1, order // 2):
-        x = 2.0 ** (1.0 / (2 * k + 1))
-        g1 = 1.0 / (2.0 - x)
-        g0 = -x / (2.0 - x)
-        weights = [w * g for g in (g1, g0, g1) for w in weights]
+    # In 40 digits, rounded once, so that each weight is the double nearest its closed form.
+    with mpmath.workdps(40):
+        weights = [mpmath.mpf(1)]
+        for k in range(1, order // 2):
+            x = mpmath.root(2, 2 * k + 1)
+            g1 = 1 / (2 - x)
+            g0 = -x / (2 - x)
+            weights = [w * g for g in (g1, g0, g1) for w in weights]
+        weights = [float(w) for w in weights]
     return tuple(weights)
 
 
 def suzuki_fractal4() -> tuple[float, ...]:
     """Suzuki's five-stage fourth-order fractal: p, p, 1 - 4p, p, p, p = 1/(4 - 4^(1/3)).
     Suzuki, Phys. Lett. A 146 (1990) 319, eq. (3.7)-(3.8) (from memory)."""
-    p = 1.0 / (4.0 - 4.0 ** (1.0 / 3.0))
-    return (p, p, 1.0 - 4.0 * p, p, p)
+    with mpmath.workdps(40):
+        p = 1 / (4 - mpmath.cbrt(4))
+        return (float(p), float(p), float(1 - 4 * p), float(p), float(p))
 
 
 TABLES: tuple[SplittingTable, ...] = (
