@@ -1,0 +1,285 @@
+"""Recommendation: for each candidate method, the cheapest setting that meets a target error
+over a horizon, found by bisection on a log scale, verified by a fresh run, ranked by wall time.
+
+The error is the largest angle between the computed and the true figure axis over the samples
+(metric "axis"), or the largest relative energy error (metric "energy"). For a case without an
+exact solution the true axis is a reference run of dop853 at rtol 1e-13 in the body form, and
+the result says so.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from topdrift.integrators import MethodRefused
+from topdrift.integrators import get as get_method
+from topdrift.models.quaternion import figure_axis
+
+from .errors import UserError
+from .ladder import fastest_period
+from .memrun import run_in_memory
+from .runner import plan_run
+
+DEFAULT_CANDIDATES = (
+    "rk4",
+    "rk45",
+    "dop853",
+    "leapfrog",
+    "leapfrog-s4",
+    "leapfrog-kl6",
+    "leapfrog-kl8",
+    "gauss4",
+    "gauss6",
+)
+METRICS = ("axis", "energy")
+REFERENCE = {"method": "dop853", "form": "body", "rtol": 1e-13, "atol": 1e-16}
+BISECTIONS = 5  # halvings of the log interval between a failing and a passing setting
+MAX_STEPS = 5e7  # a fixed step needing more steps than this over the horizon is not tried
+
+
+@dataclass
+class Trial:
+    setting: float  # the step, or rtol
+    achieved: float  # inf when the run did not end ok
+    wall_s: float
+    rhs_evals: int
+    status: str
+    settings: dict
+
+
+@dataclass
+class Choice:
+    method: str
+    form: str
+    trial: Trial | None = None
+    tried: list[Trial] = field(default_factory=list)
+    reason: str = ""  # why no setting was found
+    verified: Trial | None = None
+
+
+def _axes(run) -> np.ndarray:
+    with run.open() as f:
+        q = f["runs"][run.run_id]["quaternion"][()]
+    return np.array([figure_axis(*row) for row in q])
+
+
+def _angle(a: np.ndarray, b: np.ndarray) -> float:
+    c = np.einsum("ij,ij->i", a, b)
+    s = np.linalg.norm(np.cross(a, b), axis=1)
+    return float(np.max(np.arctan2(s, c)))
+
+
+class Picker:
+    def __init__(
+        self,
+        case,
+        target: float,
+        metric: str,
+        horizon: float,
+        samples: int,
+        report: Callable[[str], None],
+    ):
+        if metric not in METRICS:
+            raise UserError(f"--metric: expected axis or energy, got {metric!r}")
+        if not (isinstance(target, float) and math.isfinite(target) and target > 0.0):
+            raise UserError(f"--target: must be a positive finite number, got {target!r}")
+        self.case = case
+        self.target = target
+        self.metric = metric
+        self.horizon = horizon
+        self.samples = samples
+        self.report = report
+        self.reference_axes = None
+        self.reference_note = None
+        if metric == "axis" and not case.body.lagrange_top:
+            self._reference()
+
+    def _reference(self) -> None:
+        r = REFERENCE
+        plan = plan_run(
+            self.case,
+            r["method"],
+            rtol=r["rtol"],
+            atol=r["atol"],
+            form=r["form"],
+            horizon=self.horizon,
+            samples=self.samples,
+        )
+        run = run_in_memory(plan)
+        if run.status != "ok":
+            raise UserError(f"{self.case.name}: the reference run ended {run.status}: {run.detail}")
+        self.reference_axes = _axes(run)
+        self.reference_note = (
+            f"no exact solution for {self.case.name}: the axis error is measured against a "
+            f"{r['method']} reference run at rtol {r['rtol']:g} in the {r['form']} form"
+        )
+        self.report(self.reference_note)
+
+    def trial(self, method: str, form: str, value: float) -> Trial:
+        control = get_method(method).info.control
+        kw = {"step": value} if control == "step" else {"rtol": value}
+        plan = plan_run(
+            self.case, method, form=form, horizon=self.horizon, samples=self.samples, **kw
+        )
+        run = run_in_memory(plan)
+        m = run.metrics
+        if run.status != "ok":
+            achieved = math.inf
+        elif self.metric == "energy":
+            achieved = m.get("energy_rel_max")
+        elif self.reference_axes is not None:
+            achieved = _angle(_axes(run), self.reference_axes)
+        else:
+            achieved = m.get("axis_angle_max")
+        if achieved is None or not math.isfinite(achieved):
+            achieved = math.inf
+        return Trial(
+            value,
+            float(achieved),
+            float(m.get("wall_s") or math.nan),
+            int(m.get("rhs_evals") or 0),
+            run.status,
+            dict(plan.settings),
+        )
+
+    def search(self, method: str, form: str | None) -> Choice:
+        m = get_method(method)
+        try:
+            form = form or m.default_form(self.case.body)
+            m.check(
+                self.case.body,
+                form,
+                {"step": 1.0} if m.info.control == "step" else {"rtol": 1e-6, "atol": 1e-9},
+            )
+        except MethodRefused as exc:
+            return Choice(method, form or "?", reason=str(exc))
+        choice = Choice(method, form)
+        step = m.info.control == "step"
+        interval = self.horizon / (self.samples - 1)
+
+        def run(v: float) -> Trial:
+            t = self.trial(method, form, v)
+            choice.tried.append(t)
+            return t
+
+        if step:
+            v = min(fastest_period(self.case) / 8.0, interval)
+            cheaper, dearer, floor = 4.0, 0.25, self.horizon / MAX_STEPS
+        else:
+            v, cheaper, dearer, floor = 1e-3, 10.0, 0.1, 1e-14
+        first = run(v)
+        passing, failing = (first, None) if first.achieved <= self.target else (None, first)
+        # Walk towards the boundary: cheaper while passing, dearer while failing.
+        for _ in range(3 if passing else 40):
+            if passing:
+                nv = passing.setting * cheaper
+                if step and passing.setting >= interval:
+                    break  # no step can be longer than the sample interval
+                if step:
+                    nv = min(nv, interval)
+                t = run(nv)
+                if t.achieved <= self.target:
+                    passing = t
+                else:
+                    failing = t
+                    break
+            else:
+                nv = failing.setting * dearer
+                if nv < floor:
+                    break
+                t = run(nv)
+                if t.achieved <= self.target:
+                    passing = t
+                    break
+                failing = t
+        if passing is None:
+            choice.reason = (
+                f"target not reached down to {'step' if step else 'rtol'} {failing.setting:.3g} "
+                f"(best achieved {min(t.achieved for t in choice.tried):.3g})"
+            )
+            return choice
+        if failing is not None:
+            for _ in range(BISECTIONS):
+                mid = math.sqrt(passing.setting * failing.setting)
+                t = run(mid)
+                if t.achieved <= self.target:
+                    passing = t
+                else:
+                    failing = t
+        choice.trial = passing
+        return choice
+
+
+def pick(
+    case,
+    target: float,
+    *,
+    metric: str = "axis",
+    horizon: float | None = None,
+    samples: int | None = None,
+    methods=None,
+    form: str | None = None,
+    report: Callable[[str], None] = lambda s: None,
+) -> dict:
+    horizon = case.horizon if horizon is None else horizon
+    samples = case.samples if samples is None else samples
+    methods = list(methods or DEFAULT_CANDIDATES)
+    for name in methods:
+        get_method(name)  # unknown names fail before any work
+    picker = Picker(case, target, metric, horizon, samples, report)
+    choices = []
+    for name in methods:
+        c = picker.search(name, form)
+        if c.trial is not None:
+            # A fresh run of the chosen setting: its cost and error are what the ranking shows.
+            c.verified = picker.trial(name, c.form, c.trial.setting)
+            if c.verified.achieved > target:
+                c.reason = (
+                    f"fresh run at the chosen setting missed the target ({c.verified.achieved:.3g})"
+                )
+        report(
+            f"{name} ({c.form}): "
+            + (
+                f"setting {c.trial.setting:.4g}, {c.verified.wall_s:.3g} s"
+                if c.trial is not None and not c.reason
+                else c.reason
+            )
+        )
+        choices.append(c)
+    ok = [c for c in choices if c.verified is not None and not c.reason]
+    ok.sort(key=lambda c: (c.verified.wall_s, c.verified.rhs_evals))
+    ranking = []
+    for c in ok:
+        v = c.verified
+        settings = (
+            {"step": v.settings["step"]}
+            if "step" in v.settings
+            else {"rtol": v.settings["rtol"], "atol": v.settings["atol"]}
+        )
+        ranking.append(
+            {
+                "method": c.method,
+                "form": c.form,
+                "settings": settings,
+                "wall_s": v.wall_s,
+                "rhs_evals": v.rhs_evals,
+                "achieved": v.achieved,
+                "margin": target / v.achieved if v.achieved > 0 else None,
+                "trials": len(c.tried),
+            }
+        )
+    return {
+        "case": case.name,
+        "target": target,
+        "metric": metric,
+        "horizon": horizon,
+        "reference": picker.reference_note,
+        "ranking": ranking,
+        "unreached": [
+            {"method": c.method, "form": c.form, "reason": c.reason} for c in choices if c not in ok
+        ],
+    }

@@ -1,0 +1,266 @@
+"""Sweeps: a grid of runs computed in parallel and written by one process.
+
+Workers (a local process pool, or the workers of a Dask cluster) each run one job into an
+in-memory HDF5 image (benchmarks/memrun.py) and return it; only the client opens the results
+file, copying each finished run in as it arrives. Runs already in the file with a final status
+are skipped, so a sweep that was stopped or lost a worker is completed by running it again, and
+no run is ever written twice.
+"""
+
+from __future__ import annotations
+
+import math
+import sys
+from collections.abc import Callable
+from concurrent.futures import ProcessPoolExecutor, as_completed
+from dataclasses import dataclass, field
+from multiprocessing import get_context
+from pathlib import Path
+
+from topdrift.integrators import MethodRefused
+from topdrift.integrators import get as get_method
+
+from .case import parse_case
+from .errors import UserError
+from .ladder import rtol_ladder, step_ladder
+from .library import load_case
+from .memrun import MemoryRun, copy_run, run_in_memory
+from .runner import plan_run
+from .store import FINAL_STATUSES, _attr_str, open_writer
+from .sweep_spec import SweepSpec
+
+
+@dataclass(frozen=True)
+class Job:
+    """One run of a sweep, in plain values so that it can travel to any worker."""
+
+    case_name: str
+    case_label: str
+    case_toml: str
+    case_path: str | None
+    method: str
+    form: str
+    step: float | None
+    rtol: float | None
+    atol: float | None
+    horizon: float
+    samples: int
+    run_id: str = ""
+
+    def describe(self) -> str:
+        s = f"step={self.step:.4g}" if self.step is not None else f"rtol={self.rtol:.3g}"
+        return f"{self.case_name} {self.method} ({self.form}) {s}"
+
+
+@dataclass
+class SweepOutcome:
+    jobs: list[Job]
+    skipped: list[str] = field(default_factory=list)  # grid points refused up front, with reason
+    reused: list[str] = field(default_factory=list)  # run ids already complete in the file
+    finished: dict[str, str] = field(default_factory=dict)  # run id -> status
+    errors: dict[str, str] = field(default_factory=dict)  # run id -> what went wrong
+    interrupted: bool = False
+
+
+def _plan(job: Job):
+    case = parse_case(job.case_toml, job.case_label, Path(job.case_path) if job.case_path else None)
+    return plan_run(
+        case,
+        job.method,
+        step=job.step,
+        rtol=job.rtol,
+        atol=job.atol,
+        form=job.form,
+        horizon=job.horizon,
+        samples=job.samples,
+    )
+
+
+def run_job(job: Job) -> MemoryRun:
+    """The worker's side: plan and run one job in memory (module-level, so it pickles)."""
+    result = run_in_memory(_plan(job))
+    if result.run_id != job.run_id:
+        raise RuntimeError(f"run id changed on the worker ({result.run_id} != {job.run_id})")
+    return result
+
+
+def expand(spec: SweepSpec) -> tuple[list[Job], list[str]]:
+    """Every (case, method, form, setting) of the grid, planned (so checked) on the client.
+    Grid points a method cannot run (an Euler-form method on an asymmetric body) are skipped
+    with the reason; anything else wrong is a UserError."""
+    jobs: list[Job] = []
+    skipped: list[str] = []
+    for spec_case in spec.cases:
+        case = load_case(spec_case)
+        horizon = spec.horizon if spec.horizon is not None else case.horizon
+        samples = spec.samples if spec.samples is not None else case.samples
+        for name in spec.methods:
+            method = get_method(name)
+            own = spec.per_method.get(name, {})
+            forms = own.get("forms") or spec.forms
+            if forms is None:
+                try:
+                    forms = [method.default_form(case.body)]
+                except MethodRefused as exc:
+                    skipped.append(f"{case.name} {name}: {exc}")
+                    continue
+            for form in forms:
+                if method.info.control == "step":
+                    ladder = own.get("steps", spec.steps)
+                    if ladder == "auto":
+                        ladder = step_ladder(
+                            case, method.info.order, spec.rungs, horizon, spec.max_steps
+                        )
+                    settings = [(h, None, None) for h in ladder]
+                else:
+                    ladder = own.get("rtols", spec.rtols)
+                    if ladder == "auto":
+                        ladder = rtol_ladder(spec.rungs)
+                    settings = [
+                        (None, r, None if spec.atol_ratio is None else r * spec.atol_ratio)
+                        for r in ladder
+                    ]
+                for step, rtol, atol in settings:
+                    job = Job(
+                        case.name,
+                        str(case.path.name if case.path else case.name),
+                        case.toml_text,
+                        str(case.path) if case.path else None,
+                        name,
+                        form,
+                        step,
+                        rtol,
+                        atol,
+                        horizon,
+                        samples,
+                    )
+                    try:
+                        plan = _plan(job)
+                    except MethodRefused as exc:
+                        skipped.append(f"{job.describe()}: {exc}")
+                        continue
+                    jobs.append(Job(**{**job.__dict__, "run_id": plan.run_id}))
+    seen = set()
+    unique = []
+    for j in jobs:  # two ladder rungs may round to the same step
+        if j.run_id not in seen:
+            seen.add(j.run_id)
+            unique.append(j)
+    return unique, skipped
+
+
+def _complete_ids(f) -> set[str]:
+    runs = f.get("runs")
+    if runs is None:
+        return set()
+    return {rid for rid, g in runs.items() if _attr_str(g, "status") in FINAL_STATUSES}
+
+
+def run_sweep(
+    spec: SweepSpec,
+    out: Path,
+    *,
+    jobs: int = 1,
+    scheduler: str | None = None,
+    report: Callable[[str], None] | None = None,
+    stop=None,
+) -> SweepOutcome:
+    """Run every job of the grid not yet complete in `out`. `stop` (an object with a
+    `requested` attribute, set by a signal handler) ends the sweep after the runs in hand."""
+    report = report or (lambda line: print(line, file=sys.stderr))
+    grid, skipped = expand(spec)
+    outcome = SweepOutcome(grid, skipped)
+    f = open_writer(out)
+    try:
+        done = _complete_ids(f)
+        todo = [j for j in grid if j.run_id not in done]
+        outcome.reused = [j.run_id for j in grid if j.run_id in done]
+        for line in skipped:
+            report(f"skipped {line}")
+        if outcome.reused:
+            report(f"{len(outcome.reused)} run(s) already complete in {out}; not run again")
+        total = len(todo)
+        count = 0
+
+        def accept(job: Job, result: MemoryRun | None, error: str | None) -> None:
+            nonlocal count
+            count += 1
+            if error is not None:
+                outcome.errors[job.run_id] = error
+                report(f"[{count}/{total}] {job.describe()}: failed: {error}")
+                return
+            copy_run(result.image, job.run_id, f)
+            outcome.finished[job.run_id] = result.status
+            wall = result.metrics.get("wall_s")
+            took = f" in {wall:.3g} s" if isinstance(wall, float) and math.isfinite(wall) else ""
+            report(f"[{count}/{total}] {job.describe()}: {result.status}{took}")
+
+        if scheduler:
+            _on_dask(todo, scheduler, accept, outcome, stop)
+        elif jobs <= 1:
+            for job in todo:
+                if stop is not None and stop.requested:
+                    outcome.interrupted = True
+                    break
+                accept(job, run_job(job), None)
+        else:
+            _on_pool(todo, jobs, accept, outcome, stop)
+    finally:
+        f.close()
+    return outcome
+
+
+def _on_pool(todo, jobs, accept, outcome, stop) -> None:
+    # spawn: workers start clean (no inherited file handles or threads) and load numba's cache.
+    with ProcessPoolExecutor(max_workers=jobs, mp_context=get_context("spawn")) as pool:
+        futures = {pool.submit(run_job, j): j for j in todo}
+        try:
+            for fut in as_completed(futures):
+                job = futures[fut]
+                try:
+                    result = fut.result()
+                except Exception as exc:  # a worker's failure is one run's failure
+                    accept(job, None, f"{type(exc).__name__}: {exc}")
+                else:
+                    accept(job, result, None)
+                if stop is not None and stop.requested:
+                    outcome.interrupted = True
+                    break
+        finally:
+            if outcome.interrupted:
+                pool.shutdown(wait=True, cancel_futures=True)
+
+
+def _on_dask(todo, address, accept, outcome, stop) -> None:
+    try:
+        from distributed import Client
+        from distributed import as_completed as dask_completed
+    except ImportError:
+        raise UserError(
+            "--scheduler needs dask.distributed: pip install 'topdrift[dask]'"
+        ) from None
+    try:
+        client = Client(address, timeout="10s")
+    except (OSError, TimeoutError) as exc:
+        raise UserError(f"--scheduler {address}: cannot reach the Dask scheduler ({exc})") from None
+    try:
+        # The run id is the task key: a task the scheduler reruns after losing its worker is
+        # still one task, and its result reaches this client once.
+        futures = {
+            client.submit(run_job, j, key=f"topdrift-run-{j.run_id}", pure=False): j for j in todo
+        }
+        ac = dask_completed(list(futures))
+        for fut in ac:
+            job = futures[fut]
+            try:
+                result = fut.result()
+            except Exception as exc:
+                accept(job, None, f"{type(exc).__name__}: {exc}")
+            else:
+                accept(job, result, None)
+            if stop is not None and stop.requested:
+                outcome.interrupted = True
+                client.cancel([f for f in futures if not f.done()])
+                break
+    finally:
+        client.close()
