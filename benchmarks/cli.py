@@ -17,6 +17,7 @@ COMMANDS = (
     "plot",
     "report",
     "sweep",
+    "pick",
 )
 
 EXIT_OK = 0
