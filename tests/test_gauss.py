@@ -357,8 +357,8 @@ def test_output_times_and_resume_do_not_change_the_bits(name):
 
 
 def test_refuses_a_time_off_the_step_grid():
-    st = get("gauss4").start(FORM_EULER, LAGRANGE.params(), 0.0, state(FORM_EULER, LAGRANGE),
-                             {"step": 0.01})  # fmt: skip
+    y0 = state(FORM_EULER, LAGRANGE)
+    st = get("gauss4").start(FORM_EULER, LAGRANGE.params(), 0.0, y0, {"step": 0.01})
     with pytest.raises(MethodRefused, match="whole number of steps"):
         st.advance_to(0.015)
     assert st.advance_to(0.03 + 1e-15) == ST_OK  # round-off in t_end is not an offense
