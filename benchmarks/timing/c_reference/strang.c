@@ -1,0 +1,95 @@
+/* The order-2 splittings of topdrift written in plain C, as a speed reference for the numba
+ * kernels. Same algorithm, same operation order as models/flows.py and
+ * integrators/splitting_kernels.py: B(h/2) A(h) B(h/2) per step, the closing kick of a step
+ * merged with the opening kick of the next (so a step is one kick and one drift), and the same
+ * per-step checks (non-finite state; Euler angles leaving (0, pi)). `first` is the first kick's
+ * time: h/2 for a fresh state, h for one whose closing kick is pending.
+ * Parameter layout as models/body.py: I1 I2 I3 1/I1 1/I2 1/I3 Mg*chi1 Mg*chi2 Mg*chi3.
+ * Returns the number of steps completed (n when nothing went wrong). */
+#include <math.h>
+
+enum { P_I1, P_I2, P_I3, P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ };
+
+static inline void kick_euler(double h, double *y, const double *p) {
+    double s = sin(y[1]), c = cos(y[1]);
+    double a = y[3] - y[5] * c;
+    double r = a * p[P_INV1] / (s * s);
+    y[0] += h * r;
+    y[2] -= h * c * r;
+    y[4] += h * (r * (a * c / s - y[5] * s) + p[P_MGZ] * s);
+}
+
+static inline void drift_euler(double h, double *y, const double *p) {
+    y[1] += h * y[4] * p[P_INV1];
+    y[2] += h * y[5] * p[P_INV3];
+}
+
+long leapfrog_euler(double *y, const double *p, double h, double first, long n) {
+    for (long k = 0; k < n; k++) {
+        kick_euler(first, y, p);
+        first = h;
+        drift_euler(h, y, p);
+        double sum = y[0] + y[1] + y[2] + y[3] + y[4] + y[5];
+        if (!isfinite(sum) || !(y[1] > 0.0 && y[1] < M_PI)) return k;
+    }
+    return n;
+}
+
+static inline void kick_body(double h, double *y, const double *p) {
+    double q0 = y[0], q1 = y[1], q2 = y[2], q3 = y[3];
+    double g1 = 2.0 * (q1 * q3 - q0 * q2);
+    double g2 = 2.0 * (q2 * q3 + q0 * q1);
+    double g3 = q0 * q0 - q1 * q1 - q2 * q2 + q3 * q3;
+    double cx = p[P_MGX], cy = p[P_MGY], cz = p[P_MGZ];
+    y[4] += h * (g2 * cz - g3 * cy);
+    y[5] += h * (g3 * cx - g1 * cz);
+    if (cx != 0.0 || cy != 0.0) y[6] += h * (g1 * cy - g2 * cx);
+}
+
+static inline void qmul(double a0, double a1, double a2, double a3, double b0, double b1,
+                        double b2, double b3, double *o) {
+    o[0] = a0 * b0 - a1 * b1 - a2 * b2 - a3 * b3;
+    o[1] = a0 * b1 + a1 * b0 + a2 * b3 - a3 * b2;
+    o[2] = a0 * b2 - a1 * b3 + a2 * b0 + a3 * b1;
+    o[3] = a0 * b3 + a1 * b2 - a2 * b1 + a3 * b0;
+}
+
+static inline void free_symmetric(double h, double *y, const double *p) {
+    double q0 = y[0], q1 = y[1], q2 = y[2], q3 = y[3];
+    double m1 = y[4], m2 = y[5], m3 = y[6];
+    double tx = 2.0 * (q2 * m3 - q3 * m2);
+    double ty = 2.0 * (q3 * m1 - q1 * m3);
+    double tz = 2.0 * (q1 * m2 - q2 * m1);
+    double lx = m1 + q0 * tx + (q2 * tz - q3 * ty);
+    double ly = m2 + q0 * ty + (q3 * tx - q1 * tz);
+    double lz = m3 + q0 * tz + (q1 * ty - q2 * tx);
+    double lnorm = sqrt(lx * lx + ly * ly + lz * lz);
+    double o[4] = {q0, q1, q2, q3};
+    if (lnorm > 0.0) {
+        double half = 0.5 * h * lnorm * p[P_INV1];
+        double sh = sin(half) / lnorm;
+        qmul(cos(half), sh * lx, sh * ly, sh * lz, q0, q1, q2, q3, o);
+    }
+    double beta = h * (p[P_INV3] - p[P_INV1]) * m3;
+    double cb = cos(beta), sb = sin(beta), hb = 0.5 * beta;
+    double r[4];
+    qmul(o[0], o[1], o[2], o[3], cos(hb), 0.0, 0.0, sin(hb), r);
+    double f = 0.5 * (3.0 - (r[0] * r[0] + r[1] * r[1] + r[2] * r[2] + r[3] * r[3]));
+    y[0] = r[0] * f;
+    y[1] = r[1] * f;
+    y[2] = r[2] * f;
+    y[3] = r[3] * f;
+    y[4] = m1 * cb + m2 * sb;
+    y[5] = m2 * cb - m1 * sb;
+}
+
+long strang_body(double *y, const double *p, double h, double first, long n) {
+    for (long k = 0; k < n; k++) {
+        kick_body(first, y, p);
+        first = h;
+        free_symmetric(h, y, p);
+        double sum = y[0] + y[1] + y[2] + y[3] + y[4] + y[5] + y[6];
+        if (!isfinite(sum)) return k;
+    }
+    return n;
+}
