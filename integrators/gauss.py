@@ -3,8 +3,8 @@ with plain or compensated (Kahan) summation of the update.
 
 Which invariants a run keeps. Gauss collocation keeps every quadratic first integral of the ODE
 exactly, up to the round-off of the stage solve (G. J. Cooper, "Stability of Runge-Kutta methods
-for trajectory problems", IMA J. Numer. Anal. 7 (1987) 1-13), and like every Runge-Kutta method
-every linear one. Worked out per form:
+for trajectory problems", IMA J. Numer. Anal. 7 (1987) 1-13, from memory), and like every
+Runge-Kutta method every linear one. Worked out per form:
 
   body form  |q|^2 is quadratic and d|q|^2/dt = 0 for any w: kept.
              H = m.I^-1 m / 2 + M g chi.Gamma(q) with Gamma(q) = R(q)^T e_z quadratic in q, and H
