@@ -10,6 +10,7 @@ killed or interrupted run to the same bits as one that never stopped.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import math
@@ -193,7 +194,9 @@ def plan_run(
         raise UserError(f"{case.name}: start state has shape {y0.shape} for the {form} form")
     exact = None
     if y0 is not None and body.lagrange_top:
-        exact = _exact_solution(body, form, y0, notes)
+        k = np.arange(min(n, BATCH_ROWS))
+        probe = np.append(horizon * k / (n - 1), horizon)
+        exact = _exact_solution(body, form, y0, notes, probe)
     run_id = make_run_id(case.toml_text, method.name, form, settings, horizon, n)
     plan = RunPlan(
         case,
@@ -215,17 +218,29 @@ def plan_run(
     return plan
 
 
-def _exact_solution(body, form: str, y0: np.ndarray, notes: list[str]):
+def _exact_solution(body, form: str, y0: np.ndarray, notes: list[str], probe: np.ndarray):
     try:
         from topdrift.models.exact import ExactUnavailable, LagrangeTop
     except ImportError:
         notes.append("no exact solution: topdrift.models.exact is not available")
         return None
     try:
-        return LagrangeTop.from_state(body, form, y0)
+        top = LagrangeTop.from_state(body, form, y0)
     except ExactUnavailable as exc:
         notes.append(f"no exact solution: {exc}")
         return None
+    # Evaluate it once at the first batch of sample times and at T, so that a reference that
+    # cannot be evaluated for this start is known before the run, not half way through it.
+    try:
+        _exact_rows(top, probe)
+    except ExactFailed as exc:
+        notes.append(f"no exact solution: {exc}")
+        return None
+    return top
+
+
+class ExactFailed(RuntimeError):
+    """The exact solution raised or returned non-finite values at some sample times."""
 
 
 class _Buffers:
@@ -278,15 +293,27 @@ def warm_up(plan: RunPlan) -> None:
     b.record(plan.form_code, plan.y0, plan.params, 0)
 
 
-def _exact_rows(plan: RunPlan, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    e = np.array(plan.exact.euler(t), dtype=np.float64).reshape(-1, 3)
+def _exact_rows(top, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Exact (phi, theta, psi), folded like the computed ones, and the exact figure axis."""
+    try:
+        e = np.array(top.euler(t), dtype=np.float64).reshape(-1, 3)
+        a = np.array(top.axis(t), dtype=np.float64).reshape(-1, 3)
+    except Exception as exc:  # a reference that breaks must end the run loudly, not crash it
+        raise ExactFailed(
+            f"the exact solution failed for t in [{t[0]:.6g}, {t[-1]:.6g}]: "
+            f"{type(exc).__name__}: {exc}"
+        ) from None
+    if not (np.all(np.isfinite(e)) and np.all(np.isfinite(a))):
+        bad = t[~(np.all(np.isfinite(e), axis=1) & np.all(np.isfinite(a), axis=1))]
+        raise ExactFailed(f"the exact solution is not finite at t = {bad[0]:.17g}")
     e[:, 0] = np.arctan2(np.sin(e[:, 0]), np.cos(e[:, 0]))
     e[:, 2] = np.arctan2(np.sin(e[:, 2]), np.cos(e[:, 2]))
-    a = np.array(plan.exact.axis(t), dtype=np.float64).reshape(-1, 3)
     return e, a
 
 
+@functools.cache
 def versions() -> dict:
+    """Library versions and the CPU model, looked up once per process (metadata reads are slow)."""
     import platform
     import sys
     from importlib.metadata import PackageNotFoundError, version
@@ -321,7 +348,7 @@ def run_attrs(plan: RunPlan) -> dict:
         "horizon": float(plan.horizon),
         "samples": int(plan.samples),
         "created": utc_now(),
-        "versions": json.dumps(versions()),
+        "versions": json.dumps(dict(versions())),
         "notes": json.dumps(plan.notes),
     }
 
@@ -393,7 +420,7 @@ def execute(
         group.set(status="running")
         group.flush()
     else:
-        group = RunGroup.create(f, plan.run_id, run_attrs(plan), width, has_exact)
+        group = RunGroup.create(f, plan.run_id, run_attrs(plan), width, has_exact, plan.samples)
         run = _Run(plan, group)
     if plan.y0 is None:
         return _end_at_start_singular(plan, group)
@@ -422,6 +449,7 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
     status = "ok"
     detail = ""
     t_fail = None
+    exact_failed = False
     last_flush = time.perf_counter()
     if progress:
         progress.begin(run.k, int(s.counters[0]))
@@ -443,7 +471,7 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
             }
             ee = ea = None
             if has_exact:
-                ee, ea = _exact_rows(plan, tb)
+                ee, ea = _exact_rows(plan.exact, tb)  # raises ExactFailed
                 batch["exact/euler"] = ee
                 batch["exact/axis"] = ea
             run.acc.update(buf.scal[:j], buf.euler[:j], buf.axis[:j], ee, ea)
@@ -501,7 +529,11 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
         if progress:
             progress.update(run.k, int(s.counters[0]))
         if run.k < n and (j == buf.rows or stop.requested or clock() - last_flush >= flush_every):
-            flush()
+            try:
+                flush()
+            except ExactFailed as exc:
+                status, detail, t_fail, exact_failed = "failed", str(exc), None, True
+                break
             if stop.requested:
                 metrics = _final_metrics(run, None)
                 run.group.set_metrics(metrics)
@@ -510,7 +542,12 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
                 if progress:
                     progress.end("interrupted")
                 return RunResult(plan.run_id, "interrupted", metrics)
-    flush()
+    if not exact_failed:
+        try:
+            flush()
+        except ExactFailed as exc:
+            # The batch is dropped whole: every stored row has its exact counterpart.
+            status, detail, t_fail = "failed", str(exc), None
     metrics = _final_metrics(run, t_fail)
     run.group.set_metrics(metrics)
     run.group.set(status=status, detail=detail)

@@ -165,7 +165,13 @@ class RunGroup:
 
     @classmethod
     def create(
-        cls, f: h5py.File, run_id: str, attrs: dict, state_width: int, has_exact: bool
+        cls,
+        f: h5py.File,
+        run_id: str,
+        attrs: dict,
+        state_width: int,
+        has_exact: bool,
+        samples: int,
     ) -> RunGroup:
         runs = f["runs"]
         if run_id in runs:
@@ -179,10 +185,11 @@ class RunGroup:
         cols["state"] = state_width
         if has_exact:
             cols.update(EXACT_DATASETS)
+        rows = max(1, min(CHUNK_ROWS, int(samples)))  # a short run needs no 4096-row chunk
         for name, k in cols.items():
             shape = (0,) if k == 0 else (0, k)
             maxshape = (None,) if k == 0 else (None, k)
-            chunks = (CHUNK_ROWS,) if k == 0 else (CHUNK_ROWS, k)
+            chunks = (rows,) if k == 0 else (rows, k)
             g.create_dataset(
                 name, shape=shape, maxshape=maxshape, chunks=chunks, dtype="f8", **_COMPRESSION
             )

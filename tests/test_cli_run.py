@@ -299,3 +299,21 @@ def test_sigterm_flushes_and_marks_interrupted(tmp_path):
         n = g["t"].shape[0]
         assert 1 < n < 201
         assert g["checkpoint/run"].attrs["sample"] == n
+
+
+def test_a_second_writer_is_refused(tmp_path):
+    from topdrift.benchmarks.store import open_writer
+
+    case = write(tmp_path, "top.toml", TOP_TOML)
+    out = tmp_path / "r.h5"
+    f = open_writer(out)  # this process holds the file for writing
+    try:
+        before = out.stat().st_size
+        proc = topdrift(
+            "run", str(case), "--method", "leapfrog", "--step", "0.01", "--out", str(out)
+        )
+        _, err = proc.communicate(timeout=60)
+        assert proc.returncode == 2 and "another process is writing" in err
+        assert out.stat().st_size == before
+    finally:
+        f.close()

@@ -240,3 +240,29 @@ def test_drift_exponent_of_bounded_zero_and_random_walk():
     assert drift_exponent(t, walk) == pytest.approx(0.5, abs=0.2)
     # Too few samples for a fit.
     assert drift_exponent(np.array([0.0, 1.0]), np.array([0.0, 1.0])) is None
+
+
+def test_a_failing_reference_ends_the_run_as_failed_without_nan(top, tmp_path):
+    plan = plan_run(top, "gauss4", step=0.001)
+    good = plan.exact
+
+    class BreaksLate:
+        """The exact solution, raising past t = 0.2 as a broken reference would."""
+
+        def euler(self, t):
+            if np.max(t) > 0.2:
+                raise ValueError("cannot convert float NaN to integer")
+            return good.euler(t)
+
+        def axis(self, t):
+            return good.axis(t)
+
+    plan.exact = BreaksLate()
+    r = _run(plan, tmp_path / "r.h5", flush_every=0.0)
+    assert r.status == "failed" and "exact solution failed" in r.detail
+    with store.open_reader(tmp_path / "r.h5") as f:
+        g = f["runs"][plan.run_id]
+        assert g.attrs["status"] == "failed"
+        n = g["t"].shape[0]
+        assert 0 < n < 11 and g["exact/euler"].shape[0] == n
+        assert np.all(np.isfinite(g["exact/euler"][()]))
