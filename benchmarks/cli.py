@@ -18,6 +18,8 @@ COMMANDS = (
     "report",
     "sweep",
     "pick",
+    "baseline",
+    "gate",
 )
 
 EXIT_OK = 0

@@ -1,0 +1,72 @@
+"""A fixed amount of floating-point work, timed in the process that times the integrators.
+
+The regression gate compares kernel timings recorded on one machine (or on one day) with timings
+taken on another. Dividing each run's nanoseconds per step by the nanoseconds of one iteration of
+this loop, timed in the same process, takes out most of what differs between the two: clock
+frequency, turbo state, a slower CI runner. What it cannot take out (a different
+microarchitecture favouring one kind of instruction) is why the gate names a changed CPU model
+next to any timing it flags.
+
+The loop has the shape of an integrator step on a top: a short chain of dependent multiply-adds,
+a sin/cos pair, a square root and a division per iteration, on scalars only, allocating nothing.
+Its state is a unit vector turned by an angle that depends on the state, so that nothing can be
+hoisted out of the loop and the values stay bounded however many iterations run.
+"""
+
+from __future__ import annotations
+
+import math
+import time
+
+import numpy as np
+from numba import njit
+
+# About 20 ms per repeat on the x86 core this was written on: long enough for perf_counter's
+# resolution, short enough that a best of several repeats costs well under a second.
+ITERATIONS = 300_000
+REPEATS = 7
+KERNEL = "calibration.turning_unit_vector"  # recorded with the baseline: what the unit is
+
+
+@njit(cache=True)
+def turning_unit_vector(n, x0):
+    """n iterations of the fixed work; returns a sum over the path so none of it is dead code."""
+    x = x0
+    y = 0.6
+    z = 0.8
+    acc = 0.0
+    for _ in range(n):
+        a = 0.1 + 0.01 * z
+        ca = math.cos(a)
+        sa = math.sin(a)
+        x1 = ca * x - sa * y
+        y1 = sa * x + ca * y
+        z1 = z + 1e-3 * x1
+        r = 1.0 / math.sqrt(x1 * x1 + y1 * y1 + z1 * z1)
+        x = x1 * r
+        y = y1 * r
+        z = z1 * r
+        acc += x * y
+    return acc
+
+
+def calibrate(repeats: int = REPEATS, iterations: int = ITERATIONS) -> dict:
+    """Best (smallest) nanoseconds per iteration over `repeats`, plus the spread of the repeats.
+
+    The best of several is the usual estimate of the undisturbed time (common practice: other
+    work on the machine can only add time). The first call compiles or loads from numba's cache
+    and is not timed."""
+    turning_unit_vector(10, 0.0)
+    times = np.empty(repeats)
+    for k in range(repeats):
+        t0 = time.perf_counter()
+        turning_unit_vector(iterations, 0.0)
+        times[k] = time.perf_counter() - t0
+    best = float(times.min())
+    return {
+        "kernel": KERNEL,
+        "iterations": int(iterations),
+        "repeats": int(repeats),
+        "ns_per_iteration": best * 1e9 / iterations,
+        "spread": float(times.max() / best - 1.0),
+    }
