@@ -185,7 +185,9 @@ def cost_to_reach(front: list[Point], target: float) -> tuple[float, str] | None
     asymptotic range, where error ~ cost^-order). Returns (cost, how) with how one of
     'interpolated', 'at run' (a run has exactly that error) and 'at most' (the cheapest run
     already beats the target, or the next run's error is 0 so that the log-log line is
-    undefined: its cost is an upper bound; no extrapolation below the cheapest run)."""
+    undefined: its cost is an upper bound; no extrapolation below the cheapest run). An
+    interpolation between runs more than a decade of cost apart says so: 'interpolated over
+    2.3 decades'."""
     if not front or front[-1].error > target:
         return None
     if front[0].error <= target:
@@ -197,9 +199,11 @@ def cost_to_reach(front: list[Point], target: float) -> tuple[float, str] | None
             if b.error == 0.0:
                 return b.cost, "at most"
             s = (math.log(target) - math.log(a.error)) / (math.log(b.error) - math.log(a.error))
-            return math.exp(math.log(a.cost) + s * (math.log(b.cost) - math.log(a.cost))), (
-                "interpolated"
-            )
+            cost = math.exp(math.log(a.cost) + s * (math.log(b.cost) - math.log(a.cost)))
+            gap = math.log10(b.cost / a.cost)
+            # Across a wide gap the straight line is a guess (the method may leave its asymptotic
+            # range, or reach round-off, in between): say how wide.
+            return cost, ("interpolated" if gap <= 1.0 else f"interpolated over {gap:.1f} decades")
     return None  # unreachable: the front's errors decrease to front[-1].error <= target
 
 

@@ -347,15 +347,21 @@ def theta(runs: list[dict], case: str, out) -> Path:
     return _save(fig, out)
 
 
-def _time_label(runs: list[dict]) -> str:
-    """'t (s)', with the sample spacing when it is uniform: a motion faster than the samples
-    (a nutation, say) is aliased in any figure drawn from them, and the reader should know."""
+def _sampling(runs: list[dict]) -> str:
+    """How far apart the samples are: a motion faster than the samples (a nutation, say) is
+    aliased in any figure drawn from them, and the reader should know."""
     t = runs[0]["t"] if runs else np.zeros(0)
     if t.size > 2:
         d = np.diff(t)
         if np.allclose(d, d[0], rtol=1e-9, atol=0.0):
-            return f"t (s); samples every {d[0]:.3g} s"
-    return "t (s)"
+            return f"samples every {d[0]:.3g} s"
+        return "samples not uniform"
+    return ""
+
+
+def _time_label(runs: list[dict]) -> str:
+    s = _sampling(runs)
+    return f"t (s); {s}" if s else "t (s)"
 
 
 def axis_from_quaternion(q: np.ndarray) -> np.ndarray:
@@ -411,7 +417,7 @@ def axis_path(runs: list[dict], case: str, out) -> Path:
     ax.set_xlabel("x component of figure axis R e3 (1)")
     ax.set_ylabel("y component of figure axis R e3 (1)")
     ax.grid(True, alpha=0.3)
-    ax.set_title("whole path; unit circle: axis horizontal", fontsize="medium")
+    ax.set_title(f"whole path; unit circle: axis horizontal\n{_sampling(runs)}", fontsize="medium")
     _zoom_on_ends(az, paths)
     fig.suptitle(
         f"{case}: figure axis seen from above" + (f", {runs[0]['label']}" if len(runs) == 1 else "")

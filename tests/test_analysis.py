@@ -163,6 +163,14 @@ def test_cost_to_reach_edges():
     assert analysis.cost_to_reach(front, 1e-5) == (2.0, "at run")
     assert analysis.cost_to_reach(front, 1e-9) == (4.0, "at most")  # next error is exactly 0
     assert analysis.cost_to_reach(front[:2], 1e-9) is None
+    wide = [
+        analysis.Point(1.0, 1e-2, "a", ("m", ()), {}),
+        analysis.Point(1000.0, 1e-8, "b", ("m", ()), {}),
+    ]
+    assert analysis.cost_to_reach(wide, 1e-5) == (
+        pytest.approx(10.0**1.5, rel=1e-12),
+        "interpolated over 3.0 decades",
+    )
     assert analysis.cost_to_reach([], 1.0) is None
 
 
