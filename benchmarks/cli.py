@@ -18,6 +18,7 @@ COMMANDS = (
     "report",
     "sweep",
     "pick",
+    "roundoff",
     "baseline",
     "gate",
 )

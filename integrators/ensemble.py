@@ -1,0 +1,192 @@
+"""Ensembles: one kernel advances many starts of the same body at once, in parallel.
+
+The step kernels of the splitting and Gauss-Legendre methods run once per start inside a numba
+`prange` loop over the starts, so an ensemble is the same arithmetic as N separate runs (member
+j gives the same bits as a single run from start j) spread over the cores. Used for
+spread-of-outcome studies (the chaotic top) and for the round-off study (Brouwer's law), where
+many perturbed starts turn one noisy error curve into a statistic.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit, prange
+
+from topdrift.models import FORM_SIZE
+
+from .base import N_COUNTERS, ST_OK, MethodRefused
+from .gauss import GaussMethod
+from .gauss_kernel import N_ITERS, N_MEMO, gauss_steps
+from .splitting import GRID_RTOL, SplittingMethod
+from .splitting_kernels import close_compensated, close_plain, run_compensated, run_plain
+
+
+@njit(cache=True, parallel=True)
+def _advance_plain(form, p, kick, drift, nsteps, W, fresh, counters, status, out):
+    for j in prange(W.shape[0]):
+        if status[j] == ST_OK:
+            st, _ = run_plain(form, p, kick, drift, nsteps, W[j], fresh[j], counters[j])
+            status[j] = st
+        close_plain(form, p, kick, W[j], fresh[j], out[j], counters[j])
+
+
+@njit(cache=True, parallel=True)
+def _advance_compensated(form, p, kick, drift, nsteps, W, E, D, fresh, counters, status, out):
+    for j in prange(W.shape[0]):
+        if status[j] == ST_OK:
+            st, _ = run_compensated(
+                form, p, kick, drift, nsteps, W[j], E[j], D[j], fresh[j], counters[j]
+            )
+            status[j] = st
+        close_compensated(form, p, kick, W[j], E[j], D[j], fresh[j], out[j], counters[j])
+
+
+@njit(cache=True, parallel=True)
+def _advance_gauss(
+    form, p, h, nsteps, a, b, c, e, compensated, max_iter, Y, C, F, M, Wk, counters, iters, status
+):
+    for j in prange(Y.shape[0]):
+        if status[j] == ST_OK:
+            st, _ = gauss_steps(
+                form,
+                Y[j],
+                p,
+                h,
+                nsteps,
+                a,
+                b,
+                c,
+                e,
+                compensated,
+                max_iter,
+                C[j],
+                F[j],
+                M[j],
+                Wk[j],
+                counters[j],
+                iters[j],
+            )
+            status[j] = st
+
+
+class EnsembleStepper:
+    """N starts of one body advanced together on the step grid of one splitting method.
+
+    A member that fails (non-finite, or the Euler form at the pole) stops where it is with its
+    status; the others go on. `y` holds the closed states (N x n) at `t`."""
+
+    def __init__(
+        self, method, form: int, params: np.ndarray, t0: float, Y0: np.ndarray, step: float
+    ):
+        if not isinstance(method, (SplittingMethod, GaussMethod)):
+            raise MethodRefused(
+                f"{method.name}: ensembles run on the splitting methods (leapfrog and its "
+                f"compositions) and the Gauss-Legendre methods, plain or -kahan; this method "
+                f"has no ensemble kernel"
+            )
+        Y0 = np.ascontiguousarray(Y0, dtype=np.float64)
+        n = FORM_SIZE[form]
+        if Y0.ndim != 2 or Y0.shape[1] != n or Y0.shape[0] < 1:
+            raise MethodRefused(f"ensemble: starts must be an N x {n} array, got {Y0.shape}")
+        single = method.start(form, params, t0, Y0[0], {"step": step})  # checks the method
+        self.method = method
+        self.form = int(form)
+        self.params = single.params
+        self.gauss = isinstance(method, GaussMethod)
+        self.step = float(step)
+        self.compensated = method.info.compensated
+        self.t0 = float(t0)
+        self.t = float(t0)
+        self.n = 0
+        m = Y0.shape[0]
+        self.W = Y0.copy()
+        self.E = np.zeros_like(Y0)
+        self.D = np.zeros_like(Y0)
+        self.fresh = np.ones((m, 1), dtype=np.int64)
+        self.counters = np.zeros((m, N_COUNTERS), dtype=np.int64)
+        self.status = np.zeros(m, dtype=np.int64)
+        self.y = Y0.copy()
+        if self.gauss:
+            s = single.tab.b.shape[0]
+            self.tab = single.tab
+            self.max_iter = single.max_iter
+            self.C = np.zeros_like(Y0)
+            self.F = np.zeros((m, s * n))
+            self.M = np.full((m, N_MEMO), np.nan)
+            self.Wk = np.zeros((m, 2 * s * n + 4 * n))
+            self.iters = np.zeros((m, N_ITERS), dtype=np.int64)
+        else:
+            self.kick = single.kick
+            self.drift = single.drift
+
+    def low_parts(self) -> np.ndarray | None:
+        """What compensated summation has not yet added into `y` (N x n), where the state is
+        exactly y + low: the Gauss-Legendre methods' Kahan terms. None when there is none to
+        add (plain methods, and the splittings, whose `y` is already rounded once from
+        w + (e + d))."""
+        if self.gauss and self.compensated:
+            return self.C
+        return None
+
+    def advance_to(self, t_end: float) -> np.ndarray:
+        x = (float(t_end) - self.t) / self.step
+        k = round(x)
+        if not abs(x - k) <= GRID_RTOL * max(1.0, abs(k)) or k < 0:
+            raise MethodRefused(
+                f"ensemble: t = {t_end!r} is not on the step grid ahead of t = {self.t!r}"
+            )
+        if k == 0:
+            return self.status
+        if self.gauss:
+            t = self.tab
+            _advance_gauss(
+                self.form,
+                self.params,
+                self.step,
+                k,
+                t.a,
+                t.b,
+                t.c,
+                t.e,
+                self.compensated,
+                self.max_iter,
+                self.y,
+                self.C,
+                self.F,
+                self.M,
+                self.Wk,
+                self.counters,
+                self.iters,
+                self.status,
+            )
+        elif self.compensated:
+            _advance_compensated(
+                self.form,
+                self.params,
+                self.kick,
+                self.drift,
+                k,
+                self.W,
+                self.E,
+                self.D,
+                self.fresh,
+                self.counters,
+                self.status,
+                self.y,
+            )
+        else:
+            _advance_plain(
+                self.form,
+                self.params,
+                self.kick,
+                self.drift,
+                k,
+                self.W,
+                self.fresh,
+                self.counters,
+                self.status,
+                self.y,
+            )
+        self.n += k
+        self.t = float(t_end)
+        return self.status
