@@ -36,6 +36,7 @@ METRIC_NAMES = MAX_NAMES + (
     "rhs_evals",
     "rejected",
     "wall_s",
+    "cpu_s",
     "ns_per_step",
     "energy_drift_exponent",
     "t_fail",
@@ -217,6 +218,7 @@ def finish(
     acc: Accumulator,
     counters: np.ndarray,
     wall_s: float,
+    cpu_s: float,
     t: np.ndarray,
     energy: np.ndarray,
     t_fail: float | None,
@@ -230,6 +232,7 @@ def finish(
     out["rhs_evals"] = int(counters[C_EVALS])
     out["rejected"] = int(counters[C_REJECTED])
     out["wall_s"] = float(wall_s)
+    out["cpu_s"] = float(cpu_s)
     out["ns_per_step"] = float(wall_s * 1e9 / steps) if steps > 0 else None
     out["energy_drift_exponent"] = drift_exponent(t, acc.energy_rel(energy)) if len(t) else None
     out["t_fail"] = None if t_fail is None or math.isnan(t_fail) else float(t_fail)

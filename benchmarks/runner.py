@@ -361,6 +361,7 @@ class _Run:
         self.group = group
         self.k = 0  # next sample to take
         self.wall = 0.0
+        self.cpu = 0.0  # CPU time of the same calls: on a shared machine, the steadier number
         self.stepper: Stepper | None = None
         self.acc: Accumulator | None = None
 
@@ -371,6 +372,7 @@ class _Run:
                 "run": {
                     "sample": self.k,
                     "wall_s": self.wall,
+                    "cpu_s": self.cpu,
                     "t": float(s.t),
                     "y": np.array(s.y, dtype=np.float64),
                     "counters": np.array(s.counters, dtype=np.int64),
@@ -387,6 +389,7 @@ class _Run:
         p = self.plan
         self.k = int(cp["run"]["sample"])
         self.wall = float(cp["run"]["wall_s"])
+        self.cpu = float(cp["run"].get("cpu_s", 0.0))
         self.stepper = p.method.start(
             p.form_code, p.params.copy(), 0.0, p.y0.copy(), dict(p.stepper_settings)
         )
@@ -494,16 +497,20 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
         j = 1
         run.k = 1
     clock = time.perf_counter
+    cpu_clock = time.thread_time
     while run.k < n:
         tk = plan.sample_time(run.k)
+        c0 = cpu_clock()
         t0 = clock()
         try:
             st = s.advance_to(tk)
         except MethodRefused as exc:
             run.wall += clock() - t0
+            run.cpu += cpu_clock() - c0
             status, detail, t_fail = "failed", str(exc), float(s.t)
             break
         run.wall += clock() - t0
+        run.cpu += cpu_clock() - c0
         if st != ST_OK:
             t_fail = float(s.t_fail) if math.isfinite(s.t_fail) else float(s.t)
             if st == ST_SINGULAR:
@@ -561,4 +568,4 @@ def _final_metrics(run: _Run, t_fail) -> dict:
     g = run.group.g
     t = g["t"][()]
     energy = g["invariants/energy"][()]
-    return finish(run.acc, run.stepper.counters, run.wall, t, energy, t_fail)
+    return finish(run.acc, run.stepper.counters, run.wall, run.cpu, t, energy, t_fail)

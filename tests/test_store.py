@@ -46,6 +46,7 @@ METRIC_KEYS = {
     "rhs_evals",
     "rejected",
     "wall_s",
+    "cpu_s",
     "ns_per_step",
     "energy_drift_exponent",
     "t_fail",
