@@ -39,7 +39,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.special import ellipj, elliprc, elliprf, elliprj
+from scipy.special import elliprc, elliprf, elliprj
 
 from .body import P_I1, P_I3, P_MGZ, RigidBody
 from .forms import (
@@ -64,8 +64,13 @@ UNIFORM_GAP = 1e-13
 # Relative size of phidot at a turning point, against a (u2 - u1), below which the trace has
 # cusps: smaller loops or dents than this cannot be told apart in double precision.
 CUSP_RTOL = 1e-12
-# Closer than this to the separatrix (m -> 1) the elliptic functions lose their accuracy.
-SEPARATRIX_MC = 1e-14
+# Near the separatrix (1 - m -> 0) the distance u3 - u2 can be a difference of nearly equal
+# energies, known only to about 1e-16 / (1 - m) relative; the start is refused when the
+# estimated relative error of u3 - u2 exceeds this. Measured against 30-digit mpmath on such
+# starts, the period is off by 1.2e-12 at 1 - m = 2.6e-6 (estimate 1.4e-10, refused) and by
+# 4e-16 at 2.6e-4 (estimate 1.4e-12).
+SEPARATRIX_RTOL = 1e-10
+EPS = 2.220446049250313e-16
 
 MOTIONS = (
     "uniform-precession",
@@ -108,6 +113,25 @@ def _pole_root(h3, h2, h1, h0, w):
             break
         x = xn
     return x
+
+
+def _jacobi_sn_cn(u, m, mc):
+    """sn(u | m) and cn(u | m) by the arithmetic-geometric mean and descending Landen steps
+    (DLMF 22.20(ii)), started from sqrt(mc) rather than sqrt(1 - m) so that near m = 1 the
+    complement keeps its full precision (scipy's ellipj takes m only)."""
+    a = [1.0]
+    c = [math.sqrt(m)]
+    b = math.sqrt(mc)
+    while abs(c[-1]) > EPS * a[-1] and len(a) < 40:
+        an = 0.5 * (a[-1] + b)
+        c.append(0.5 * (a[-1] - b))
+        b = math.sqrt(a[-1] * b)
+        a.append(an)
+    n = len(a) - 1
+    phi = (2.0**n) * a[n] * np.asarray(u, dtype=np.float64)
+    for k in range(n, 0, -1):
+        phi = 0.5 * (phi + np.arcsin(c[k] / a[k] * np.sin(phi)))
+    return np.sin(phi), np.cos(phi)
 
 
 class ExactUnavailable(ValueError):
@@ -230,7 +254,13 @@ class LagrangeTop:
         w_minus = 2.0 * math.sin(0.5 * theta) ** 2
         w_plus = 2.0 * math.cos(0.5 * theta) ** 2
         u0 = math.cos(theta)
-        big_a = p_phi - p_psi * u0
+        # A = p_phi - p_psi cos(theta), from the side of the nearer pole: p_phi -/+ p_psi is
+        # exact when the two are close (Sterbenz), and 1 -/+ cos(theta) is taken from the half
+        # angle, so that A keeps its relative accuracy where it is small near the vertical.
+        if u0 >= 0.0:
+            big_a = (p_phi - p_psi) + p_psi * w_minus
+        else:
+            big_a = (p_phi + p_psi) - p_psi * w_plus
         return dict(
             phi0=phi,
             psi0=psi,
@@ -370,66 +400,88 @@ class LagrangeTop:
         # Keep the roots inside the physical range, and put the exact ones where they belong.
         x2 = min(x2, w_minus)
         x1 = max(x1, -w_plus)
-        if self._bma == 0.0 and beta > 0.0:
-            # u = 1 is a root; f'(1) = -2 (k0 - beta (1 - u0)) says whether it is u2 or u3.
-            slope = k0 - beta * w_minus
-            if slope > 0.0:
-                x2 = w_minus
-            elif slope < 0.0:
-                x3 = w_minus
-            else:
-                raise ExactUnavailable(
-                    "start: on the separatrix (u2 = u3 = 1): the axis approaches the vertical "
-                    "asymptotically and the nutation period is infinite"
-                )
-        elif self._bma == 0.0:
-            x2 = w_minus
+        if self._bma == 0.0 and beta == 0.0:
+            x2 = w_minus  # u = 1 is a root of the free top's quadratic
         if self._bpa == 0.0:
             x1 = -w_plus
         # Near a pole 1 - u2 (or 1 + u1) is tiny and its relative accuracy matters (it divides
-        # the third-kind terms): solve for it on the cubic expanded about that pole.
+        # the third-kind terms), and near the separatrix u2 and u3 crowd together at 1: solve
+        # for them on the cubic expanded about the pole, h(w) = f(1 - w), whose coefficients
+        # come from the state without cancellation (h(0) = -(b - a)^2 exactly).
         om2, op1 = w_minus - x2, w_plus + x1
+        d32 = x3 - x2
+        d32_err = 4.0 * EPS * (abs(x2) + abs(x3))
         k_top = k0 - beta * w_minus  # alpha - beta
         k_bot = k0 + beta * w_plus  # alpha + beta
-        if self._bma != 0.0 and om2 < POLE_POLISH:
-            om2 = _pole_root(
-                -beta,
-                2.0 * beta - k_top - a * a,
-                2.0 * k_top - 2.0 * a * self._bma,
-                -(self._bma**2),
-                om2,
-            )
-            x2 = w_minus - om2
+        h1_top = 2.0 * k_top - 2.0 * a * self._bma
+        h0_top = -(self._bma**2)
+        w1 = w_minus - x1
+        near_top = self._bma == 0.0 or om2 < POLE_POLISH or d32 < POLE_POLISH
+        if beta > 0.0 and near_top and w1 > 100.0 * (om2 + d32):
+            # h = -beta (w - w1)(w - w2)(w - w3) with the far root w1 = 1 - u1 known well:
+            # w2 w3 and w2 + w3 follow from h(0) and h'(0).
+            prod = h0_top / (beta * w1)
+            tot = (-h1_top / beta - prod) / w1
+            sq = math.sqrt(max(tot * tot - 4.0 * prod, 0.0))
+            tq = 0.5 * (tot + math.copysign(sq, tot))
+            ra, rb = (tq, prod / tq) if tq != 0.0 else (0.0, 0.0)
+            w2, w3 = max(ra, rb), min(ra, rb)
+            if w2 < 0.0 or w3 > 0.0:
+                raise ExactUnavailable("start: the roots of f(u) near u = 1 are not admissible")
+            # 1 - u0 = x2 + w2 exactly: take the smaller of the two from its own expansion
+            # and the other by subtraction (no cancellation either way). This also keeps an
+            # exact x2 = 0 (a start at the turning point) exact.
+            if w2 < x2:
+                om2, x2 = w2, w_minus - w2
+            else:
+                om2 = w_minus - x2
+            d32 = om2 - w3
+            x3 = w_minus - w3
+            # h'(0) = 2 (alpha - beta) - 2 a (b - a) is a difference of energies here.
+            d32_err = 4.0 * EPS * (k0 + beta * w_minus + abs(a * self._bma)) / (beta * w1)
+        elif beta > 0.0 and self._bma == 0.0:
+            # All three roots crowd near u = 1: keep the expansion about u0, but put the
+            # exact root u = 1 in place of the nearer of x2 and x3.
+            if abs(x2 - w_minus) <= abs(x3 - w_minus):
+                x2, om2 = w_minus, 0.0
+            else:
+                x3 = w_minus
+            d32 = x3 - x2
+        elif self._bma != 0.0 and om2 < POLE_POLISH:
+            w2 = _pole_root(0.0, -k_top - a * a, h1_top, h0_top, om2)
+            if w2 < x2:
+                om2, x2 = w2, w_minus - w2
         if self._bpa != 0.0 and op1 < POLE_POLISH:
-            op1 = _pole_root(
+            w1b = _pole_root(
                 beta,
                 -k_bot - 2.0 * beta - a * a,
                 2.0 * k_bot + 2.0 * a * self._bpa,
                 -(self._bpa**2),
                 op1,
             )
-            x1 = op1 - w_plus
+            if w1b < -x1:
+                op1, x1 = w1b, w1b - w_plus
         gap = x2 - x1
         if not (math.isfinite(x1) and math.isfinite(x2) and gap >= 0.0):
             raise ExactUnavailable("start: the cubic f(u) has no admissible pair of roots")
         if beta > 0.0:
-            span = x3 - x1
+            span = d32 + gap
             m = gap / span
-            mc = (x3 - x2) / span
+            mc = d32 / span
             kappa = beta * span
         else:
             m, mc, kappa = 0.0, 1.0, -c2
-        if gap > 0.0 and mc < SEPARATRIX_MC:
-            raise ExactUnavailable(
-                f"start: within {mc:.1e} of the separatrix (u2 = u3): the nutation period "
-                "diverges and the elliptic functions lose their accuracy there"
-            )
+        if gap > 0.0 and beta > 0.0:
+            rel = d32_err / d32 if d32 > 0.0 else math.inf
+            if rel > SEPARATRIX_RTOL:
+                where = "on" if d32 == 0.0 else f"within 1 - m = {mc:.1e} of"
+                raise ExactUnavailable(
+                    f"start: {where} the separatrix (u2 = u3): the axis creeps towards the "
+                    "vertical, the nutation period diverges, and u3 - u2 is known only to "
+                    f"{min(rel, 1.0):.0e} relative in double precision"
+                )
         lam = 0.5 * math.sqrt(kappa)
         kc = float(elliprf(0.0, mc, 1.0))
-        if self._bma == 0.0:
-            om2 = w_minus - x2
-        if self._bpa == 0.0:
-            op1 = w_plus + x1
         om1, op2 = w_minus - x1, w_plus + x2
         self._u0i = u0
         self._x = (x1, x2, x3)
@@ -503,7 +555,8 @@ class LagrangeTop:
         au0, a = self._au0, self._a
         r1 = au0 - a * x1  # (b - a u) at the two turning points, proportional to phidot
         r2 = au0 - a * x2
-        tol = CUSP_RTOL * abs(a) * self._gap
+        # A is resolved only to about eps |p_psi| in the start itself.
+        tol = max(CUSP_RTOL * abs(a) * self._gap, 8.0 * EPS * (abs(a) + abs(self._bma)))
         if min(abs(r1), abs(r2)) <= tol:
             return "cusps"
         if (r1 > 0.0) == (r2 > 0.0):
@@ -535,7 +588,7 @@ class LagrangeTop:
         kc, m, mc, gap = self._kc, self._m, self._mc, self._gap
         j = np.rint(tau / (2.0 * kc))
         r = tau - 2.0 * kc * j
-        sn, cn, _, _ = ellipj(r, m)
+        sn, cn = _jacobi_sn_cn(r, m, mc)
         sn2, cn2 = sn * sn, cn * cn
         dn2 = mc + m * cn2
         rf = elliprf(cn2, dn2, 1.0)

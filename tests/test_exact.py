@@ -168,6 +168,27 @@ def test_angles_over_ten_thousand_periods_against_mpmath(mp_refs, name):
         assert abs(got[k, 2] - psi) < 1e-10, (t, got[k, 2] - psi)
 
 
+def separatrix_start(theta, p_psi, energy_scale):
+    """p_phi = p_psi (so u = 1 is a root) with the energy energy_scale times that of the
+    upright top: at 1 the axis creeps towards the vertical (the separatrix)."""
+    i1, mgl = TOP.params()[0], TOP.mgl
+    big_a = p_psi * (1.0 - math.cos(theta))
+    w_minus = 2.0 * math.sin(0.5 * theta) ** 2
+    p_theta2 = energy_scale * 2.0 * i1 * mgl * w_minus - (big_a / math.sin(theta)) ** 2
+    return np.array([0.0, theta, 0.0, p_psi, math.sqrt(p_theta2), p_psi])
+
+
+def test_near_separatrix_against_mpmath_and_refused_on_it():
+    ye = separatrix_start(1.0, 0.01, 1.0 - 1e-3)
+    top = LagrangeTop.from_state(TOP, FORM_EULER, ye)
+    ref = MpTop(TOP, ye)  # mpmath 30-digit quadrature (see module docstring)
+    assert top.nutation_period == pytest.approx(float(ref.T), rel=1e-12)
+    assert top.precession_per_period == pytest.approx(float(ref.dphi), rel=1e-12)
+    assert top.spin_per_period == pytest.approx(float(ref.dpsi), rel=1e-12)
+    with pytest.raises(ExactUnavailable, match="separatrix"):
+        LagrangeTop.from_state(TOP, FORM_EULER, separatrix_start(1.0, 0.01, 1.0))
+
+
 # --------------------------------------------------------------------------- scipy DOP853
 def dop853(form, body, y0, t):
     p = body.params()
