@@ -1,0 +1,109 @@
+"""Ensembles: every member is the same arithmetic as a single run; the round-off study."""
+
+import json
+
+import numpy as np
+import pytest
+
+from topdrift.benchmarks.cli import main
+from topdrift.benchmarks.roundoff import energy_precise, fit_exponent
+from topdrift.integrators import MethodRefused, get
+from topdrift.integrators.ensemble import EnsembleStepper
+from topdrift.models import RigidBody, body_state, euler_state
+from topdrift.models.invariants import invariants_of
+
+TOP = RigidBody(1.0, (0.05, 0.05, 0.02), com=(0.0, 0.0, 0.1))
+
+
+def starts(form, n=6):
+    make = euler_state if form == 0 else body_state
+    return np.array([make(TOP, 0.3, 0.9 + 0.01 * k, 0.2, 1.0, 0.5, 40.0) for k in range(n)])
+
+
+@pytest.mark.parametrize("form", [0, 1])
+@pytest.mark.parametrize("name", ["leapfrog", "leapfrog-s4-kahan", "gauss4", "gauss6-kahan"])
+def test_members_match_single_runs_bit_for_bit(name, form):
+    y0 = starts(form)
+    m = get(name)
+    ens = EnsembleStepper(m, form, TOP.params(), 0.0, y0, 1e-3)
+    for t in (0.1, 0.25):
+        assert np.all(ens.advance_to(t) == 0)
+    for j in (0, 3, 5):
+        s = m.start(form, TOP.params(), 0.0, y0[j], {"step": 1e-3})
+        s.advance_to(0.1)
+        s.advance_to(0.25)
+        assert np.array_equal(ens.y[j], s.y)
+
+
+def test_methods_without_an_ensemble_kernel_are_refused():
+    with pytest.raises(MethodRefused, match="ensembles run on"):
+        EnsembleStepper(get("rk4"), 1, TOP.params(), 0.0, starts(1), 1e-3)
+
+
+def test_precise_energy_agrees_with_the_float_kernel():
+    for form in (0, 1):
+        y = starts(form, 1)[0]
+        e = float(energy_precise(form, y, None, TOP.params()))
+        assert e == pytest.approx(invariants_of(form, y, TOP.params())["energy"], rel=1e-14)
+
+
+def test_fit_recovers_a_known_exponent():
+    n = np.geomspace(100, 1e7, 30)
+    assert fit_exponent(n, 3e-17 * n**0.5)[0] == pytest.approx(0.5, abs=1e-12)
+    assert fit_exponent(n, 1e-18 * n)[0] == pytest.approx(1.0, abs=1e-12)
+
+
+def test_roundoff_command(capsys, tmp_path):
+    png = tmp_path / "ro.png"
+    rc = main(
+        [
+            "roundoff",
+            "looping-nutation",
+            "--method",
+            "gauss4-kahan",
+            "--form",
+            "body",
+            "--step",
+            "2e-3",
+            "--steps",
+            "5000",
+            "--starts",
+            "4",
+            "--json",
+            "--plot",
+            str(png),
+        ]
+    )
+    assert rc == 0
+    r = json.loads(capsys.readouterr().out)
+    assert r["starts"] == 4 and r["n"][-1] == 5000 and r["exponent"] is not None
+    # Gauss-Legendre keeps the body-form energy (a quadratic invariant, Cooper 1987) up to
+    # round-off: after 5000 steps the error is far below any truncation error of this step.
+    assert max(r["rms_energy_error"]) < 1e-14
+    assert png.stat().st_size > 10_000
+
+
+def test_roundoff_bad_input_exits_2(capsys):
+    assert (
+        main(
+            ["roundoff", "looping-nutation", "--method", "rk4", "--step", "1e-3", "--steps", "5000"]
+        )
+        == 2
+    )
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "ensembles run on" in err[0]
+    assert (
+        main(
+            [
+                "roundoff",
+                "looping-nutation",
+                "--method",
+                "leapfrog",
+                "--step",
+                "-1",
+                "--steps",
+                "5000",
+            ]
+        )
+        == 2
+    )
