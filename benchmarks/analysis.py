@@ -30,6 +30,7 @@ ERRORS = {
 # Cost metrics: key -> (metric name, axis label, unit).
 COSTS = {
     "wall": ("wall_s", "wall time", "s"),
+    "cpu": ("cpu_s", "CPU time", "s"),  # steadier than wall time on a shared machine
     "evals": ("rhs_evals", "evaluations (right-hand sides or sub-flows)", "count"),
 }
 

@@ -56,7 +56,13 @@ def _log_ticks(ax) -> None:
     """Readable tick labels on log axes: on an axis spanning less than a few decades, majors at
     1, 2 and 5 per decade instead of matplotlib's labelled minors (which run into each other as
     10^x labels); minors never labelled."""
-    from matplotlib.ticker import LogFormatterSciNotation, LogLocator, NullFormatter
+    from matplotlib.ticker import (
+        FuncFormatter,
+        LogFormatterSciNotation,
+        LogLocator,
+        MaxNLocator,
+        NullFormatter,
+    )
 
     for axis, scale in ((ax.xaxis, ax.get_xscale()), (ax.yaxis, ax.get_yscale())):
         if scale != "log":
@@ -64,12 +70,26 @@ def _log_ticks(ax) -> None:
         lo, hi = sorted(axis.get_view_interval())
         if not (lo > 0.0 and hi > lo):
             continue
-        if math.log10(hi / lo) < 2.5:
+        span = math.log10(hi / lo)
+        if span < 0.7:
+            # Too narrow for 1-2-5 ticks: a few evenly spaced values, labelled short.
+            axis.set_major_locator(MaxNLocator(nbins=4))
+            axis.set_major_formatter(FuncFormatter(_short_number))
+        elif span < 2.5:
             axis.set_major_locator(LogLocator(base=10.0, subs=(1.0, 2.0, 5.0)))
             axis.set_major_formatter(
                 LogFormatterSciNotation(labelOnlyBase=False, minor_thresholds=(math.inf, math.inf))
             )
         axis.set_minor_formatter(NullFormatter())
+
+
+def _short_number(v, _pos=None) -> str:
+    """2.4e-4 rather than 0.00024 or 2.40e-04."""
+    if not v:
+        return "0"
+    mant, exp = f"{v:.2e}".split("e")
+    mant = mant.rstrip("0").rstrip(".")
+    return f"{mant}e{int(exp)}"
 
 
 def _save(fig, out) -> Path:

@@ -30,7 +30,7 @@ def _cell(text) -> str:
 
 
 def _cost(v: float, cost: str) -> str:
-    return f"{v:.3g} s" if cost == "wall" else f"{v:.3g}"
+    return f"{v:.3g}" if cost == "evals" else f"{v:.3g} s"
 
 
 def _law_text(exponent, energy_err) -> str:

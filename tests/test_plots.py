@@ -126,6 +126,10 @@ def test_real_short_runs_plot_and_report(tmp_path, capsys):
     assert "Cheapest method per target error" in md
     for kind in ("work-precision-axis", "work-precision-energy", "drift", "theta", "axis-path"):
         assert_png(out / f"demo-wheel-{kind}.png")
+    png = tmp_path / "cpu.png"
+    argv = ["plot", str(runs), "--kind", "work-precision", "--cost", "cpu", "--out", str(png)]
+    assert main(argv) == 0
+    assert_png(png)
     png = tmp_path / "path.png"
     rid = records[0]["run_id"][:8]
     assert main(["plot", str(runs), "--kind", "axis-path", "--run", rid, "--out", str(png)]) == 0
@@ -219,6 +223,7 @@ def bad_files(tmp_path):
         ("store", ["--kind", "theta", "--run", "fixed00", "--run", "fixed06"], "several cases"),
         ("store", ["--kind", "work-precision", "--run", "fixed00"], "--run"),
         ("store", ["--kind", "drift", "--case", "one", "--error", "axis"], "work-precision"),
+        ("store", ["--kind", "work-precision", "--case", "one", "--cost", "cpu"], "CPU time"),
     ],
 )
 def test_plot_bad_input_exits_2_with_one_line(tmp_path, capsys, file, extra, says):

@@ -31,9 +31,10 @@ def add_parser(sub) -> None:
     )
     p.add_argument(
         "--cost",
-        choices=("wall", "evals", "both"),
+        choices=("wall", "cpu", "evals", "both"),
         default="both",
-        help="work-precision cost: wall time, evaluations, or both panels (default)",
+        help="work-precision cost: wall time, CPU time, evaluations, or both wall time and "
+        "evaluations side by side (default)",
     )
     p.add_argument(
         "--out", metavar="PNG", help="figure file (default: CASE-KIND.png in the current directory)"
@@ -67,7 +68,8 @@ def run(args) -> int:
         error = pick_error(records, case, args.error)
         costs = ("wall", "evals") if args.cost == "both" else (args.cost,)
         if not any(analysis.work_points(records, case, error, c) for c in costs):
-            raise UserError(f"case '{case}' has no ok run with a {error} error to plot")
+            what = " or ".join(analysis.COSTS[c][1] for c in costs)
+            raise UserError(f"case '{case}' has no ok run with both a {error} error and a {what}")
         out = _guarded(args.out or f"{slug(case)}-{args.kind}.png", args.file)
         plots.work_precision(records, case, out, error=error, costs=costs)
     else:
