@@ -41,7 +41,8 @@ def record(
     if timing_from is not None:
         reused = {tk: {"run": t["run"], "horizon": t["horizon"]} for tk, t in timing_from.items()}
         plans = {**reused, **{tk: p for tk, p in plans.items() if tk not in reused}}
-    timings, calibration = measure_timings(plans, jobs, report=report)
+    own = frozenset(tk for tk in plans if timing_from is None or tk not in timing_from)
+    timings, calibration = measure_timings(plans, jobs, report=report, settle=own)
     normalise_grid(runs, calibration)
     return {
         "format": FORMAT,

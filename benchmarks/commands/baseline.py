@@ -40,6 +40,17 @@ def run(args) -> int:
     spec = read_sweep(args.sweep)
     t0 = time.perf_counter()
     data = record(spec, args.sweep)
+    broken = [
+        f"{section} {key}: {r['detail']}"
+        for section in ("runs", "timings")
+        for key, r in data[section].items()
+        if r["status"] == "error"
+    ]
+    if broken:  # a run that raised is a bug to fix, not a number to gate against
+        print(f"baseline: not written: {len(broken)} could not be computed", file=sys.stderr)
+        for line in broken:
+            print(f"  {line}", file=sys.stderr)
+        return 1
     write_baseline(data, out, force=args.force)
     took = time.perf_counter() - t0
     cal = data["calibration"]
