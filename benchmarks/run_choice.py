@@ -8,6 +8,7 @@ import re
 
 from . import analysis
 from .errors import UserError
+from .run_reader import STATUS_INCOMPLETE
 
 
 def _listing(names: list[str], limit: int = 8) -> str:
@@ -37,11 +38,13 @@ def pick_runs(
     records: list[dict], run_ids: list[str] | None, case: str | None, path: str
 ) -> tuple[str, list[dict]]:
     """(case, records) for the runs asked for by id (or a unique id prefix), or every run of the
-    case. Runs given by id must share one case."""
-    require_runs(records, path)
+    case. Runs given by id must share one case. records may include incomplete groups (so that
+    asking for one says what is wrong with it); every run of a case leaves them out."""
+    complete = [r for r in records if r.get("status") != STATUS_INCOMPLETE]
+    require_runs(complete, path)
     if not run_ids:
-        case = pick_case(records, case, path)
-        return case, analysis.case_records(records, case)
+        case = pick_case(complete, case, path)
+        return case, analysis.case_records(complete, case)
     chosen = []
     for rid in run_ids:
         hits = [r for r in records if r["run_id"] == rid] or [
@@ -51,6 +54,11 @@ def pick_runs(
             raise UserError(f"no run '{rid}' in '{path}'")
         if len(hits) > 1:
             raise UserError(f"run id '{rid}' is ambiguous in '{path}' ({len(hits)} runs start so)")
+        if hits[0].get("status") == STATUS_INCOMPLETE:
+            raise UserError(
+                f"run {hits[0]['run_id']} in '{path}' is incomplete (no case or method yet: its "
+                "writer has only begun it)"
+            )
         chosen.append(hits[0])
     found = sorted({r["case"] for r in chosen if r.get("case") is not None})
     if len(found) > 1:
@@ -93,9 +101,13 @@ def run_rank(record: dict) -> float:
     return 0.0
 
 
-def load_labelled(path: str, records: list[dict], chosen: list[dict]) -> list[dict]:
+def load_labelled(
+    path: str, records: list[dict], chosen: list[dict], strict: bool = True
+) -> list[dict]:
     """Sample series of the chosen runs, each with a label naming method and setting; runs
-    without a single sample yet are left out."""
+    without a single sample yet are left out. strict=False also leaves out runs whose datasets
+    are missing (a group its writer has only begun), instead of refusing: for 'every run of a
+    case', where the user named none of them."""
     from . import plots
     from .run_reader import load_series
 
@@ -103,7 +115,12 @@ def load_labelled(path: str, records: list[dict], chosen: list[dict]) -> list[di
     labels = analysis.series_labels([r for r in records if r.get("case") in cases])
     out = []
     for r in chosen:
-        s = load_series(path, r["run_id"])
+        try:
+            s = load_series(path, r["run_id"])
+        except UserError:
+            if strict:
+                raise
+            continue
         if len(s["t"]) == 0:
             continue
         s["series"] = labels[analysis.series_key(r)]

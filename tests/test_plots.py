@@ -182,6 +182,11 @@ def test_running_and_incomplete_runs_are_marked_not_fatal(tmp_path, capsys):
     out = tmp_path / "rep"
     assert main(["report", str(path), "--out", str(out)]) == 0
     assert "**running**" in (out / "report.md").read_text()
+    png = tmp_path / "all.png"
+    assert main(["plot", str(path), "--kind", "drift", "--out", str(png)]) == 0  # skips 'half'
+    assert_png(png)
+    assert main(["plot", str(path), "--kind", "drift", "--run", "half", "--out", str(png)]) == 2
+    assert "is incomplete" in capsys.readouterr().err
 
 
 def bad_files(tmp_path):

@@ -58,9 +58,10 @@ def run(args) -> int:
     from .. import analysis, plots
     from ..errors import UserError
     from ..run_choice import load_labelled, pick_case, pick_error, pick_runs, slug
-    from ..run_reader import load_records
+    from ..run_reader import STATUS_INCOMPLETE, load_records
 
-    records = [r for r in load_records(args.file) if r.get("method") is not None]
+    everything = load_records(args.file)
+    records = [r for r in everything if r["status"] != STATUS_INCOMPLETE]
     if args.kind == "work-precision":
         if args.run:
             raise UserError("--run: a work-precision diagram shows every run of a case; use --case")
@@ -75,8 +76,8 @@ def run(args) -> int:
     else:
         if args.error is not None or args.cost != "both":
             raise UserError(f"--error and --cost belong to work-precision, not {args.kind}")
-        case, chosen = pick_runs(records, args.run, args.case, args.file)
-        runs = load_labelled(args.file, records, chosen)
+        case, chosen = pick_runs(everything, args.run, args.case, args.file)
+        runs = load_labelled(args.file, records, chosen, strict=bool(args.run))
         if not runs:
             raise UserError(f"none of the chosen runs of '{case}' has samples yet")
         name = slug(case) if not args.run or len(runs) > 1 else slug(runs[0]["record"]["run_id"])

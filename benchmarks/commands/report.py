@@ -25,7 +25,7 @@ def run(args) -> int:
     from ..errors import UserError
     from ..report import write_report
     from ..run_choice import pick_case, require_runs
-    from ..run_reader import load_records
+    from ..run_reader import STATUS_INCOMPLETE, load_records
 
     out_dir = Path(args.out)
     if out_dir.exists() and not out_dir.is_dir():
@@ -35,7 +35,7 @@ def run(args) -> int:
         results.name == "report.md" or results.suffix.lower() == ".png"
     ):
         raise UserError(f"'{args.file}' would be overwritten by the report; choose another --out")
-    records = [r for r in load_records(args.file) if r.get("method") is not None]
+    records = [r for r in load_records(args.file) if r["status"] != STATUS_INCOMPLETE]
     require_runs(records, args.file)
     from ..analysis import cases as all_cases
 
