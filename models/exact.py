@@ -200,7 +200,23 @@ def _cubic_roots(c3, c2, c1, c0, w_minus):
 class LagrangeTop:
     """Exact motion of a symmetric heavy top from a given start (t = 0).
 
-    Build with LagrangeTop.from_state(body, form, y). Angles in rad, times in s.
+    Build with LagrangeTop.from_state(body, form, y); form is FORM_EULER / FORM_BODY or their
+    names. Angles in rad, times in s. Attributes:
+
+    roots                 (u1, u2, u3) of f(u), u = cos(theta); u3 >= 1 for M g l > 0, u3 <= -1
+                          for M g l < 0, inf for the free top (f is then a quadratic)
+    theta_min, theta_max  the nutation range
+    nutation_period       2 K(m) / lambda; for uniform precession and a sleeping top the
+                          small-oscillation limit; inf where there is none
+    precession_per_period, spin_per_period   phi and psi gained over one nutation period
+                          (including the +/- pi of each pass through the vertical)
+    mean_precession_rate, mean_spin_rate     the same divided by the period
+    motion                one of MOTIONS
+    sleeping_margin       p_psi^2 - 4 I1 M g l: > 0 means a top spinning with its axis straight
+                          up would be stable
+    A sleeping or hanging top (axis exactly on the vertical, no transverse momentum) keeps phi
+    at the start's value and turns psi at p_psi / I3: only phi + psi (or phi - psi) is defined.
+    Refusals raise ExactUnavailable with the reason.
     """
 
     def __init__(self):
@@ -483,7 +499,6 @@ class LagrangeTop:
         lam = 0.5 * math.sqrt(kappa)
         kc = float(elliprf(0.0, mc, 1.0))
         om1, op2 = w_minus - x1, w_plus + x2
-        self._u0i = u0
         self._x = (x1, x2, x3)
         self._roots_i = (u0 + x1, u0 + x2, u0 + x3 if beta > 0.0 else inf)
         self._gap, self._m, self._mc, self._lam, self._kc = gap, m, mc, lam, kc

@@ -85,7 +85,7 @@ def test_fast_top_limits_and_their_rate():
         e = np.array(e)
         slope = np.polyfit(np.log(spins), np.log(np.abs(e)), 1)[0]
         assert slope == pytest.approx(-2.0, abs=0.02), (name, slope, e)
-        assert e[-1] / eps[-1] == pytest.approx(lead[name], rel=1e-3), name
+        assert e[-1] / eps[-1] == pytest.approx(lead[name], rel=1e-3, abs=0), name
         rest = (e - lead[name] * eps) / eps**2
         assert np.abs(rest).max() < 2.0, (name, rest)
 
@@ -99,7 +99,9 @@ def test_sleeping_threshold():
     slow = LagrangeTop.from_state(TOP, FORM_BODY, on_vertical(0.9 * w_crit))
     assert fast.sleeping_margin > 0.0 and fast.motion == "sleeping"
     assert slow.sleeping_margin < 0.0 and slow.motion == "sleeping-unstable"
-    assert fast.sleeping_margin == pytest.approx((I3 * 1.1 * w_crit) ** 2 - 4 * I1 * MGL)
+    assert fast.sleeping_margin == pytest.approx(
+        (I3 * 1.1 * w_crit) ** 2 - 4 * I1 * MGL, rel=1e-12, abs=0
+    )
     # Slightly tilted and released: above the threshold the tilt stays of the order of the
     # start, below it the top falls far.
     tilt = 1e-3
@@ -110,7 +112,7 @@ def test_sleeping_threshold():
     # The sleeping branch reports the small-oscillation limit of the nutation period,
     # 2 pi / sqrt(a^2 - 2 beta) (from f(u) near u = 1); a barely tilted top has that period.
     barely = exact(TOP, 0.0, 1e-6, 0.0, 0.0, 0.0, 1.1 * w_crit)
-    assert fast.nutation_period == pytest.approx(barely.nutation_period, rel=1e-6)
+    assert fast.nutation_period == pytest.approx(barely.nutation_period, rel=1e-6, abs=0)
     yb = on_vertical(1.1 * w_crit)
     e = fast.euler(np.linspace(0.0, 1.0, 5))
     assert np.all(e[:, 1] == 0.0)
@@ -135,11 +137,11 @@ def test_uniform_precession_at_a_double_root(slow):
     top = exact(TOP, 0.3, theta, -0.2, rate, 0.0, w3 - rate * math.cos(theta))
     assert top.motion == "uniform-precession"
     assert top.roots[1] - top.roots[0] < 1e-13
-    assert top.mean_precession_rate == pytest.approx(rate, rel=1e-10)
+    assert top.mean_precession_rate == pytest.approx(rate, rel=1e-10, abs=0)
     e = top.euler(np.linspace(0.0, 50.0, 101))
     assert np.all(np.isfinite(e))
     assert np.abs(e[:, 1] - theta).max() < 1e-12
-    assert e[:, 0] == pytest.approx(0.3 + rate * np.linspace(0.0, 50.0, 101), rel=1e-10)
+    assert e[:, 0] == pytest.approx(0.3 + rate * np.linspace(0.0, 50.0, 101), rel=1e-10, abs=0)
 
 
 def test_classification_of_built_starts():
@@ -185,7 +187,7 @@ def test_free_top_cone_rate():
     yb = body_state(FREE, 0.3, 0.9, -0.2, 3.0, 1.5, 60.0)
     top = LagrangeTop.from_state(FREE, FORM_BODY, yb)
     big_l = float(np.linalg.norm(yb[4:]))
-    assert top.nutation_period == pytest.approx(2.0 * math.pi * I1 / big_l, rel=1e-14)
+    assert top.nutation_period == pytest.approx(2.0 * math.pi * I1 / big_l, rel=1e-14, abs=0)
 
 
 # --------------------------------------------------------------------------- degenerate starts
@@ -195,7 +197,7 @@ def test_start_direction_mid_nutation():
     down = exact(TOP, 0.0, 0.7, 0.0, 2.0, -0.9, 60.0)
     h = 1e-5
     assert up.euler(h)[0, 1] > 0.7 > down.euler(h)[0, 1]
-    assert up.nutation_period == pytest.approx(down.nutation_period, rel=1e-14)
+    assert up.nutation_period == pytest.approx(down.nutation_period, rel=1e-14, abs=0)
 
 
 @pytest.mark.parametrize("offset", [1e-4, 1e-7, 1e-10])
