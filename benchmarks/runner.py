@@ -38,6 +38,7 @@ from .store import RunGroup, utc_now
 
 FLUSH_EVERY_S = 2.0
 BATCH_ROWS = 4096
+CHUNK_STEPS = 1 << 20  # steps per call inside a long fixed-step interval (see _advance)
 
 
 @dataclass
@@ -496,21 +497,17 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
         run.acc = Accumulator.at_start(buf.scal[0], buf.mom[0], p, has_exact, form != 0)
         j = 1
         run.k = 1
-    clock = time.perf_counter
-    cpu_clock = time.thread_time
     while run.k < n:
         tk = plan.sample_time(run.k)
-        c0 = cpu_clock()
-        t0 = clock()
         try:
-            st = s.advance_to(tk)
+            st = _advance(plan, run, tk, stop, progress)
         except MethodRefused as exc:
-            run.wall += clock() - t0
-            run.cpu += cpu_clock() - c0
-            status, detail, t_fail = "failed", str(exc), float(s.t)
+            status, detail, t_fail = "failed", str(exc), float(run.stepper.t)
             break
-        run.wall += clock() - t0
-        run.cpu += cpu_clock() - c0
+        s = run.stepper  # a stop inside a long interval rolls the stepper back to t_(k-1)
+        if st is None:
+            flush()
+            return _interrupted(plan, run, progress)
         if st != ST_OK:
             t_fail = float(s.t_fail) if math.isfinite(s.t_fail) else float(s.t)
             if st == ST_SINGULAR:
@@ -535,20 +532,16 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
             break
         if progress:
             progress.update(run.k, int(s.counters[0]))
-        if run.k < n and (j == buf.rows or stop.requested or clock() - last_flush >= flush_every):
+        if run.k < n and (
+            j == buf.rows or stop.requested or time.perf_counter() - last_flush >= flush_every
+        ):
             try:
                 flush()
             except ExactFailed as exc:
                 status, detail, t_fail, exact_failed = "failed", str(exc), None, True
                 break
             if stop.requested:
-                metrics = _final_metrics(run, None)
-                run.group.set_metrics(metrics)
-                run.group.set(status="interrupted")
-                run.group.flush()
-                if progress:
-                    progress.end("interrupted")
-                return RunResult(plan.run_id, "interrupted", metrics)
+                return _interrupted(plan, run, progress)
     if not exact_failed:
         try:
             flush()
@@ -562,6 +555,61 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
     if progress:
         progress.end(status)
     return RunResult(plan.run_id, status, metrics, detail)
+
+
+def _interrupted(plan: RunPlan, run: _Run, progress) -> RunResult:
+    metrics = _final_metrics(run, None)
+    run.group.set_metrics(metrics)
+    run.group.set(status="interrupted")
+    run.group.flush()
+    if progress:
+        progress.end("interrupted")
+    return RunResult(plan.run_id, "interrupted", metrics)
+
+
+def _advance(plan: RunPlan, run: _Run, tk: float, stop: StopFlag, progress) -> int | None:
+    """Advance the stepper to the sample time tk, timing the calls; returns its status, or None
+    when a stop was asked for inside a long interval (the stepper is then back at t_(k-1)).
+
+    A fixed-step interval longer than CHUNK_STEPS steps is taken in pieces of CHUNK_STEPS, so
+    that the progress bar moves and a signal is heard within a fraction of a second. The pieces
+    are fixed by the step count, never by the clock, so that a run repeats its bits."""
+    s = run.stepper
+    per = plan.settings.get("steps_per_sample", 0)
+    clock, cpu_clock = time.perf_counter, time.thread_time
+    if per <= CHUNK_STEPS:
+        c0, t0 = cpu_clock(), clock()
+        try:
+            return s.advance_to(tk)
+        finally:
+            run.wall += clock() - t0
+            run.cpu += cpu_clock() - c0
+    at_start = (s.snapshot(), run.wall, run.cpu)
+    h = plan.stepper_settings["step"]
+    t_prev = plan.sample_time(run.k - 1)
+    done = 0
+    while True:
+        left = per - done
+        target = tk if left <= CHUNK_STEPS else t_prev + (done + CHUNK_STEPS) * h
+        c0, t0 = cpu_clock(), clock()
+        st = s.advance_to(target)
+        run.wall += clock() - t0
+        run.cpu += cpu_clock() - c0
+        if st != ST_OK or target == tk:
+            return st
+        done += CHUNK_STEPS
+        if progress:
+            progress.update(run.k - 1 + done / per, int(s.counters[0]))
+        if stop.requested:
+            # Back to the last sample: the checkpoint must describe a state at a sample time.
+            p = plan
+            fresh = p.method.start(
+                p.form_code, p.params.copy(), 0.0, p.y0.copy(), dict(p.stepper_settings)
+            )
+            fresh.restore(at_start[0])
+            run.stepper = fresh
+            run.wall, run.cpu = at_start[1], at_start[2]
+            return None
 
 
 def _final_metrics(run: _Run, t_fail) -> dict:

@@ -45,6 +45,27 @@ def top():
     return parse_case(TOP_TOML, "runner-top.toml")
 
 
+class StopAfter(StopFlag):
+    """Asks to stop after a number of look-ups, as a signal arriving mid-run would."""
+
+    def __init__(self, n):
+        super().__init__()
+        self.n = n
+
+    @property
+    def requested(self):
+        self.n -= 1
+        return self.n < 0
+
+    @property
+    def signum(self):
+        return 2 if self.n < 0 else 0
+
+    @signum.setter
+    def signum(self, v):
+        pass
+
+
 def _run(plan, path, **kw):
     f = store.open_writer(path)
     try:
@@ -140,26 +161,6 @@ def test_adaptive_run_uses_dense_output_at_samples(top, tmp_path):
 def test_interrupt_then_resume_gives_the_same_bits(top, tmp_path):
     plan = plan_run(top, "gauss4", step=0.001, samples=41, horizon=2.0)
     whole = _run(plan, tmp_path / "whole.h5")
-
-    class StopAfter(StopFlag):
-        """Asks to stop after a number of look-ups, as a signal arriving mid-run would."""
-
-        def __init__(self, n):
-            super().__init__()
-            self.n = n
-
-        @property
-        def requested(self):
-            self.n -= 1
-            return self.n < 0
-
-        @property
-        def signum(self):
-            return 2 if self.n < 0 else 0
-
-        @signum.setter
-        def signum(self, v):
-            pass
 
     part = _run(plan, tmp_path / "part.h5", stop=StopAfter(15))
     assert part.status == "interrupted"
@@ -266,3 +267,33 @@ def test_a_failing_reference_ends_the_run_as_failed_without_nan(top, tmp_path):
         n = g["t"].shape[0]
         assert 0 < n < 11 and g["exact/euler"].shape[0] == n
         assert np.all(np.isfinite(g["exact/euler"][()]))
+
+
+@pytest.mark.parametrize("stop_after", [3, 10, 23])
+def test_long_intervals_in_pieces_resume_to_the_same_bits(top, tmp_path, monkeypatch, stop_after):
+    """An interval longer than CHUNK_STEPS is advanced in pieces; a stop inside one rolls back
+    to the last sample, and the resumed run repeats the bits of one that never stopped."""
+    from topdrift.benchmarks import runner
+
+    monkeypatch.setattr(runner, "CHUNK_STEPS", 7)
+    plan = plan_run(top, "leapfrog", step=0.001, form="body")  # 50 steps per interval
+    assert plan.settings["steps_per_sample"] == 50
+    whole = _run(plan, tmp_path / "whole.h5")
+    assert whole.status == "ok" and whole.metrics["steps"] == 500
+    part = _run(plan, tmp_path / "part.h5", stop=StopAfter(stop_after))
+    assert part.status == "interrupted"
+    with store.open_reader(tmp_path / "part.h5") as f:
+        g = f["runs"][plan.run_id]
+        k = g["checkpoint/run"].attrs["sample"]
+        assert g["t"].shape[0] == k
+        # The checkpoint's step count is that of sample k - 1, not of a piece past it.
+        assert g["checkpoint/run/counters"][0] == 50 * (k - 1)
+    done = _run(plan, tmp_path / "part.h5", resume=True)
+    assert done.status == "ok" and done.metrics["steps"] == 500
+    with (
+        store.open_reader(tmp_path / "whole.h5") as fa,
+        store.open_reader(tmp_path / "part.h5") as fb,
+    ):
+        ga, gb = fa["runs"][plan.run_id], fb["runs"][plan.run_id]
+        for n in ("t", "state", "euler", "quaternion", "momentum", "invariants/energy"):
+            assert ga[n][()].tobytes() == gb[n][()].tobytes(), n
