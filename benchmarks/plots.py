@@ -95,6 +95,7 @@ def _short_number(v, _pos=None) -> str:
 def _save(fig, out) -> Path:
     for ax in fig.get_axes():
         _log_ticks(ax)
+    fig.tight_layout()  # after the ticks are final, so that their labels get room
     out = Path(out)
     out.parent.mkdir(parents=True, exist_ok=True)
     fig.savefig(out, dpi=DPI, bbox_inches="tight")
@@ -210,7 +211,6 @@ def work_precision(
             ha="left",
             va="top",
         )
-    fig.tight_layout()
     return _save(fig, out)
 
 
@@ -298,7 +298,6 @@ def drift(runs: list[dict], case: str, out) -> Path:
     fig.suptitle(f"{case}: invariant errors" + (f", {runs[0]['label']}" if len(runs) == 1 else ""))
     if handles and len(runs) > 1:
         _legend_right(fig, list(handles.values()), list(handles.keys()))
-    fig.tight_layout()
     return _save(fig, out)
 
 
@@ -363,7 +362,6 @@ def theta(runs: list[dict], case: str, out) -> Path:
         + (f", {runs[0]['label']}" if single else "")
     )
     _legend_right(fig, list(handles.values()), list(handles.keys()))
-    fig.tight_layout()
     return _save(fig, out)
 
 
@@ -443,7 +441,6 @@ def axis_path(runs: list[dict], case: str, out) -> Path:
         f"{case}: figure axis seen from above" + (f", {runs[0]['label']}" if len(runs) == 1 else "")
     )
     _legend_right(fig, list(handles.values()), list(handles.keys()))
-    fig.tight_layout()
     return _save(fig, out)
 
 
