@@ -105,23 +105,23 @@ TOP_KEYS = (
 )
 
 
-def _encode(v):
+def encode_nonfinite(v):
     if isinstance(v, float) and not math.isfinite(v):
         return "nan" if math.isnan(v) else ("inf" if v > 0 else "-inf")
     if isinstance(v, dict):
-        return {k: _encode(x) for k, x in v.items()}
+        return {k: encode_nonfinite(x) for k, x in v.items()}
     if isinstance(v, list):
-        return [_encode(x) for x in v]
+        return [encode_nonfinite(x) for x in v]
     return v
 
 
-def _decode(v):
+def decode_nonfinite(v):
     if isinstance(v, str) and v in _NONFINITE:
         return _NONFINITE[v]
     if isinstance(v, dict):
-        return {k: _decode(x) for k, x in v.items()}
+        return {k: decode_nonfinite(x) for k, x in v.items()}
     if isinstance(v, list):
-        return [_decode(x) for x in v]
+        return [decode_nonfinite(x) for x in v]
     return v
 
 
@@ -191,7 +191,7 @@ def read_baseline(path: Path) -> dict:
         raise UserError(f"{label}: not UTF-8 text (offset {exc.start})") from None
     except json.JSONDecodeError as exc:
         raise UserError(f"{label}: not valid JSON: {exc.msg} (line {exc.lineno})") from None
-    return validate(_decode(data), label)
+    return validate(decode_nonfinite(data), label)
 
 
 def write_baseline(data: dict, path: Path, *, force: bool = False) -> None:
@@ -201,7 +201,7 @@ def write_baseline(data: dict, path: Path, *, force: bool = False) -> None:
     if path.exists() and not force:
         raise UserError(f"{path}: exists; pass --force to record a new baseline over it")
     path.parent.mkdir(parents=True, exist_ok=True)
-    text = json.dumps(_encode(data), indent=1, allow_nan=False) + "\n"
+    text = json.dumps(encode_nonfinite(data), indent=1, allow_nan=False) + "\n"
     tmp = path.with_name(f".{path.name}.{os.getpid()}.tmp")
     try:
         tmp.write_text(text, encoding="utf-8")

@@ -17,7 +17,7 @@ import math
 import pytest
 
 from topdrift.benchmarks import grid_measure
-from topdrift.benchmarks.baseline_file import read_baseline, validate
+from topdrift.benchmarks.baseline_file import read_baseline, validate, write_baseline
 from topdrift.benchmarks.cli import main
 from topdrift.benchmarks.gate import Thresholds, compare, format_report
 from topdrift.benchmarks.library import load_case
@@ -193,6 +193,56 @@ def test_json_output(recorded, capsys, monkeypatch):
     assert doc["verdict"] == "fail"
     hit = [f for f in doc["findings"] if f["run"] == S4_KEY and f["metric"] == "energy_rel_max"]
     assert hit and hit[0]["kind"] == "regression" and hit[0]["now"] > hit[0]["baseline"]
+
+
+class _SlowStepper:
+    """Advances three shadow copies of the same run beside the real one: the same steps and
+    numbers, four times the kernel work per step."""
+
+    def __init__(self, real, shadows):
+        self.real, self.shadows = real, shadows
+
+    def advance_to(self, t_end):
+        for s in self.shadows:
+            s.advance_to(t_end)
+        return self.real.advance_to(t_end)
+
+    def __getattr__(self, name):
+        return getattr(self.real, name)
+
+
+class _SlowLeapfrog(Method):
+    def __init__(self, inner: Method):
+        self.inner = inner
+        self.info = inner.info
+
+    def start(self, form, params, t0, y0, settings):
+        def one():
+            return self.inner.start(form, params.copy(), t0, y0.copy(), dict(settings))
+
+        return _SlowStepper(one(), [one() for _ in range(3)])
+
+
+def test_slower_kernel_fails_the_timing(recorded, capsys, monkeypatch):
+    path, _ = recorded
+    reg.all_methods()
+    monkeypatch.setitem(reg._methods, "leapfrog", _SlowLeapfrog(get("leapfrog")))
+    # four times the work against a band of +100 %: a margin of 2 x for machine noise
+    rc, out, _ = _gate(capsys, path, "--time-band", "1.0")
+    assert rc == 1, out
+    rows = [ln for ln in out.splitlines() if ln.startswith("REGRESSION")]
+    assert any("timing leapfrog body" in ln and "slower" in ln for ln in rows), out
+    # the numbers are the same: only the timing moved
+    assert all("timing" in ln for ln in rows), out
+
+
+def test_nonfinite_numbers_round_trip(recorded, tmp_path):
+    data = read_baseline(recorded[0])
+    data["runs"][S4_KEY]["energy_rel_max"] = math.inf
+    p = tmp_path / "inf.json"
+    write_baseline(data, p)
+    assert '"inf"' in p.read_text()
+    assert read_baseline(p)["runs"][S4_KEY]["energy_rel_max"] == math.inf
 
 
 # ---- bad input: exit 2, one line naming what is wrong

@@ -62,7 +62,7 @@ def add_parser(sub) -> None:
 def run(args) -> int:
     import sys
 
-    from ..baseline_file import DEFAULT_FILE, read_baseline
+    from ..baseline_file import DEFAULT_FILE, encode_nonfinite, read_baseline
     from ..baseline_record import record
     from ..gate import Thresholds, compare, format_report
     from ..sweep_spec import read_sweep
@@ -77,7 +77,8 @@ def run(args) -> int:
     now = record(spec, baseline["sweep"]["source"], timing_from=baseline["timings"])
     result = compare(baseline, now, thresholds)
     if args.json:
-        print(json.dumps({"baseline": str(path), **result.as_json()}, indent=2))
+        doc = encode_nonfinite({"baseline": str(path), **result.as_json()})  # inf/nan as strings
+        print(json.dumps(doc, indent=2, allow_nan=False))
     else:
         header = (
             f"gate: {path} (recorded {baseline['created']}, sweep "
