@@ -80,9 +80,14 @@ def run(args) -> int:
         doc = encode_nonfinite({"baseline": str(path), **result.as_json()})  # inf/nan as strings
         print(json.dumps(doc, indent=2, allow_nan=False))
     else:
+        t = thresholds
+        ca, cb = baseline["calibration"], now["calibration"]
         header = (
             f"gate: {path} (recorded {baseline['created']}, sweep "
-            f"{baseline['sweep']['name']!r}) against a rerun now"
+            f"{baseline['sweep']['name']!r}) against a rerun now\n"
+            f"limits: errors x{t.error_factor:g} above {t.error_floor:g}, counts "
+            f"{t.steps_tolerance:.0%}, timings +{t.time_band:.0%}; calibration "
+            f"{ca['ns_per_iteration']:.1f} ns per iteration then, {cb['ns_per_iteration']:.1f} now"
         )
         print(format_report(result, header), file=sys.stdout)
     return 1 if result.failed else 0
