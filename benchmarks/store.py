@@ -93,6 +93,8 @@ def existing_status(path: Path, run_id: str) -> tuple[str | None, int]:
     """(status, samples stored) of a run in a file, (None, 0) when the file or run is absent.
     Raises UserError when the file exists but is not a run store; never writes."""
     path = Path(path)
+    if path.is_dir():
+        raise UserError(f"{path}: is a directory, not a results file")
     if not path.exists():
         return None, 0
     with open_reader(path) as f:
@@ -113,8 +115,11 @@ def open_writer(path: Path) -> h5py.File:
             f.close()
             raise
         return f
-    path.parent.mkdir(parents=True, exist_ok=True)
-    f = _open(path, "w-")
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        f = h5py.File(path, "w-")
+    except OSError as exc:
+        raise UserError(f"{path}: cannot create the results file ({exc})") from None
     f.attrs["format"] = FORMAT
     f.attrs["format_version"] = FORMAT_VERSION
     f.create_group("runs")

@@ -317,3 +317,35 @@ def test_a_second_writer_is_refused(tmp_path):
         assert out.stat().st_size == before
     finally:
         f.close()
+
+
+def test_resume_of_a_run_killed_before_its_first_write_starts_it(tmp_path, capsys):
+    from topdrift.benchmarks.case import read_case
+    from topdrift.benchmarks.runner import plan_run, run_attrs
+    from topdrift.benchmarks.store import RunGroup, open_writer
+
+    case = write(tmp_path, "top.toml", TOP_TOML)
+    out = tmp_path / "r.h5"
+    plan = plan_run(read_case(case), "leapfrog", step=0.01)
+    f = open_writer(out)
+    RunGroup.create(f, plan.run_id, run_attrs(plan), 6, plan.exact is not None, plan.samples)
+    f.close()  # what a kill right after the group was made leaves: status running, no rows
+    args = [str(case), "--method", "leapfrog", "--step", "0.01", "--out", str(out)]
+    assert cli.main(["run", *args]) == 2
+    assert "is running at sample 0/11" in capsys.readouterr().err
+    rc, doc = run_json(capsys, [*args, "--resume"])
+    assert rc == 0 and doc["runs"][0]["status"] == "ok"
+    with h5py.File(out, "r") as f:
+        assert f["runs"][plan.run_id]["t"].shape == (11,)
+
+
+def test_out_that_is_a_directory_or_not_hdf5_exits_2(tmp_path, capsys):
+    case = write(tmp_path, "top.toml", TOP_TOML)
+    junk = tmp_path / "junk.h5"
+    junk.write_text("not hdf5\n")
+    for out, message in ((tmp_path, "is a directory"), (junk, "not a readable HDF5 file")):
+        rc = cli.main(
+            ["run", str(case), "--method", "leapfrog", "--step", "0.01", "--out", str(out)]
+        )
+        assert rc == 2 and message in capsys.readouterr().err
+    assert junk.read_text() == "not hdf5\n"

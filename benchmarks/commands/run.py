@@ -112,7 +112,8 @@ def _decide(plans, out: Path, force: bool, resume: bool) -> list[str]:
         elif status in FINAL_STATUSES:
             actions.append("reuse")
         elif resume:
-            actions.append("resume" if p.y0 is not None else "new")
+            # Killed before its first write: nothing was done, so nothing to continue from.
+            actions.append("resume" if p.y0 is not None and n > 0 else "new")
         else:
             raise UserError(
                 f"{out}: run {p.run_id} ({p.case.name}, {p.method.name}) is {status} at sample "
