@@ -10,7 +10,11 @@ no run is ever written twice.
 from __future__ import annotations
 
 import math
+import os
+import signal
 import sys
+import threading
+import time
 from collections.abc import Callable
 from concurrent.futures import ProcessPoolExecutor, as_completed
 from dataclasses import dataclass, field
@@ -166,11 +170,20 @@ def run_sweep(
     stop=None,
 ) -> SweepOutcome:
     """Run every job of the grid not yet complete in `out`. `stop` (an object with a
-    `requested` attribute, set by a signal handler) ends the sweep after the runs in hand."""
+    `requested` attribute, set by a signal handler) ends the sweep after the runs in hand.
+
+    Everything that can fail on bad input (the grid, the scheduler's address) is checked before
+    the results file is opened, so that a refused sweep leaves no file behind."""
     report = report or (lambda line: print(line, file=sys.stderr))
     grid, skipped = expand(spec)
     outcome = SweepOutcome(grid, skipped)
-    f = open_writer(out)
+    client = _dask_client(scheduler) if scheduler else None
+    try:
+        f = open_writer(out)
+    except BaseException:
+        if client is not None:
+            client.close()
+        raise
     try:
         done = _complete_ids(f)
         todo = [j for j in grid if j.run_id not in done]
@@ -195,8 +208,8 @@ def run_sweep(
             took = f" in {wall:.3g} s" if isinstance(wall, float) and math.isfinite(wall) else ""
             report(f"[{count}/{total}] {job.describe()}: {result.status}{took}")
 
-        if scheduler:
-            _on_dask(todo, scheduler, accept, outcome, stop)
+        if client is not None:
+            _on_dask(todo, client, accept, outcome, stop)
         elif jobs <= 1:
             for job in todo:
                 if stop is not None and stop.requested:
@@ -206,17 +219,44 @@ def run_sweep(
         else:
             _on_pool(todo, jobs, accept, outcome, stop)
     finally:
-        f.close()
+        try:
+            f.close()
+        finally:
+            if client is not None:
+                client.close()
     return outcome
+
+
+PARENT_POLL_S = 0.5
+
+
+def _worker_start(client_pid: int) -> None:
+    """Set up a pool worker. A Ctrl-C reaches the whole process group; the client alone decides
+    to stop (after the runs in hand), so a worker must not die of it and take its finished run
+    with it. And a worker must not outlive a client that was killed outright: it would wait on
+    its queue for ever, so a thread ends it once its parent is gone."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+    def watch() -> None:
+        while os.getppid() == client_pid:
+            time.sleep(PARENT_POLL_S)
+        os._exit(1)
+
+    threading.Thread(target=watch, name="topdrift-parent-watch", daemon=True).start()
 
 
 def _on_pool(todo, jobs, accept, outcome, stop) -> None:
     # spawn: workers start clean (no inherited file handles or threads) and load numba's cache.
-    with ProcessPoolExecutor(max_workers=jobs, mp_context=get_context("spawn")) as pool:
+    with ProcessPoolExecutor(
+        max_workers=jobs,
+        mp_context=get_context("spawn"),
+        initializer=_worker_start,
+        initargs=(os.getpid(),),
+    ) as pool:
         futures = {pool.submit(run_job, j): j for j in todo}
         try:
-            for fut in as_completed(futures):
-                job = futures[fut]
+            for fut in as_completed(list(futures)):
+                job = futures.pop(fut)  # drop the result once written: memory stays flat
                 try:
                     result = fut.result()
                 except Exception as exc:  # a worker's failure is one run's failure
@@ -231,36 +271,41 @@ def _on_pool(todo, jobs, accept, outcome, stop) -> None:
                 pool.shutdown(wait=True, cancel_futures=True)
 
 
-def _on_dask(todo, address, accept, outcome, stop) -> None:
+# How long to try to reach a scheduler before calling the address unreachable.
+CONNECT_TIMEOUT_S = 10.0
+
+
+def _dask_client(address: str):
     try:
         from distributed import Client
-        from distributed import as_completed as dask_completed
     except ImportError:
         raise UserError(
             "--scheduler needs dask.distributed: pip install 'topdrift[dask]'"
         ) from None
     try:
-        client = Client(address, timeout="10s")
-    except (OSError, TimeoutError) as exc:
+        return Client(address, timeout=CONNECT_TIMEOUT_S)
+    except (OSError, TimeoutError, ValueError) as exc:
         raise UserError(f"--scheduler {address}: cannot reach the Dask scheduler ({exc})") from None
-    try:
-        # The run id is the task key: a task the scheduler reruns after losing its worker is
-        # still one task, and its result reaches this client once.
-        futures = {
-            client.submit(run_job, j, key=f"topdrift-run-{j.run_id}", pure=False): j for j in todo
-        }
-        ac = dask_completed(list(futures))
-        for fut in ac:
-            job = futures[fut]
-            try:
-                result = fut.result()
-            except Exception as exc:
-                accept(job, None, f"{type(exc).__name__}: {exc}")
-            else:
-                accept(job, result, None)
-            if stop is not None and stop.requested:
-                outcome.interrupted = True
-                client.cancel([f for f in futures if not f.done()])
-                break
-    finally:
-        client.close()
+
+
+def _on_dask(todo, client, accept, outcome, stop) -> None:
+    from distributed import as_completed as dask_completed
+
+    # The run id is the task key: a task the scheduler reruns after losing its worker is
+    # still one task, and its result reaches this client once.
+    futures = {
+        client.submit(run_job, j, key=f"topdrift-run-{j.run_id}", pure=False): j for j in todo
+    }
+    for fut in dask_completed(list(futures)):
+        job = futures.pop(fut)
+        try:
+            result = fut.result()
+        except Exception as exc:
+            accept(job, None, f"{type(exc).__name__}: {exc}")
+        else:
+            accept(job, result, None)
+        fut.release()  # the cluster may forget the image once it is in the file
+        if stop is not None and stop.requested:
+            outcome.interrupted = True
+            client.cancel(list(futures))
+            break

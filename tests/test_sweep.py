@@ -1,0 +1,270 @@
+"""`topdrift sweep` on a local process pool: the grid lands in one file, every run once, in the
+run store's layout; a second sweep runs nothing and leaves the file as it was; the numbers do not
+depend on the worker; bad sweep files are refused before any file exists; grid points a method
+cannot run are skipped with the reason; a client killed mid-sweep is completed by running the same
+command again, to the same bytes."""
+
+import hashlib
+import json
+import math
+import os
+import shutil
+import subprocess
+import time
+from pathlib import Path
+
+import h5py
+import numpy as np
+import pytest
+from sweep_grid import (
+    N_RUNS,
+    N_SKIPPED,
+    PROGRESS,
+    SWEEP_TOML,
+    reference_sweep,
+    run_datasets,
+    same_datasets,
+    topdrift_cmd,
+    write_grid,
+)
+
+from topdrift.benchmarks import cli
+
+SAMPLE_SETS = ("t", "euler", "quaternion", "momentum", "state")
+INVARIANTS = ("energy", "p_phi", "p_psi", "norm")
+
+
+def sweep(capsys, *args):
+    capsys.readouterr()
+    rc = cli.main(["sweep", *args])
+    cap = capsys.readouterr()
+    return rc, cap.out, cap.err
+
+
+def file_sha(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+@pytest.fixture(scope="module")
+def clean(tmp_path_factory):
+    """The grid swept once in this process with one job: the reference for every comparison."""
+    return reference_sweep(tmp_path_factory)
+
+
+def expected_grid() -> set[tuple]:
+    """The grid worked out by hand from SWEEP_TOML (cases x methods x forms x settings)."""
+    rows = set()
+    for case, lf_forms in (("grid-top", ("euler", "body")), ("grid-asym", ("body",))):
+        for form in lf_forms:
+            for h in (4e-6, 2e-6):
+                rows.add((case, "leapfrog", form, ("step", h)))
+        for h in (1e-5, 5e-6):
+            rows.add((case, "rk4", "body", ("step", h)))
+        for r in (1e-7, 1e-10):
+            rows.add((case, "dop853", "body", ("rtol", r)))
+    return rows
+
+
+def test_every_run_once_ok_in_the_documented_layout(clean):
+    grid, out, runs = clean
+    assert len(runs) == N_RUNS
+    got = set()
+    with h5py.File(out, "r") as f:
+        assert f.attrs["format"] == "topdrift-runs" and f.attrs["format_version"] == 1
+        assert list(f) == ["runs"]
+        for rid, g in f["runs"].items():
+            a = g.attrs
+            assert a["status"] == "ok", (rid, a.get("detail"))
+            s = json.loads(a["settings"])
+            key = ("step", s["step_requested"]) if "step" in s else ("rtol", s["rtol"])
+            got.add((a["case"], a["method"], a["form"], key))
+            if "rtol" in s:
+                assert s["atol"] == s["rtol"] * 1e-3  # the runner's default atol
+            else:
+                # a whole number of steps per sample interval (1.5 s / 15)
+                assert s["steps_per_sample"] * s["step"] == pytest.approx(0.1, rel=1e-12)
+            assert a["horizon"] == 1.5 and a["samples"] == 16
+            case_file = {"grid-top": "sym.toml", "grid-asym": "asym.toml"}[a["case"]]
+            assert a["case_toml"] == (grid.parent / case_file).read_text()
+            n = 16
+            width = 7 if a["form"] == "body" else 6
+            for name in SAMPLE_SETS:
+                cols = {"euler": 3, "quaternion": 4, "momentum": 3, "state": width}.get(name)
+                assert g[name].shape == ((n,) if cols is None else (n, cols)), (rid, name)
+            for name in INVARIANTS:
+                assert g[f"invariants/{name}"].shape == (n,)
+            # exact comparison only where there is an exact solution (the Lagrange top)
+            assert ("exact" in g) == (a["case"] == "grid-top")
+            # sample times t_k = k T / (n - 1), the runner's documented formula
+            assert np.array_equal(g["t"][()], np.array([1.5 * k / 15 for k in range(16)]))
+            metrics = json.loads(a["metrics"])
+            assert metrics["steps"] > 0 and math.isfinite(metrics["energy_rel_max"])
+    assert got == expected_grid()
+
+
+def test_a_sweep_run_is_the_run_topdrift_run_makes(clean, tmp_path, capsys):
+    """The in-memory image a worker returns, copied into the file, holds the same run (same id,
+    same bytes) as `topdrift run` writing straight to disk."""
+    grid, _, runs = clean
+    out = tmp_path / "single.h5"
+    capsys.readouterr()
+    rc = cli.main(
+        [
+            "run",
+            str(grid.parent / "asym.toml"),
+            "--method",
+            "rk4",
+            "--step",
+            "1e-5",
+            "--horizon",
+            "1.5",
+            "--samples",
+            "16",
+            "--out",
+            str(out),
+            "--json",
+        ]
+    )
+    assert rc == 0
+    (row,) = json.loads(capsys.readouterr().out)["runs"]
+    single = run_datasets(out)
+    assert row["run_id"] in runs
+    assert single[row["run_id"]]["datasets"] == runs[row["run_id"]]["datasets"]
+
+
+def test_skipped_grid_points_are_reported_not_fatal(clean, tmp_path, capsys):
+    grid, _, _ = clean
+    out = tmp_path / "again.h5"
+    shutil.copy(clean[1], out)
+    rc, _, err = sweep(capsys, str(grid), "--out", str(out), "--jobs", "1")
+    assert rc == 0
+    skipped = [ln for ln in err.splitlines() if ln.startswith("skipped ")]
+    assert len(skipped) == N_SKIPPED
+    for ln in skipped:
+        assert ln.startswith("skipped grid-asym leapfrog (euler) step=")
+        assert "needs a symmetric body" in ln  # the method's own reason
+
+
+def test_second_sweep_runs_nothing_and_leaves_the_file_alone(clean, tmp_path, capsys):
+    grid, ref, runs = clean
+    out = tmp_path / "again.h5"
+    shutil.copy(ref, out)
+    before = file_sha(out)
+    rc, stdout, err = sweep(capsys, str(grid), "--out", str(out), "--jobs", "2", "--json")
+    assert rc == 0
+    assert f"{N_RUNS} run(s) already complete" in err
+    assert not [ln for ln in err.splitlines() if PROGRESS.match(ln)]  # nothing ran
+    assert file_sha(out) == before  # not one byte changed
+    doc = json.loads(stdout)
+    assert doc["sweep"] == "grid" and sorted(r["run_id"] for r in doc["runs"]) == sorted(runs)
+
+
+BAD_SWEEPS = [
+    ("unknown key", SWEEP_TOML.replace("horizon = 1.5", "horizen = 1.5"), "horizen: unknown key"),
+    ("missing key", SWEEP_TOML.replace('cases = ["sym.toml", "asym.toml"]', ""), "cases: missing"),
+    ("bad ladder", SWEEP_TOML.replace("steps = [1e-5, 5e-6]", "steps = [1e-5, -1.0]"), "steps[1]"),
+    ("empty ladder", SWEEP_TOML.replace("rtols = [1e-7, 1e-10]", "rtols = []"), "rtols"),
+    ("ladder word", SWEEP_TOML.replace("rtols = [1e-7, 1e-10]", 'rtols = "fine"'), "rtols"),
+    ("unknown method", SWEEP_TOML.replace('"rk4"', '"rk5"'), "rk5"),
+    ("unknown case", SWEEP_TOML.replace('"asym.toml"', '"no-such-top"'), "no-such-top"),
+    ("unknown form", SWEEP_TOML.replace('["euler", "body"]', '["euler", "polar"]'), "polar"),
+    ("stray method table", SWEEP_TOML + "\n[method.gauss4]\nsteps = [1e-3]\n", "method.gauss4"),
+    ("not TOML", SWEEP_TOML.replace("horizon = 1.5", "horizon = "), "not valid TOML"),
+]
+
+
+@pytest.mark.parametrize("what,text,needle", BAD_SWEEPS, ids=[b[0] for b in BAD_SWEEPS])
+def test_bad_sweep_file_exits_2_with_one_line_and_no_file(tmp_path, capsys, what, text, needle):
+    write_grid(tmp_path)
+    bad = tmp_path / "bad.toml"
+    bad.write_text(text)
+    out = tmp_path / "results" / "bad.h5"
+    rc, stdout, err = sweep(capsys, str(bad), "--out", str(out), "--jobs", "1")
+    assert rc == 2
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("topdrift: error: "), err
+    assert needle in lines[0]
+    assert stdout == ""
+    assert not out.exists() and not out.parent.exists()
+
+
+def test_bad_options_exit_2_and_leave_an_existing_file_alone(clean, tmp_path, capsys):
+    grid, ref, _ = clean
+    out = tmp_path / "kept.h5"
+    shutil.copy(ref, out)
+    before = file_sha(out)
+    rc, _, err = sweep(capsys, str(grid), "--out", str(out), "--jobs", "0")
+    assert rc == 2 and "--jobs" in err and len(err.strip().splitlines()) == 1
+    rc, _, err = sweep(capsys, "no-such-sweep", "--out", str(out))
+    assert rc == 2 and "no-such-sweep" in err and len(err.strip().splitlines()) == 1
+    assert file_sha(out) == before
+
+
+def _complete_runs(path: Path) -> int:
+    """Runs with a final status in a file another process is writing (0 while unreadable)."""
+    try:
+        with h5py.File(path, "r", locking=False) as f:
+            return sum(1 for g in f["runs"].values() if g.attrs.get("status") in ("ok", "diverged"))
+    except (OSError, KeyError, RuntimeError, ValueError):  # caught between two writes
+        return 0
+
+
+def _live_processes_in_group(pgid: int) -> list[int]:
+    """Processes of a process group that are not zombies (Linux /proc)."""
+    live = []
+    for entry in os.listdir("/proc"):
+        if not entry.isdigit():
+            continue
+        try:
+            stat = Path(f"/proc/{entry}/stat").read_text()
+        except OSError:
+            continue
+        fields = stat.rsplit(")", 1)[1].split()
+        if int(fields[2]) == pgid and fields[0] != "Z":
+            live.append(int(entry))
+    return live
+
+
+def test_client_killed_mid_sweep_is_completed_by_the_same_command(clean, tmp_path, capsys):
+    """SIGKILL of `topdrift sweep --jobs 2` after some runs are in the file, then the same
+    command again. Every run of the final file was computed by a two-worker pool, so its bytes
+    matching the one-job sweep's also show that the numbers do not depend on the worker."""
+    grid, _, runs = clean
+    out = tmp_path / "killed.h5"
+    args = ["sweep", str(grid), "--out", str(out), "--jobs", "2"]
+    # Its own session, so that the workers it spawns can be found (and checked gone) by group.
+    proc = subprocess.Popen(
+        topdrift_cmd(*args),
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+        start_new_session=True,
+    )
+    try:
+        deadline = time.monotonic() + 60.0
+        while _complete_runs(out) < 2 and proc.poll() is None and time.monotonic() < deadline:
+            time.sleep(0.01)
+        proc.kill()  # SIGKILL: no handler, no flush, no goodbye
+        proc.wait(timeout=10)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+    assert proc.returncode == -9
+    partial = _complete_runs(out)
+    assert 2 <= partial < N_RUNS, "the kill must land mid-sweep"
+    # The workers notice that their client is gone and end (they would otherwise wait for
+    # ever on their queue).
+    deadline = time.monotonic() + 10.0
+    while _live_processes_in_group(proc.pid) and time.monotonic() < deadline:
+        time.sleep(0.1)
+    assert _live_processes_in_group(proc.pid) == []
+
+    # The same command line again (in this process, to spare a second interpreter start-up).
+    rc, _, err = sweep(capsys, *args[1:])
+    assert rc == 0, err
+    # Only the runs not complete before are run, each once, numbered 1..rest.
+    progress = [PROGRESS.match(ln) for ln in err.splitlines() if PROGRESS.match(ln)]
+    rest = N_RUNS - partial
+    assert [int(m.group(1)) for m in progress] == list(range(1, rest + 1))
+    assert {int(m.group(2)) for m in progress} == {rest}
+    assert f"{partial} run(s) already complete" in err
+    same_datasets(run_datasets(out), runs)
