@@ -38,7 +38,7 @@ def add_parser(sub) -> None:
 
 
 def _setting(s: dict) -> str:
-    return f"h={s['step']:.4g}" if "step" in s else f"rtol={s['rtol']:.3g}"
+    return f"h={s['step']:.6g}" if "step" in s else f"rtol={s['rtol']:.3g}"
 
 
 def run(args) -> int:
@@ -91,7 +91,7 @@ def run(args) -> int:
             )
         )
     widths = [max(len(row[k]) for row in rows) for k in range(len(rows[0]))]
-    for row in rows:
+    for row in rows if len(rows) > 1 else []:  # no header over an empty ranking
         print("  ".join(c.ljust(w) for c, w in zip(row, widths, strict=True)).rstrip())
     for u in result["unreached"]:
         print(f"not ranked: {u['method']} ({u['form']}): {u['reason']}")
