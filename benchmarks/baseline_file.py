@@ -85,6 +85,7 @@ TIMING_KEYS = {
 }
 CALIBRATION_KEYS = {
     "kernel": _str,
+    "clock": _str,
     "iterations": _int,
     "repeats": _int,
     "ns_per_iteration": _num,

@@ -27,7 +27,7 @@ from .grid_measure import ERROR_METRICS
 DEFAULT_ERROR_FACTOR = 1.5
 DEFAULT_ERROR_FLOOR = 1e-13
 DEFAULT_STEPS_TOLERANCE = 0.02
-DEFAULT_TIME_BAND = 0.35
+DEFAULT_TIME_BAND = 0.25
 
 REGRESSION = "regression"
 IMPROVEMENT = "improvement"
@@ -198,14 +198,12 @@ def compare_timings(
     base: dict, now: dict, base_cal: dict, now_cal: dict, t: Thresholds, result: GateResult
 ) -> None:
     result.new_timings.extend(k for k in now if k not in base)
-    same_unit = base_cal["kernel"] == now_cal["kernel"] and (
-        base_cal["iterations"] == now_cal["iterations"]
-    )
+    unit = ("kernel", "iterations", "clock")
+    same_unit = all(base_cal[k] == now_cal[k] for k in unit)
     if not same_unit:
-        result.notes.append(
-            f"calibration changed ({base_cal['kernel']} x {base_cal['iterations']} -> "
-            f"{now_cal['kernel']} x {now_cal['iterations']}): timings not compared"
-        )
+        was = ", ".join(str(base_cal[k]) for k in unit)
+        now_ = ", ".join(str(now_cal[k]) for k in unit)
+        result.notes.append(f"calibration changed ({was} -> {now_}): timings not compared")
     out = result.findings
     for tk, a in base.items():
         b = now.get(tk)

@@ -11,7 +11,8 @@ machine. Two kinds of numbers come out:
   time each, so their nanoseconds per step are mostly the cost of starting and sampling, not of
   the kernel. Each (method, form) therefore gets one dedicated longer run: its grid run with the
   most steps, stretched in horizon until one pass takes about TIMING_TARGET_S of kernel time,
-  advanced from start to end in one call (no samples), best of TIMING_REPEATS. The repeats of all
+  advanced from start to end in one call (no samples), best of TIMING_REPEATS in CPU time of
+  this thread (calibration.CLOCK says why). The repeats of all
   timings and of the calibration loop are interleaved round by round, so that a burst of load on
   the machine spreads over every entry instead of landing on one. Only these timings are gated;
   the grid runs' own ns_per_step are recorded for reading, not compared.
@@ -24,14 +25,13 @@ from __future__ import annotations
 
 import math
 import sys
-import time
 from collections.abc import Callable
 from dataclasses import replace
 from pathlib import Path
 
 from topdrift.integrators import C_STEPS, STATUS_NAMES
 
-from .calibration import ITERATIONS, KERNEL, turning_unit_vector
+from .calibration import CLOCK, ITERATIONS, KERNEL, clock, turning_unit_vector
 from .case import parse_case
 from .metrics import MAX_NAMES
 from .runner import plan_run
@@ -150,9 +150,9 @@ def _one_pass(plan) -> tuple[float, int, int]:
     s = plan.method.start(
         plan.form_code, plan.params.copy(), 0.0, plan.y0.copy(), dict(plan.stepper_settings)
     )
-    t0 = time.perf_counter()
+    t0 = clock()
     status = s.advance_to(plan.horizon)
-    elapsed = time.perf_counter() - t0
+    elapsed = clock() - t0
     return elapsed, int(s.counters[C_STEPS]), int(status)
 
 
@@ -168,9 +168,9 @@ def _settled(job: Job, plan):
 
 
 def _calibration_pass() -> float:
-    t0 = time.perf_counter()
+    t0 = clock()
     turning_unit_vector(ITERATIONS, 0.0)
-    return time.perf_counter() - t0
+    return clock() - t0
 
 
 def measure_timings(
@@ -222,6 +222,7 @@ def measure_timings(
     c_best = min(calib)
     calibration = {
         "kernel": KERNEL,
+        "clock": CLOCK,
         "iterations": ITERATIONS,
         "repeats": len(calib),
         "ns_per_iteration": c_best * 1e9 / ITERATIONS,
