@@ -207,6 +207,7 @@ def run(args) -> int:
                 "settings": p.settings,
                 "status": status,
                 "detail": detail,
+                "notes": p.notes,
                 "file": str(out),
                 "metrics": metrics,
             }
