@@ -101,6 +101,13 @@ def expand(spec: SweepSpec) -> tuple[list[Job], list[str]]:
         for name in spec.methods:
             method = get_method(name)
             own = spec.per_method.get(name, {})
+            wrong = "rtols" if method.info.control == "step" else "steps"
+            if wrong in own:
+                kind = "a fixed-step" if wrong == "rtols" else "an adaptive"
+                raise UserError(
+                    f"{spec.name}: method.{name}.{wrong}: {name} is {kind} method; "
+                    f"give {'steps' if wrong == 'rtols' else 'rtols'}"
+                )
             forms = own.get("forms") or spec.forms
             if forms is None:
                 try:
@@ -112,9 +119,14 @@ def expand(spec: SweepSpec) -> tuple[list[Job], list[str]]:
                 if method.info.control == "step":
                     ladder = own.get("steps", spec.steps)
                     if ladder == "auto":
-                        ladder = step_ladder(
-                            case, method.info.order, spec.rungs, horizon, spec.max_steps
-                        )
+                        every = step_ladder(case, method.info.order, spec.rungs, horizon, math.inf)
+                        ladder = [h for h in every if horizon / h <= spec.max_steps]
+                        for h in (h for h in every if h not in ladder):  # said, not silent
+                            skipped.append(
+                                f"{case.name} {name} ({form}) step={h:.4g}: "
+                                f"{horizon / h:.3g} steps over the horizon, more than "
+                                f"max_steps = {spec.max_steps:g}"
+                            )
                     settings = [(h, None, None) for h in ladder]
                 else:
                     ladder = own.get("rtols", spec.rtols)
@@ -267,8 +279,14 @@ def _on_pool(todo, jobs, accept, outcome, stop) -> None:
                     outcome.interrupted = True
                     break
         finally:
-            if outcome.interrupted:
-                pool.shutdown(wait=True, cancel_futures=True)
+            # Whatever ends the loop (a stop, or an error while writing), runs not started are
+            # dropped rather than computed for nobody.
+            pool.shutdown(wait=True, cancel_futures=True)
+        if outcome.interrupted:
+            # Runs that were in hand when the stop came have finished by now: keep them.
+            for fut, job in futures.items():
+                if fut.done() and not fut.cancelled() and fut.exception() is None:
+                    accept(job, fut.result(), None)
 
 
 # How long to try to reach a scheduler before calling the address unreachable.

@@ -29,6 +29,9 @@ from sweep_grid import (
 )
 
 from topdrift.benchmarks import cli
+from topdrift.benchmarks.runner import StopFlag
+from topdrift.benchmarks.sweep import expand, run_sweep
+from topdrift.benchmarks.sweep_spec import read_sweep
 
 SAMPLE_SETS = ("t", "euler", "quaternion", "momentum", "state")
 INVARIANTS = ("energy", "p_phi", "p_psi", "norm")
@@ -267,4 +270,61 @@ def test_client_killed_mid_sweep_is_completed_by_the_same_command(clean, tmp_pat
     assert [int(m.group(1)) for m in progress] == list(range(1, rest + 1))
     assert {int(m.group(2)) for m in progress} == {rest}
     assert f"{partial} run(s) already complete" in err
+    same_datasets(run_datasets(out), runs)
+
+
+def test_auto_ladders_follow_the_documented_rule(tmp_path):
+    """An "auto" step ladder starts at 1/8 of the fastest period of the start and spans
+    8 / order decades; rungs over max_steps are skipped with the reason. Worked by hand for the
+    grid's symmetric top: body rates w1 = -phidot sin(theta) = -0.5, w2 = 0,
+    w3 = psidot + phidot cos(theta) = 20 pi + cos(30 deg) rad/s (the rates of the Euler angles,
+    Goldstein sec. 4.9); gravity's rate sqrt(M g l / I3) = 7.0 rad/s is slower."""
+    write_grid(tmp_path)
+    (tmp_path / "auto.toml").write_text(
+        'name = "auto"\ncases = ["sym.toml"]\nmethods = ["leapfrog", "dop853"]\n'
+        'forms = ["euler"]\nhorizon = 1.5\nsamples = 16\nrungs = 3\nmax_steps = 1e5\n'
+    )
+    jobs, skipped = expand(read_sweep(str(tmp_path / "auto.toml")))
+    w3 = 20.0 * math.pi + math.cos(math.radians(30.0))
+    h0 = (2.0 * math.pi / w3) / 8.0
+    want = [float(f"{h0 * 10.0 ** (-2.0 * k):.3g}") for k in range(3)]  # 8 / 2 decades
+    assert want == [0.0123, 0.000123, 1.23e-06]
+    steps = [j.step for j in jobs if j.method == "leapfrog"]
+    assert steps == want[:2]  # 1.5 s / 1.23e-6 s = 1.2e6 steps > max_steps
+    (line,) = skipped
+    assert line.startswith("grid-top leapfrog (euler) step=1.23e-06: 1.22e+06 steps")
+    assert "max_steps = 100000" in line
+    # tolerances: log-spaced from 1e-3 to 1e-12, 3 significant digits
+    assert [j.rtol for j in jobs if j.method == "dop853"] == [1e-3, 3.16e-8, 1e-12]
+
+
+def test_a_ladder_of_the_wrong_kind_for_a_method_is_refused(tmp_path, capsys):
+    write_grid(tmp_path)
+    bad = tmp_path / "wrong.toml"
+    bad.write_text(SWEEP_TOML + "\n[method.rk4]\nrtols = [1e-6]\n")
+    out = tmp_path / "wrong.h5"
+    rc, _, err = sweep(capsys, str(bad), "--out", str(out), "--jobs", "1")
+    assert rc == 2 and not out.exists()
+    assert "method.rk4.rtols: rk4 is a fixed-step method; give steps" in err
+
+
+def test_a_stopped_sweep_keeps_its_runs_and_is_completed_again(clean, tmp_path):
+    """A stop request (what SIGINT or SIGTERM set in the command) ends the sweep after the runs
+    in hand; they are in the file, and the sweep run again does only the rest."""
+    grid, _, runs = clean
+    out = tmp_path / "stopped.h5"
+    stop = StopFlag()
+    lines = []
+
+    def report(line):
+        lines.append(line)
+        if len([ln for ln in lines if PROGRESS.match(ln)]) == 3:
+            stop.signum = 2
+
+    first = run_sweep(read_sweep(str(grid)), out, jobs=1, report=report, stop=stop)
+    assert first.interrupted and len(first.finished) == 3
+    assert len(run_datasets(out)) == 3
+    second = run_sweep(read_sweep(str(grid)), out, jobs=1, report=lambda _: None)
+    assert not second.interrupted and sorted(second.reused) == sorted(first.finished)
+    assert len(second.finished) == N_RUNS - 3
     same_datasets(run_datasets(out), runs)
