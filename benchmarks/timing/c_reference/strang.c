@@ -70,10 +70,11 @@ static inline void free_symmetric(double h, double *y, const double *p) {
         double sh = sin(half) / lnorm;
         qmul(cos(half), sh * lx, sh * ly, sh * lz, q0, q1, q2, q3, o);
     }
-    double beta = h * (p[P_INV3] - p[P_INV1]) * m3;
-    double cb = cos(beta), sb = sin(beta), hb = 0.5 * beta;
+    double hb = 0.5 * h * (p[P_INV3] - p[P_INV1]) * m3;
+    double ch = cos(hb), sh3 = sin(hb);
     double r[4];
-    qmul(o[0], o[1], o[2], o[3], cos(hb), 0.0, 0.0, sin(hb), r);
+    qmul(o[0], o[1], o[2], o[3], ch, 0.0, 0.0, sh3, r);
+    double cb = 1.0 - 2.0 * sh3 * sh3, sb = 2.0 * sh3 * ch;
     double f = 0.5 * (3.0 - (r[0] * r[0] + r[1] * r[1] + r[2] * r[2] + r[3] * r[3]));
     y[0] = r[0] * f;
     y[1] = r[1] * f;
