@@ -312,9 +312,14 @@ def _exact_rows(top, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return e, a
 
 
-@functools.cache
 def versions() -> dict:
-    """Library versions and the CPU model, looked up once per process (metadata reads are slow)."""
+    """Library versions and the CPU model (a fresh dict each call)."""
+    return dict(_versions())
+
+
+@functools.cache
+def _versions() -> dict:
+    # Looked up once per process: package metadata reads take milliseconds.
     import platform
     import sys
     from importlib.metadata import PackageNotFoundError, version
@@ -349,7 +354,7 @@ def run_attrs(plan: RunPlan) -> dict:
         "horizon": float(plan.horizon),
         "samples": int(plan.samples),
         "created": utc_now(),
-        "versions": json.dumps(dict(versions())),
+        "versions": json.dumps(versions()),
         "notes": json.dumps(plan.notes),
     }
 
