@@ -19,6 +19,7 @@ from topdrift.integrators import (
     ST_DIVERGED,
     ST_OK,
     ST_SINGULAR,
+    ST_STEP_UNDERFLOW,
     MethodRefused,
     get,
 )
@@ -375,3 +376,32 @@ def test_bad_times_are_refused():
         st.advance_to(0.25)
     with pytest.raises(MethodRefused, match="horizon"):
         st.advance_to(1.5)
+
+
+def test_step_below_round_off_of_t_stops_as_underflow():
+    # Started at t0 = 1e13 s, where 10 ulp of t is 0.02 s: the fast spin (150 rad/s) needs steps
+    # of about a millisecond at this tolerance, so the controller runs into the round-off floor.
+    t0 = 1e13
+    st = get("rk45").start(FORM_BODY, P, t0, y_start(FORM_BODY), {"rtol": 1e-10, "atol": 1e-12})
+    assert st.advance_to(t0 + 10.0) == ST_STEP_UNDERFLOW
+    assert st.t_fail == t0
+
+
+@pytest.mark.parametrize("n", [1, 2, 3, 5, 6, 7, 9])
+def test_stage_sums_for_any_state_size(n):
+    # The kernels' stage combination against numpy for state sizes the models do not have yet
+    # (blocks of four, the overlapping last block, and the short path).
+    from topdrift.integrators.rk_embedded_kernel import combine, weighted
+    from topdrift.integrators.rk_packed import pack
+
+    pk = pack(DOP853)
+    rng = np.random.default_rng(n)
+    K = rng.normal(size=16 * n)
+    y = rng.normal(size=n)
+    out = np.empty(n)
+    for row in (1, 5, 12, 15):
+        combine(n, row, pk.a_ptr, pk.a_col, pk.a_val, 0.25, y, K, out)
+        expect = y + 0.25 * DOP853.a[row] @ K.reshape(16, n)
+        np.testing.assert_allclose(out, expect, rtol=1e-14, atol=1e-14)
+    weighted(n, 1, pk.e_ptr, pk.e_col, pk.e_val, K, out)
+    np.testing.assert_allclose(out, DOP853.e3 @ K.reshape(16, n)[:13], rtol=1e-13, atol=1e-14)
