@@ -61,6 +61,7 @@ class Choice:
     tried: list[Trial] = field(default_factory=list)
     reason: str = ""  # why no setting was found
     verified: Trial | None = None
+    capped: bool = False  # the step stopped at the sample interval, not at the target
 
 
 def _axes(run) -> np.ndarray:
@@ -220,7 +221,8 @@ class Picker:
         for _ in range(3 if passing else 40):
             if passing:
                 nv = passing.setting * cheaper
-                if step and passing.setting >= interval:
+                if step and passing.setting >= interval * (1.0 - 1e-12):
+                    choice.capped = True
                     break  # no step can be longer than the sample interval
                 if step:
                     nv = min(nv, interval)
@@ -276,8 +278,15 @@ def pick(
     form: str | None = None,
     report: Callable[[str], None] = lambda s: None,
 ) -> dict:
+    if samples is None:
+        # A shorter (or longer) horizon keeps the case's sample interval, not its sample count:
+        # a fixed step can be no longer than the interval, so squeezing the case's samples into
+        # a short horizon would cap every step far below what the target allows.
+        samples = case.samples
+        if horizon is not None:
+            interval = case.horizon / (case.samples - 1)
+            samples = max(2, round(horizon / interval) + 1)
     horizon = case.horizon if horizon is None else horizon
-    samples = case.samples if samples is None else samples
     methods = list(methods or DEFAULT_CANDIDATES)
     for name in methods:
         get_method(name)  # unknown names fail before any work
@@ -334,6 +343,7 @@ def pick(
                 "achieved": v.achieved,
                 "margin": target / v.achieved if v.achieved > 0 else None,
                 "trials": len(c.tried),
+                "capped": c.capped,
             }
         )
     return {
@@ -341,6 +351,7 @@ def pick(
         "target": target,
         "metric": metric,
         "horizon": horizon,
+        "samples": samples,
         "reference": picker.reference_note,
         "ranking": ranking,
         "unreached": [

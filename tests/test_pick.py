@@ -247,3 +247,20 @@ def test_bad_input_exits_2_with_one_line(cases, capsys, extra, needle):
 def test_unknown_case_exits_2(capsys):
     rc, _, err = cli_text(capsys, ["pick", "no-such-top", "--target", "1e-6"])
     assert rc == 2 and "no-such-top" in err and len(err.strip().splitlines()) == 1
+
+
+def test_a_shorter_horizon_keeps_the_sample_interval_and_a_capped_step_says_so(cases, capsys):
+    """The case samples every 0.1 s (1 s, 11 samples): over 0.5 s that is 6 samples. With a
+    sample every 0.01 s a loose target lets leapfrog's step reach the sample interval (the
+    longest step the runner takes), where the search stops and says so."""
+    sym, _ = cases
+    args = ["pick", str(sym), "--target", "1e-2", "--methods", "leapfrog", "--horizon", "0.5"]
+    rc, doc, _ = cli_json(capsys, args)
+    assert rc == 0 and doc["samples"] == 6
+    assert not doc["ranking"][0]["capped"]  # h = 0.1 s diverges: the target stops the search
+    args += ["--samples", "51"]
+    rc, doc, _ = cli_json(capsys, args)
+    (e,) = doc["ranking"]
+    assert e["capped"] and e["settings"]["step"] == 0.5 / 50
+    rc, out, _ = cli_text(capsys, args)
+    assert "note: leapfrog stopped at the sample interval (0.01 s), not at the target" in out

@@ -30,7 +30,12 @@ def add_parser(sub) -> None:
         help="figure-axis angle error (default) or relative energy error",
     )
     p.add_argument("--horizon", type=float, help="end time T (s); default from the case")
-    p.add_argument("--samples", type=int, help="samples the error is measured at")
+    p.add_argument(
+        "--samples",
+        type=int,
+        help="samples the error is measured at (default: the case's sample interval over the "
+        "horizon); a fixed step is at most the sample interval",
+    )
     p.add_argument("--methods", nargs="+", metavar="NAME", help="candidate methods")
     p.add_argument("--form", choices=("euler", "body"), help="state form for every candidate")
     p.add_argument("--json", action="store_true", help="print the ranking as JSON")
@@ -93,6 +98,13 @@ def run(args) -> int:
     widths = [max(len(row[k]) for row in rows) for k in range(len(rows[0]))]
     for row in rows if len(rows) > 1 else []:  # no header over an empty ranking
         print("  ".join(c.ljust(w) for c, w in zip(row, widths, strict=True)).rstrip())
+    capped = [r["method"] for r in result["ranking"] if r.get("capped")]
+    if capped:
+        interval = result["horizon"] / (result["samples"] - 1)
+        print(
+            f"note: {', '.join(capped)} stopped at the sample interval ({interval:g} s), not at "
+            "the target; fewer --samples let a fixed step grow further"
+        )
     for u in result["unreached"]:
         print(f"not ranked: {u['method']} ({u['form']}): {u['reason']}")
     if result["ranking"]:
