@@ -146,9 +146,11 @@ def _compare_error(run: str, name: str, a, b, t: Thresholds, out: list[Finding])
     ref = max(a, t.error_floor)
     if b > t.error_factor * ref:
         ratio = b / ref if ref > 0 else math.inf
-        out.append(
-            Finding(REGRESSION, run, name, a, b, f"x{ratio:.3g} (limit x{t.error_factor:g})")
-        )
+        if a < t.error_floor:  # the baseline was at round-off: measure from the floor
+            change = f"x{ratio:.3g} over the round-off floor {t.error_floor:g}"
+        else:
+            change = f"x{ratio:.3g} (limit x{t.error_factor:g})"
+        out.append(Finding(REGRESSION, run, name, a, b, change))
     elif a > t.error_floor and b < a / t.error_factor:
         ratio = b / a
         out.append(Finding(IMPROVEMENT, run, name, a, b, f"x{ratio:.3g}"))
