@@ -8,7 +8,7 @@ from collections.abc import Callable
 from importlib import resources
 from pathlib import Path
 
-from .baseline_file import FORMAT, FORMAT_VERSION
+from .baseline_file import FORMAT, FORMAT_VERSION, VERSION_KEYS
 from .grid_measure import grid_jobs, measure_grid, measure_timings, normalise_grid, timing_plans
 from .runner import versions
 from .store import utc_now
@@ -49,7 +49,7 @@ def record(
         "format_version": FORMAT_VERSION,
         "created": utc_now(),
         "sweep": sweep_identity(spec, source),
-        "versions": versions(),
+        "versions": {k: v for k, v in versions().items() if k in VERSION_KEYS},
         "calibration": calibration,
         "runs": runs,
         "timings": timings,
