@@ -18,13 +18,12 @@ from __future__ import annotations
 import math
 import time
 
-import numpy as np
 from numba import njit
 
-# About 20 ms per repeat on the x86 core this was written on: long enough for the clock's
-# resolution, short enough that a best of several repeats costs well under a second.
+# About 10 ms per pass on the x86 core this was written on: long enough for the clock's
+# resolution, short enough that a best of several passes costs well under a second. The passes
+# are interleaved with the timing runs (grid_measure.measure_timings).
 ITERATIONS = 300_000
-REPEATS = 7
 KERNEL = "calibration.turning_unit_vector"  # recorded with the baseline: what the unit is
 
 # Timings are CPU time of the calling thread, not wall time: on a machine shared with other work
@@ -56,26 +55,3 @@ def turning_unit_vector(n, x0):
         z = z1 * r
         acc += x * y
     return acc
-
-
-def calibrate(repeats: int = REPEATS, iterations: int = ITERATIONS) -> dict:
-    """Best (smallest) nanoseconds per iteration over `repeats`, plus the spread of the repeats.
-
-    The best of several is the usual estimate of the undisturbed time (common practice: other
-    work on the machine can only add time). The first call compiles or loads from numba's cache
-    and is not timed."""
-    turning_unit_vector(10, 0.0)
-    times = np.empty(repeats)
-    for k in range(repeats):
-        t0 = clock()
-        turning_unit_vector(iterations, 0.0)
-        times[k] = clock() - t0
-    best = float(times.min())
-    return {
-        "kernel": KERNEL,
-        "clock": CLOCK,
-        "iterations": int(iterations),
-        "repeats": int(repeats),
-        "ns_per_iteration": best * 1e9 / iterations,
-        "spread": float(times.max() / best - 1.0),
-    }
