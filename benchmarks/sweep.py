@@ -9,6 +9,7 @@ no run is ever written twice.
 
 from __future__ import annotations
 
+import json
 import math
 import os
 import signal
@@ -94,6 +95,7 @@ def expand(spec: SweepSpec) -> tuple[list[Job], list[str]]:
     with the reason; anything else wrong is a UserError."""
     jobs: list[Job] = []
     skipped: list[str] = []
+    same: dict[tuple, Job] = {}
     for spec_case in spec.cases:
         case = load_case(spec_case)
         horizon = spec.horizon if spec.horizon is not None else case.horizon
@@ -155,10 +157,22 @@ def expand(spec: SweepSpec) -> tuple[list[Job], list[str]]:
                     except MethodRefused as exc:
                         skipped.append(f"{job.describe()}: {exc}")
                         continue
+                    # Two requested steps that round to the same step (one whole number of
+                    # steps per sample interval) are the same computation: run it once.
+                    used = {k: v for k, v in plan.settings.items() if k != "step_requested"}
+                    used = json.dumps(used, sort_keys=True)
+                    key = (job.case_toml, name, form, used, horizon, samples)
+                    if key in same:
+                        skipped.append(
+                            f"{job.describe()}: runs as step={plan.settings['step']:.4g}, "
+                            f"the same run as {same[key].describe()}"
+                        )
+                        continue
+                    same[key] = job
                     jobs.append(Job(**{**job.__dict__, "run_id": plan.run_id}))
     seen = set()
     unique = []
-    for j in jobs:  # two ladder rungs may round to the same step
+    for j in jobs:  # a case or method listed twice
         if j.run_id not in seen:
             seen.add(j.run_id)
             unique.append(j)

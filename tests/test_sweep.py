@@ -328,3 +328,19 @@ def test_a_stopped_sweep_keeps_its_runs_and_is_completed_again(clean, tmp_path):
     assert not second.interrupted and sorted(second.reused) == sorted(first.finished)
     assert len(second.finished) == N_RUNS - 3
     same_datasets(run_datasets(out), runs)
+
+
+def test_steps_that_round_to_the_same_step_run_once(tmp_path):
+    """A fixed step is rounded down to divide the sample interval (README, "Run store"): with a
+    sample every 0.1 s, 0.3 s and 0.2 s both run as 0.1 s, one computation, the second said so."""
+    write_grid(tmp_path)
+    (tmp_path / "same.toml").write_text(
+        'name = "same"\ncases = ["sym.toml"]\nmethods = ["rk4"]\nhorizon = 1.0\nsamples = 11\n'
+        "steps = [0.3, 0.2, 0.05]\n"
+    )
+    jobs, skipped = expand(read_sweep(str(tmp_path / "same.toml")))
+    assert [j.step for j in jobs] == [0.3, 0.05]
+    assert skipped == [
+        "grid-top rk4 (body) step=0.2: runs as step=0.1, the same run as "
+        "grid-top rk4 (body) step=0.3"
+    ]
