@@ -297,3 +297,27 @@ def test_long_intervals_in_pieces_resume_to_the_same_bits(top, tmp_path, monkeyp
         ga, gb = fa["runs"][plan.run_id], fb["runs"][plan.run_id]
         for n in ("t", "state", "euler", "quaternion", "momentum", "invariants/energy"):
             assert ga[n][()].tobytes() == gb[n][()].tobytes(), n
+
+
+def test_progress_bar_on_a_terminal_and_lines_otherwise():
+    import io
+
+    from topdrift.benchmarks.progress import Progress
+
+    tty = io.StringIO()
+    p = Progress("case m 0123abcd", 100, stream=tty, tty=True)
+    p.begin(0, 0)
+    p.update(50, 5_000_000)
+    p.update(100, 10_000_000)
+    p.end("ok")
+    out = tty.getvalue()
+    assert "\r" in out and "[" + "#" * 24 + "]" in out and "steps/s" in out and "left" in out
+    plain = io.StringIO()
+    p = Progress("case m 0123abcd", 100, stream=plain, tty=False)
+    p.begin(0, 0)
+    p.update(50, 5_000_000)  # no bar drawn off a terminal
+    p.flushed(50, 5_000_000)
+    p.end("ok")
+    lines = plain.getvalue().splitlines()
+    assert "\r" not in plain.getvalue() and len(lines) == 3
+    assert "flushed sample 50/100, 5000000 steps" in lines[1] and lines[2].endswith("ok after 0s")
