@@ -373,3 +373,13 @@ def test_versions_missing_and_new_runs_are_reported(pair):
 def test_validate_accepts_what_it_writes(recorded):
     data = json.loads(recorded[0].read_text())
     assert validate(data, "x") is data
+
+
+def test_changed_sweep_and_run_id_are_noted_not_failed(pair):
+    base, now = pair
+    now["sweep"]["sha256"] = "0" * 64
+    now["runs"][S4_KEY]["run_id"] = "feedfacefeedface"
+    r = compare(base, now, Thresholds())
+    assert not r.failed
+    assert _kinds(r) == {(S4_KEY, "run_id"): "note"}
+    assert any("changed since the baseline was recorded" in n for n in r.notes)
