@@ -22,7 +22,7 @@ from topdrift.models.quaternion import figure_axis
 from .errors import UserError
 from .ladder import fastest_period
 from .memrun import run_in_memory
-from .runner import plan_run
+from .runner import plan_run, steps_per_interval
 
 DEFAULT_CANDIDATES = (
     "rk4",
@@ -133,9 +133,9 @@ class Picker:
         whole number of steps), nudged up by ulps until the runner maps it to itself: passing
         the result to `topdrift run --step` reproduces the run exactly (same run id)."""
         interval = self.horizon / (self.samples - 1)
-        per = max(1, math.ceil(interval / value))
+        per = steps_per_interval(interval, value)
         h = interval / per
-        while max(1, math.ceil(interval / h)) > per:
+        while steps_per_interval(interval, h) > per:
             h = math.nextafter(h, math.inf)
         return h
 

@@ -102,6 +102,17 @@ def _positive(name: str, v) -> float:
     return v
 
 
+def steps_per_interval(interval: float, step: float) -> int:
+    """How many steps of about `step` fill one sample interval: the ratio rounded up, except that
+    a ratio within 1e-9 of a whole number is that number (200 / 1e4 / 1e-5 is 2000.0000000000002
+    in floating point, and means 2000 steps, not 2001)."""
+    ratio = interval / step
+    k = round(ratio)
+    if k >= 1 and abs(ratio - k) <= 1e-9 * k:
+        return k
+    return max(1, math.ceil(ratio))
+
+
 def start_state(case, form: str) -> np.ndarray:
     """The case's start state in `form` as a fresh C-contiguous float64 array.
 
@@ -164,13 +175,13 @@ def plan_run(
         if rtol is not None or atol is not None:
             raise UserError(f"{method.name}: a fixed-step method takes --step, not --rtol/--atol")
         h_req = _positive("--step", step)
-        per = max(1, math.ceil(interval / h_req))
+        per = steps_per_interval(interval, h_req)
         h = interval / per
         settings = {"step": h, "step_requested": h_req, "steps_per_sample": per}
         stepper_settings = {"step": h}
         if h != h_req:
             notes.append(
-                f"step rounded down from {h_req:.17g} to {h:.17g} so that {per} steps fill "
+                f"step rounded from {h_req:.17g} to {h:.17g} so that {per} steps fill "
                 f"each sample interval of {interval:.17g}"
             )
     else:
