@@ -44,7 +44,7 @@ from .rk_embedded_kernel import (
     TL_EXPONENT,
     TL_RTOL,
     TL_T_BOUND,
-    embedded_advance,
+    advance_kernel,
     initial_step,
 )
 from .rk_packed import pack
@@ -149,6 +149,7 @@ class EmbeddedStepper(Stepper):
         st = cls(form=form, params=params, t=t0, y=y0.copy())
         st.method = method
         st.horizon = s["horizon"]
+        st.kernel = advance_kernel(form)
         n = y0.shape[0]
         tab = method.tableau
         rows = method.packed.n_rows
@@ -208,8 +209,7 @@ class EmbeddedStepper(Stepper):
                 f"the run was started with"
             )
         y_out = np.empty_like(self.yi)
-        status = embedded_advance(
-            self.form,
+        status = self.kernel(
             self.params,
             *self.method._kernel_args,
             self.tol,

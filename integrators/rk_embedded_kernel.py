@@ -30,7 +30,7 @@ import numpy as np
 from numba import njit
 
 from topdrift.models.dynamics import rhs_body, rhs_euler, singular
-from topdrift.models.forms import FORM_EULER
+from topdrift.models.forms import FORM_BODY, FORM_EULER
 
 from .base import C_EVALS, C_REJECTED, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGULAR, ST_STEP_UNDERFLOW
 from .rk_packed import CFG_ERR_KIND, CFG_FSAL_IN_ERR, CFG_N_DENSE, CFG_N_ROWS, CFG_N_STAGES
@@ -224,8 +224,8 @@ def eval_dense(theta, yold, dense, n_coef, out):
         out[k] = yold[k] + theta * acc
 
 
-@njit(cache=True)
-def embedded_advance(
+@njit(cache=True, inline="always")
+def _advance(
     form,
     p,
     a_ptr,
@@ -254,7 +254,10 @@ def embedded_advance(
 ):
     """Step while the internal time is below t_out, then write the state at t_out into y_out
     (dense output, or the state itself when a step ends on t_out). Returns a status code; on
-    failure y, f, ctrl keep the last good step and y_out is untouched."""
+    failure y, f, ctrl keep the last good step and y_out is untouched.
+
+    Written once, compiled into one entry kernel per form (below) with `form` a constant there,
+    so that the rhs switch folds and the model's function is inlined into the stage loop."""
     n = y.shape[0]
     ns = cfg[CFG_N_STAGES]
     err_kind = cfg[CFG_ERR_KIND]
@@ -383,3 +386,125 @@ def embedded_advance(
     theta = (t_out - ctrl[CT_T_OLD]) / ctrl[CT_H_PREV]
     eval_dense(theta, yold, dense, 3 + cfg[CFG_N_DENSE], y_out)
     return ST_OK
+
+
+# One entry kernel per form, each with one specialisation. Measured on the standard body-form
+# top: 785 -> 571 ns per DOP853 step and 390 -> 258 ns per rk45 step against a single kernel
+# taking the form as a run-time argument, where neither model function gets inlined.
+
+
+@njit(cache=True)
+def embedded_advance_body(
+    p,
+    a_ptr,
+    a_col,
+    a_val,
+    e_ptr,
+    e_col,
+    e_val,
+    d_ptr,
+    d_col,
+    d_val,
+    cfg,
+    tol,
+    y,
+    f,
+    K,
+    yold,
+    ynew,
+    ytmp,
+    etmp,
+    dense,
+    ctrl,
+    counters,
+    t_out,
+    y_out,
+):
+    return _advance(
+        FORM_BODY,
+        p,
+        a_ptr,
+        a_col,
+        a_val,
+        e_ptr,
+        e_col,
+        e_val,
+        d_ptr,
+        d_col,
+        d_val,
+        cfg,
+        tol,
+        y,
+        f,
+        K,
+        yold,
+        ynew,
+        ytmp,
+        etmp,
+        dense,
+        ctrl,
+        counters,
+        t_out,
+        y_out,
+    )
+
+
+@njit(cache=True)
+def embedded_advance_euler(
+    p,
+    a_ptr,
+    a_col,
+    a_val,
+    e_ptr,
+    e_col,
+    e_val,
+    d_ptr,
+    d_col,
+    d_val,
+    cfg,
+    tol,
+    y,
+    f,
+    K,
+    yold,
+    ynew,
+    ytmp,
+    etmp,
+    dense,
+    ctrl,
+    counters,
+    t_out,
+    y_out,
+):
+    return _advance(
+        FORM_EULER,
+        p,
+        a_ptr,
+        a_col,
+        a_val,
+        e_ptr,
+        e_col,
+        e_val,
+        d_ptr,
+        d_col,
+        d_val,
+        cfg,
+        tol,
+        y,
+        f,
+        K,
+        yold,
+        ynew,
+        ytmp,
+        etmp,
+        dense,
+        ctrl,
+        counters,
+        t_out,
+        y_out,
+    )
+
+
+def advance_kernel(form: int):
+    """The entry kernel for a form code."""
+    return embedded_advance_euler if form == FORM_EULER else embedded_advance_body

@@ -14,13 +14,14 @@ import math
 from numba import njit
 
 from topdrift.models.dynamics import singular
+from topdrift.models.forms import FORM_BODY, FORM_EULER
 
 from .base import C_EVALS, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGULAR
 from .rk_embedded_kernel import combine, rhs, weighted  # rhs: the inlined switch, see there
 
 
-@njit(cache=True)
-def explicit_advance(
+@njit(cache=True, inline="always")
+def _explicit(
     form, p, a_ptr, a_col, a_val, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, counters
 ):
     """Take nsteps steps of length h in place on y (and comp). Returns (status, steps taken);
@@ -57,3 +58,60 @@ def explicit_advance(
                 comp[k] = ytmp[k]
         counters[C_STEPS] += 1
     return ST_OK, nsteps
+
+
+# One entry kernel per form (see rk_embedded_kernel.py): with the form a constant the model's
+# function is inlined into the stage loop. Measured on the body-form top: 192 -> 88 ns per step.
+
+
+@njit(cache=True)
+def explicit_advance_body(
+    p, a_ptr, a_col, a_val, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, counters
+):
+    return _explicit(
+        FORM_BODY,
+        p,
+        a_ptr,
+        a_col,
+        a_val,
+        ns,
+        h,
+        nsteps,
+        kahan,
+        y,
+        comp,
+        K,
+        ytmp,
+        ynew,
+        binc,
+        counters,
+    )
+
+
+@njit(cache=True)
+def explicit_advance_euler(
+    p, a_ptr, a_col, a_val, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, counters
+):
+    return _explicit(
+        FORM_EULER,
+        p,
+        a_ptr,
+        a_col,
+        a_val,
+        ns,
+        h,
+        nsteps,
+        kahan,
+        y,
+        comp,
+        K,
+        ytmp,
+        ynew,
+        binc,
+        counters,
+    )
+
+
+def explicit_kernel(form: int):
+    """The entry kernel for a form code."""
+    return explicit_advance_euler if form == FORM_EULER else explicit_advance_body
