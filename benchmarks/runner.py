@@ -181,7 +181,8 @@ def plan_run(
         stepper_settings = {"step": h}
         if h != h_req:
             notes.append(
-                f"step rounded from {h_req:.17g} to {h:.17g} so that {per} steps fill "
+                f"step rounded {'down' if h < h_req else 'up'} from {h_req:.17g} to {h:.17g} "
+                f"so that {per} steps fill "
                 f"each sample interval of {interval:.17g}"
             )
     else:
