@@ -150,6 +150,13 @@ def combine(n, row, ptr, col, val, h, y, K, out):
 
 
 @njit(cache=True)
+def first_derivative(form, p, y, f, counters):
+    """f = rhs(y) at the start of a run, counted like every other evaluation."""
+    rhs(form, y, p, f)
+    counters[C_EVALS] += 1
+
+
+@njit(cache=True)
 def initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counters):
     """Hairer's starting step (Hairer, Norsett and Wanner, Solving ODEs I, sec. II.4), in the
     variant of scipy's select_initial_step: f must hold rhs(y); costs one evaluation."""
