@@ -1,6 +1,7 @@
 """Adaptive embedded Runge-Kutta methods: Dormand-Prince 5(4) (`rk45`) and DOP853 (`dop853`).
 
-Both run on the one tableau-driven kernel in rk_embedded_kernel.py.
+Both run on the one tableau-driven kernel in rk_embedded_kernel.py (one body, compiled into one
+entry point per state form).
 
 Settings (floats): "rtol", "atol" (required; rtol >= 100 machine epsilons, as scipy enforces by
 clamping); "first_step" (optional, else Hairer's starting-step heuristic); "horizon" (optional:
