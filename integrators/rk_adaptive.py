@@ -258,27 +258,35 @@ class EmbeddedStepper(Stepper):
     _ARRAYS = ("y", "yi", "f", "K", "yold", "dense", "ctrl", "counters")
 
     def snapshot(self) -> dict:
+        """Plain numbers and arrays only. `tol` (rtol, atol, horizon, exponent) and `order` are
+        there to refuse a snapshot of other settings or of the other method."""
         snap = {k: getattr(self, k).copy() for k in self._ARRAYS}
+        snap["tol"] = self.tol.copy()
         snap.update(
-            method=self.method.name,
+            order=self.method.info.order,
+            form=self.form,
             t=self.t,
             status=self.status,
             t_fail=self.t_fail,
-            form=self.form,
         )
         return snap
 
     def restore(self, snap: dict) -> None:
-        if snap.get("method") != self.method.name or int(snap.get("form", -1)) != self.form:
+        name = self.method.name
+        if int(snap.get("order", -1)) != self.method.info.order or int(snap.get("form", -1)) != int(
+            self.form
+        ):
             raise MethodRefused(
-                f"{self.method.name}: snapshot is of {snap.get('method')!r} in form "
-                f"{snap.get('form')!r}, not of this stepper"
+                f"{name}: snapshot is of an order-{snap.get('order')} method in form "
+                f"{snap.get('form')}, not of this stepper"
             )
+        if not np.array_equal(np.asarray(snap["tol"]), self.tol):
+            raise MethodRefused(f"{name}: snapshot was made with other tolerances or horizon")
         for k in self._ARRAYS:
             src = np.asarray(snap[k])
             dst = getattr(self, k)
             if src.shape != dst.shape:
-                raise MethodRefused(f"{self.method.name}: snapshot field {k!r} has wrong shape")
+                raise MethodRefused(f"{name}: snapshot field {k!r} has the wrong shape")
             if k == "y":
                 self.y = src.astype(np.float64, copy=True)  # outputs already handed out stay
             else:

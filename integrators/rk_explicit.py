@@ -148,9 +148,10 @@ class FixedStepper(Stepper):
     _ARRAYS = ("y", "yi", "comp", "counters")
 
     def snapshot(self) -> dict:
+        """Plain numbers and arrays only; `h` and `kahan` refuse a snapshot of other settings."""
         snap = {k: getattr(self, k).copy() for k in self._ARRAYS}
         snap.update(
-            method=self.method.name,
+            kahan=int(self.method.kahan),
             form=self.form,
             t=self.t,
             h=self.h,
@@ -162,19 +163,17 @@ class FixedStepper(Stepper):
         return snap
 
     def restore(self, snap: dict) -> None:
-        if snap.get("method") != self.method.name or int(snap.get("form", -1)) != self.form:
-            raise MethodRefused(
-                f"{self.method.name}: snapshot is of {snap.get('method')!r} in form "
-                f"{snap.get('form')!r}, not of this stepper"
-            )
+        name = self.method.name
+        if int(snap.get("kahan", -1)) != int(self.method.kahan) or int(snap.get("form", -1)) != int(
+            self.form
+        ):
+            raise MethodRefused(f"{name}: snapshot is of another method or form")
         if float(snap["h"]) != self.h:
-            raise MethodRefused(
-                f"{self.method.name}: snapshot has step {snap['h']!r}, this stepper {self.h!r}"
-            )
+            raise MethodRefused(f"{name}: snapshot has step {snap['h']!r}, this stepper {self.h!r}")
         for k in self._ARRAYS:
             src = np.asarray(snap[k])
             if src.shape != getattr(self, k).shape:
-                raise MethodRefused(f"{self.method.name}: snapshot field {k!r} has wrong shape")
+                raise MethodRefused(f"{name}: snapshot field {k!r} has the wrong shape")
             if k == "y":
                 self.y = src.astype(np.float64, copy=True)
             else:
