@@ -241,7 +241,12 @@ def run_sweep(
                 if stop is not None and stop.requested:
                     outcome.interrupted = True
                     break
-                accept(job, run_job(job), None)
+                try:
+                    result = run_job(job)
+                except Exception as exc:  # one run's failure, as on a pool or a cluster
+                    accept(job, None, f"{type(exc).__name__}: {exc}")
+                else:
+                    accept(job, result, None)
         else:
             _on_pool(todo, jobs, accept, outcome, stop)
     finally:

@@ -29,6 +29,7 @@ from sweep_grid import (
 )
 
 from topdrift.benchmarks import cli
+from topdrift.benchmarks import sweep as sweep_mod
 from topdrift.benchmarks.runner import StopFlag
 from topdrift.benchmarks.sweep import expand, run_sweep
 from topdrift.benchmarks.sweep_spec import read_sweep
@@ -204,12 +205,8 @@ def test_bad_options_exit_2_and_leave_an_existing_file_alone(clean, tmp_path, ca
 
 
 def _complete_runs(path: Path) -> int:
-    """Runs with a final status in a file another process is writing (0 while unreadable)."""
-    try:
-        with h5py.File(path, "r", locking=False) as f:
-            return sum(1 for g in f["runs"].values() if g.attrs.get("status") in ("ok", "diverged"))
-    except (OSError, KeyError, RuntimeError, ValueError):  # caught between two writes
-        return 0
+    with h5py.File(path, "r") as f:
+        return sum(1 for g in f["runs"].values() if g.attrs.get("status") in ("ok", "diverged"))
 
 
 def _live_processes_in_group(pgid: int) -> list[int]:
@@ -239,18 +236,25 @@ def test_client_killed_mid_sweep_is_completed_by_the_same_command(clean, tmp_pat
     proc = subprocess.Popen(
         topdrift_cmd(*args),
         stdout=subprocess.DEVNULL,
-        stderr=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
         start_new_session=True,
     )
     try:
-        deadline = time.monotonic() + 60.0
-        while _complete_runs(out) < 2 and proc.poll() is None and time.monotonic() < deadline:
-            time.sleep(0.01)
+        # A progress line is printed once its run is in the file and flushed: after the second,
+        # kill. (Watching the progress lines, not the file, keeps this test from reading an HDF5
+        # file while another process writes it.)
+        done = 0
+        for line in proc.stderr:
+            done += bool(PROGRESS.match(line))
+            if done == 2:
+                break
         proc.kill()  # SIGKILL: no handler, no flush, no goodbye
         proc.wait(timeout=10)
     finally:
         if proc.poll() is None:
             proc.kill()
+        proc.stderr.close()
     assert proc.returncode == -9
     partial = _complete_runs(out)
     assert 2 <= partial < N_RUNS, "the kill must land mid-sweep"
@@ -344,3 +348,29 @@ def test_steps_that_round_to_the_same_step_run_once(tmp_path):
         "grid-top rk4 (body) step=0.2: runs as step=0.1, the same run as "
         "grid-top rk4 (body) step=0.3"
     ]
+
+
+def test_a_failed_run_is_left_out_and_exits_1(clean, tmp_path, capsys, monkeypatch):
+    """A run whose worker raises is reported and left out of the file (so that the next sweep
+    computes it); the other runs are written; the exit status is 1."""
+    grid, _, runs = clean
+    real = sweep_mod.run_job
+    broken = {}
+
+    def flaky(job):
+        if not broken:
+            broken[job.run_id] = job
+            raise RuntimeError("worker lost its disk")
+        return real(job)
+
+    monkeypatch.setattr(sweep_mod, "run_job", flaky)
+    out = tmp_path / "flaky.h5"
+    rc, _, err = sweep(capsys, str(grid), "--out", str(out), "--jobs", "1")
+    assert rc == 1
+    (rid,) = broken
+    assert f"{broken[rid].describe()}: failed: RuntimeError: worker lost its disk" in err
+    assert sorted(run_datasets(out)) == sorted(set(runs) - {rid})
+    monkeypatch.setattr(sweep_mod, "run_job", real)
+    rc, _, err = sweep(capsys, str(grid), "--out", str(out), "--jobs", "1")
+    assert rc == 0 and f"{N_RUNS - 1} run(s) already complete" in err
+    same_datasets(run_datasets(out), runs)
