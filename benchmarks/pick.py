@@ -41,6 +41,7 @@ BISECTIONS = 5  # halvings of the log interval between a failing and a passing s
 VERIFY_RUNS = 3  # fresh runs of a chosen setting, while they take under VERIFY_BUDGET_S in all
 VERIFY_BUDGET_S = 0.5
 MAX_STEPS = 5e7  # a fixed step needing more steps than this over the horizon is not tried
+STALL_BELOW = 1e-6  # errors this small that stop falling with the step are round-off
 
 
 @dataclass
@@ -213,6 +214,7 @@ class Picker:
             cheaper, dearer, floor = 4.0, 0.25, self.horizon / MAX_STEPS
         else:
             v, cheaper, dearer, floor = 1e-3, 10.0, 0.1, 1e-14
+        stalls, stalled = 0, False
         first = run(v)
         if first is None:
             return Choice(method, form, reason=refused[0])
@@ -244,12 +246,22 @@ class Picker:
                 if t.achieved <= self.target:
                     passing = t
                     break
+                # A quarter step cuts the error of an order-p method by 4^p >= 16; two in a row
+                # that do not even halve a small error mean round-off has the last word, and
+                # finer steps would only cost more (up to MAX_STEPS a run).
+                small = t.achieved < STALL_BELOW and math.isfinite(failing.achieved)
+                stalls = stalls + 1 if small and t.achieved > 0.5 * failing.achieved else 0
                 failing = t
+                if step and stalls >= 2:
+                    stalled = True
+                    break
         if passing is None:
             choice.reason = (
                 f"target not reached down to {'step' if step else 'rtol'} {failing.setting:.3g} "
                 f"(best achieved {min(t.achieved for t in choice.tried):.3g})"
             )
+            if stalled:
+                choice.reason += "; the error stopped falling with the step (round-off)"
             if refused:
                 choice.reason += f"; {refused[0]}"
             return choice

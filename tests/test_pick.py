@@ -214,17 +214,22 @@ def test_no_exact_solution_measures_against_a_reference_run(cases, capsys, tmp_p
 
 def test_impossible_target_ranks_nothing_and_exits_1(cases, capsys):
     sym, _ = cases
-    args = ["pick", str(sym), "--target", "1e-20", "--methods", "dop853", "rk45"]
+    args = ["pick", str(sym), "--target", "1e-20", "--methods", "dop853", "rk45", "leapfrog-s4"]
     args += ["--horizon", "0.5", "--samples", "6"]
     rc, out, _ = cli_text(capsys, args)
     assert rc == 1
-    assert "not ranked: dop853 (body): target not reached" in out
-    assert "not ranked: rk45 (body): target not reached" in out
+    # adaptive: down to the smallest rtol the method accepts, and why it stops there
+    assert "not ranked: dop853 (body): target not reached down to rtol 1e-13" in out
+    assert "not ranked: rk45 (body): target not reached down to rtol 1e-13" in out
+    assert "below 100 machine epsilons" in out
+    # fixed step: stops where the error no longer falls, long before 5e7 steps a run
+    assert "not ranked: leapfrog-s4 (euler): target not reached down to step" in out
+    assert "the error stopped falling with the step (round-off)" in out
     assert out.splitlines()[-1] == "no candidate met the target"
     assert "rank " not in out  # no table over an empty ranking
     rc, doc, _ = cli_json(capsys, args)
     assert rc == 1 and doc["ranking"] == []
-    assert sorted(u["method"] for u in doc["unreached"]) == ["dop853", "rk45"]
+    assert sorted(u["method"] for u in doc["unreached"]) == ["dop853", "leapfrog-s4", "rk45"]
 
 
 @pytest.mark.parametrize(
