@@ -107,3 +107,62 @@ def test_roundoff_bad_input_exits_2(capsys):
         )
         == 2
     )
+
+
+def test_run_with_an_ensemble(tmp_path, capsys):
+    import h5py
+
+    out = tmp_path / "e.h5"
+    args = [
+        "run",
+        "looping-nutation",
+        "--method",
+        "leapfrog",
+        "--step",
+        "1e-3",
+        "--horizon",
+        "0.5",
+        "--samples",
+        "11",
+        "--out",
+        str(out),
+        "--json",
+    ]
+    assert main([*args, "--ensemble", "6", "--spread", "1e-6"]) == 0
+    r = json.loads(capsys.readouterr().out)["runs"][0]
+    assert r["status"] == "ok" and r["metrics"]["members"] == 6
+    assert main(args) == 0  # the same case as a plain run, into the same file
+    plain = json.loads(capsys.readouterr().out)["runs"][0]
+    assert plain["run_id"] != r["run_id"]
+    with h5py.File(out, "r") as f:
+        g = f["runs"][r["run_id"]]
+        assert g["ensemble/energy"].shape == (11, 6)
+        assert g["ensemble/axis"].shape == (11, 6, 3)
+        assert g["ensemble/axis_spread"].shape == (11,)
+        # Member 0 is the case's own start: the same bits as the plain run.
+        assert g["state"][()].tobytes() == f["runs"][plain["run_id"]]["state"][()].tobytes()
+        spread = g["ensemble/axis_spread"][()]
+        assert spread[0] > 0 and np.all(np.isfinite(spread))
+
+
+def test_ensemble_refused_for_an_adaptive_method(tmp_path, capsys):
+    out = tmp_path / "e.h5"
+    assert (
+        main(
+            [
+                "run",
+                "looping-nutation",
+                "--method",
+                "dop853",
+                "--rtol",
+                "1e-8",
+                "--ensemble",
+                "4",
+                "--out",
+                str(out),
+            ]
+        )
+        == 2
+    )
+    assert "fixed-step" in capsys.readouterr().err
+    assert not out.exists()

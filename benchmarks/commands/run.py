@@ -49,6 +49,20 @@ def add_parser(sub) -> None:
         metavar="S",
         help="seconds between writes to the file (default 2; 0 writes every sample)",
     )
+    p.add_argument(
+        "--ensemble",
+        type=int,
+        metavar="N",
+        help="run N starts at once (member 0 the case's own, the others perturbed); "
+        "splitting and Gauss-Legendre methods",
+    )
+    p.add_argument(
+        "--spread",
+        type=float,
+        default=1e-6,
+        metavar="S",
+        help="standard deviation of the ensemble's start-angle perturbations (rad, default 1e-6)",
+    )
     p.add_argument("--json", action="store_true", help="print the runs as JSON on stdout")
     p.set_defaults(func=run)
 
@@ -147,6 +161,13 @@ def run(args) -> int:
         raise UserError(f"--flush-every: must be zero or positive, got {args.flush_every}")
     flush_every = FLUSH_EVERY_S if args.flush_every is None else args.flush_every
     plans = _plans(args)
+    ensembles = {}
+    if args.ensemble is not None:
+        from ..ensemble_run import plan_ensemble
+
+        for p in plans:
+            ep = plan_ensemble(p, args.ensemble, args.spread)
+            ensembles[ep.run_id] = ep
     actions = _decide(plans, out, args.force, args.resume)
     for p in plans:
         for note in p.notes:
@@ -168,14 +189,24 @@ def run(args) -> int:
                         results.append(None)
                         continue
                     progress = Progress(p.label, p.samples)
-                    r = execute(
-                        p,
-                        f,
-                        resume=action == "resume",
-                        progress=progress,
-                        stop=stop,
-                        flush_every=flush_every,
-                    )
+                    if p.run_id in ensembles:
+                        from ..ensemble_run import execute_ensemble
+
+                        if action == "resume":
+                            sys.stderr.write(
+                                f"topdrift: {p.case.name}: an ensemble run keeps no "
+                                "checkpoint; running it again from the start\n"
+                            )
+                        r = execute_ensemble(ensembles[p.run_id], f, progress=progress, stop=stop)
+                    else:
+                        r = execute(
+                            p,
+                            f,
+                            resume=action == "resume",
+                            progress=progress,
+                            stop=stop,
+                            flush_every=flush_every,
+                        )
                     results.append(r)
                     if stop.requested:
                         break
