@@ -21,6 +21,7 @@
 from __future__ import annotations
 
 import math
+import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -44,6 +45,7 @@ TOP_KEYS = (
 )
 PER_METHOD_KEYS = ("steps", "rtols", "forms")
 FORMS = ("euler", "body")
+_NAME = re.compile(r"[A-Za-z0-9][A-Za-z0-9._-]*\Z")  # as a case's name
 
 
 @dataclass
@@ -113,6 +115,8 @@ def parse_sweep(text: str, label: str, base: Path | None = None) -> SweepSpec:
     name = data["name"]
     if not isinstance(name, str) or not name:
         _fail(label, "name", "expected a non-empty string")
+    if not _NAME.match(name):  # it names the default results file
+        _fail(label, "name", f"{name!r}: use letters, digits, '-', '_' and '.'")
     desc = data.get("description", "")
     if not isinstance(desc, str):
         _fail(label, "description", "expected a string")

@@ -173,6 +173,7 @@ BAD_SWEEPS = [
     ("unknown case", SWEEP_TOML.replace('"asym.toml"', '"no-such-top"'), "no-such-top"),
     ("unknown form", SWEEP_TOML.replace('["euler", "body"]', '["euler", "polar"]'), "polar"),
     ("stray method table", SWEEP_TOML + "\n[method.gauss4]\nsteps = [1e-3]\n", "method.gauss4"),
+    ("name with a slash", SWEEP_TOML.replace('name = "grid"', 'name = "a/b"'), "name: 'a/b'"),
     ("not TOML", SWEEP_TOML.replace("horizon = 1.5", "horizon = "), "not valid TOML"),
 ]
 
