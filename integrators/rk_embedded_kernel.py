@@ -29,27 +29,11 @@ import math
 import numpy as np
 from numba import njit
 
-from topdrift.models.dynamics import rhs_body, rhs_euler, singular
+from topdrift.models.dynamics import rhs, singular
 from topdrift.models.forms import FORM_BODY, FORM_EULER
 
 from .base import C_EVALS, C_REJECTED, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGULAR, ST_STEP_UNDERFLOW
 from .rk_packed import CFG_ERR_KIND, CFG_FSAL_IN_ERR, CFG_N_DENSE, CFG_N_ROWS, CFG_N_STAGES
-
-
-@njit(cache=True, inline="always")
-def rhs(form, y, p, dy):
-    """The models' rhs(form, y, p, dy), with the same branch, made inlinable.
-
-    Measured (numba 0.68): a call to topdrift.models.dynamics.rhs from a kernel is not inlined
-    across the cached function boundary and increments and decrements the reference counts of
-    its three arrays on every call, about 30 ns per evaluation. This switch is inlined into the
-    kernel body, and each entry kernel passes its form as a constant, so the branch folds and
-    LLVM inlines rhs_body or rhs_euler, both still called by name from models.dynamics."""
-    if form == FORM_EULER:
-        rhs_euler(y, p, dy)
-    else:
-        rhs_body(y, p, dy)
-
 
 SAFETY = 0.9
 MIN_FACTOR = 0.2
