@@ -9,6 +9,7 @@ import sys
 
 # Subcommand modules, in the order `topdrift --help` lists them.
 COMMANDS = (
+    "demo",
     "methods",
     "describe",
     "cases",

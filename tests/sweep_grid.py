@@ -6,7 +6,6 @@ from __future__ import annotations
 import hashlib
 import json
 import re
-import subprocess
 import sys
 from pathlib import Path
 
@@ -109,10 +108,6 @@ def same_datasets(a: dict, b: dict) -> None:
 
 def topdrift_cmd(*args: str) -> list[str]:
     return [sys.executable, "-m", "topdrift.benchmarks.cli", *args]
-
-
-def run_cli(*args: str, timeout: float = 120.0) -> subprocess.CompletedProcess:
-    return subprocess.run(topdrift_cmd(*args), capture_output=True, text=True, timeout=timeout)
 
 
 PROGRESS = re.compile(r"^\[(\d+)/(\d+)\] ")

@@ -203,6 +203,12 @@ def test_bad_options_exit_2_and_leave_an_existing_file_alone(clean, tmp_path, ca
     rc, _, err = sweep(capsys, "no-such-sweep", "--out", str(out))
     assert rc == 2 and "no-such-sweep" in err and len(err.strip().splitlines()) == 1
     assert file_sha(out) == before
+    # a results file that is not a run store is refused, and left as it was
+    foreign = tmp_path / "notes.h5"
+    foreign.write_bytes(b"not HDF5 at all\n")
+    rc, _, err = sweep(capsys, str(grid), "--out", str(foreign), "--jobs", "1")
+    assert rc == 2 and str(foreign) in err and len(err.strip().splitlines()) == 1
+    assert foreign.read_bytes() == b"not HDF5 at all\n"
 
 
 def _complete_runs(path: Path) -> int:
