@@ -29,6 +29,12 @@ from .units import UnitProblem, to_si
 
 FORMAT_VERSION = 1
 MAX_SAMPLES = 10_000_000  # a float64 sample array of this length is already 80 MB per variable
+# Every number of a case (SI units) is 0 or of magnitude in [SMALLEST, LARGEST]. The physics
+# multiplies up to about three of them (M g l, I w^2, m^2 / I): inside this range such products stay
+# far from float64's overflow (1.8e308) and underflow (2.2e-308), so that a kernel never divides by
+# an underflowed zero or runs on an overflowed infinity.
+SMALLEST = 1e-100
+LARGEST = 1e100
 
 TOP_KEYS = ("format_version", "name", "description", "horizon", "samples")
 TOP_TABLES = ("body", "wheel", "start", "run")
@@ -179,6 +185,15 @@ class _Reader:
         value = float(value)
         if not math.isfinite(value):
             self.fail(key, f"must be finite, got {value}")
+        return self.in_range(value, key)
+
+    def in_range(self, value: float, key: str) -> float:
+        if value != 0.0 and not SMALLEST <= abs(value) <= LARGEST:
+            self.fail(
+                key,
+                f"{value:g} is outside the range topdrift computes with (0, or magnitudes from "
+                f"{SMALLEST:g} to {LARGEST:g} in SI units)",
+            )
         return value
 
     def positive(self, value, key: str) -> float:
@@ -313,6 +328,7 @@ class _Reader:
                 values[k] = to_si(t[k], "angle" if k in START_ANGLES else "rate")
             except UnitProblem as exc:
                 self.fail(f"start.{k}", str(exc))
+            self.in_range(values[k], f"start.{k}")
         theta = values["theta"]
         # Rounding in a unit conversion ("180 deg") may land a hair outside [0, pi].
         if -1e-12 <= theta < 0.0:

@@ -90,8 +90,16 @@ def open_runs(path: str):
         if version < 1:
             raise UserError(f"'{path}' has format_version {version}, which never existed")
         yield f
+    except (OSError, RuntimeError) as exc:
+        # HDF5 finds damage (a cut file, overwritten bytes) only where it reads: any read of
+        # the open file may fail, and every such failure is the same one-line error.
+        raise UserError(f"runs file '{path}' is damaged: {_first_line(exc)}") from None
     finally:
         f.close()
+
+
+def _first_line(exc: Exception) -> str:
+    return str(exc).splitlines()[0] if str(exc) else type(exc).__name__
 
 
 def _record(run_id: str, g) -> dict:
@@ -141,6 +149,17 @@ def _run_group(f, run_id: str, path: str):
     return runs[run_id]
 
 
+def _read(g, name: str, run_id: str, path: str) -> np.ndarray:
+    """A dataset's values; a damaged file (a chunk cut off or overwritten) is a one-line error."""
+    try:
+        return np.asarray(g[name][...], dtype=np.float64)
+    except (OSError, RuntimeError) as exc:
+        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise UserError(
+            f"run {run_id} in '{path}': dataset '{name}' cannot be read ({first})"
+        ) from None
+
+
 SERIES_DATASETS = {
     "t": "t",
     "euler": "euler",
@@ -164,10 +183,8 @@ def load_series(path: str, run_id: str) -> dict:
         for key, name in SERIES_DATASETS.items():
             if name not in g:
                 raise UserError(f"run {run_id} in '{path}' has no dataset '{name}'")
-            out[key] = np.asarray(g[name][...], dtype=np.float64)
-        out["exact_euler"] = (
-            np.asarray(g["exact/euler"][...], dtype=np.float64) if "exact/euler" in g else None
-        )
+            out[key] = _read(g, name, run_id, path)
+        out["exact_euler"] = _read(g, "exact/euler", run_id, path) if "exact/euler" in g else None
     n = min(len(v) for k, v in out.items() if k != "record" and v is not None)
     for k, v in out.items():
         if k != "record" and v is not None:

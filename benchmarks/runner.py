@@ -21,8 +21,10 @@ import numpy as np
 
 from topdrift.integrators import (
     ST_DIVERGED,
+    ST_NO_CONVERGENCE,
     ST_OK,
     ST_SINGULAR,
+    ST_STEP_UNDERFLOW,
     STATUS_NAMES,
     Method,
     MethodRefused,
@@ -117,10 +119,15 @@ def start_state(case, form: str) -> np.ndarray:
     """The case's start state in `form` as a fresh C-contiguous float64 array.
 
     Raises SingularAttitude for a start on the vertical in the Euler form (see plan_run)."""
-    if form == "euler" and case.body.lagrange_top and math.sin(case.start.theta) == 0.0:
+    theta = case.start.theta
+    # theta = pi has sin(theta) = 1.2e-16, not 0, in floating point: the pole is tested by value.
+    on_pole = theta <= 0.0 or theta >= math.pi or math.sin(theta) == 0.0
+    if form == "euler" and case.body.lagrange_top and on_pole:
+        pole = "upward" if theta < 1.0 else "downward"
         raise SingularAttitude(
-            f"{case.name}: the start is on the vertical (sin(theta) = 0), where the Euler form "
-            "is singular; the body form can run it"
+            f"{case.name}: start.theta = {theta:.17g} rad is on the {pole} vertical, the pole of "
+            "the Euler angles (sin(theta) = 0), where the Euler form is singular; run it in the "
+            "body form (--form body)"
         )
     y = case.state(form)
     return np.ascontiguousarray(np.array(y, dtype=np.float64))
@@ -200,13 +207,14 @@ def plan_run(
     try:
         y0 = start_state(case, form)
     except SingularAttitude as exc:
-        # The Euler form cannot hold a start at the pole: the run is recorded as singular at 0.
-        y0 = None
-        start_singular = str(exc)
-    if y0 is not None and y0.shape != (FORM_SIZE[form_code(form)],):
+        # The Euler form cannot hold a start at the pole. Refused up front, like any other run a
+        # method cannot do: a stored run that ends at t = 0 says nothing a user could not be told.
+        raise MethodRefused(str(exc)) from None
+    if y0.shape != (FORM_SIZE[form_code(form)],):
         raise UserError(f"{case.name}: start state has shape {y0.shape} for the {form} form")
+    _check_budget(case, method, horizon, n, settings)
     exact = None
-    if y0 is not None and body.lagrange_top:
+    if body.lagrange_top:
         k = np.arange(min(n, BATCH_ROWS))
         probe = np.append(horizon * k / (n - 1), horizon)
         exact = _exact_solution(body, form, y0, notes, probe)
@@ -226,9 +234,57 @@ def plan_run(
         notes,
         start_singular,
     )
-    if y0 is not None:
+    try:
         warm_up(plan)  # compiles, and lets start() refuse before any file exists
+    except ArithmeticError as exc:
+        # A kernel's own division by zero or overflow on this start (numba raises these): a
+        # refusal naming it, not a traceback.
+        raise MethodRefused(
+            f"{method.name}: cannot start on {case.name}: {type(exc).__name__} in the first steps "
+            f"({exc})"
+        ) from None
     return plan
+
+
+# The most steps one run may take: about 10 hours at 35 ns a step (the fastest kernels, see
+# DESIGN.md), days for the others. A horizon that needs more is refused before anything runs,
+# instead of keeping a machine busy for ever.
+MAX_STEPS = 1e12
+
+
+def fastest_rate(case) -> float:
+    """The fastest angular rate of the case at its start (rad/s): the body's angular velocity
+    |w| = |I^-1 m|, or the pendulum rate sqrt(M g |chi| / I_min) of the gravity torque, whichever
+    is larger. An explicit method following a rotation or oscillation at rate w needs h w below
+    a small constant (its stability interval on the imaginary axis, below 2 pi for every method
+    here: common practice), and any method needs about one step per turn to resolve it."""
+    body = case.body
+    y = case.body_state()
+    w = np.asarray(y[4:7], dtype=np.float64) / np.asarray(body.inertia, dtype=np.float64)
+    spin = float(np.sqrt(np.sum(w * w)))
+    lever = float(np.sqrt(np.sum(np.asarray(body.com, dtype=np.float64) ** 2)))
+    swing = math.sqrt(body.mass * body.gravity * lever / min(body.inertia))
+    return max(spin, swing)
+
+
+def _check_budget(case, method, horizon: float, n: int, settings: dict) -> None:
+    """Refuse a run that cannot finish in any reasonable time (see MAX_STEPS)."""
+    if "steps_per_sample" in settings:
+        steps = float(settings["steps_per_sample"]) * (n - 1)
+        if steps > MAX_STEPS:
+            raise UserError(
+                f"--horizon {horizon:g} with --step {settings['step_requested']:g} is "
+                f"{steps:.3g} steps, more than the {MAX_STEPS:.0e} a run may take; shorten the "
+                "horizon or lengthen the step"
+            )
+        return
+    turns = horizon * fastest_rate(case) / (2.0 * math.pi)
+    if turns > MAX_STEPS:
+        raise UserError(
+            f"--horizon {horizon:g}: {case.name} turns {turns:.3g} times over the horizon at its "
+            f"fastest rate, so an adaptive method would take more than the {MAX_STEPS:.0e} steps "
+            "a run may take; shorten the horizon"
+        )
 
 
 def _exact_solution(body, form: str, y0: np.ndarray, notes: list[str], probe: np.ndarray):
@@ -241,6 +297,10 @@ def _exact_solution(body, form: str, y0: np.ndarray, notes: list[str], probe: np
         top = LagrangeTop.from_state(body, form, y0)
     except ExactUnavailable as exc:
         notes.append(f"no exact solution: {exc}")
+        return None
+    except ArithmeticError as exc:
+        # The reference is a comparison, not the run: a start it cannot handle is said, not fatal.
+        notes.append(f"no exact solution: {type(exc).__name__} while setting it up ({exc})")
         return None
     # Evaluate it once at the first batch of sample times and at T, so that a reference that
     # cannot be evaluated for this start is known before the run, not half way through it.
@@ -443,21 +503,11 @@ def execute(
     else:
         group = RunGroup.create(f, plan.run_id, run_attrs(plan), width, has_exact, plan.samples)
         run = _Run(plan, group)
-    if plan.y0 is None:
-        return _end_at_start_singular(plan, group)
     if not resume:
         run.stepper = plan.method.start(
             plan.form_code, plan.params.copy(), 0.0, plan.y0.copy(), dict(plan.stepper_settings)
         )
     return _loop(plan, run, has_exact, progress, stop, flush_every)
-
-
-def _end_at_start_singular(plan: RunPlan, group: RunGroup) -> RunResult:
-    metrics = {"t_fail": 0.0}
-    group.set(status="singular", detail=plan.start_singular)
-    group.set_metrics(metrics)
-    group.flush()
-    return RunResult(plan.run_id, "singular", metrics, plan.start_singular)
 
 
 def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
@@ -533,7 +583,9 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
                 status = "diverged"
             else:
                 status = "failed"
-            detail = f"stepper reported {STATUS_NAMES[st]} at t = {t_fail:.17g}"
+            detail = f"{STATUS_NAMES[st]} at t = {t_fail:.17g}"
+            if st in _WHY:
+                detail += f": {_WHY[st]}"
             break
         buf.t[j] = tk
         if not buf.record(form, s.y, p, j):
@@ -567,11 +619,22 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
             status, detail, t_fail = "failed", str(exc), None
     metrics = _final_metrics(run, t_fail)
     run.group.set_metrics(metrics)
+    # The samples reach the disk before the final status is set: a write that fails (a full
+    # disk, a file-size limit) raises here, and the run stays `running`, never `ok` and short.
+    run.group.flush()
     run.group.set(status=status, detail=detail)
     run.group.flush()
     if progress:
         progress.end(status)
     return RunResult(plan.run_id, status, metrics, detail)
+
+
+# What a stepper's failure status means, said in the run's detail after "<status> at t = ...".
+_WHY = {
+    ST_STEP_UNDERFLOW: "the adaptive step fell below 10 ulp of t (round-off) without meeting "
+    "the tolerance; loosen --rtol/--atol or look for a singularity near that time",
+    ST_NO_CONVERGENCE: "the implicit stages did not converge; take a smaller --step",
+}
 
 
 def _interrupted(plan: RunPlan, run: _Run, progress) -> RunResult:

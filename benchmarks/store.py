@@ -66,6 +66,24 @@ def _check_format(f: h5py.File, path: Path) -> None:
         )
 
 
+class damage_is_an_error:
+    """Context manager: an HDF5 read or write that fails inside it (the file is cut short or has
+    overwritten bytes; HDF5 notices only where it reads) becomes one UserError line naming the
+    file. h5py reports such failures as OSError, some as RuntimeError."""
+
+    def __init__(self, path):
+        self.path = path
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, kind, exc, _tb):
+        if kind is not None and issubclass(kind, (OSError, RuntimeError)):
+            text = str(exc).splitlines()[0] if str(exc) else kind.__name__
+            raise UserError(f"{self.path}: damaged or unreadable HDF5 file ({text})") from None
+        return False
+
+
 def _attr_str(g, name: str, default=None):
     v = g.attrs.get(name, default)
     return v.decode() if isinstance(v, bytes) else v
@@ -82,11 +100,28 @@ def open_reader(path: Path) -> h5py.File:
     except OSError as exc:
         raise UserError(f"{path}: not a readable HDF5 file ({exc})") from None
     try:
-        _check_format(f, path)
+        with damage_is_an_error(path):
+            _check_format(f, path)
     except UserError:
         f.close()
         raise
     return f
+
+
+def check_headers(f: h5py.File) -> None:
+    """Read every group's and dataset's header and attributes (not the samples), so that a file
+    HDF5 cannot fully read is refused before anything is written into it. Raises what h5py
+    raises; callers wrap this in damage_is_an_error. Milliseconds for a file of many runs."""
+
+    def visit(_name, obj):
+        for key in obj.attrs:
+            obj.attrs[key]
+        if isinstance(obj, h5py.Dataset):
+            _ = obj.shape
+
+    for key in f.attrs:
+        f.attrs[key]
+    f.visititems(visit)
 
 
 def existing_status(path: Path, run_id: str) -> tuple[str | None, int]:
@@ -97,7 +132,8 @@ def existing_status(path: Path, run_id: str) -> tuple[str | None, int]:
         raise UserError(f"{path}: is a directory, not a results file")
     if not path.exists():
         return None, 0
-    with open_reader(path) as f:
+    with open_reader(path) as f, damage_is_an_error(path):
+        check_headers(f)
         g = f.get(f"runs/{run_id}")
         if g is None:
             return None, 0
@@ -110,7 +146,9 @@ def open_writer(path: Path) -> h5py.File:
     if path.exists():
         f = _open(path, "r+")
         try:
-            _check_format(f, path)
+            with damage_is_an_error(path):
+                _check_format(f, path)
+                check_headers(f)
         except UserError:
             f.close()
             raise

@@ -187,14 +187,26 @@ def test_singular_through_the_pole_and_at_the_start(tmp_path, capsys):
     (r,) = doc["runs"]
     assert rc == 1 and r["status"] == "singular"
     assert 0.0 < r["metrics"]["t_fail"] < 2.0
-    # A start on the vertical has no Euler-form state: singular at t = 0, no NaN stored.
+    # A start on the vertical has no Euler-form state: refused up front, nothing stored (the
+    # refusal's wording is checked in test_faults.py).
     up = write(tmp_path, "up.toml", TOP_TOML, theta="0 deg")
-    rc, doc = run_json(
-        capsys,
-        [str(up), "--method", "leapfrog", "--step", "0.01", "--form", "euler", "--out", str(out)],
+    before = out.read_bytes()
+    rc = cli.main(
+        [
+            "run",
+            str(up),
+            "--method",
+            "leapfrog",
+            "--step",
+            "0.01",
+            "--form",
+            "euler",
+            "--out",
+            str(out),
+        ]
     )
-    (r,) = doc["runs"]
-    assert rc == 1 and r["status"] == "singular" and r["metrics"]["t_fail"] == 0.0
+    assert rc == 2 and "the body form" in capsys.readouterr().err
+    assert out.read_bytes() == before
     # The body form runs the same start.
     rc, doc = run_json(
         capsys,
@@ -203,7 +215,7 @@ def test_singular_through_the_pole_and_at_the_start(tmp_path, capsys):
     assert rc == 0 and doc["runs"][0]["status"] == "ok"
     with h5py.File(out, "r") as f:
         statuses = sorted(g.attrs["status"] for g in f["runs"].values())
-        assert statuses == ["ok", "singular", "singular"]
+        assert statuses == ["ok", "singular"]
         for g in f["runs"].values():
             for name in ("t", "euler", "quaternion", "momentum", "invariants/energy"):
                 assert not any(math.isnan(v) for v in g[name][()].ravel())

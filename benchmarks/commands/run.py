@@ -7,6 +7,7 @@ refusal or a conflicting option exits 2 and leaves no file behind (and an existi
 
 from __future__ import annotations
 
+import errno
 import json
 import signal
 from pathlib import Path
@@ -148,6 +149,42 @@ def _stored(out: Path, run_id: str) -> tuple[str, dict, str]:
         )
 
 
+def _reason(exc: Exception) -> str:
+    """The first line of an OS or HDF5 write error, with the errno's words where there is one."""
+    import os
+
+    text = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
+    for code in (errno.ENOSPC, errno.EFBIG, errno.EDQUOT, errno.EROFS, errno.EIO):
+        if getattr(exc, "errno", None) == code or os.strerror(code) in str(exc):
+            return os.strerror(code)
+    return text.splitlines()[0]
+
+
+def _write_failure(exc: RuntimeError) -> bool:
+    """h5py reports a failed write during a flush as RuntimeError, 'file write failed ... errno'."""
+    text = str(exc)
+    return "write failed" in text or "errno =" in text
+
+
+def _close_quietly(f) -> None:
+    """Close a file whose writes fail. HDF5's close flushes again, fails for the same reason,
+    and h5py reports that from object destructors as 'Exception ignored' noise on stderr; the
+    error said on one line is the one that counts, so that noise is silenced for the close."""
+    import gc
+    import sys
+
+    hook = sys.unraisablehook
+    sys.unraisablehook = lambda _info: None
+    try:
+        try:
+            f.close()
+        except (OSError, RuntimeError):
+            pass
+        gc.collect()
+    finally:
+        sys.unraisablehook = hook
+
+
 def run(args) -> int:
     import sys
 
@@ -210,7 +247,18 @@ def run(args) -> int:
                     results.append(r)
                     if stop.requested:
                         break
-            finally:
+            except (OSError, RuntimeError) as exc:
+                if isinstance(exc, RuntimeError) and not _write_failure(exc):
+                    raise
+                # A write that failed (a full disk, a file-size limit, the medium gone): the run
+                # in hand keeps the status `running` and its last checkpoint, so --resume goes on
+                # from there once there is room; no run is marked done that is not.
+                _close_quietly(f)
+                raise UserError(
+                    f"{out}: cannot write the results ({_reason(exc)}); the unfinished run keeps "
+                    "its last checkpoint: make room, then run again with --resume"
+                ) from None
+            else:
                 f.close()
         finally:
             for s, h in old.items():
