@@ -90,9 +90,10 @@ def open_runs(path: str):
         if version < 1:
             raise UserError(f"'{path}' has format_version {version}, which never existed")
         yield f
-    except (OSError, RuntimeError) as exc:
-        # HDF5 finds damage (a cut file, overwritten bytes) only where it reads: any read of
-        # the open file may fail, and every such failure is the same one-line error.
+    except (OSError, RuntimeError, KeyError) as exc:
+        # HDF5 finds damage (a cut file, overwritten bytes) only where it reads: any read of the
+        # open file may fail (h5py raises KeyError for an object header it cannot read), and
+        # every such failure is the same one-line error.
         raise UserError(f"runs file '{path}' is damaged: {_first_line(exc)}") from None
     finally:
         f.close()

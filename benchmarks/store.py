@@ -69,7 +69,7 @@ def _check_format(f: h5py.File, path: Path) -> None:
 class damage_is_an_error:
     """Context manager: an HDF5 read or write that fails inside it (the file is cut short or has
     overwritten bytes; HDF5 notices only where it reads) becomes one UserError line naming the
-    file. h5py reports such failures as OSError, some as RuntimeError."""
+    file. h5py reports such failures as OSError, some as RuntimeError or KeyError."""
 
     def __init__(self, path):
         self.path = path
@@ -78,10 +78,49 @@ class damage_is_an_error:
         return self
 
     def __exit__(self, kind, exc, _tb):
-        if kind is not None and issubclass(kind, (OSError, RuntimeError)):
+        # h5py raises KeyError for an object whose header it cannot read ("bad object header").
+        if kind is not None and issubclass(kind, (OSError, RuntimeError, KeyError)):
             text = str(exc).splitlines()[0] if str(exc) else kind.__name__
             raise UserError(f"{self.path}: damaged or unreadable HDF5 file ({text})") from None
         return False
+
+
+def is_write_failure(exc: BaseException) -> bool:
+    """An OSError, or h5py's RuntimeError for a failed write during a flush or close ('file write
+    failed ... errno = 27')."""
+    if isinstance(exc, OSError):
+        return True
+    text = str(exc)
+    return isinstance(exc, RuntimeError) and ("write failed" in text or "errno =" in text)
+
+
+def write_reason(exc: BaseException) -> str:
+    """The words of the errno behind a failed write where there is one, else its first line."""
+    import errno
+    import os
+
+    for code in (errno.ENOSPC, errno.EFBIG, errno.EDQUOT, errno.EROFS, errno.EIO):
+        if getattr(exc, "errno", None) == code or os.strerror(code) in str(exc):
+            return os.strerror(code)
+    text = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
+    return text.splitlines()[0]
+
+
+def close_after_failure(f: h5py.File) -> None:
+    """Close a file whose writes fail. HDF5's close flushes again and fails for the same reason,
+    and h5py reports that, and every later release of an object of that file (the frames of the
+    failed write hold some), from destructors as 'Exception ignored' noise on stderr. The
+    one-line error the caller raises is the one that counts, and the process is about to end
+    with it, so such destructor reports stay silenced from here on."""
+    import gc
+    import sys
+
+    sys.unraisablehook = lambda _info: None
+    try:
+        f.close()
+    except (OSError, RuntimeError):
+        pass
+    gc.collect()
 
 
 def _attr_str(g, name: str, default=None):
@@ -144,6 +183,12 @@ def open_writer(path: Path) -> h5py.File:
     """Open (or create) a run store for writing; results/ and the like are created as needed."""
     path = Path(path)
     if path.exists():
+        # HDF5 opens an empty or foreign file in r+ mode and writes a superblock into it: look
+        # before opening, so that such a file is refused as it is.
+        if path.is_file() and path.stat().st_size == 0:
+            raise UserError(f"{path}: empty file, not a topdrift run store; remove it or use --out")
+        if path.is_file() and not h5py.is_hdf5(path):
+            raise UserError(f"{path}: not a readable HDF5 file (no HDF5 signature)")
         f = _open(path, "r+")
         try:
             with damage_is_an_error(path):
@@ -306,6 +351,8 @@ def list_runs(f: h5py.File) -> list[dict]:
     if runs is None:
         return out
     for run_id, g in runs.items():
+        if g is None:  # h5py gives None for a link whose object header cannot be read
+            raise OSError(f"the group of run {run_id} cannot be opened")
         row = {"run_id": run_id}
         for k in g.attrs:
             v = _attr_str(g, k)

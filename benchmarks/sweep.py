@@ -31,7 +31,14 @@ from .ladder import rtol_ladder, step_ladder
 from .library import load_case
 from .memrun import MemoryRun, copy_run, run_in_memory
 from .runner import plan_run
-from .store import FINAL_STATUSES, _attr_str, open_writer
+from .store import (
+    FINAL_STATUSES,
+    _attr_str,
+    close_after_failure,
+    is_write_failure,
+    open_writer,
+    write_reason,
+)
 from .sweep_spec import SweepSpec
 
 
@@ -249,9 +256,21 @@ def run_sweep(
                     accept(job, result, None)
         else:
             _on_pool(todo, jobs, accept, outcome, stop)
+    except (OSError, RuntimeError) as exc:
+        if not is_write_failure(exc):
+            raise
+        # A full disk or a file-size limit while a run was copied in. HDF5 may not finish its
+        # own bookkeeping, so the file can be left unreadable: the message says to check it.
+        close_after_failure(f)
+        f = None
+        raise UserError(
+            f"{out}: cannot write the results ({write_reason(exc)}); make room, check the file "
+            "with `topdrift summary`, then run the same sweep again (complete runs are kept)"
+        ) from None
     finally:
         try:
-            f.close()
+            if f is not None:
+                f.close()
         finally:
             if client is not None:
                 client.close()

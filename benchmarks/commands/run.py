@@ -7,7 +7,6 @@ refusal or a conflicting option exits 2 and leaves no file behind (and an existi
 
 from __future__ import annotations
 
-import errno
 import json
 import signal
 from pathlib import Path
@@ -149,49 +148,19 @@ def _stored(out: Path, run_id: str) -> tuple[str, dict, str]:
         )
 
 
-def _reason(exc: Exception) -> str:
-    """The first line of an OS or HDF5 write error, with the errno's words where there is one."""
-    import os
-
-    text = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
-    for code in (errno.ENOSPC, errno.EFBIG, errno.EDQUOT, errno.EROFS, errno.EIO):
-        if getattr(exc, "errno", None) == code or os.strerror(code) in str(exc):
-            return os.strerror(code)
-    return text.splitlines()[0]
-
-
-def _write_failure(exc: RuntimeError) -> bool:
-    """h5py reports a failed write during a flush as RuntimeError, 'file write failed ... errno'."""
-    text = str(exc)
-    return "write failed" in text or "errno =" in text
-
-
-def _close_quietly(f) -> None:
-    """Close a file whose writes fail. HDF5's close flushes again, fails for the same reason,
-    and h5py reports that from object destructors as 'Exception ignored' noise on stderr; the
-    error said on one line is the one that counts, so that noise is silenced for the close."""
-    import gc
-    import sys
-
-    hook = sys.unraisablehook
-    sys.unraisablehook = lambda _info: None
-    try:
-        try:
-            f.close()
-        except (OSError, RuntimeError):
-            pass
-        gc.collect()
-    finally:
-        sys.unraisablehook = hook
-
-
 def run(args) -> int:
     import sys
 
     from ..errors import UserError
     from ..progress import Progress
     from ..runner import FLUSH_EVERY_S, StopFlag, execute
-    from ..store import DEFAULT_FILE, open_writer
+    from ..store import (
+        DEFAULT_FILE,
+        close_after_failure,
+        is_write_failure,
+        open_writer,
+        write_reason,
+    )
 
     out = Path(args.out) if args.out else DEFAULT_FILE
     if args.flush_every is not None and not args.flush_every >= 0.0:
@@ -248,15 +217,17 @@ def run(args) -> int:
                     if stop.requested:
                         break
             except (OSError, RuntimeError) as exc:
-                if isinstance(exc, RuntimeError) and not _write_failure(exc):
+                if not is_write_failure(exc):
                     raise
                 # A write that failed (a full disk, a file-size limit, the medium gone): the run
-                # in hand keeps the status `running` and its last checkpoint, so --resume goes on
-                # from there once there is room; no run is marked done that is not.
-                _close_quietly(f)
+                # in hand is never marked done (its status is set only after its samples are
+                # flushed). HDF5 may not finish its own bookkeeping either, so the file can be
+                # left unreadable: the message says to check it rather than promise a resume.
+                close_after_failure(f)
                 raise UserError(
-                    f"{out}: cannot write the results ({_reason(exc)}); the unfinished run keeps "
-                    "its last checkpoint: make room, then run again with --resume"
+                    f"{out}: cannot write the results ({write_reason(exc)}); the run in hand is "
+                    "not marked complete: make room, check the file with `topdrift summary`, "
+                    "then go on with --resume"
                 ) from None
             else:
                 f.close()
