@@ -59,32 +59,61 @@ def free_symmetric(h, y, p):
 
     R(h) = Rot(L/|L|, |L| h / I1) R(0) Rot(e3, c3 h), m(h) = Rot(e3, -c3 h) m(0),
     c3 = (1/I3 - 1/I1) m3. m is turned about e3 directly, so m3 is never touched.
+
+    Round-off without a bias. The two quaternion factors are nearly the same every step (m3 is
+    constant, |L| nearly so), so whatever a factor rounds the same way every step adds up
+    linearly instead of like a random walk. Measured on a symmetric top, 16 starts, 10^6 steps
+    of 1e-3: L.e_z drifted 2.9e-12 (RMS 1.5e-12 for the free flow alone), from three such
+    roundings, each removed here:
+    - q (qL) is formed as q + q (qL - 1), qL - 1 = (cos - 1, sin L/|L|): the small increment
+      carries the factor's rounding at its own size, and q is rounded once, by an addition
+      whose error changes from step to step; the same for qe3;
+    - the renormalisation factor 1 + (1 - |q|^2)/2 is applied as q + q g: the factor itself,
+      formed as 0.5 (3 - |q|^2), is a double next to 1 and can only be 1, 1 - 2^-53 or 1 + 2^-52,
+      a quantised, biased correction;
+    - m turns as m + (m (cos - 1) + m' sin) with cos - 1 = -2 sin^2: the rounded 1 - 2 sin^2
+      (constant for a run) scaled the transverse momentum by the same 1 + O(1e-16) every step.
+    What is left: RMS 1.2e-13 for the free flow alone and 1.9e-13 with gravity after 10^6
+    steps (the members still share a sign: some bias remains, 1e-19 per step).
     """
     q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
     m1, m2, m3 = y[4], y[5], y[6]
     lx, ly, lz = rotate(q0, q1, q2, q3, m1, m2, m3)
     lnorm = math.sqrt(lx * lx + ly * ly + lz * lz)
+    # Each factor from the sine and cosine of half its half-angle: sin = 2 t u and
+    # cos - 1 = -2 t^2 without a cancellation, and no division.
     if lnorm > 0.0:
-        half = 0.5 * h * lnorm * p[P_INV1]
-        sh = math.sin(half) / lnorm
-        q0, q1, q2, q3 = qmul(math.cos(half), sh * lx, sh * ly, sh * lz, q0, q1, q2, q3)
-    hb = 0.5 * h * (p[P_INV3] - p[P_INV1]) * m3
-    ch = math.cos(hb)
-    sh3 = math.sin(hb)
-    q0, q1, q2, q3 = qmul(q0, q1, q2, q3, ch, 0.0, 0.0, sh3)
+        quarter = 0.25 * h * lnorm * p[P_INV1]
+        t = math.sin(quarter)
+        sh = 2.0 * t * math.cos(quarter) / lnorm
+        d0, d1, d2, d3 = qmul(-2.0 * t * t, sh * lx, sh * ly, sh * lz, q0, q1, q2, q3)
+        q0 = q0 + d0
+        q1 = q1 + d1
+        q2 = q2 + d2
+        q3 = q3 + d3
+    qb = 0.25 * h * (p[P_INV3] - p[P_INV1]) * m3
+    t3 = math.sin(qb)
+    e0 = -2.0 * t3 * t3
+    sh3 = 2.0 * t3 * math.cos(qb)
+    ch = 1.0 + e0
+    d0, d1, d2, d3 = qmul(q0, q1, q2, q3, e0, 0.0, 0.0, sh3)
+    q0 = q0 + d0
+    q1 = q1 + d1
+    q2 = q2 + d2
+    q3 = q3 + d3
     # One Newton step towards |q| = 1: division-free and enough, since the error is round-off.
-    f = 0.5 * (3.0 - (q0 * q0 + q1 * q1 + q2 * q2 + q3 * q3))
-    y[0] = q0 * f
-    y[1] = q1 * f
-    y[2] = q2 * f
-    y[3] = q3 * f
+    g = 0.5 * (1.0 - (q0 * q0 + q1 * q1 + q2 * q2 + q3 * q3))
+    y[0] = q0 + q0 * g
+    y[1] = q1 + q1 * g
+    y[2] = q2 + q2 * g
+    y[3] = q3 + q3 * g
     # m turns by the angle the quaternion factor (ch, 0, 0, sh3) turns the body frame, built
-    # from the same two numbers (double-angle formulas): two transcendental calls fewer per
-    # step than cos(2 hb), sin(2 hb), and the same rotation to round-off.
-    cb = 1.0 - 2.0 * sh3 * sh3
+    # from the same numbers (double-angle formulas): no transcendental calls of its own, and
+    # the same rotation to round-off.
+    cb1 = -2.0 * sh3 * sh3
     sb = 2.0 * sh3 * ch
-    y[4] = m1 * cb + m2 * sb
-    y[5] = m2 * cb - m1 * sb
+    y[4] = m1 + (m1 * cb1 + m2 * sb)
+    y[5] = m2 + (m2 * cb1 - m1 * sb)
 
 
 @njit(cache=True)

@@ -64,24 +64,39 @@ static inline void free_symmetric(double h, double *y, const double *p) {
     double ly = m2 + q0 * ty + (q3 * tx - q1 * tz);
     double lz = m3 + q0 * tz + (q1 * ty - q2 * tx);
     double lnorm = sqrt(lx * lx + ly * ly + lz * lz);
-    double o[4] = {q0, q1, q2, q3};
+    double d[4];
+    /* q (qL) as q + q (qL - 1), q (qe3) as q + q (qe3 - 1), each factor from the sine and
+     * cosine of a quarter angle (sin = 2 t u, cos - 1 = -2 t^2): the rounding of the nearly
+     * constant factors stays at the size of the increment. */
     if (lnorm > 0.0) {
-        double half = 0.5 * h * lnorm * p[P_INV1];
-        double sh = sin(half) / lnorm;
-        qmul(cos(half), sh * lx, sh * ly, sh * lz, q0, q1, q2, q3, o);
+        double quarter = 0.25 * h * lnorm * p[P_INV1];
+        double t = sin(quarter);
+        double sh = 2.0 * t * cos(quarter) / lnorm;
+        qmul(-2.0 * t * t, sh * lx, sh * ly, sh * lz, q0, q1, q2, q3, d);
+        q0 = q0 + d[0];
+        q1 = q1 + d[1];
+        q2 = q2 + d[2];
+        q3 = q3 + d[3];
     }
-    double hb = 0.5 * h * (p[P_INV3] - p[P_INV1]) * m3;
-    double ch = cos(hb), sh3 = sin(hb);
-    double r[4];
-    qmul(o[0], o[1], o[2], o[3], ch, 0.0, 0.0, sh3, r);
-    double cb = 1.0 - 2.0 * sh3 * sh3, sb = 2.0 * sh3 * ch;
-    double f = 0.5 * (3.0 - (r[0] * r[0] + r[1] * r[1] + r[2] * r[2] + r[3] * r[3]));
-    y[0] = r[0] * f;
-    y[1] = r[1] * f;
-    y[2] = r[2] * f;
-    y[3] = r[3] * f;
-    y[4] = m1 * cb + m2 * sb;
-    y[5] = m2 * cb - m1 * sb;
+    double qb = 0.25 * h * (p[P_INV3] - p[P_INV1]) * m3;
+    double t3 = sin(qb);
+    double e0 = -2.0 * t3 * t3;
+    double sh3 = 2.0 * t3 * cos(qb);
+    double ch = 1.0 + e0;
+    qmul(q0, q1, q2, q3, e0, 0.0, 0.0, sh3, d);
+    q0 = q0 + d[0];
+    q1 = q1 + d[1];
+    q2 = q2 + d[2];
+    q3 = q3 + d[3];
+    /* Newton step to |q| = 1 as q + q g (the factor 1 + g itself would be quantised). */
+    double g = 0.5 * (1.0 - (q0 * q0 + q1 * q1 + q2 * q2 + q3 * q3));
+    y[0] = q0 + q0 * g;
+    y[1] = q1 + q1 * g;
+    y[2] = q2 + q2 * g;
+    y[3] = q3 + q3 * g;
+    double cb1 = -2.0 * sh3 * sh3, sb = 2.0 * sh3 * ch;
+    y[4] = m1 + (m1 * cb1 + m2 * sb);
+    y[5] = m2 + (m2 * cb1 - m1 * sb);
 }
 
 long strang_body(double *y, const double *p, double h, double first, long n) {
