@@ -4,8 +4,19 @@ method given by its tableau, the stage equations solved by fixed-point iteration
 Stage equations in increment form, Z_i = Y_i - y_n = h sum_j a_ij f(y_n + Z_j): the Z are small,
 so their round-off is small against y_n (Hairer, McLachlan and Razakarivony, "Achieving Brouwer's
 law with implicit Runge-Kutta methods", BIT 48 (2008) 231-243, from memory). The iteration stops
-when the largest change of Z is zero or no longer decreases once it is at round-off level (the
-same paper's criterion), and gives up after `max_iter` sweeps (ST_NO_CONVERGENCE).
+when the largest change of Z is zero, that is at an exact fixed point of the floating-point
+iteration. Once the change has stopped decreasing at round-off level (that paper's stopping
+point) it gets up to ROUNDOFF_SWEEPS more sweeps to get there, then stops where it is. It gives
+up after `max_iter` sweeps if it never reached round-off (ST_NO_CONVERGENCE).
+
+Why not stop at the first stall: at a stall the last two iterates differ by a few units in the
+last place, and the step then keeps the quadratic invariants only up to
+2 h sum_i b_i (Z_i^k - Z_i^(k-1)).C F_i, which has a sign set by the side the iteration came from
+(the starting guess's error is smooth along the orbit), not a random one. Measured on the
+looping-nutation top, gauss4-kahan, 16 starts, h = 2e-3: stopping at the first stall (about 8 %
+of the steps) left a common energy drift of +1e-21 per step (exponent 0.90 over 10^7 steps);
+most of those steps reach a zero change within five more sweeps (all but 1 % of all steps), which
+removes the drift, at about one sweep more per step on average.
 The update y_{n+1} = y_n + h sum_i b_i F_i is added either plainly or with Kahan's compensated
 summation, carrying the compensation from step to step (Hairer, Lubich, Wanner, Geometric
 Numerical Integration, sec. VIII.5).
@@ -31,6 +42,9 @@ from .base import C_EVALS, C_STEPS, ST_DIVERGED, ST_NO_CONVERGENCE, ST_OK, ST_SI
 # enters because rounding y_n + Z feeds back through f, which matters when the motion is slow);
 # an iteration that does not contract stalls near max|Z|. The gap is wide on purpose.
 STALL_RTOL = 1e-10
+
+# Sweeps allowed after the first stall at round-off, looking for a change of exactly zero.
+ROUNDOFF_SWEEPS = 5
 
 # Layout of the persistent float64 `memo` array.
 M_HPREV = 0  # step of the stages kept in fprev; NaN when there are none
@@ -104,6 +118,7 @@ def gauss_steps(
         prev = math.inf
         zscale = 0.0
         sweeps = 0
+        stalled = -1  # sweeps since the first stall at round-off; -1 before it
         for _it in range(max_iter):
             for i in range(s):
                 for k in range(n):
@@ -133,18 +148,27 @@ def gauss_steps(
                 # Non-finite on the first sweep: the rhs itself is, next to y_n. Later: the
                 # iteration ran away.
                 status = ST_DIVERGED if sweeps == 1 else ST_NO_CONVERGENCE
+                stalled = -1
                 break
             if delta == 0.0:
                 status = ST_OK
                 break
-            # Stalled at round-off: done. A change that stops decreasing while still large is
-            # not a stall (early sweeps need not contract monotonically); sweep on to the cap.
+            if stalled >= 0:
+                stalled += 1
+                if stalled >= ROUNDOFF_SWEEPS:
+                    status = ST_OK
+                    break
+                continue
+            # Stalled at round-off: a few more sweeps usually reach a zero change (see above).
+            # A change that stops decreasing while still large is not a stall (early sweeps need
+            # not contract monotonically); sweep on to the cap.
             if sweeps == 1:
                 zscale = zmax + ymax
             if delta >= prev and prev <= STALL_RTOL * zscale:
-                status = ST_OK
-                break
+                stalled = 0
             prev = delta
+        if stalled >= 0 and status == ST_NO_CONVERGENCE:
+            status = ST_OK  # the cap came during the sweeps after a stall at round-off
         iters[I_TOTAL] += sweeps
         if sweeps > iters[I_MAX]:
             iters[I_MAX] = sweeps
