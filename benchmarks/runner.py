@@ -36,7 +36,7 @@ from topdrift.models import FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
 from .errors import UserError
 from .metrics import Accumulator, finish
 from .sampling import N_SCALARS, S_ENERGY, S_NORM, S_P_PHI, S_P_PSI, record_sample
-from .store import RunGroup, utc_now
+from .store import CHUNK_ROWS, NoRoom, RunGroup, ensure_room, utc_now
 
 FLUSH_EVERY_S = 2.0
 BATCH_ROWS = 4096
@@ -507,7 +507,20 @@ def execute(
         run.stepper = plan.method.start(
             plan.form_code, plan.params.copy(), 0.0, plan.y0.copy(), dict(plan.stepper_settings)
         )
-    return _loop(plan, run, has_exact, progress, stop, flush_every)
+    try:
+        return _loop(plan, run, has_exact, progress, stop, flush_every)
+    except NoRoom as exc:
+        # Nothing of the batch was written: the run stops at its last checkpoint, marked
+        # interrupted (a few bytes, within the margin kept), and --resume goes on from there.
+        group.set(status="interrupted", detail=str(exc))
+        group.flush()
+        if progress:
+            progress.end("interrupted")
+        done = group.n_stored
+        raise NoRoom(
+            f"{exc}; run {plan.run_id} is interrupted with {done} of {plan.samples} samples "
+            "stored: make room, then go on with --resume"
+        ) from None
 
 
 def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
@@ -527,6 +540,13 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
 
     def flush() -> None:
         nonlocal j, last_flush
+        # Checked before anything is written (see store.NoRoom). A flush writes the new rows
+        # and rewrites the last, partly filled chunk of every dataset (compressed, perhaps at a
+        # new place in the file), plus the checkpoint: rows + one chunk of rows, uncompressed,
+        # bound it.
+        row_bytes = 8 * (buf.state.shape[1] + 3 + 4 + 3 + 4 + (6 if has_exact else 0))
+        rows = j + min(CHUNK_ROWS, n)
+        ensure_room(run.group.f, rows * row_bytes + 64 * 1024, f"the samples up to {run.k}")
         if j:
             tb = buf.t[:j].copy()
             batch = {

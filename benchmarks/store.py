@@ -123,6 +123,47 @@ def close_after_failure(f: h5py.File) -> None:
     gc.collect()
 
 
+# Room kept free beyond the next write's own bytes, for HDF5's bookkeeping (B-tree nodes, object
+# headers, the free-space list) written at the same flush. Measured: a flush of one batch adds a
+# few kB of metadata; 256 kB leaves a wide margin.
+ROOM_MARGIN = 256 * 1024
+
+
+class NoRoom(UserError):
+    """The disk (or the process's file-size limit) has no room for the next write. Raised
+    before writing, because HDF5 does not survive a failed write: it reports some failures only
+    from object destructors, keeps going on a half-written file and can crash the process."""
+
+
+def room_left(f: h5py.File) -> float:
+    """Bytes the open file may still grow by: the free space of its file system for this user
+    and the room under RLIMIT_FSIZE (emulated full disks, batch systems), whichever is smaller.
+    Infinite for an in-memory file."""
+    import os
+    import resource
+
+    if f.driver != "sec2" and f.driver != "stdio":
+        return float("inf")
+    path = f.filename
+    st = os.statvfs(os.path.dirname(os.path.abspath(path)) or ".")
+    left = float(st.f_bavail) * st.f_frsize
+    soft, _ = resource.getrlimit(resource.RLIMIT_FSIZE)
+    if soft != resource.RLIM_INFINITY:
+        left = min(left, float(soft) - f.id.get_filesize())
+    return left
+
+
+def ensure_room(f: h5py.File, nbytes: float, what: str) -> None:
+    """Raise NoRoom unless the file can grow by nbytes plus ROOM_MARGIN."""
+    left = room_left(f)
+    need = float(nbytes) + ROOM_MARGIN
+    if left < need:
+        raise NoRoom(
+            f"{f.filename}: not enough room for {what}: {max(left, 0.0) / 1e6:.3g} MB left on the "
+            f"disk or under the file-size limit, {need / 1e6:.3g} MB needed"
+        )
+
+
 def _attr_str(g, name: str, default=None):
     v = g.attrs.get(name, default)
     return v.decode() if isinstance(v, bytes) else v
@@ -261,6 +302,7 @@ class RunGroup:
         has_exact: bool,
         samples: int,
     ) -> RunGroup:
+        ensure_room(f, 64 * 1024, f"run {run_id}")
         runs = f["runs"]
         if run_id in runs:
             del runs[run_id]

@@ -35,6 +35,7 @@ from .store import (
     FINAL_STATUSES,
     _attr_str,
     close_after_failure,
+    ensure_room,
     is_write_failure,
     open_writer,
     write_reason,
@@ -235,6 +236,8 @@ def run_sweep(
                 outcome.errors[job.run_id] = error
                 report(f"[{count}/{total}] {job.describe()}: failed: {error}")
                 return
+            # The image's size bounds what the copy adds; refused before writing (store.NoRoom).
+            ensure_room(f, len(result.image), f"run {job.run_id} ({job.describe()})")
             copy_run(result.image, job.run_id, f)
             outcome.finished[job.run_id] = result.status
             wall = result.metrics.get("wall_s")

@@ -156,6 +156,7 @@ def run(args) -> int:
     from ..runner import FLUSH_EVERY_S, StopFlag, execute
     from ..store import (
         DEFAULT_FILE,
+        NoRoom,
         close_after_failure,
         is_write_failure,
         open_writer,
@@ -216,6 +217,9 @@ def run(args) -> int:
                     results.append(r)
                     if stop.requested:
                         break
+            except NoRoom:
+                f.close()  # nothing failed to write: the run was stopped before it could
+                raise
             except (OSError, RuntimeError) as exc:
                 if not is_write_failure(exc):
                     raise
