@@ -33,6 +33,7 @@ from topdrift.integrators import (
 from topdrift.integrators import get as get_method
 from topdrift.models import FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
 
+from .case import LARGEST, MAX_SAMPLES, SMALLEST
 from .errors import UserError
 from .metrics import Accumulator, finish
 from .sampling import N_SCALARS, S_ENERGY, S_NORM, S_P_PHI, S_P_PSI, record_sample
@@ -101,6 +102,11 @@ def _positive(name: str, v) -> float:
         raise UserError(f"{name}: expected a number, got {v!r}") from None
     if not (math.isfinite(v) and v > 0.0):
         raise UserError(f"{name}: must be a positive finite number, got {v!r}")
+    if not SMALLEST <= v <= LARGEST:  # the range case files keep to (see case.py)
+        raise UserError(
+            f"{name}: {v:g} is outside the range topdrift computes with "
+            f"({SMALLEST:g} to {LARGEST:g} in SI units)"
+        )
     return v
 
 
@@ -169,6 +175,8 @@ def plan_run(
     n = case.samples if samples is None else samples
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 2:
         raise UserError(f"--samples: need a whole number of at least 2 (t = 0 and T), got {n!r}")
+    if n > MAX_SAMPLES:  # the case files' own limit
+        raise UserError(f"--samples: at most {MAX_SAMPLES} (t = 0 and T included), got {n}")
     n = int(n)
     notes = []
     if form is None:

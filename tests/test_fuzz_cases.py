@@ -429,6 +429,12 @@ EXTREME = [
         "run",
     ),
     ("tiny-horizon", {"horizon": 1e-100, "samples": 3}, ["dop853", "--rtol", "1e-8"], "run"),
+    # The command line keeps to the case files' limits.
+    ("cli-samples", {}, ["leapfrog", "--step", "0.01", "--samples", "1000000000"], "--samples"),
+    ("cli-atol", {}, ["rk45", "--rtol", "1e-6", "--atol", "1e-300"], "--atol: 1e-300 is outside"),
+    ("cli-horizon", {}, ["rk45", "--rtol", "1e-6", "--horizon", "1e-300"], "--horizon: 1e-300"),
+    ("cli-step", {}, ["leapfrog", "--step", "1e-300"], "--step: 1e-300 is outside"),
+    ("cli-far", {}, ["leapfrog", "--step", "1e-9", "--horizon", "1e4"], "1e+13 steps"),
 ]
 
 
