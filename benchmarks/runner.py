@@ -486,6 +486,17 @@ class _Run:
         ):
             raise UserError(f"run {p.run_id}: the stepper did not restore its checkpoint exactly")
         self.acc = Accumulator.from_state(cp["metrics"])
+        # Rows past the checkpoint are dropped; rows missing before it (a file damaged after
+        # its last flush) would leave a gap that appending cannot mend.
+        short = {
+            name: ds.shape[0] for name, ds in self.group.datasets().items() if ds.shape[0] < self.k
+        }
+        if short:
+            name, rows = next(iter(short.items()))
+            raise UserError(
+                f"run {p.run_id}: the checkpoint is at sample {self.k} but dataset '{name}' holds "
+                f"{rows} rows; the file lost samples: use --force to run it again"
+            )
         self.group.truncate(self.k)
 
 

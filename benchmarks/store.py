@@ -350,6 +350,11 @@ class RunGroup:
         if m is None:
             return
 
+    def datasets(self) -> dict:
+        """The run's sample datasets present in its group, by name."""
+        names = list(SAMPLE_DATASETS) + ["state"] + list(EXACT_DATASETS)
+        return {name: self.g[name] for name in names if name in self.g}
+
     def truncate(self, n: int) -> None:
         """Drop samples beyond n (written after the last checkpoint, if any)."""
         for name in list(SAMPLE_DATASETS) + ["state"] + list(EXACT_DATASETS):

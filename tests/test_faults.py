@@ -228,3 +228,53 @@ def test_step_underflow_is_a_failed_run_that_says_so(tmp_path, monkeypatch):
     with h5py.File(tmp_path / "r.h5", "r") as f:
         g = f["runs"][plan.run_id]
         assert g.attrs["status"] == "failed" and g["t"].shape == (4,)
+
+
+class _StopAt:
+    """A progress sink that asks the run to stop once it has taken `k` samples."""
+
+    def __init__(self, stop, k):
+        self.stop, self.k = stop, k
+
+    def begin(self, *_):
+        pass
+
+    def flushed(self, *_):
+        pass
+
+    def end(self, *_):
+        pass
+
+    def update(self, k, _steps):
+        if k >= self.k:
+            self.stop.signum = signal.SIGINT
+
+
+def test_resume_refuses_a_file_that_lost_samples_before_its_checkpoint(tmp_path, capsys):
+    from topdrift.benchmarks.runner import StopFlag
+
+    path = write(tmp_path, "top.toml", TOP_TOML)
+    case = parse_case(path.read_text(), str(path))
+    plan = plan_run(case, "leapfrog", step=0.01)
+    out = tmp_path / "r.h5"
+    stop = StopFlag()
+    f = open_writer(out)
+    try:
+        r = execute(plan, f, stop=stop, progress=_StopAt(stop, 5), flush_every=0.0)
+    finally:
+        f.close()
+    assert r.status == "interrupted"
+    with h5py.File(out, "r+") as f:  # what a damaged file could hold: rows gone, checkpoint kept
+        g = f["runs"][plan.run_id]
+        assert g["checkpoint/run"].attrs["sample"] == g["t"].shape[0] == 5
+        g["euler"].resize(3, axis=0)
+    before = out.read_bytes()
+    rc = cli.main(
+        ["run", str(path), "--method", "leapfrog", "--step", "0.01", "--out", str(out), "--resume"]
+    )
+    err = capsys.readouterr().err
+    assert rc == 2 and "dataset 'euler' holds 3 rows" in err and "--force" in err
+    assert [ln for ln in err.splitlines() if ln.startswith("topdrift: error:")] == [err.strip()]
+    assert out.read_bytes() == before
+    # The refused resume let go of the file: it opens for writing again in this process.
+    open_writer(out).close()

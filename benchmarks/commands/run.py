@@ -218,8 +218,7 @@ def run(args) -> int:
                     if stop.requested:
                         break
             except NoRoom:
-                f.close()  # nothing failed to write: the run was stopped before it could
-                raise
+                raise  # nothing failed to write: the run was stopped before it could
             except (OSError, RuntimeError) as exc:
                 if not is_write_failure(exc):
                     raise
@@ -228,13 +227,15 @@ def run(args) -> int:
                 # flushed). HDF5 may not finish its own bookkeeping either, so the file can be
                 # left unreadable: the message says to check it rather than promise a resume.
                 close_after_failure(f)
+                f = None
                 raise UserError(
                     f"{out}: cannot write the results ({write_reason(exc)}); the run in hand is "
                     "not marked complete: make room, check the file with `topdrift summary`, "
                     "then go on with --resume"
                 ) from None
-            else:
-                f.close()
+            finally:
+                if f is not None:  # also after a UserError or an interrupt: release the lock
+                    f.close()
         finally:
             for s, h in old.items():
                 signal.signal(s, h)
