@@ -24,7 +24,7 @@ from .errors import UserError
 from .roundoff import perturbed_starts
 from .runner import RunPlan, RunResult, _Buffers, make_run_id, run_attrs
 from .sampling import S_ENERGY, S_P_PHI, S_P_PSI
-from .store import _COMPRESSION, RunGroup
+from .store import _COMPRESSION, RunGroup, ensure_room
 
 MAX_MEMBERS = 100_000
 BATCH = 256  # samples buffered between writes
@@ -126,7 +126,13 @@ def execute_ensemble(ep: EnsemblePlan, f, *, progress=None, stop=None) -> RunRes
     def write() -> None:
         nonlocal last_write
         if pending:
-            group.append({k: np.concatenate([row[k] for row in pending]) for k in pending[0]})
+            batch = {k: np.concatenate([row[k] for row in pending]) for k in pending[0]}
+            ensure_room(
+                f,
+                sum(v.nbytes for v in batch.values()) + 64 * 1024,
+                f"the ensemble's samples up to {k}",
+            )
+            group.append(batch)
             pending.clear()
             group.flush()
         last_write = time.perf_counter()
