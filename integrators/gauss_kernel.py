@@ -21,7 +21,8 @@ of the remaining drift: measured, stopping after 5 more sweeps drifted gauss6-ka
 averaging the derivatives at the last two iterates drifted gauss4-kahan up. So the number of
 extra sweeps is 5 or 6 by the last bit of y[0], a bit that changes pseudo-randomly from step to
 step: the end of a cycle is picked without a preferred side, and its defect becomes one more
-random error. Cost: about 1 % more sweeps per step.
+random error. Cost: 1 % more sweeps per step there; more where stalls are common (the
+regression gate saw +25 % evaluations for gauss4 on demo-wheel, Euler form, h = 0.0125).
 
 The update y_{n+1} = y_n + h sum_i b_i F_i is added either plainly or with compensated
 summation (Kahan's idea, with Knuth's TwoSum for the error), carrying the compensation from step
