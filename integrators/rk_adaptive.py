@@ -54,7 +54,7 @@ from .rk_embedded_kernel import (
     TL_EXPONENT,
     TL_RTOL,
     TL_T_BOUND,
-    advance_kernel,
+    embedded_advance,
     first_derivative,
     initial_step,
 )
@@ -160,7 +160,7 @@ class EmbeddedStepper(Stepper):
         st = cls(form=form, params=params, t=t0, y=y0.copy())
         st.method = method
         st.horizon = s["horizon"]
-        st.kernel = advance_kernel(form)
+        st.kernel = embedded_advance
         n = y0.shape[0]
         tab = method.tableau
         rows = method.packed.n_rows
@@ -220,6 +220,7 @@ class EmbeddedStepper(Stepper):
             )
         y_out = np.empty_like(self.yi)
         status = self.kernel(
+            self.form,
             self.params,
             *self.method._kernel_args,
             self.tol,
