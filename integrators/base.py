@@ -17,7 +17,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from topdrift.models import FORM_NAMES, RigidBody
+from topdrift.models import FORM_NAMES, FORM_SIZE, RigidBody
+from topdrift.models.dynamics import singular
 
 # Counters, kept by the kernels themselves in one int64 array.
 C_STEPS = 0  # accepted steps
@@ -143,6 +144,23 @@ class Method(ABC):
                 v = settings.get(key)
                 if not isinstance(v, float) or not v > 0.0 or v == float("inf"):
                     raise MethodRefused(f"{self.name}: needs a positive finite {key}, got {v!r}")
+
+    def start_state(self, form: int, y0) -> np.ndarray:
+        """y0 as a fresh float64 state of the given form, refused (MethodRefused) when it has the
+        wrong length, is not finite, or is singular in that form."""
+        y = np.array(y0, dtype=np.float64).reshape(-1)
+        if y.shape[0] != FORM_SIZE[form]:
+            raise MethodRefused(
+                f"{self.name}: a {FORM_NAMES[form]} state has {FORM_SIZE[form]} components, "
+                f"got {y.shape[0]}"
+            )
+        if not np.all(np.isfinite(y)):
+            raise MethodRefused(f"{self.name}: the start state is not finite")
+        if singular(form, y):
+            raise MethodRefused(
+                f"{self.name}: the start state is singular in the {FORM_NAMES[form]} form"
+            )
+        return y
 
     @abstractmethod
     def start(

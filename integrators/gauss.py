@@ -25,8 +25,7 @@ import math
 
 import numpy as np
 
-from topdrift.models import FORM_NAMES, FORM_SIZE
-from topdrift.models.dynamics import singular
+from topdrift.models import FORM_NAMES
 
 from .base import ST_OK, Method, MethodInfo, MethodRefused, Stepper
 from .gauss_kernel import N_ITERS, N_MEMO, gauss_steps
@@ -196,18 +195,7 @@ class GaussMethod(Method):
             raise MethodRefused(
                 f"{self.name}: max_iterations must be an integer of at least 2, got {max_iter!r}"
             )
-        y = np.array(y0, dtype=np.float64).reshape(-1)
-        if y.shape[0] != FORM_SIZE[form]:
-            raise MethodRefused(
-                f"{self.name}: a {FORM_NAMES[form]} state has {FORM_SIZE[form]} components, "
-                f"got {y.shape[0]}"
-            )
-        if not np.all(np.isfinite(y)):
-            raise MethodRefused(f"{self.name}: the start state is not finite")
-        if singular(form, y):
-            raise MethodRefused(
-                f"{self.name}: the start state is singular in the {FORM_NAMES[form]} form"
-            )
+        y = self.start_state(form, y0)
         p = np.ascontiguousarray(params, dtype=np.float64)
         return GaussStepper(self, form, p, float(t0), y, h, int(max_iter))
 

@@ -251,18 +251,7 @@ class ReferenceMethod(Method):
             v = settings.get(key)
             if not isinstance(v, float) or not v > 0.0 or not math.isfinite(v):
                 raise MethodRefused(f"{self.name}: needs a positive finite {key}, got {v!r}")
-        y = np.array(y0, dtype=np.float64).reshape(-1)
-        if y.shape[0] != FORM_SIZE[form]:
-            raise MethodRefused(
-                f"{self.name}: a {FORM_NAMES[form]} state has {FORM_SIZE[form]} components, "
-                f"got {y.shape[0]}"
-            )
-        if not np.all(np.isfinite(y)):
-            raise MethodRefused(f"{self.name}: the start state is not finite")
-        if singular(form, y):
-            raise MethodRefused(
-                f"{self.name}: the start state is singular in the {FORM_NAMES[form]} form"
-            )
+        y = self.start_state(form, y0)
         p = np.ascontiguousarray(params, dtype=np.float64)
         return ReferenceStepper(
             self, form, p, float(t0), y, float(settings["rtol"]), float(settings["atol"])
