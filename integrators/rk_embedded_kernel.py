@@ -55,39 +55,85 @@ TL_EXPONENT = 3  # -1 / (error_order + 1)
 N_TOL = 4
 
 
+# Index arithmetic: numba lets a negative index count from the end, so every access whose index
+# it cannot prove non-negative gets a compare-and-select. Clearing the sign bit proves it to
+# LLVM, which then drops those instructions and addresses the four K loads of a block as one
+# base plus constants. Indices here are never negative, so the mask changes no value. Measured
+# on DOP853, body form: 650 -> 510 ns per step from the masks alone (before the packing went dense).
+NONNEG = 0x3FFF_FFFF_FFFF_FFFF
+
+
 @njit(cache=True, inline="always")
-def weighted(n, row, ptr, col, val, K, out):
-    """out = sum_j w[row, j] K_j over the nonzeros of the row (an empty row gives 0).
+def combine(n, row, rows, a, h, y, K, out):
+    """out = y + h sum_{j < row} a[row, j] K_j, a the packed rows x rows matrix.
 
     Components go in blocks of four held in registers (the last block overlaps the previous one
     when 4 does not divide n; the overlapping components are computed twice, identically), so
     that each coefficient is loaded once per block and four chains of multiply-adds run side by
-    side. Within a component the sum runs over the nonzeros in column order whatever the
-    blocking, so the bits are those of the plain loop."""
-    q0 = ptr[row]
-    q1 = ptr[row + 1]
+    side. Within a component the sum runs over j in order whatever the blocking, so the bits
+    are those of the plain loop. The update is fused in (measured 10 % faster per DOP853 step
+    than a second pass over out)."""
+    base = (row * rows) & NONNEG
     if n < 4:
         for k in range(n):
             acc = 0.0
-            for q in range(q0, q1):
-                acc += val[q] * K[col[q] * n + k]
+            for j in range(row):
+                acc += a[base + j] * K[j * n + k]
+            out[k] = y[k] + h * acc
+        return
+    k0 = 0
+    while True:
+        if k0 > n - 4:
+            k0 = n - 4
+        k0 = k0 & NONNEG
+        a0 = 0.0
+        a1 = 0.0
+        a2 = 0.0
+        a3 = 0.0
+        for j in range(row):
+            v = a[base + j]
+            jk = j * n + k0
+            a0 += v * K[jk]
+            a1 += v * K[jk + 1]
+            a2 += v * K[jk + 2]
+            a3 += v * K[jk + 3]
+        out[k0] = y[k0] + h * a0
+        out[k0 + 1] = y[k0 + 1] + h * a1
+        out[k0 + 2] = y[k0 + 2] + h * a2
+        out[k0 + 3] = y[k0 + 3] + h * a3
+        if k0 + 4 >= n:
+            break
+        k0 += 4
+
+
+@njit(cache=True, inline="always")
+def weighted(n, m, w, base, K, out):
+    """out[:n] = sum_{j < m} w[base + j] K_j: one packed row against the first m stages, in the
+    blocks of `combine`."""
+    base = base & NONNEG
+    if n < 4:
+        for k in range(n):
+            acc = 0.0
+            for j in range(m):
+                acc += w[base + j] * K[j * n + k]
             out[k] = acc
         return
     k0 = 0
     while True:
         if k0 > n - 4:
             k0 = n - 4
+        k0 = k0 & NONNEG
         a0 = 0.0
         a1 = 0.0
         a2 = 0.0
         a3 = 0.0
-        for q in range(q0, q1):
-            j = col[q] * n + k0
-            v = val[q]
-            a0 += v * K[j]
-            a1 += v * K[j + 1]
-            a2 += v * K[j + 2]
-            a3 += v * K[j + 3]
+        for j in range(m):
+            v = w[base + j]
+            jk = j * n + k0
+            a0 += v * K[jk]
+            a1 += v * K[jk + 1]
+            a2 += v * K[jk + 2]
+            a3 += v * K[jk + 3]
         out[k0] = a0
         out[k0 + 1] = a1
         out[k0 + 2] = a2
@@ -98,37 +144,54 @@ def weighted(n, row, ptr, col, val, K, out):
 
 
 @njit(cache=True, inline="always")
-def combine(n, row, ptr, col, val, h, y, K, out):
-    """out = y + h sum_j a[row, j] K_j over the nonzeros of the row: `weighted` with the
-    update fused in (measured 10 % faster per DOP853 step than a second pass over out)."""
-    q0 = ptr[row]
-    q1 = ptr[row + 1]
+def weighted_pair(n, m, w, K, out):
+    """out[:n] = sum_{j < m} w[j] K_j and out[n:2n] = sum_{j < m} w[m + j] K_j: both error rows
+    in one pass over the stages, each K load serving both sums."""
     if n < 4:
+        weighted(n, m, w, 0, K, out)
         for k in range(n):
             acc = 0.0
-            for q in range(q0, q1):
-                acc += val[q] * K[col[q] * n + k]
-            out[k] = y[k] + h * acc
+            for j in range(m):
+                acc += w[m + j] * K[j * n + k]
+            out[n + k] = acc
         return
     k0 = 0
     while True:
         if k0 > n - 4:
             k0 = n - 4
+        k0 = k0 & NONNEG
         a0 = 0.0
         a1 = 0.0
         a2 = 0.0
         a3 = 0.0
-        for q in range(q0, q1):
-            j = col[q] * n + k0
-            v = val[q]
-            a0 += v * K[j]
-            a1 += v * K[j + 1]
-            a2 += v * K[j + 2]
-            a3 += v * K[j + 3]
-        out[k0] = y[k0] + h * a0
-        out[k0 + 1] = y[k0 + 1] + h * a1
-        out[k0 + 2] = y[k0 + 2] + h * a2
-        out[k0 + 3] = y[k0 + 3] + h * a3
+        b0 = 0.0
+        b1 = 0.0
+        b2 = 0.0
+        b3 = 0.0
+        for j in range(m):
+            v = w[j]
+            u = w[m + j]
+            jk = j * n + k0
+            k_0 = K[jk]
+            k_1 = K[jk + 1]
+            k_2 = K[jk + 2]
+            k_3 = K[jk + 3]
+            a0 += v * k_0
+            a1 += v * k_1
+            a2 += v * k_2
+            a3 += v * k_3
+            b0 += u * k_0
+            b1 += u * k_1
+            b2 += u * k_2
+            b3 += u * k_3
+        out[k0] = a0
+        out[k0 + 1] = a1
+        out[k0 + 2] = a2
+        out[k0 + 3] = a3
+        out[n + k0] = b0
+        out[n + k0 + 1] = b1
+        out[n + k0 + 2] = b2
+        out[n + k0 + 3] = b3
         if k0 + 4 >= n:
             break
         k0 += 4
@@ -176,16 +239,14 @@ def initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counter
 
 
 @njit(cache=True)
-def _build_dense(
-    form, p, a_ptr, a_col, a_val, d_ptr, d_col, d_val, cfg, y, yold, K, ytmp, dense, ctrl, counters
-):
+def _build_dense(form, p, a, d, cfg, y, yold, K, ytmp, dense, ctrl, counters):
     n = y.shape[0]
     ns = cfg[CFG_N_STAGES]
     rows = cfg[CFG_N_ROWS]
     h = ctrl[CT_H_PREV]
     # Extra stages of the last step (DOP853's 14..16), from y_old with the step's own h.
     for i in range(ns + 1, rows):
-        combine(n, i, a_ptr, a_col, a_val, h, yold, K, ytmp)
+        combine(n, i, rows, a, h, yold, K, ytmp)
         rhs(form, ytmp, p, K[i * n : (i + 1) * n])
         counters[C_EVALS] += 1
     knew = ns * n
@@ -196,7 +257,7 @@ def _build_dense(
         dense[2 * n + k] = 2.0 * dy - h * (K[k] + K[knew + k])
     for r in range(cfg[CFG_N_DENSE]):
         base = (3 + r) * n
-        weighted(n, r, d_ptr, d_col, d_val, K, ytmp)
+        weighted(n, rows, d, r * rows, K, ytmp)
         for k in range(n):
             dense[base + k] = h * ytmp[k]
     ctrl[CT_DENSE_OK] = 1.0
@@ -220,15 +281,9 @@ def eval_dense(theta, yold, dense, n_coef, out):
 def _advance(
     form,
     p,
-    a_ptr,
-    a_col,
-    a_val,
-    e_ptr,
-    e_col,
-    e_val,
-    d_ptr,
-    d_col,
-    d_val,
+    a,
+    e,
+    d,
     cfg,
     tol,
     y,
@@ -258,7 +313,9 @@ def _advance(
     atol = tol[TL_ATOL]
     t_bound = tol[TL_T_BOUND]
     expo = tol[TL_EXPONENT]
-    knew = ns * n
+    rows = cfg[CFG_N_ROWS]
+    n = n & NONNEG
+    knew = (ns * n) & NONNEG
     t = ctrl[CT_T]
     h_abs = ctrl[CT_H]
     while t < t_out:
@@ -279,28 +336,28 @@ def _advance(
             for k in range(n):
                 K[k] = f[k]
             for i in range(1, ns):
-                combine(n, i, a_ptr, a_col, a_val, h, y, K, ytmp)
+                combine(n, i, rows, a, h, y, K, ytmp)
                 rhs(form, ytmp, p, K[i * n : (i + 1) * n])
             counters[C_EVALS] += ns - 1
-            combine(n, ns, a_ptr, a_col, a_val, h, y, K, ynew)
+            combine(n, ns, rows, a, h, y, K, ynew)
             if fsal_in_err:
                 rhs(form, ynew, p, K[knew : knew + n])
                 counters[C_EVALS] += 1
             # Error norm.
             finite = True
-            weighted(n, 0, e_ptr, e_col, e_val, K, etmp)
             if err_kind == 0:
+                weighted(n, ns + 1, e, 0, K, etmp)
                 s = 0.0
                 for k in range(n):
                     yn = ynew[k]
                     if not math.isfinite(yn):
                         finite = False
                     sc = atol + max(abs(y[k]), abs(yn)) * rtol
-                    e = h * etmp[k] / sc
-                    s += e * e
+                    ek = h * etmp[k] / sc
+                    s += ek * ek
                 err = math.sqrt(s / n)
             else:
-                weighted(n, 1, e_ptr, e_col, e_val, K, etmp[n:])
+                weighted_pair(n, ns + 1, e, K, etmp)
                 s5 = 0.0
                 s3 = 0.0
                 for k in range(n):
@@ -360,12 +417,8 @@ def _advance(
         _build_dense(
             form,
             p,
-            a_ptr,
-            a_col,
-            a_val,
-            d_ptr,
-            d_col,
-            d_val,
+            a,
+            d,
             cfg,
             y,
             yold,
@@ -390,15 +443,9 @@ def _advance(
 def embedded_advance(
     form,
     p,
-    a_ptr,
-    a_col,
-    a_val,
-    e_ptr,
-    e_col,
-    e_val,
-    d_ptr,
-    d_col,
-    d_val,
+    a,
+    e,
+    d,
     cfg,
     tol,
     y,
@@ -418,15 +465,9 @@ def embedded_advance(
         return _advance(
             FORM_EULER,
             p,
-            a_ptr,
-            a_col,
-            a_val,
-            e_ptr,
-            e_col,
-            e_val,
-            d_ptr,
-            d_col,
-            d_val,
+            a,
+            e,
+            d,
             cfg,
             tol,
             y,
@@ -445,15 +486,9 @@ def embedded_advance(
     return _advance(
         FORM_BODY,
         p,
-        a_ptr,
-        a_col,
-        a_val,
-        e_ptr,
-        e_col,
-        e_val,
-        d_ptr,
-        d_col,
-        d_val,
+        a,
+        e,
+        d,
         cfg,
         tol,
         y,

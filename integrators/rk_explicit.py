@@ -32,6 +32,8 @@ _KEEPS: tuple[str, ...] = ()
 
 class FixedStepRK(Method):
     def __init__(self, tab: Tableau, name: str, kahan: bool, description: str) -> None:
+        if tab.a.shape[0] != tab.n_stages + 1:
+            raise ValueError(f"{name}: a fixed-step tableau has its stages and b, nothing more")
         self.tableau = tab
         self.packed = pack(tab)
         self.kahan = kahan
@@ -120,9 +122,7 @@ class FixedStepper(Stepper):
         status, done = self.kernel(
             self.form,
             self.params,
-            pk.a_ptr,
-            pk.a_col,
-            pk.a_val,
+            pk.a,
             int(self.method.tableau.n_stages),
             self.h,
             int(k),

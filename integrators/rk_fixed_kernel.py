@@ -21,20 +21,19 @@ from .rk_embedded_kernel import combine, rhs, weighted  # rhs: the inlined switc
 
 
 @njit(cache=True, inline="always")
-def _explicit(
-    form, p, a_ptr, a_col, a_val, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, counters
-):
+def _explicit(form, p, a, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, counters):
     """Take nsteps steps of length h in place on y (and comp). Returns (status, steps taken);
     on failure y holds the state after the last good step."""
     n = y.shape[0]
+    rows = ns + 1  # the packed matrix of a fixed-step method: the stages, then b
     for step in range(nsteps):
         rhs(form, y, p, K[0:n])
         for i in range(1, ns):
-            combine(n, i, a_ptr, a_col, a_val, h, y, K, ytmp)
+            combine(n, i, rows, a, h, y, K, ytmp)
             rhs(form, ytmp, p, K[i * n : (i + 1) * n])
         counters[C_EVALS] += ns
         finite = True
-        weighted(n, ns, a_ptr, a_col, a_val, K, binc)
+        weighted(n, ns, a, ns * rows, K, binc)
         for k in range(n):
             inc = h * binc[k]
             if kahan:
@@ -66,16 +65,12 @@ def _explicit(
 
 
 @njit(cache=True)
-def explicit_advance(
-    form, p, a_ptr, a_col, a_val, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, counters
-):
+def explicit_advance(form, p, a, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, counters):
     if form == FORM_EULER:
         return _explicit(
             FORM_EULER,
             p,
-            a_ptr,
-            a_col,
-            a_val,
+            a,
             ns,
             h,
             nsteps,
@@ -91,9 +86,7 @@ def explicit_advance(
     return _explicit(
         FORM_BODY,
         p,
-        a_ptr,
-        a_col,
-        a_val,
+        a,
         ns,
         h,
         nsteps,

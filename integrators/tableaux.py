@@ -2,7 +2,7 @@
 
 A table is a Butcher tableau (c, A, b) plus, for embedded pairs, the weights of the error
 estimators and the rows of the dense-output polynomial. The kernels never see a method by name:
-they see these numbers (packed into nonzeros by `rk_packed.py`).
+they see these numbers (packed into flat dense rows by `rk_packed.py`).
 
 Conventions shared by the tables:
 
