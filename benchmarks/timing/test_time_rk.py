@@ -4,10 +4,11 @@ DOP853 at the same tolerances on the same case.
     python -m pytest benchmarks/timing/test_time_rk.py -s
 
 Each result carries ns_per_step in its extra_info; the comparison prints the speed ratio
-scipy / topdrift per step (target: >= 100 x against scipy driven by a plain Python right-hand
-side, the way a user would write it; also printed against scipy calling the model's compiled
-right-hand side through a Python wrapper, which is the cheapest scipy can be made to run).
-Both runs take the same steps (checked), so the ratio per step is the ratio per run.
+scipy / topdrift per run. Target: >= 100 x against scipy calling the model's compiled
+right-hand side through a small Python wrapper, as the registered method scipy-dop853 does and
+the cheapest scipy can be made to run; also printed against scipy driven by a plain Python
+right-hand side, the way a user would write it. Both take the same steps (checked) and end
+within 10 rtol of each other (checked).
 """
 
 from __future__ import annotations
@@ -31,6 +32,7 @@ TOL = {"rtol": 1e-8, "atol": 1e-10}
 FIXED_STEP = 1e-3
 FIXED_STEPS = 50_000
 ADAPTIVE_SPAN = 20.0  # simulated seconds per round
+ROUNDS = 5
 TARGET = 100.0
 FIXED = ("rk4", "rk4-kahan")
 
@@ -107,6 +109,10 @@ def _scipy_run(fun, y0, t_end, h0):
 
 
 def test_dop853_against_scipy(benchmark):
+    """Both sides timed over windows of the same length, interleaved, best window each: one scipy
+    run against as many back-to-back runs of ours as fill the same wall time, so that a noisy
+    machine slows both alike (a best of a few short runs of ours against a best of long scipy
+    runs would favour ours)."""
     p = TOP.params()
     y0 = _y0("body")
     t_end = ADAPTIVE_SPAN
@@ -116,30 +122,39 @@ def test_dop853_against_scipy(benchmark):
     m.start(1, p, 0.0, y0, settings).advance_to(0.01)  # compiled (or loaded)
     result = {}
 
-    def run():
-        st = m.start(1, p, 0.0, y0, settings)
-        assert st.advance_to(t_end) == ST_OK
+    def ours(reps):
+        t0 = time.perf_counter()
+        for _ in range(reps):
+            st = m.start(1, p, 0.0, y0, settings)
+            assert st.advance_to(t_end) == ST_OK
         result["steps"], result["y"] = int(st.counters[C_STEPS]), st.y
+        return (time.perf_counter() - t0) / reps
 
-    benchmark.pedantic(run, rounds=5, iterations=1)
-    ours = benchmark.stats.stats.min
-    ratios = {}
-    for label, fun in (("plain Python rhs", _plain_python_rhs(p)),
-                       ("wrapped model rhs", _wrapped_model_rhs(p))):  # fmt: skip
-        best, n_ref, y_ref = math.inf, 0, None
-        for _ in range(3):
+    funs = {"plain Python rhs": _plain_python_rhs(p), "wrapped model rhs": _wrapped_model_rhs(p)}
+    best = {label: math.inf for label in funs}
+    best_ours = math.inf
+    reps = max(1, int(_scipy_run(funs["wrapped model rhs"], y0, t_end, h0)[0] / ours(1)))
+    for _ in range(ROUNDS):
+        for label, fun in funs.items():
             dt, n_ref, y_ref = _scipy_run(fun, y0, t_end, h0)
-            best = min(best, dt)
-        assert abs(result["steps"] - n_ref) <= 0.02 * n_ref, (result["steps"], n_ref)
-        assert np.abs(result["y"] - y_ref).max() <= 10 * TOL["rtol"]
-        ratios[label] = best / ours
+            best[label] = min(best[label], dt)
+            best_ours = min(best_ours, ours(reps))
+            assert abs(result["steps"] - n_ref) <= 0.02 * n_ref, (result["steps"], n_ref)
+            assert np.abs(result["y"] - y_ref).max() <= 10 * TOL["rtol"]
+    ratios = {}
+    for label in funs:
+        ratios[label] = best[label] / best_ours
         print(
-            f"\nscipy DOP853 ({label}): {best / n_ref * 1e6:7.2f} us/step, topdrift dop853: "
-            f"{ours / result['steps'] * 1e9:7.1f} ns/step, {result['steps']} steps both; "
-            f"ratio {best / ours:6.1f} x"
+            f"\nscipy DOP853 ({label}): {best[label] / n_ref * 1e6:7.2f} us/step, topdrift "
+            f"dop853: {best_ours / result['steps'] * 1e9:7.1f} ns/step, {result['steps']} steps "
+            f"both; ratio {ratios[label]:6.1f} x"
         )
-    benchmark.extra_info["ns_per_step"] = ours / result["steps"] * 1e9
+    benchmark.pedantic(ours, args=(reps,), rounds=1, iterations=1)  # recorded with the others
+    benchmark.extra_info["ns_per_step"] = best_ours / result["steps"] * 1e9
     benchmark.extra_info["ratio_plain_python"] = ratios["plain Python rhs"]
     benchmark.extra_info["ratio_wrapped_model_rhs"] = ratios["wrapped model rhs"]
-    verdict = "meets" if ratios["plain Python rhs"] >= TARGET else "MISSES"
-    print(f"target >= {TARGET:.0f} x against the plain Python rhs: {verdict}")
+    verdict = "meets" if ratios["wrapped model rhs"] >= TARGET else "MISSES"
+    print(
+        f"target >= {TARGET:.0f} x against scipy-dop853 (scipy calling the compiled model rhs): "
+        f"{verdict}"
+    )
