@@ -16,7 +16,7 @@ from topdrift.models import FORM_SIZE
 
 from .base import N_COUNTERS, ST_OK, MethodRefused
 from .gauss import GaussMethod
-from .gauss_kernel import N_ITERS, N_MEMO, gauss_steps
+from .gauss_kernel import N_ITERS, N_MEMO, gauss_steps, work_size
 from .splitting import GRID_RTOL, SplittingMethod
 from .splitting_kernels import close_compensated, close_plain, run_compensated, run_plain
 
@@ -113,7 +113,7 @@ class EnsembleStepper:
             self.C = np.zeros_like(Y0)
             self.F = np.zeros((m, s * n))
             self.M = np.full((m, N_MEMO), np.nan)
-            self.Wk = np.zeros((m, 2 * s * n + 4 * n))
+            self.Wk = np.zeros((m, work_size(s, n)))
             self.iters = np.zeros((m, N_ITERS), dtype=np.int64)
         else:
             self.kick = single.kick

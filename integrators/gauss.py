@@ -28,7 +28,7 @@ import numpy as np
 from topdrift.models import FORM_NAMES
 
 from .base import ST_OK, Method, MethodInfo, MethodRefused, Stepper
-from .gauss_kernel import N_ITERS, N_MEMO, gauss_steps
+from .gauss_kernel import N_ITERS, N_MEMO, gauss_steps, work_size
 from .gauss_tableau import GAUSS2, GAUSS3, Tableau
 
 # Sweeps of the fixed-point iteration allowed per step, unless settings say otherwise. At the
@@ -62,7 +62,7 @@ class GaussStepper(Stepper):
         self.fprev = np.zeros(s * n)
         self.memo = np.full(N_MEMO, np.nan)
         self.iters = np.zeros(N_ITERS, dtype=np.int64)
-        self.work = np.zeros(2 * s * n + 4 * n)
+        self.work = np.zeros(work_size(s, n))
 
     def advance_to(self, t_end: float) -> int:
         if self.status != ST_OK:
