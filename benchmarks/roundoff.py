@@ -98,7 +98,7 @@ def fit_exponent(n: np.ndarray, rms: np.ndarray, decades: float = FIT_DECADES):
 
 def roundoff_study(
     case,
-    method: str,
+    method,
     step: float,
     *,
     starts: int = 16,
@@ -108,7 +108,9 @@ def roundoff_study(
     form: str | None = None,
     seed: int = 20261201,
 ) -> dict:
-    m = get_method(method)
+    # A method name, or a Method object (the round-off benchmark's unregistered contrast).
+    m = get_method(method) if isinstance(method, str) else method
+    method = m.name
     if not (isinstance(step, float) and math.isfinite(step) and step > 0):
         raise UserError(f"--step: must be a positive finite number, got {step!r}")
     if starts < 2:
