@@ -54,7 +54,7 @@ from .rk_embedded_kernel import (
     TL_EXPONENT,
     TL_RTOL,
     TL_T_BOUND,
-    embedded_advance,
+    advance_kernel,
     first_derivative,
     initial_step,
 )
@@ -160,7 +160,7 @@ class EmbeddedStepper(Stepper):
         st = cls(form=form, params=params, t=t0, y=y0.copy())
         st.method = method
         st.horizon = s["horizon"]
-        st.kernel = embedded_advance
+        st.kernel = advance_kernel(form)
         n = y0.shape[0]
         tab = method.tableau
         rows = method.packed.n_rows
@@ -220,22 +220,23 @@ class EmbeddedStepper(Stepper):
             )
         y_out = np.empty_like(self.yi)
         status = self.kernel(
-            self.form,
-            self.params,
-            *self.method._kernel_args,
-            self.tol,
-            self.yi,
-            self.f,
-            self.K,
-            self.yold,
-            self.ynew,
-            self.ytmp,
-            self.etmp,
-            self.dense,
-            self.ctrl,
-            self.counters,
-            t_end,
-            y_out,
+            (
+                self.params,
+                *self.method._kernel_args,
+                self.tol,
+                self.yi,
+                self.f,
+                self.K,
+                self.yold,
+                self.ynew,
+                self.ytmp,
+                self.etmp,
+                self.dense,
+                self.ctrl,
+                self.counters,
+                t_end,
+                y_out,
+            )
         )
         if status != ST_OK:
             self.status = int(status)

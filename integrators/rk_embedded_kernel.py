@@ -277,34 +277,18 @@ def eval_dense(theta, yold, dense, n_coef, out):
         out[k] = yold[k] + theta * acc
 
 
-@njit(cache=True, inline="always")
-def _advance(
-    form,
-    p,
-    a,
-    e,
-    d,
-    cfg,
-    tol,
-    y,
-    f,
-    K,
-    yold,
-    ynew,
-    ytmp,
-    etmp,
-    dense,
-    ctrl,
-    counters,
-    t_out,
-    y_out,
-):
+@njit(cache=True)
+def _advance(form, work):
+    (p, a, e, d, cfg, tol, y, f, K, yold, ynew, ytmp, etmp, dense, ctrl, counters, t_out, y_out) = (
+        work
+    )
     """Step while the internal time is below t_out, then write the state at t_out into y_out
     (dense output, or the state itself when a step ends on t_out). Returns a status code; on
     failure y, f, ctrl keep the last good step and y_out is untouched.
 
-    Written once, compiled into one entry kernel per form (below) with `form` a constant there,
-    so that the rhs switch folds and the model's function is inlined into the stage loop."""
+    `work` holds the arrays in the order unpacked here (see `advance_kernel`). Called from one
+    entry per form (below) with `form` a constant, so that numba compiles it once per form, with
+    the rhs switch folded and the model's function inlined into the stage loop."""
     n = y.shape[0]
     ns = cfg[CFG_N_STAGES]
     err_kind = cfg[CFG_ERR_KIND]
@@ -335,14 +319,16 @@ def _advance(
             h_abs = abs(h)
             for k in range(n):
                 K[k] = f[k]
-            for i in range(1, ns):
+            # One combination site for the stages and the new solution (row ns): each inlined
+            # copy costs compile time (see advance_kernel).
+            for i in range(1, ns + 1):
                 combine(n, i, rows, a, h, y, K, ytmp)
+                if i == ns and not fsal_in_err:
+                    break
                 rhs(form, ytmp, p, K[i * n : (i + 1) * n])
-            counters[C_EVALS] += ns - 1
-            combine(n, ns, rows, a, h, y, K, ynew)
-            if fsal_in_err:
-                rhs(form, ynew, p, K[knew : knew + n])
-                counters[C_EVALS] += 1
+            counters[C_EVALS] += ns if fsal_in_err else ns - 1
+            for k in range(n):
+                ynew[k] = ytmp[k]
             # Error norm.
             finite = True
             if err_kind == 0:
@@ -433,74 +419,25 @@ def _advance(
     return ST_OK
 
 
-# One entry kernel with the form as its first argument, calling the inlined body once per form
-# with the form a constant, so that each copy inlines its model function. Measured on the
-# standard body-form top: 785 -> 571 ns per DOP853 step and 390 -> 258 ns per rk45 step against
-# one body taking the form as a run-time value, where neither model function gets inlined.
+# One small entry per form, so that a run compiles only the form it uses: numba compiles a
+# callee for every branch of its caller, and an entry switching on a run-time form compiled both
+# (measured, dop853 with an empty cache, both cores busy: 24 s for the switching entry, 12 s for
+# one form; the single combination site above took it to 7 s). The arrays travel as one tuple
+# because numba cannot inline a call with *args; _advance is a plain call, paid once per
+# advance, not per step.
 
 
 @njit(cache=True)
-def embedded_advance(
-    form,
-    p,
-    a,
-    e,
-    d,
-    cfg,
-    tol,
-    y,
-    f,
-    K,
-    yold,
-    ynew,
-    ytmp,
-    etmp,
-    dense,
-    ctrl,
-    counters,
-    t_out,
-    y_out,
-):
-    if form == FORM_EULER:
-        return _advance(
-            FORM_EULER,
-            p,
-            a,
-            e,
-            d,
-            cfg,
-            tol,
-            y,
-            f,
-            K,
-            yold,
-            ynew,
-            ytmp,
-            etmp,
-            dense,
-            ctrl,
-            counters,
-            t_out,
-            y_out,
-        )
-    return _advance(
-        FORM_BODY,
-        p,
-        a,
-        e,
-        d,
-        cfg,
-        tol,
-        y,
-        f,
-        K,
-        yold,
-        ynew,
-        ytmp,
-        etmp,
-        dense,
-        ctrl,
-        counters,
-        t_out,
-        y_out,
-    )
+def advance_euler(work):
+    return _advance(FORM_EULER, work)
+
+
+@njit(cache=True)
+def advance_body(work):
+    return _advance(FORM_BODY, work)
+
+
+def advance_kernel(form: int):
+    """The entry for a form. It takes the tuple (p, a, e, d, cfg, tol, y, f, K, yold, ynew,
+    ytmp, etmp, dense, ctrl, counters, t_out, y_out) and returns a status code."""
+    return advance_euler if form == FORM_EULER else advance_body

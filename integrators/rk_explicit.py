@@ -16,7 +16,7 @@ import numpy as np
 from topdrift.models import FORM_SIZE
 
 from .base import ST_OK, Method, MethodInfo, MethodRefused, Stepper
-from .rk_fixed_kernel import explicit_advance
+from .rk_fixed_kernel import explicit_kernel
 from .rk_packed import pack
 from .tableaux import RK4, Tableau
 
@@ -84,7 +84,7 @@ class FixedStepRK(Method):
             y=y0.copy(),
         )
         st.method = self
-        st.kernel = explicit_advance
+        st.kernel = explicit_kernel(form)
         st.h = h
         st.t0 = float(t0)
         st.steps_done = 0
@@ -120,20 +120,21 @@ class FixedStepper(Stepper):
             return ST_OK
         pk = self.method.packed
         status, done = self.kernel(
-            self.form,
-            self.params,
-            pk.a,
-            int(self.method.tableau.n_stages),
-            self.h,
-            int(k),
-            self.method.kahan,
-            self.yi,
-            self.comp,
-            self.K,
-            self.ytmp,
-            self.ynew,
-            self.binc,
-            self.counters,
+            (
+                self.params,
+                pk.a,
+                int(self.method.tableau.n_stages),
+                self.h,
+                int(k),
+                self.method.kahan,
+                self.yi,
+                self.comp,
+                self.K,
+                self.ytmp,
+                self.ynew,
+                self.binc,
+                self.counters,
+            )
         )
         self.steps_done += int(done)
         if status != ST_OK:

@@ -20,10 +20,12 @@ from .base import C_EVALS, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGULAR
 from .rk_embedded_kernel import combine, rhs, weighted  # rhs: the inlined switch, see there
 
 
-@njit(cache=True, inline="always")
-def _explicit(form, p, a, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, counters):
+@njit(cache=True)
+def _explicit(form, work):
     """Take nsteps steps of length h in place on y (and comp). Returns (status, steps taken);
-    on failure y holds the state after the last good step."""
+    on failure y holds the state after the last good step. Compiled once per form, as the
+    embedded kernel's _advance (see there)."""
+    p, a, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, counters = work
     n = y.shape[0]
     rows = ns + 1  # the packed matrix of a fixed-step method: the stages, then b
     for step in range(nsteps):
@@ -59,43 +61,21 @@ def _explicit(form, p, a, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, co
     return ST_OK, nsteps
 
 
-# One entry kernel with the form as its first argument (see rk_embedded_kernel.py): the body is
-# inlined once per form with the form a constant, so that the model's function is inlined into
-# the stage loop. Measured on the body-form top: 192 -> 88 ns per step.
+# One small entry per form, so that a run compiles only the form it uses (see
+# rk_embedded_kernel.advance_kernel).
 
 
 @njit(cache=True)
-def explicit_advance(form, p, a, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, counters):
-    if form == FORM_EULER:
-        return _explicit(
-            FORM_EULER,
-            p,
-            a,
-            ns,
-            h,
-            nsteps,
-            kahan,
-            y,
-            comp,
-            K,
-            ytmp,
-            ynew,
-            binc,
-            counters,
-        )
-    return _explicit(
-        FORM_BODY,
-        p,
-        a,
-        ns,
-        h,
-        nsteps,
-        kahan,
-        y,
-        comp,
-        K,
-        ytmp,
-        ynew,
-        binc,
-        counters,
-    )
+def explicit_euler(work):
+    return _explicit(FORM_EULER, work)
+
+
+@njit(cache=True)
+def explicit_body(work):
+    return _explicit(FORM_BODY, work)
+
+
+def explicit_kernel(form: int):
+    """The entry for a form. It takes the tuple (p, a, ns, h, nsteps, kahan, y, comp, K, ytmp,
+    ynew, binc, counters) and returns (status, steps taken)."""
+    return explicit_euler if form == FORM_EULER else explicit_body
