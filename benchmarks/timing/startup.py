@@ -5,9 +5,11 @@ takes to its first sample with the compile cache warm.
 
 Each method runs `topdrift run looping-nutation` over one sample interval in a fresh process,
 first with an empty numba cache (NUMBA_CACHE_DIR pointing at a new folder: everything compiles),
-then again with that cache warm. The difference is the method's compile time; the warm time is
-the whole process, imports included, which bounds the time to the first sample. Target: warm
-under 2 s.
+then again with that cache warm. The difference of the whole-process times is the method's
+compile time. The warm start is timed to the run's first report that samples reached the disk
+(its "flushed sample" line on stderr), from the launch of the process, imports included: that is
+what the target bounds. Target: under 2 s. The whole warm process (final metrics, the exact
+comparison, the summary, closing the file) is printed beside it.
 """
 
 from __future__ import annotations
@@ -33,7 +35,8 @@ DEFAULT = (
 )
 
 
-def once(method: str, control: str, cache: str, out: str) -> float:
+def once(method: str, control: str, cache: str, out: str) -> tuple[float, float]:
+    """(seconds to the first samples on disk, seconds to the end of the process)."""
     setting = ["--step", "1e-3"] if control == "step" else ["--rtol", "1e-8"]
     cmd = [
         sys.executable,
@@ -54,11 +57,18 @@ def once(method: str, control: str, cache: str, out: str) -> float:
     ]
     env = dict(os.environ, NUMBA_CACHE_DIR=cache)
     t0 = time.perf_counter()
-    r = subprocess.run(cmd, env=env, capture_output=True, text=True)
-    el = time.perf_counter() - t0
-    if r.returncode != 0:
-        raise SystemExit(f"{method}: {r.stderr.strip()}")
-    return el
+    p = subprocess.Popen(cmd, env=env, stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
+    first = None
+    lines = []
+    for line in p.stderr:  # the run reports each flush of samples to disk on stderr
+        lines.append(line)
+        if first is None and "flushed sample" in line:
+            first = time.perf_counter() - t0
+    p.wait()
+    whole = time.perf_counter() - t0
+    if p.returncode != 0 or first is None:
+        raise SystemExit(f"{method}: {''.join(lines).strip()}")
+    return first, whole
 
 
 def main(argv=None) -> int:
@@ -68,18 +78,26 @@ def main(argv=None) -> int:
     ap.add_argument("--methods", nargs="+", default=list(DEFAULT))
     args = ap.parse_args(argv)
     worst = 0.0
-    print(f"{'method':16s} {'cold s':>8s} {'warm s':>8s} {'compile s':>10s}")
+    print(
+        f"{'method':16s} {'cold s':>8s} {'warm s':>8s} {'compile s':>10s} "
+        f"{'warm 1st sample s':>18s}"
+    )
     with tempfile.TemporaryDirectory() as d:
         for m in args.methods:
             control = get(m).info.control
             cache = os.path.join(d, f"cache-{m}")  # each method compiles alone, from nothing
             out = os.path.join(d, f"{m}.h5")
-            cold = once(m, control, cache, out)
-            warm = min(once(m, control, cache, out) for _ in range(3))
-            worst = max(worst, warm)
-            print(f"{m:16s} {cold:8.2f} {warm:8.2f} {cold - warm:10.2f}")
+            cold = once(m, control, cache, out)[1]
+            runs = [once(m, control, cache, out) for _ in range(3)]
+            first = min(r[0] for r in runs)
+            warm = min(r[1] for r in runs)
+            worst = max(worst, first)
+            print(f"{m:16s} {cold:8.2f} {warm:8.2f} {cold - warm:10.2f} {first:18.2f}")
     verdict = "meets" if worst <= TARGET_S else "MISSES"
-    print(f"slowest warm start {worst:.2f} s: {verdict} the target of {TARGET_S} s")
+    print(
+        f"slowest warm start to the first sample on disk {worst:.2f} s: {verdict} the target of "
+        f"{TARGET_S} s"
+    )
     return 0 if worst <= TARGET_S else 1
 
 
