@@ -29,7 +29,12 @@ def add_parser(sub) -> None:
         default=1e-6,
         help="standard deviation of the start-angle perturbations (rad)",
     )
-    p.add_argument("--form", choices=("euler", "body"), help="state form")
+    p.add_argument(
+        "--form",
+        choices=("euler", "body"),
+        help="state form (default: the method's own default, the Euler form for a symmetric "
+        "top; a Gauss-Legendre method keeps the energy to round-off only in the body form)",
+    )
     p.add_argument("--plot", metavar="PNG", help="write the growth plot here")
     p.add_argument("--json", action="store_true", help="print the result as JSON")
     p.set_defaults(func=run)
