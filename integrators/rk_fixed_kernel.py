@@ -17,7 +17,7 @@ from topdrift.models.dynamics import singular
 from topdrift.models.forms import FORM_BODY, FORM_EULER
 
 from .base import C_EVALS, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGULAR
-from .rk_embedded_kernel import combine, rhs, weighted  # rhs: the inlined switch, see there
+from .rk_embedded_kernel import combine, rhs  # rhs: the inlined switch, see there
 
 
 @njit(cache=True)
@@ -31,11 +31,11 @@ def _explicit(form, work):
     for step in range(nsteps):
         rhs(form, y, p, K[0:n])
         for i in range(1, ns):
-            combine(n, i, rows, a, h, y, K, ytmp)
+            combine(n, i, a, i * rows, h, y, K, ytmp)
             rhs(form, ytmp, p, K[i * n : (i + 1) * n])
         counters[C_EVALS] += ns
         finite = True
-        weighted(n, ns, a, ns * rows, K, binc)
+        combine(n, ns, a, ns * rows, 1.0, None, K, binc)
         for k in range(n):
             inc = h * binc[k]
             if kahan:

@@ -400,7 +400,7 @@ def test_step_below_round_off_of_t_stops_as_underflow():
 def test_stage_sums_for_any_state_size(n):
     # The kernels' stage combination against numpy for state sizes the models do not have yet
     # (blocks of four, the overlapping last block, and the short path).
-    from topdrift.integrators.rk_embedded_kernel import combine, weighted, weighted_pair
+    from topdrift.integrators.rk_embedded_kernel import combine, weighted_pair
     from topdrift.integrators.rk_packed import pack
 
     pk = pack(DOP853)
@@ -409,10 +409,10 @@ def test_stage_sums_for_any_state_size(n):
     y = rng.normal(size=n)
     out = np.empty(n)
     for row in (1, 5, 12, 15):
-        combine(n, row, 16, pk.a, 0.25, y, K, out)
+        combine(n, row, pk.a, row * 16, 0.25, y, K, out)
         expect = y + 0.25 * DOP853.a[row] @ K.reshape(16, n)
         np.testing.assert_allclose(out, expect, rtol=1e-14, atol=1e-14)
-    weighted(n, 16, pk.d, 2 * 16, K, out)
+    combine(n, 16, pk.d, 2 * 16, 1.0, None, K, out)
     np.testing.assert_allclose(out, DOP853.dense[2] @ K.reshape(16, n), rtol=1e-13, atol=1e-14)
     pair = np.empty(2 * n)
     weighted_pair(n, 13, pk.e, K, pair)
