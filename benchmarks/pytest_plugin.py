@@ -51,10 +51,10 @@ class TopdriftCheck:
         status: str = "ok",
         **bounds: float,
     ) -> dict:
+        from topdrift.benchmarks.cases.library import load_case
         from topdrift.benchmarks.errors import UserError
-        from topdrift.benchmarks.library import load_case
-        from topdrift.benchmarks.memrun import run_in_memory
-        from topdrift.benchmarks.runner import plan_run
+        from topdrift.benchmarks.run.in_memory import run_in_memory
+        from topdrift.benchmarks.run.runner import plan_run
         from topdrift.integrators import MethodRefused, UnknownMethod
         from topdrift.models import BodyError, SingularAttitude
 

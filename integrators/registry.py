@@ -13,11 +13,11 @@ ENTRY_POINT_GROUP = "topdrift.integrators"
 
 # Each module defines METHODS, a list of Method instances.
 _BUILTIN_MODULES = (
-    "topdrift.integrators.rk_explicit",
-    "topdrift.integrators.rk_adaptive",
-    "topdrift.integrators.splitting",
-    "topdrift.integrators.gauss",
-    "topdrift.integrators.reference",
+    "topdrift.integrators.rk.fixed",
+    "topdrift.integrators.rk.adaptive",
+    "topdrift.integrators.splitting.methods",
+    "topdrift.integrators.gauss.methods",
+    "topdrift.integrators.reference.scipy_methods",
 )
 
 _methods: dict[str, Method] = {}

@@ -107,7 +107,7 @@ def same_datasets(a: dict, b: dict) -> None:
 
 
 def topdrift_cmd(*args: str) -> list[str]:
-    return [sys.executable, "-m", "topdrift.benchmarks.cli", *args]
+    return [sys.executable, "-m", "topdrift.benchmarks.cli.entry", *args]
 
 
 PROGRESS = re.compile(r"^\[(\d+)/(\d+)\] ")
@@ -119,7 +119,7 @@ def reference_sweep(tmp_path_factory) -> tuple[Path, Path, dict]:
     """(sweep file, results file, run_datasets) of the grid swept once, in this process, with
     one job: the reference every other sweep is compared with. Made once per test session."""
     if not _REFERENCE:
-        from topdrift.benchmarks import cli
+        from topdrift.benchmarks.cli import entry as cli
 
         folder = tmp_path_factory.mktemp("grid")
         grid = write_grid(folder)

@@ -10,11 +10,11 @@ import sys
 import numpy as np
 import pytest
 
-from topdrift.benchmarks.case import parse_case, read_case
-from topdrift.benchmarks.cli import main
+from topdrift.benchmarks.cases.library import find_case, library_cases, library_paths, load_case
+from topdrift.benchmarks.cases.schema import parse_case, read_case
+from topdrift.benchmarks.cases.units import to_si
+from topdrift.benchmarks.cli.entry import main
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.library import find_case, library_cases, library_paths, load_case
-from topdrift.benchmarks.units import to_si
 from topdrift.models import FORM_BODY, FORM_EULER, to_body
 
 EXPECTED = {
@@ -344,7 +344,7 @@ def test_installed_command_prints_no_traceback(tmp_path):
     path = tmp_path / "case.toml"
     path.write_text(_case_text(start_extra={"theta_rate": '"3 furlong/s"'}), encoding="utf-8")
     proc = subprocess.run(
-        [sys.executable, "-m", "topdrift.benchmarks.cli", "describe", str(path)],
+        [sys.executable, "-m", "topdrift.benchmarks.cli.entry", "describe", str(path)],
         capture_output=True,
         text=True,
         cwd=tmp_path,

@@ -12,7 +12,7 @@ import sys
 import h5py
 import pytest
 
-from topdrift.benchmarks import cli
+from topdrift.benchmarks.cli import entry as cli
 
 TOP_TOML = """
 name = "cli-top"
@@ -46,7 +46,7 @@ def write(tmp_path, name, text, theta="30 deg", spin="600 rpm"):
 def topdrift(*args, **kw):
     """The installed command in a fresh process."""
     return subprocess.Popen(
-        [sys.executable, "-m", "topdrift.benchmarks.cli", *args],
+        [sys.executable, "-m", "topdrift.benchmarks.cli.entry", *args],
         stdout=subprocess.PIPE,
         stderr=subprocess.PIPE,
         text=True,
@@ -314,7 +314,7 @@ def test_sigterm_flushes_and_marks_interrupted(tmp_path):
 
 
 def test_a_second_writer_is_refused(tmp_path):
-    from topdrift.benchmarks.store import open_writer
+    from topdrift.benchmarks.store.writer import open_writer
 
     case = write(tmp_path, "top.toml", TOP_TOML)
     out = tmp_path / "r.h5"
@@ -332,9 +332,9 @@ def test_a_second_writer_is_refused(tmp_path):
 
 
 def test_resume_of_a_run_killed_before_its_first_write_starts_it(tmp_path, capsys):
-    from topdrift.benchmarks.case import read_case
-    from topdrift.benchmarks.runner import plan_run, run_attrs
-    from topdrift.benchmarks.store import RunGroup, open_writer
+    from topdrift.benchmarks.cases.schema import read_case
+    from topdrift.benchmarks.run.runner import plan_run, run_attrs
+    from topdrift.benchmarks.store.writer import RunGroup, open_writer
 
     case = write(tmp_path, "top.toml", TOP_TOML)
     out = tmp_path / "r.h5"

@@ -14,7 +14,7 @@ import h5py
 import pytest
 from test_cli_run import TOP_TOML, write
 
-from topdrift.benchmarks import cli
+from topdrift.benchmarks.cli import entry as cli
 
 
 @pytest.fixture(scope="module")
@@ -107,7 +107,7 @@ def test_damage_counts():
 
 HOLD = """
 import sys, time
-from topdrift.benchmarks.store import open_writer
+from topdrift.benchmarks.store.writer import open_writer
 f = open_writer(sys.argv[1])
 print("holding", flush=True)
 sys.stdin.read()

@@ -18,7 +18,7 @@ import h5py
 import pytest
 from test_cli_run import TOP_TOML, write
 
-from topdrift.benchmarks import cli
+from topdrift.benchmarks.cli import entry as cli
 
 # 4001 samples of leapfrog, flushed after every sample: the file grows well past the limits below.
 LONG = ["--method", "leapfrog", "--step", "0.001", "--horizon", "20", "--samples", "4001"]
@@ -30,7 +30,7 @@ def limited(limit: int, *args):
         resource.setrlimit(resource.RLIMIT_FSIZE, (limit, limit))
 
     return subprocess.run(
-        [sys.executable, "-m", "topdrift.benchmarks.cli", *args],
+        [sys.executable, "-m", "topdrift.benchmarks.cli.entry", *args],
         preexec_fn=pre,
         capture_output=True,
         text=True,

@@ -5,8 +5,8 @@ import json
 import numpy as np
 import pytest
 
-from topdrift.benchmarks.cli import main
-from topdrift.benchmarks.roundoff import energy_precise, fit_exponent
+from topdrift.benchmarks.choose.roundoff import energy_precise, fit_exponent
+from topdrift.benchmarks.cli.entry import main
 from topdrift.integrators import MethodRefused, get
 from topdrift.integrators.ensemble import EnsembleStepper
 from topdrift.models import RigidBody, body_state, euler_state

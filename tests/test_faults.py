@@ -16,11 +16,11 @@ import numpy as np
 import pytest
 from test_cli_run import TOP_TOML, dataset_hashes, run_json, topdrift, write
 
-from topdrift.benchmarks import cli
-from topdrift.benchmarks import runner as runner_mod
-from topdrift.benchmarks.case import parse_case
-from topdrift.benchmarks.runner import execute, plan_run
-from topdrift.benchmarks.store import open_writer
+from topdrift.benchmarks.cases.schema import parse_case
+from topdrift.benchmarks.cli import entry as cli
+from topdrift.benchmarks.run import runner as runner_mod
+from topdrift.benchmarks.run.runner import execute, plan_run
+from topdrift.benchmarks.store.writer import open_writer
 from topdrift.integrators import ST_STEP_UNDERFLOW
 
 # Long enough that the signal lands mid-run (a few seconds), short enough for CI.
@@ -251,7 +251,7 @@ class _StopAt:
 
 
 def test_resume_refuses_a_file_that_lost_samples_before_its_checkpoint(tmp_path, capsys):
-    from topdrift.benchmarks.runner import StopFlag
+    from topdrift.benchmarks.run.runner import StopFlag
 
     path = write(tmp_path, "top.toml", TOP_TOML)
     case = parse_case(path.read_text(), str(path))

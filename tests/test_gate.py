@@ -16,13 +16,13 @@ import math
 
 import pytest
 
-from topdrift.benchmarks import grid_measure
-from topdrift.benchmarks.baseline_file import read_baseline, validate, write_baseline
-from topdrift.benchmarks.cli import main
-from topdrift.benchmarks.gate import Thresholds, compare, format_report
-from topdrift.benchmarks.library import load_case
-from topdrift.benchmarks.memrun import run_in_memory
-from topdrift.benchmarks.runner import plan_run
+from topdrift.benchmarks.cases.library import load_case
+from topdrift.benchmarks.cli.entry import main
+from topdrift.benchmarks.gate import measure as grid_measure
+from topdrift.benchmarks.gate.baseline_file import read_baseline, validate, write_baseline
+from topdrift.benchmarks.gate.compare import Thresholds, compare, format_report
+from topdrift.benchmarks.run.in_memory import run_in_memory
+from topdrift.benchmarks.run.runner import plan_run
 from topdrift.integrators import Method, get
 from topdrift.integrators import registry as reg
 

@@ -20,8 +20,8 @@ from topdrift.integrators import (
     MethodRefused,
     get,
 )
-from topdrift.integrators.gauss_kernel import I_ROUNDING, N_ITERS, N_MEMO, gauss_steps, work_size
-from topdrift.integrators.gauss_tableau import GAUSS2, GAUSS3, Tableau
+from topdrift.integrators.gauss.kernel import I_ROUNDING, N_ITERS, N_MEMO, gauss_steps, work_size
+from topdrift.integrators.gauss.tableau import GAUSS2, GAUSS3, Tableau
 from topdrift.models import FORM_BODY, FORM_EULER, RigidBody, body_state, euler_state
 from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 from topdrift.models.dynamics import rhs

@@ -11,8 +11,8 @@ import pytest
 from scipy.integrate import solve_ivp
 from sweep_grid import ASYM_TOML, SYM_TOML
 
-from topdrift.benchmarks import cli
-from topdrift.benchmarks.case import parse_case
+from topdrift.benchmarks.cases.schema import parse_case
+from topdrift.benchmarks.cli import entry as cli
 
 HORIZON = "1.0"
 SAMPLES = "11"

@@ -75,7 +75,7 @@ def _install_plugin(tmp_path):
 
 def _topdrift(env, *args):
     return subprocess.run(
-        [sys.executable, "-m", "topdrift.benchmarks.cli", *args],
+        [sys.executable, "-m", "topdrift.benchmarks.cli.entry", *args],
         env=env,
         capture_output=True,
         text=True,

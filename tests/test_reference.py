@@ -22,7 +22,7 @@ from topdrift.integrators import (
     MethodRefused,
     get,
 )
-from topdrift.integrators.reference import REJECTED_UNKNOWN
+from topdrift.integrators.reference.scipy_methods import REJECTED_UNKNOWN
 from topdrift.models import FORM_BODY, FORM_EULER, RigidBody, body_state, euler_state
 from topdrift.models.body import P_MGZ
 from topdrift.models.dynamics import rhs

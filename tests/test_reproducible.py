@@ -49,7 +49,7 @@ def pairs(tmp_path_factory):
     for method, opts in METHODS.items():
         for k in (1, 2):
             out = d / f"{method}-{k}.h5"
-            cmd = [sys.executable, "-m", "topdrift.benchmarks.cli", "run", str(case), *opts]
+            cmd = [sys.executable, "-m", "topdrift.benchmarks.cli.entry", "run", str(case), *opts]
             procs[(method, k)] = (
                 subprocess.Popen([*cmd, "--out", str(out)], stderr=subprocess.PIPE),
                 out,

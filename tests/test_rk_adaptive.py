@@ -23,7 +23,7 @@ from topdrift.integrators import (
     MethodRefused,
     get,
 )
-from topdrift.integrators.tableaux import DOP853, DP5
+from topdrift.integrators.rk.tableaux import DOP853, DP5
 from topdrift.models import FORM_BODY, FORM_EULER, RigidBody, body_state, euler_state
 from topdrift.models import invariants_of as invariants
 from topdrift.models.dynamics import rhs
@@ -400,8 +400,8 @@ def test_step_below_round_off_of_t_stops_as_underflow():
 def test_stage_sums_for_any_state_size(n):
     # The kernels' stage combination against numpy for state sizes the models do not have yet
     # (blocks of four, the overlapping last block, and the short path).
-    from topdrift.integrators.rk_embedded_kernel import combine, weighted_pair
-    from topdrift.integrators.rk_packed import pack
+    from topdrift.integrators.rk.embedded_kernel import combine, weighted_pair
+    from topdrift.integrators.rk.packed import pack
 
     pk = pack(DOP853)
     rng = np.random.default_rng(n)

@@ -17,7 +17,7 @@ from topdrift.integrators import (
     MethodRefused,
     get,
 )
-from topdrift.integrators.tableaux import RK4
+from topdrift.integrators.rk.tableaux import RK4
 from topdrift.models import FORM_BODY, FORM_EULER, RigidBody, body_state, euler_state
 from topdrift.models import invariants_of as invariants
 from topdrift.models.dynamics import rhs

@@ -8,11 +8,11 @@ import pytest
 from scipy.integrate import solve_ivp
 from scipy.spatial.transform import Rotation
 
-from topdrift.benchmarks import store
-from topdrift.benchmarks.case import parse_case
+from topdrift.benchmarks.cases.schema import parse_case
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.metrics import axis_angle, drift_exponent, wrapped
-from topdrift.benchmarks.runner import StopFlag, execute, make_run_id, plan_run
+from topdrift.benchmarks.run.metrics import axis_angle, drift_exponent, wrapped
+from topdrift.benchmarks.run.runner import StopFlag, execute, make_run_id, plan_run
+from topdrift.benchmarks.store import writer as store
 from topdrift.integrators import MethodRefused
 
 TOP_TOML = """
@@ -273,7 +273,7 @@ def test_a_failing_reference_ends_the_run_as_failed_without_nan(top, tmp_path):
 def test_long_intervals_in_pieces_resume_to_the_same_bits(top, tmp_path, monkeypatch, stop_after):
     """An interval longer than CHUNK_STEPS is advanced in pieces; a stop inside one rolls back
     to the last sample, and the resumed run repeats the bits of one that never stopped."""
-    from topdrift.benchmarks import runner
+    from topdrift.benchmarks.run import runner
 
     monkeypatch.setattr(runner, "CHUNK_STEPS", 7)
     plan = plan_run(top, "leapfrog", step=0.001, form="body")  # 50 steps per interval
@@ -302,7 +302,7 @@ def test_long_intervals_in_pieces_resume_to_the_same_bits(top, tmp_path, monkeyp
 def test_progress_bar_on_a_terminal_and_lines_otherwise():
     import io
 
-    from topdrift.benchmarks.progress import Progress
+    from topdrift.benchmarks.run.progress import Progress
 
     tty = io.StringIO()
     p = Progress("case m 0123abcd", 100, stream=tty, tty=True)

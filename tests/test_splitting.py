@@ -8,7 +8,7 @@ import pytest
 from scipy.integrate import solve_ivp
 
 from topdrift.integrators import C_EVALS, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGULAR, MethodRefused
-from topdrift.integrators.splitting import METHODS
+from topdrift.integrators.splitting.methods import METHODS
 from topdrift.models import RigidBody, body_state, euler_state, invariants_of
 from topdrift.models.dynamics import rhs
 from topdrift.models.forms import FORM_BODY, FORM_EULER

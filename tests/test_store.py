@@ -9,9 +9,9 @@ import h5py
 import numpy as np
 import pytest
 
-from topdrift.benchmarks import cli
+from topdrift.benchmarks.cli import entry as cli
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.store import existing_status, open_reader, open_writer
+from topdrift.benchmarks.store.writer import existing_status, open_reader, open_writer
 
 TOP_TOML = """
 name = "store-top"

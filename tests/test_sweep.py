@@ -28,11 +28,11 @@ from sweep_grid import (
     write_grid,
 )
 
-from topdrift.benchmarks import cli
-from topdrift.benchmarks import sweep as sweep_mod
-from topdrift.benchmarks.runner import StopFlag
-from topdrift.benchmarks.sweep import expand, run_sweep
-from topdrift.benchmarks.sweep_spec import read_sweep
+from topdrift.benchmarks.cli import entry as cli
+from topdrift.benchmarks.run.runner import StopFlag
+from topdrift.benchmarks.sweep import executor as sweep_mod
+from topdrift.benchmarks.sweep.executor import expand, run_sweep
+from topdrift.benchmarks.sweep.spec import read_sweep
 
 SAMPLE_SETS = ("t", "euler", "quaternion", "momentum", "state")
 INVARIANTS = ("energy", "p_phi", "p_psi", "norm")
