@@ -3,9 +3,9 @@
     python benchmarks/timing/brouwer.py [--case looping-nutation] [--order 4] [--step 2e-3]
                                         [--steps 1e7] [--starts 16] [--json OUT] [--plot PNG]
 
-Runs the round-off study (topdrift.benchmarks.choose.roundoff) on one ensemble of perturbed starts in the
-body form, where the energy is a quadratic invariant that Gauss methods keep exactly, so that its
-error is pure round-off, for three variants of the K-stage method:
+Runs the round-off study (topdrift.benchmarks.choose.roundoff) on one ensemble of perturbed
+starts in the body form, where the energy is a quadratic invariant that Gauss methods keep
+exactly, so that its error is pure round-off, for three variants of the K-stage method:
 
   gaussK-kahan   the registered compensated method: tableau of doubles that satisfies the
                  symplecticity condition exactly, stages rounded to the double nearest the exact
