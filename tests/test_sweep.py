@@ -364,11 +364,11 @@ def test_a_failed_run_is_left_out_and_exits_1(clean, tmp_path, capsys, monkeypat
     real = sweep_mod.run_job
     broken = {}
 
-    def flaky(job):
+    def flaky(job, **kw):  # an in-process sweep passes its stop flag as `stop`
         if not broken:
             broken[job.run_id] = job
             raise RuntimeError("worker lost its disk")
-        return real(job)
+        return real(job, **kw)
 
     monkeypatch.setattr(sweep_mod, "run_job", flaky)
     out = tmp_path / "flaky.h5"

@@ -18,6 +18,7 @@ import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 
 from topdrift.benchmarks.choose import analysis  # noqa: E402
+from topdrift.benchmarks.choose.figure_files import save_png  # noqa: E402
 
 DPI = 110
 _MARKERS = ("o", "s", "^", "v", "D", "P", "X", "<", ">", "p", "h", "*")
@@ -96,11 +97,10 @@ def _save(fig, out) -> Path:
     for ax in fig.get_axes():
         _log_ticks(ax)
     fig.tight_layout()  # after the ticks are final, so that their labels get room
-    out = Path(out)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    fig.savefig(out, dpi=DPI, bbox_inches="tight")
-    plt.close(fig)
-    return out
+    try:
+        return save_png(fig, out, dpi=DPI, bbox_inches="tight")
+    finally:
+        plt.close(fig)
 
 
 def _legend_right(fig, handles, labels, title=None):

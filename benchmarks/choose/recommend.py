@@ -15,9 +15,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from topdrift.benchmarks.cases.schema import MAX_SAMPLES
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.in_memory import run_in_memory
 from topdrift.benchmarks.run.runner import plan_run, steps_per_interval
+from topdrift.benchmarks.stopping import Interrupted
 from topdrift.benchmarks.sweep.settings_ladder import fastest_period
 from topdrift.integrators import MethodRefused
 from topdrift.integrators import get as get_method
@@ -278,6 +280,39 @@ class Picker:
         return choice
 
 
+def _choose(picker: Picker, name: str, form: str | None, target: float, report) -> Choice:
+    """One candidate: its search, then fresh runs of the chosen setting."""
+    c = picker.search(name, form)
+    if c.trial is not None:
+        # Fresh runs of the chosen setting: their cost and error are what the ranking shows.
+        # A short run's wall time is mostly noise (caches, the scheduler), so a short one is
+        # timed up to VERIFY_RUNS times and the quickest counts; the numbers are the same.
+        c.verified = picker.fresh(name, c.form, c.trial.setting)
+        spent = c.verified.wall_s
+        for _ in range(VERIFY_RUNS - 1):
+            if not spent < VERIFY_BUDGET_S:
+                break
+            again = picker.fresh(name, c.form, c.trial.setting)
+            spent += again.wall_s
+            if again.achieved != c.verified.achieved:
+                raise RuntimeError(f"{name}: two runs of one setting differ")
+            if again.wall_s < c.verified.wall_s:
+                c.verified = again
+        if c.verified.achieved > target:
+            c.reason = (
+                f"fresh run at the chosen setting missed the target ({c.verified.achieved:.3g})"
+            )
+    report(
+        f"{name} ({c.form}): "
+        + (
+            f"setting {c.trial.setting:.4g}, {c.verified.wall_s:.3g} s"
+            if c.trial is not None and not c.reason
+            else c.reason
+        )
+    )
+    return c
+
+
 def pick(
     case,
     target: float,
@@ -296,43 +331,27 @@ def pick(
         samples = case.samples
         if horizon is not None:
             interval = case.horizon / (case.samples - 1)
+            wanted = horizon / interval + 1
+            if not wanted <= MAX_SAMPLES:
+                raise UserError(
+                    f"--horizon {horizon:g}: at the case's sample interval of {interval:g} s that "
+                    f"is {wanted:.3g} samples, more than {MAX_SAMPLES}; give --samples"
+                )
             samples = max(2, round(horizon / interval) + 1)
     horizon = case.horizon if horizon is None else horizon
     methods = list(methods or DEFAULT_CANDIDATES)
     for name in methods:
         get_method(name)  # unknown names fail before any work
     picker = Picker(case, target, metric, horizon, samples, report)
-    choices = []
-    for name in methods:
-        c = picker.search(name, form)
-        if c.trial is not None:
-            # Fresh runs of the chosen setting: their cost and error are what the ranking shows.
-            # A short run's wall time is mostly noise (caches, the scheduler), so a short one is
-            # timed up to VERIFY_RUNS times and the quickest counts; the numbers are the same.
-            c.verified = picker.fresh(name, c.form, c.trial.setting)
-            spent = c.verified.wall_s
-            for _ in range(VERIFY_RUNS - 1):
-                if not spent < VERIFY_BUDGET_S:
-                    break
-                again = picker.fresh(name, c.form, c.trial.setting)
-                spent += again.wall_s
-                if again.achieved != c.verified.achieved:
-                    raise RuntimeError(f"{name}: two runs of one setting differ")
-                if again.wall_s < c.verified.wall_s:
-                    c.verified = again
-            if c.verified.achieved > target:
-                c.reason = (
-                    f"fresh run at the chosen setting missed the target ({c.verified.achieved:.3g})"
-                )
-        report(
-            f"{name} ({c.form}): "
-            + (
-                f"setting {c.trial.setting:.4g}, {c.verified.wall_s:.3g} s"
-                if c.trial is not None and not c.reason
-                else c.reason
-            )
-        )
-        choices.append(c)
+    choices: list[Choice] = []
+    try:
+        for name in methods:
+            choices.append(_choose(picker, name, form, target, report))
+    except Interrupted as exc:
+        raise exc.saying(
+            f"{len(choices)} of {len(methods)} candidate methods searched, "
+            f"{len(methods) - len(choices)} left; nothing written"
+        ) from None
     ok = [c for c in choices if c.verified is not None and not c.reason]
     ok.sort(key=lambda c: (c.verified.wall_s, c.verified.rhs_evals))
     ranking = []

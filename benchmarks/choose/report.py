@@ -157,37 +157,38 @@ def case_section(path: str, records: list[dict], case: str, out_dir: Path) -> li
     for e in errors:
         lines += [f"By {analysis.ERRORS[e][1]}:", ""] + cheapest_table(records, case, e) + [""]
     lines += ["### Figures", ""]
-    base = slug(case)
     figs = []
     for e in errors:
-        name = f"{base}-work-precision-{e}.png"
+        name = figure_name(case, f"work-precision-{e}")
         plots.work_precision(records, case, out_dir / name, error=e)
         figs.append((name, f"work-precision, {analysis.ERRORS[e][1]}"))
     fr = analysis.frontiers(records, case, errors[0], "wall")
     reps = analysis.representatives(fr)
     runs = _series(path, records, reps)
     if runs:
-        plots.drift(runs, case, out_dir / f"{base}-drift.png")
+        plots.drift(runs, case, out_dir / figure_name(case, "drift"))
         figs.append(
             (
-                f"{base}-drift.png",
+                figure_name(case, "drift"),
                 "invariant errors against time, the most accurate run of each method",
             )
         )
         if any(r["exact_euler"] is not None for r in runs):
-            plots.theta(runs, case, out_dir / f"{base}-theta.png")
+            plots.theta(runs, case, out_dir / figure_name(case, "theta"))
             figs.append(
                 (
-                    f"{base}-theta.png",
+                    figure_name(case, "theta"),
                     "theta against the exact solution, the most accurate run of each method",
                 )
             )
         ranked = sorted(reps, key=lambda p: p.error)
         ends = [ranked[-1]] + ([ranked[0]] if len(ranked) > 1 else [])
-        plots.axis_path(_series(path, records, ends), case, out_dir / f"{base}-axis-path.png")
+        plots.axis_path(
+            _series(path, records, ends), case, out_dir / figure_name(case, "axis-path")
+        )
         figs.append(
             (
-                f"{base}-axis-path.png",
+                figure_name(case, "axis-path"),
                 "path of the figure axis seen from above, the "
                 "least and the most accurate of those runs",
             )
@@ -199,9 +200,43 @@ def case_section(path: str, records: list[dict], case: str, out_dir: Path) -> li
     return lines
 
 
+REPORT_FILE = "report.md"
+# The first line of every report.md topdrift writes: how `report` tells its own file (which it
+# may write again) from a file of the user's (which it never writes over without --force). An
+# HTML comment, so that it does not show where the Markdown is rendered.
+REPORT_MARKER = "<!-- written by topdrift report; running it again replaces this file -->"
+FIGURE_KINDS = ("work-precision-axis", "work-precision-energy", "drift", "theta", "axis-path")
+
+
+def figure_name(case: str, kind: str) -> str:
+    return f"{slug(case)}-{kind}.png"
+
+
+def report_files(cases: list[str]) -> list[str]:
+    """Every file a report of these cases may write in its directory, report.md first."""
+    return [REPORT_FILE] + [figure_name(c, k) for c in cases for k in FIGURE_KINDS]
+
+
+def is_own_report(path) -> bool:
+    """A report.md that topdrift wrote: its first line is REPORT_MARKER."""
+    try:
+        with open(path, "rb") as fh:
+            first = fh.readline(len(REPORT_MARKER) + 2)
+    except OSError:
+        return False
+    return first.rstrip(b"\r\n") == REPORT_MARKER.encode()
+
+
 def write_report(path: str, records: list[dict], out_dir: Path, cases: list[str]) -> Path:
+    """Write report.md and its figures into out_dir (made if needed). The caller checks first
+    that no file there is one topdrift must not write over (cli/report.py). Figures are written
+    first and report.md last, each renamed into place when complete, so that a stop half way
+    leaves the previous report.md or none, never a half-written one."""
+    import os
+
     out_dir.mkdir(parents=True, exist_ok=True)
     lines = [
+        REPORT_MARKER,
         "# topdrift report",
         "",
         f"Runs file: `{path}`, read {datetime.now(UTC).strftime('%Y-%m-%d %H:%M UTC')}; "
@@ -210,6 +245,12 @@ def write_report(path: str, records: list[dict], out_dir: Path, cases: list[str]
     ]
     for case in cases:
         lines += case_section(path, records, case, out_dir)
-    out = out_dir / "report.md"
-    out.write_text("\n".join(lines).rstrip() + "\n", encoding="utf-8")
+    out = out_dir / REPORT_FILE
+    tmp = out_dir / f".{REPORT_FILE}.{os.getpid()}.part"
+    try:
+        tmp.write_text("\n".join(lines).rstrip() + "\n", encoding="utf-8")
+        os.replace(tmp, out)
+    finally:
+        if tmp.exists():
+            tmp.unlink()
     return out

@@ -16,7 +16,10 @@ import math
 
 import numpy as np
 
+from topdrift.benchmarks.cases.numbers import non_negative, positive, whole
 from topdrift.benchmarks.errors import UserError
+from topdrift.benchmarks.run.runner import MAX_STEPS
+from topdrift.benchmarks.stopping import Interrupted
 from topdrift.integrators import get as get_method
 from topdrift.integrators.ensemble import EnsembleStepper
 from topdrift.models import body_state, euler_state, form_code
@@ -24,6 +27,28 @@ from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 from topdrift.models.invariants import INV_ENERGY, N_INVARIANTS, invariants
 
 FIT_DECADES = 2.0  # the exponent is fitted over the last two decades of step counts
+# Limits, checked before anything is allocated. Every start's energy is evaluated in 40-digit
+# arithmetic at every point (about 1.5 ms each here, 40 points): 10 000 starts are about ten
+# minutes of that alone. Steps: the runner's limit for one run, over all members together.
+MAX_STARTS = 10_000
+MIN_STEPS = 1000
+MAX_MEMBER_STEPS = MAX_STEPS
+# Member-steps per call of the ensemble kernel: a compiled kernel does not hear a signal until
+# it returns, and this many take well under a second for every method here. Pieces fall at
+# whole steps, fixed by the counts (never by the clock), and the states do not depend on them.
+CHUNK_MEMBER_STEPS = 1 << 19
+
+
+def check_size(starts, steps, label_starts="--starts", label_steps="--steps") -> tuple[int, int]:
+    """The study's size, refused over the limits above with one line."""
+    starts = whole(label_starts, starts, 2, MAX_STARTS, "a whole number of starts")
+    steps = whole(label_steps, steps, MIN_STEPS, MAX_STEPS, "a whole number of steps")
+    if starts * steps > MAX_MEMBER_STEPS:
+        raise UserError(
+            f"{label_starts} {starts} x {label_steps} {steps:g} is {starts * steps:.3g} "
+            f"member-steps, more than the {MAX_MEMBER_STEPS:.0e} a study may take"
+        )
+    return starts, steps
 
 
 def perturbed_starts(case, form: str, starts: int, spread: float, seed: int) -> np.ndarray:
@@ -110,45 +135,32 @@ def roundoff_study(
     # A method name, or a Method object (the round-off benchmark's unregistered contrast).
     m = get_method(method) if isinstance(method, str) else method
     method = m.name
-    if not (isinstance(step, float) and math.isfinite(step) and step > 0):
-        raise UserError(f"--step: must be a positive finite number, got {step!r}")
-    if starts < 2:
-        raise UserError(f"--starts: an ensemble needs at least 2 starts, got {starts}")
-    steps = int(steps)
-    if steps < 1000:
-        raise UserError(f"--steps: need at least 1000 steps for a fit, got {steps}")
+    step = positive("--step", step)
+    spread = non_negative("--spread", spread)
+    starts, steps = check_size(starts, steps)
     form = form or m.default_form(case.body)
     m.check(case.body, form, {"step": step})
     code = form_code(form)
     p = case.body.params()
-    Y0 = perturbed_starts(case, form, starts, spread, seed)
-    ens = EnsembleStepper(m, code, p, 0.0, Y0, step)
-    e0 = [energy_precise(code, Y0[j], None, p) for j in range(starts)]
+    try:
+        Y0 = perturbed_starts(case, form, starts, spread, seed)
+        ens = EnsembleStepper(m, code, p, 0.0, Y0, step)
+        e0 = [energy_precise(code, Y0[j], None, p) for j in range(starts)]
+    except Interrupted as exc:
+        raise exc.saying("while preparing the starts, before any step; nothing written") from None
     n_at = np.unique(np.round(np.geomspace(100, steps, points)).astype(np.int64))
-    rms = []
+    rms: list[float] = []
     # The signed mean beside the RMS: a bias shared by the members (a systematic rounding) shows
     # as |mean| close to the RMS, a random walk as |mean| about RMS / sqrt(starts).
-    mean = []
-    for k in n_at:
-        status = ens.advance_to(float(k) * step)
-        if np.any(status != 0):
-            bad = int(np.argmax(status != 0))
-            raise UserError(
-                f"{case.name}: member {bad} stopped (status {int(status[bad])}) "
-                f"before step {k}; choose a smaller step"
-            )
-        low = ens.low_parts()
-        err = np.array(
-            [
-                float(
-                    (energy_precise(code, ens.y[j], None if low is None else low[j], p) - e0[j])
-                    / abs(e0[j])
-                )
-                for j in range(starts)
-            ]
-        )
-        rms.append(math.sqrt(float(np.mean(err * err))))
-        mean.append(float(np.mean(err)))
+    mean: list[float] = []
+    piece = max(1, CHUNK_MEMBER_STEPS // starts)
+    try:
+        for k in n_at:
+            _take_point(case, ens, int(k), step, piece, code, p, e0, rms, mean)
+    except Interrupted as exc:
+        raise exc.saying(
+            f"at step {ens.n} of {steps} ({len(rms)} of {len(n_at)} points taken); nothing written"
+        ) from None
     rms = np.array(rms)
     exponent, fit_range = fit_exponent(n_at.astype(float), rms)
     return {
@@ -168,8 +180,36 @@ def roundoff_study(
     }
 
 
+def _take_point(case, ens, k: int, step: float, piece: int, code, p, e0, rms, mean) -> None:
+    """Advance the ensemble to step k (in pieces of `piece` steps) and take the RMS and the mean
+    of the members' relative energy errors there."""
+    starts = len(e0)
+    while ens.n < k:
+        status = ens.advance_to(float(min(k, ens.n + piece)) * step)
+        if np.any(status != 0):
+            bad = int(np.argmax(status != 0))
+            raise UserError(
+                f"{case.name}: member {bad} stopped (status {int(status[bad])}) "
+                f"before step {k}; choose a smaller step"
+            )
+    low = ens.low_parts()
+    err = np.array(
+        [
+            float(
+                (energy_precise(code, ens.y[j], None if low is None else low[j], p) - e0[j])
+                / abs(e0[j])
+            )
+            for j in range(starts)
+        ]
+    )
+    rms.append(math.sqrt(float(np.mean(err * err))))
+    mean.append(float(np.mean(err)))
+
+
 def plot_roundoff(results: list[dict], path) -> None:
     import matplotlib
+
+    from topdrift.benchmarks.choose.figure_files import save_png
 
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
@@ -197,5 +237,7 @@ def plot_roundoff(results: list[dict], path) -> None:
     ax.set_title(f"{r0['case']}: round-off growth, h = {r0['step']:g} s, {r0['starts']} starts")
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=8, loc="upper left")
-    fig.savefig(path, dpi=120)
-    plt.close(fig)
+    try:
+        save_png(fig, path, dpi=120)
+    finally:
+        plt.close(fig)

@@ -32,6 +32,7 @@ def run(args) -> int:
     from topdrift.benchmarks.errors import UserError
     from topdrift.benchmarks.gate.baseline_file import DEFAULT_FILE, write_baseline
     from topdrift.benchmarks.gate.record import record
+    from topdrift.benchmarks.stopping import Interrupted
     from topdrift.benchmarks.sweep.spec import read_sweep
 
     out = Path(args.out) if args.out else DEFAULT_FILE
@@ -39,7 +40,12 @@ def run(args) -> int:
         raise UserError(f"{out}: exists; pass --force to record a new baseline over it")
     spec = read_sweep(args.sweep)
     t0 = time.perf_counter()
-    data = record(spec, args.sweep)
+    try:
+        data = record(spec, args.sweep)
+    except Interrupted as exc:
+        raise exc.saying(
+            f"nothing written ({out} is written only once every run and timing is measured)"
+        ) from None
     broken = [
         f"{section} {key}: {r['detail']}"
         for section in ("runs", "timings")

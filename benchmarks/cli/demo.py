@@ -40,33 +40,55 @@ def run(args) -> int:
     from topdrift.benchmarks.cases.description import summarise
     from topdrift.benchmarks.cases.library import DEMO_CASE, load_case
     from topdrift.benchmarks.cli.describe import render
-    from topdrift.benchmarks.cli.summary import print_table
     from topdrift.benchmarks.run.runner import execute, plan_run
+    from topdrift.benchmarks.stopping import Interrupted, deferred
     from topdrift.benchmarks.store.writer import (
         FINAL_STATUSES,
         existing_status,
-        list_runs,
-        open_reader,
         open_writer,
     )
 
     case = load_case(DEMO_CASE)
     out = Path(args.out) if args.out else DEFAULT_OUT
-    plans = [plan_run(case, m, form=f, horizon=args.horizon, **s) for m, f, s in LINEUP]
+    try:
+        plans = [plan_run(case, m, form=f, horizon=args.horizon, **s) for m, f, s in LINEUP]
+    except Interrupted as exc:
+        raise exc.saying("while the demo runs were planned; nothing written") from None
     if not args.json:
         print(render(summarise(case)))
         print()
         print(f"Running the demo wheel through {len(plans)} methods into {out} ...", flush=True)
     todo = [p for p in plans if existing_status(out, p.run_id)[0] not in FINAL_STATUSES]
     if todo:
-        f = open_writer(out)
-        try:
-            for p in todo:
-                r = execute(p, f)
-                if not args.json:
-                    print(f"  {p.method.name} ({p.form}): {r.status}", flush=True)
-        finally:
-            f.close()
+        done = 0
+        with deferred() as stop:  # a signal ends the run in hand at its next sample
+            f = open_writer(out)
+            try:
+                for p in todo:
+                    r = execute(p, f, stop=stop)
+                    if stop.requested:
+                        break
+                    done += 1
+                    if not args.json:
+                        print(f"  {p.method.name} ({p.form}): {r.status}", flush=True)
+            finally:
+                f.close()
+        if stop.requested:
+            raise Interrupted(
+                stop.signum,
+                f"{done} of {len(todo)} demo run(s) finished and kept in {out}, the rest not; "
+                "`topdrift demo` again reuses what is there",
+            )
+    try:
+        return _show(args, case, plans, out)
+    except Interrupted as exc:
+        raise exc.saying(f"the demo runs are in {out}; only the comparison was cut short") from None
+
+
+def _show(args, case, plans, out) -> int:
+    from topdrift.benchmarks.cli.summary import print_table
+    from topdrift.benchmarks.store.writer import list_runs, open_reader
+
     ids = [p.run_id for p in plans]
     with open_reader(out) as f:
         by_id = {r["run_id"]: r for r in list_runs(f)}

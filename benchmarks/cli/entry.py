@@ -3,8 +3,9 @@ topdrift.benchmarks.cli and exposes `add_parser(subparsers)` and `run(args) -> i
 
 from __future__ import annotations
 
-import argparse
-import importlib
+# Only these two at import time: console() must put its signal handlers in place before
+# anything slow is imported (see console).
+import signal
 import sys
 
 # Subcommand modules, in the order `topdrift --help` lists them.
@@ -29,13 +30,15 @@ EXIT_FAILED = 1
 EXIT_BAD_INPUT = 2
 
 
-class _Parser(argparse.ArgumentParser):
-    def error(self, message: str) -> None:  # one line, exit 2, as for every bad input
-        sys.stderr.write(f"topdrift: error: {message}\n")
-        raise SystemExit(EXIT_BAD_INPUT)
+def build_parser():
+    import argparse
+    import importlib
 
+    class _Parser(argparse.ArgumentParser):
+        def error(self, message: str) -> None:  # one line, exit 2, as for every bad input
+            sys.stderr.write(f"topdrift: error: {message}\n")
+            raise SystemExit(EXIT_BAD_INPUT)
 
-def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="topdrift",
         description="Long-run integrator benchmarks for spinning rigid bodies.",
@@ -47,23 +50,84 @@ def build_parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _stopped_line(command: str | None, exc) -> str:
+    """The line a stop prints. Every stage that writes adds what it finished and kept (the
+    `detail`); a stop anywhere else comes before anything was written."""
+    detail = exc.detail or "nothing written"
+    if command is None:  # before the command line was read: the program was starting
+        return f"topdrift stopped by {exc.name} while starting; {detail}"
+    return f"topdrift: {command} stopped by {exc.name}: {detail}"
+
+
 def main(argv: list[str] | None = None) -> int:
+    from topdrift.benchmarks import stopping
+
+    command = None
+    try:
+        # SIGINT and SIGTERM raise from here on, wherever the command is (benchmarks/stopping.py),
+        # even while the heavy modules (numba, the kernels) are still being imported; the loops
+        # that write switch to a flag for as long as they write.
+        with stopping.raising():
+            args = build_parser().parse_args(argv)
+            command = args.command
+            return _run(args)
+    except stopping.Interrupted as exc:
+        sys.stderr.write(_stopped_line(command, exc) + "\n")
+        return exc.exit_status
+    except KeyboardInterrupt:  # a SIGINT before the handlers were in place
+        sys.stderr.write(f"topdrift: {command or 'topdrift'} stopped by SIGINT\n")
+        return 130
+
+
+def _run(args) -> int:
     from topdrift.benchmarks.errors import UserError
     from topdrift.integrators import MethodRefused, UnknownMethod
     from topdrift.models import BodyError, SingularAttitude
 
-    args = build_parser().parse_args(argv)
     try:
         return int(args.func(args) or 0)
     except (UserError, BodyError, SingularAttitude, MethodRefused, UnknownMethod) as exc:
         sys.stderr.write(f"topdrift: error: {exc}\n")
         return EXIT_BAD_INPUT
-    except KeyboardInterrupt:
-        sys.stderr.write("topdrift: interrupted\n")
-        return 130
     except BrokenPipeError:
         return EXIT_OK
 
 
+class _StoppedWhileStarting(BaseException):  # noqa: N818 - a stop, not an error
+    def __init__(self, signum: int):
+        super().__init__(signum)
+        self.signum = signum
+
+
+def _stop_while_starting(signum, _frame):
+    raise _StoppedWhileStarting(signum)
+
+
+def console() -> None:
+    """The `topdrift` program: main(), with two things only a whole process needs.
+
+    First, SIGINT and SIGTERM are caught from the first line on: the imports before main() has
+    its own handlers in place (numba, the kernels) take a second or more, and a stop there is
+    one line too, not a traceback. Second, a quick end after a stop: a command stopped by a
+    signal has closed its files and said what it kept by the time main() returns, and the
+    interpreter's own teardown (numba's and LLVM's, about a second on a busy machine) would only
+    delay the end of the process past the second a stop may take, so it is skipped."""
+    for s in (signal.SIGINT, signal.SIGTERM):
+        signal.signal(s, _stop_while_starting)
+    try:
+        code = main()
+    except _StoppedWhileStarting as exc:
+        name = signal.Signals(exc.signum).name
+        sys.stderr.write(f"topdrift stopped by {name} while starting; nothing written\n")
+        code = 128 + exc.signum
+    if code in (128 + signal.SIGINT, 128 + signal.SIGTERM):
+        import os
+
+        sys.stdout.flush()
+        sys.stderr.flush()
+        os._exit(code)
+    raise SystemExit(code)
+
+
 if __name__ == "__main__":
-    raise SystemExit(main())
+    console()

@@ -48,14 +48,17 @@ def _setting(s: dict) -> str:
 
 def run(args) -> int:
     from topdrift.benchmarks.cases.library import load_case
+    from topdrift.benchmarks.cases.numbers import positive, whole
+    from topdrift.benchmarks.cases.schema import MAX_SAMPLES
     from topdrift.benchmarks.choose.recommend import pick
-    from topdrift.benchmarks.errors import UserError
 
+    # Range-checked as `run` checks them, before the case is read.
+    positive("--target", args.target)
+    if args.samples is not None:
+        whole("--samples", args.samples, 2, MAX_SAMPLES, "a whole number of samples")
+    if args.horizon is not None:
+        positive("--horizon", args.horizon)
     case = load_case(args.case)
-    if args.samples is not None and args.samples < 2:
-        raise UserError(f"--samples: need at least 2, got {args.samples}")
-    if args.horizon is not None and not args.horizon > 0:
-        raise UserError(f"--horizon: must be positive, got {args.horizon}")
 
     def report(line: str) -> None:
         if not args.json:

@@ -37,24 +37,33 @@ def add_parser(sub) -> None:
         "evaluations side by side (default)",
     )
     p.add_argument(
-        "--out", metavar="PNG", help="figure file (default: CASE-KIND.png in the current directory)"
+        "--out",
+        metavar="PNG",
+        help="figure file, .png (default: CASE-KIND.png in the current directory); never written "
+        "over a file topdrift did not write",
     )
     p.set_defaults(func=run)
 
 
 def _guarded(out: str, results: str) -> str:
-    from pathlib import Path
+    from topdrift.benchmarks.choose.figure_files import check_figure_path
 
-    from topdrift.benchmarks.errors import UserError
-
-    if Path(out).resolve() == Path(results).resolve():
-        raise UserError(f"--out '{out}' is the results file itself; choose another name")
-    if Path(out).is_dir():
-        raise UserError(f"--out '{out}' is a directory; give a file name ending in .png")
+    check_figure_path(out, "--out", keep=(results,))
     return out
 
 
 def run(args) -> int:
+    from topdrift.benchmarks.stopping import Interrupted
+
+    saved: list[str] = []
+    try:
+        return _plot(args, saved)
+    except Interrupted as exc:
+        # A figure is renamed into place only when complete (choose/figure_files.py).
+        raise exc.saying(f"{saved[0]} written" if saved else "no figure written") from None
+
+
+def _plot(args, saved: list[str]) -> int:
     from topdrift.benchmarks.choose import analysis, plots
     from topdrift.benchmarks.choose.selection import (
         load_labelled,
@@ -66,6 +75,8 @@ def run(args) -> int:
     from topdrift.benchmarks.errors import UserError
     from topdrift.benchmarks.store.reader import STATUS_INCOMPLETE, load_records
 
+    if args.out:  # refused before the results file is read
+        _guarded(args.out, args.file)
     everything = load_records(args.file)
     records = [r for r in everything if r["status"] != STATUS_INCOMPLETE]
     if args.kind == "work-precision":
@@ -90,5 +101,6 @@ def run(args) -> int:
         out = _guarded(args.out or f"{name}-{args.kind}.png", args.file)
         draw = {"drift": plots.drift, "theta": plots.theta, "axis-path": plots.axis_path}
         draw[args.kind](runs, case, out)
+    saved.append(out)
     print(out)
     return 0

@@ -21,8 +21,13 @@ def add_parser(sub) -> None:
     p.add_argument("case", metavar="CASE", help="case file or library case name")
     p.add_argument("--method", required=True, help="a splitting or Gauss-Legendre method")
     p.add_argument("--step", type=float, required=True, help="step (s)")
-    p.add_argument("--starts", type=int, default=16, help="ensemble size (default 16)")
-    p.add_argument("--steps", type=float, default=1e7, help="steps (default 1e7)")
+    p.add_argument("--starts", type=int, default=16, help="ensemble size, 2 .. 10000 (default 16)")
+    p.add_argument(
+        "--steps",
+        type=float,
+        default=1e7,
+        help="steps, a whole number from 1000 to 1e12, at most 1e12 over all starts (default 1e7)",
+    )
     p.add_argument(
         "--spread",
         type=float,
@@ -35,19 +40,29 @@ def add_parser(sub) -> None:
         help="state form (default: the method's own default, the Euler form for a symmetric "
         "top; a Gauss-Legendre method keeps the energy to round-off only in the body form)",
     )
-    p.add_argument("--plot", metavar="PNG", help="write the growth plot here")
+    p.add_argument(
+        "--plot",
+        metavar="PNG",
+        help="write the growth plot here (a .png file; never over a file topdrift did not write)",
+    )
     p.add_argument("--json", action="store_true", help="print the result as JSON")
     p.set_defaults(func=run)
 
 
 def run(args) -> int:
     from topdrift.benchmarks.cases.library import load_case
-    from topdrift.benchmarks.choose.roundoff import plot_roundoff, roundoff_study
-    from topdrift.benchmarks.errors import UserError
+    from topdrift.benchmarks.cases.numbers import non_negative, positive
+    from topdrift.benchmarks.choose.figure_files import check_figure_path
+    from topdrift.benchmarks.choose.roundoff import check_size, plot_roundoff, roundoff_study
+    from topdrift.benchmarks.stopping import Interrupted
 
+    # Everything that can be refused is refused before the case is read or a start made.
+    positive("--step", args.step)
+    non_negative("--spread", args.spread)
+    check_size(args.starts, args.steps)
+    if args.plot:
+        check_figure_path(args.plot, "--plot")
     case = load_case(args.case)
-    if not args.spread >= 0.0:
-        raise UserError(f"--spread: must be zero or positive, got {args.spread}")
     r = roundoff_study(
         case,
         args.method,
@@ -58,7 +73,10 @@ def run(args) -> int:
         form=args.form,
     )
     if args.plot:
-        plot_roundoff([r], args.plot)
+        try:
+            plot_roundoff([r], args.plot)
+        except Interrupted as exc:
+            raise exc.saying("the study was complete, the plot not written") from None
     if args.json:
         print(json.dumps(r, indent=2))
         return 0

@@ -1,6 +1,8 @@
 """`topdrift run CASE... --method NAME (--step H | --rtol R [--atol A])`: integrate cases over
 their horizon and store every sample in the HDF5 run store.
 
+A thin command over four library steps: plan (run/requested.py), decide what to do with runs
+already stored (run/stored_runs.py), execute (run/batch.py) and report (run/report_rows.py).
 Everything is checked before the results file is opened: a bad case, an unknown method, a
 refusal or a conflicting option exits 2 and leaves no file behind (and an existing one untouched).
 """
@@ -8,10 +10,7 @@ refusal or a conflicting option exits 2 and leaves no file behind (and an existi
 from __future__ import annotations
 
 import json
-import signal
 from pathlib import Path
-
-EXIT_INTERRUPTED = {signal.SIGINT: 130, signal.SIGTERM: 143}
 
 
 def add_parser(sub) -> None:
@@ -38,7 +37,11 @@ def add_parser(sub) -> None:
         "--out", default=None, metavar="FILE", help="results file (default: results/runs.h5)"
     )
     again = p.add_mutually_exclusive_group()
-    again.add_argument("--force", action="store_true", help="replace a stored run of the same id")
+    again.add_argument(
+        "--force",
+        action="store_true",
+        help="run again and replace a stored run of the same id (once the new one is complete)",
+    )
     again.add_argument(
         "--resume", action="store_true", help="continue an interrupted run from its checkpoint"
     )
@@ -47,7 +50,8 @@ def add_parser(sub) -> None:
         type=float,
         default=None,
         metavar="S",
-        help="seconds between writes to the file (default 2; 0 writes every sample)",
+        help="seconds between writes to the file (default 2; below 0.5 warns: each write "
+        "costs time, and writing after every sample makes a run many times slower)",
     )
     p.add_argument(
         "--ensemble",
@@ -67,212 +71,60 @@ def add_parser(sub) -> None:
     p.set_defaults(func=run)
 
 
-def _plans(args):
-    from topdrift.benchmarks.cases.library import load_case
-    from topdrift.benchmarks.run.runner import plan_run
-
-    plans = []
-    for spec in args.cases:
-        case = load_case(spec)
-        d = case.run  # the case's own defaults, used where the command line is silent
-        method = args.method or d.get("method")
-        if method is None:
-            from topdrift.benchmarks.errors import UserError
-
-            raise UserError(f"{spec}: no method; give --method NAME (see `topdrift methods`)")
-        from topdrift.integrators import get
-
-        control = get(method).info.control
-        explicit = any(v is not None for v in (args.step, args.rtol, args.atol))
-        if control == "step":
-            step = args.step if explicit else d.get("step")
-            rtol = args.rtol
-            atol = args.atol
-        else:
-            step = args.step
-            rtol = args.rtol if explicit else d.get("rtol")
-            atol = args.atol if explicit else d.get("atol")
-        form = args.form or (d.get("form") if method == d.get("method") else None)
-        plans.append(
-            plan_run(
-                case,
-                method,
-                step=step,
-                rtol=rtol,
-                atol=atol,
-                form=form,
-                horizon=args.horizon,
-                samples=args.samples,
-            )
-        )
-    return plans
-
-
-def _decide(plans, out: Path, force: bool, resume: bool) -> list[str]:
-    """For each plan: 'new', 'resume' or 'reuse'; refuses (exit 2) an unfinished run without
-    --resume or --force. Reads the file only."""
-    from topdrift.benchmarks.errors import UserError
-    from topdrift.benchmarks.store.writer import FINAL_STATUSES, existing_status
-
-    actions = []
-    seen = set()
-    for p in plans:
-        if p.run_id in seen:
-            raise UserError(f"{p.case.name}: given twice (run {p.run_id})")
-        seen.add(p.run_id)
-        status, n = existing_status(out, p.run_id)
-        if status is None or force:
-            actions.append("new")
-        elif status in FINAL_STATUSES:
-            actions.append("reuse")
-        elif resume:
-            # Killed before its first write: nothing was done, so nothing to continue from.
-            actions.append("resume" if p.y0 is not None and n > 0 else "new")
-        else:
-            raise UserError(
-                f"{out}: run {p.run_id} ({p.case.name}, {p.method.name}) is {status} at sample "
-                f"{n}/{p.samples}; pass --resume to continue it or --force to start over"
-            )
-    return actions
-
-
-def _stored(out: Path, run_id: str) -> tuple[str, dict, str]:
-    from topdrift.benchmarks.store.writer import _attr_str, open_reader
-
-    with open_reader(out) as f:
-        g = f["runs"][run_id]
-        return (
-            _attr_str(g, "status"),
-            json.loads(_attr_str(g, "metrics") or "{}"),
-            _attr_str(g, "detail", "") or "",
-        )
-
-
 def run(args) -> int:
     import sys
 
-    from topdrift.benchmarks.errors import UserError
-    from topdrift.benchmarks.run.progress import Progress
-    from topdrift.benchmarks.run.runner import FLUSH_EVERY_S, StopFlag, execute
-    from topdrift.benchmarks.store.writer import (
-        DEFAULT_FILE,
-        NoRoom,
-        close_after_failure,
-        is_write_failure,
-        open_writer,
-        write_reason,
-    )
+    from topdrift.benchmarks.cases.numbers import non_negative, whole
+    from topdrift.benchmarks.run.batch import check_flush_every, execute_batch, stopped_line
+    from topdrift.benchmarks.run.report_rows import result_rows
+    from topdrift.benchmarks.run.requested import Request, plan_cases, plan_ensembles
+    from topdrift.benchmarks.run.stored_runs import decide
+    from topdrift.benchmarks.stopping import Interrupted, deferred
+    from topdrift.benchmarks.store.writer import DEFAULT_FILE
 
+    def say(line: str) -> None:
+        sys.stderr.write(line + "\n")
+
+    # Checked first, planned next, decided against the file (read only), then run: bad input
+    # at any of these steps leaves no file and never touches an existing one.
     out = Path(args.out) if args.out else DEFAULT_FILE
-    if args.flush_every is not None and not args.flush_every >= 0.0:
-        raise UserError(f"--flush-every: must be zero or positive, got {args.flush_every}")
-    flush_every = FLUSH_EVERY_S if args.flush_every is None else args.flush_every
-    plans = _plans(args)
+    flush_every = check_flush_every(args.flush_every, say)
+    if args.ensemble is not None:
+        from topdrift.benchmarks.run.ensemble import MAX_MEMBERS
+
+        whole("--ensemble", args.ensemble, 2, MAX_MEMBERS, "a whole number of starts")
+        non_negative("--spread", args.spread)
+    request = Request(
+        args.method, args.step, args.rtol, args.atol, args.form, args.horizon, args.samples
+    )
+    plans = plan_cases(args.cases, request)
     ensembles = {}
     if args.ensemble is not None:
-        from topdrift.benchmarks.run.ensemble import plan_ensemble
-
-        for p in plans:
-            ep = plan_ensemble(p, args.ensemble, args.spread)
-            ensembles[ep.run_id] = ep
-    actions = _decide(plans, out, args.force, args.resume)
-    for p in plans:
-        for note in p.notes:
-            sys.stderr.write(f"topdrift: {p.case.name} {p.method.name}: {note}\n")
-
-    stop = StopFlag()
-
-    def on_signal(signum, _frame):
-        stop.signum = signum
-
-    results = []
-    if any(a != "reuse" for a in actions):
-        old = {s: signal.signal(s, on_signal) for s in EXIT_INTERRUPTED}
         try:
-            f = open_writer(out)
-            try:
-                for p, action in zip(plans, actions, strict=True):
-                    if action == "reuse":
-                        results.append(None)
-                        continue
-                    progress = Progress(p.label, p.samples)
-                    if p.run_id in ensembles:
-                        from topdrift.benchmarks.run.ensemble import execute_ensemble
-
-                        if action == "resume":
-                            sys.stderr.write(
-                                f"topdrift: {p.case.name}: an ensemble run keeps no "
-                                "checkpoint; running it again from the start\n"
-                            )
-                        r = execute_ensemble(ensembles[p.run_id], f, progress=progress, stop=stop)
-                    else:
-                        r = execute(
-                            p,
-                            f,
-                            resume=action == "resume",
-                            progress=progress,
-                            stop=stop,
-                            flush_every=flush_every,
-                        )
-                    results.append(r)
-                    if stop.requested:
-                        break
-            except NoRoom:
-                raise  # nothing failed to write: the run was stopped before it could
-            except (OSError, RuntimeError) as exc:
-                if not is_write_failure(exc):
-                    raise
-                # A write that failed (a full disk, a file-size limit, the medium gone): the run
-                # in hand is never marked done (its status is set only after its samples are
-                # flushed). HDF5 may not finish its own bookkeeping either, so the file can be
-                # left unreadable: the message says to check it rather than promise a resume.
-                close_after_failure(f)
-                f = None
-                raise UserError(
-                    f"{out}: cannot write the results ({write_reason(exc)}); the run in hand is "
-                    "not marked complete: make room, check the file with `topdrift summary`, "
-                    "then go on with --resume"
-                ) from None
-            finally:
-                if f is not None:  # also after a UserError or an interrupt: release the lock
-                    f.close()
-        finally:
-            for s, h in old.items():
-                signal.signal(s, h)
-
-    rows = []
-    for i, (p, action) in enumerate(zip(plans, actions, strict=True)):
-        r = results[i] if i < len(results) else None
-        if action == "reuse" or r is None:
-            if action != "reuse":
-                continue  # not reached: stopped by a signal
-            status, metrics, detail = _stored(out, p.run_id)
-            sys.stderr.write(
-                f"topdrift: {p.case.name} {p.method.name}: already in {out} as run {p.run_id} "
-                f"({status}); reusing it (--force runs it again)\n"
-            )
-        else:
-            status, metrics, detail = r.status, r.metrics, r.detail
-        rows.append(
-            {
-                "run_id": p.run_id,
-                "case": p.case.name,
-                "method": p.method.name,
-                "form": p.form,
-                "settings": p.settings,
-                "status": status,
-                "detail": detail,
-                "notes": p.notes,
-                "file": str(out),
-                "metrics": metrics,
-            }
+            ensembles = plan_ensembles(plans, args.ensemble, args.spread)
+        except Interrupted as exc:
+            raise exc.saying("while the ensembles were planned; nothing written") from None
+    actions = decide(plans, out, args.force, args.resume)
+    for p, a in zip(plans, actions, strict=True):
+        for note in p.notes:
+            say(f"topdrift: {p.case.name} {p.method.name}: {note}")
+        if a.note:
+            say(f"topdrift: {p.case.name} {p.method.name}: {a.note}")
+    with deferred() as stop:  # from here on a signal asks the runs to stop (stopping.py)
+        outcome = execute_batch(
+            plans, actions, out, stop=stop, ensembles=ensembles, flush_every=flush_every
         )
-    if args.json:
-        print(json.dumps({"runs": rows}, indent=2))
-    else:
-        from topdrift.benchmarks.cli.summary import print_table
+    try:
+        rows = result_rows(plans, actions, outcome.results, out, say=say)
+        if args.json:
+            print(json.dumps({"runs": rows}, indent=2))
+        else:
+            from topdrift.benchmarks.cli.summary import print_table
 
-        print_table(rows)
+            print_table(rows)
+    except Interrupted as exc:
+        raise exc.saying(f"the runs are in {out}; only their table was cut short") from None
     if stop.requested:
-        return EXIT_INTERRUPTED.get(stop.signum, 130)
+        say(stopped_line(stop, plans, actions, outcome, out, ensembles))
+        return stop.exit_status
     return 0 if all(r["status"] == "ok" for r in rows) else 1

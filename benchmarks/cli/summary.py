@@ -61,10 +61,20 @@ def print_table(rows: list[dict]) -> None:
 
 
 def run(args) -> int:
+    import sys
+
+    from topdrift.benchmarks.store.replacement import waiting
     from topdrift.benchmarks.store.writer import damage_is_an_error, list_runs, open_reader
 
     with open_reader(args.file) as f, damage_is_an_error(args.file):
         runs = list_runs(f)
+        pending = waiting(f)
+    if pending:  # a `run --force` that was stopped: its stored run is listed as it was
+        sys.stderr.write(
+            f"topdrift: {args.file}: {len(pending)} unfinished --force replacement(s) kept "
+            f"beside their stored runs ({', '.join(r[:8] for r in pending)}); `topdrift run` "
+            "of the same run with --resume continues one, with --force starts it again\n"
+        )
     rows = [
         {
             "run_id": r["run_id"],

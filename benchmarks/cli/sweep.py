@@ -4,10 +4,7 @@ methods x settings into one HDF5 file, computed in parallel, written by this pro
 from __future__ import annotations
 
 import os
-import signal
 from pathlib import Path
-
-EXIT_INTERRUPTED = {signal.SIGINT: 130, signal.SIGTERM: 143}
 
 
 def add_parser(sub) -> None:
@@ -26,7 +23,7 @@ def add_parser(sub) -> None:
         type=int,
         default=None,
         metavar="N",
-        help="local worker processes (default: the number of cores)",
+        help="local worker processes, 1 .. 4 per core (default: the number of cores)",
     )
     where.add_argument(
         "--scheduler",
@@ -37,41 +34,77 @@ def add_parser(sub) -> None:
     p.set_defaults(func=run)
 
 
+# More local workers than this many per core is refused: each is a Python process that loads
+# numba and the kernels (about 150 MB), and workers beyond the cores only take turns on them.
+MAX_JOBS_PER_CORE = 4
+
+
+def _jobs(requested: int | None) -> int:
+    import sys
+
+    from topdrift.benchmarks.errors import UserError
+
+    cores = os.cpu_count() or 1
+    if requested is None:
+        return cores
+    top = MAX_JOBS_PER_CORE * cores
+    if not 1 <= requested <= top:
+        raise UserError(
+            f"--jobs: need a whole number from 1 to {top} ({MAX_JOBS_PER_CORE} per core on "
+            f"this machine's {cores}), got {requested}"
+        )
+    if requested > cores:
+        sys.stderr.write(
+            f"topdrift: warning: --jobs {requested} on {cores} core(s): workers beyond the "
+            "cores take turns on them and make the sweep no faster\n"
+        )
+    return requested
+
+
+def stopped_line(outcome, out) -> str:
+    """What a stopped sweep finished and what is left, in one line."""
+    from topdrift.benchmarks.stopping import signal_name
+
+    written = len(outcome.finished)
+    dropped = f", {outcome.dropped} in the workers' hands dropped" if outcome.dropped else ""
+    before = f" ({len(outcome.reused)} were complete before)" if outcome.reused else ""
+    return (
+        f"topdrift: sweep stopped by {signal_name(outcome.signum)}: {written} of "
+        f"{outcome.todo} run(s) written to {out} this time{before}, {outcome.left} left"
+        f"{dropped}; run the same command again to complete the sweep"
+    )
+
+
 def run(args) -> int:
     import json
+    import sys
 
     from topdrift.benchmarks.cli.summary import print_table
-    from topdrift.benchmarks.errors import UserError
-    from topdrift.benchmarks.run.runner import StopFlag
+    from topdrift.benchmarks.stopping import Interrupted, deferred, exit_status
     from topdrift.benchmarks.store.writer import DEFAULT_FILE, list_runs, open_reader
     from topdrift.benchmarks.sweep.executor import run_sweep
     from topdrift.benchmarks.sweep.spec import read_sweep
 
+    jobs = _jobs(args.jobs)
     spec = read_sweep(args.sweep)
-    if args.jobs is not None and args.jobs < 1:
-        raise UserError(f"--jobs: need at least 1, got {args.jobs}")
-    jobs = args.jobs if args.jobs is not None else (os.cpu_count() or 1)
     out = Path(args.out) if args.out else DEFAULT_FILE.with_name(f"sweep-{spec.name}.h5")
-    stop = StopFlag()
-
-    def on_signal(signum, _frame):
-        stop.signum = signum
-
-    old = {s: signal.signal(s, on_signal) for s in EXIT_INTERRUPTED}
-    try:
+    # Sizing, planning and reaching the scheduler stop at once on a signal (nothing is
+    # written); once the file is open, the signal asks the sweep to stop (executor.py).
+    with deferred() as stop:
         outcome = run_sweep(spec, out, jobs=jobs, scheduler=args.scheduler, stop=stop)
-    finally:
-        for s, h in old.items():
-            signal.signal(s, h)
     ids = {j.run_id for j in outcome.jobs}
-    with open_reader(out) as f:
-        rows = [r for r in list_runs(f) if r["run_id"] in ids]
-    if args.json:
-        print(json.dumps({"sweep": spec.name, "file": str(out), "runs": rows}, indent=2))
-    else:
-        print_table(rows)
-    if stop.requested or outcome.interrupted:
-        return EXIT_INTERRUPTED.get(stop.signum, 130)
+    try:
+        with open_reader(out) as f:
+            rows = [r for r in list_runs(f) if r["run_id"] in ids]
+        if args.json:
+            print(json.dumps({"sweep": spec.name, "file": str(out), "runs": rows}, indent=2))
+        else:
+            print_table(rows)
+    except Interrupted as exc:
+        raise exc.saying(f"the sweep's runs are in {out}; only the table was cut short") from None
+    if outcome.interrupted:
+        sys.stderr.write(stopped_line(outcome, out) + "\n")
+        return exit_status(outcome.signum)
     # Diverged or singular runs are findings of a sweep (a ladder probes its limits); a run that
     # could not be computed at all is a failure.
     return 1 if outcome.errors else 0

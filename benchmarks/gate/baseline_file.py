@@ -13,6 +13,7 @@ import math
 import os
 from pathlib import Path
 
+from topdrift.benchmarks.cases.schema import LARGEST, SMALLEST
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.gate.measure import COUNT_METRICS, ERROR_METRICS, INFO_METRICS
 
@@ -21,25 +22,71 @@ FORMAT_VERSION = 1
 DEFAULT_FILE = Path("results") / "baseline.json"
 
 _NONFINITE = {"inf": math.inf, "-inf": -math.inf, "nan": math.nan}
+# Counts are int64 in the kernels; a count beyond that is no count topdrift wrote.
+MAX_COUNT = 2**63 - 1
+
+
+class BadNumber:
+    """A JSON number literal that is no finite float64 (1e400, NaN, Infinity) or no int64 count
+    (10**30): kept as its text so that the check of its key can name it, never computed with."""
+
+    def __init__(self, text: str):
+        self.text = text
+
+    def __repr__(self) -> str:
+        return self.text
+
+
+def _parse_float(text: str):
+    v = float(text)
+    return v if math.isfinite(v) else BadNumber(text)
+
+
+def _parse_int(text: str):
+    v = int(text)
+    return v if abs(v) <= MAX_COUNT else BadNumber(text)
 
 
 def _is_num(v) -> bool:
     return isinstance(v, (int, float)) and not isinstance(v, bool)
 
 
-_num = _is_num
+def _finite(v) -> bool:
+    return _is_num(v) and math.isfinite(v)
 
 
 def _num_or_none(v) -> bool:
+    """A metric as recorded: finite, or non-finite as the strings inf / -inf / nan decode to."""
     return v is None or _is_num(v)
+
+
+def _in_range(v) -> bool:
+    """A positive number in the range topdrift computes with (see cases/numbers.py)."""
+    return _finite(v) and SMALLEST <= v <= LARGEST
+
+
+def _in_range_or_none(v) -> bool:
+    return v is None or _in_range(v)
+
+
+def _non_negative(v) -> bool:
+    return _finite(v) and 0.0 <= v <= LARGEST
+
+
+def _non_negative_or_none(v) -> bool:
+    return v is None or _non_negative(v)
 
 
 def _int(v) -> bool:
     return isinstance(v, int) and not isinstance(v, bool)
 
 
-def _int_or_none(v) -> bool:
-    return v is None or _int(v)
+def _at_least_one(v) -> bool:
+    return _int(v) and 1 <= v <= MAX_COUNT
+
+
+def _count_or_none(v) -> bool:
+    return v is None or (_int(v) and 0 <= v <= MAX_COUNT)
 
 
 def _str(v) -> bool:
@@ -54,10 +101,13 @@ def _setting(v) -> bool:
     if not isinstance(v, dict):
         return False
     if set(v) == {"step"}:
-        return _is_num(v["step"])
-    return set(v) == {"rtol", "atol"} and _is_num(v["rtol"]) and _num_or_none(v["atol"])
+        return _in_range(v["step"])
+    return set(v) == {"rtol", "atol"} and _in_range(v["rtol"]) and _in_range_or_none(v["atol"])
 
 
+# Per key, what a value must be. Numbers the gate divides by or computes a horizon from are
+# positive and in range (a normalised timing of 0 would divide by zero); error metrics may be
+# non-finite, as a run can record them.
 RUN_KEYS = {
     "run_id": _str,
     "case": _str,
@@ -66,30 +116,30 @@ RUN_KEYS = {
     "setting": _setting,
     "status": _str,
     "detail": _str_or_none,
-    **{k: _int_or_none for k in COUNT_METRICS},
+    **{k: _count_or_none for k in COUNT_METRICS},
     **{k: _num_or_none for k in ERROR_METRICS},
     **{k: _num_or_none for k in INFO_METRICS},
-    "ns_per_step_norm": _num_or_none,
+    "ns_per_step_norm": _in_range_or_none,
 }
 TIMING_KEYS = {
     "run": _str,
-    "horizon": _num,
+    "horizon": _in_range,
     "status": _str,
     "detail": _str_or_none,
-    "steps": _int_or_none,
-    "repeats": _int,
-    "seconds": _num_or_none,
-    "ns_per_step": _num_or_none,
-    "ns_per_step_norm": _num_or_none,
-    "spread": _num_or_none,
+    "steps": _count_or_none,
+    "repeats": _at_least_one,
+    "seconds": _non_negative_or_none,
+    "ns_per_step": _in_range_or_none,
+    "ns_per_step_norm": _in_range_or_none,
+    "spread": _non_negative_or_none,
 }
 CALIBRATION_KEYS = {
     "kernel": _str,
     "clock": _str,
-    "iterations": _int,
-    "repeats": _int,
-    "ns_per_iteration": _num,
-    "spread": _num,
+    "iterations": _at_least_one,
+    "repeats": _at_least_one,
+    "ns_per_iteration": _in_range,
+    "spread": _non_negative,
 }
 SWEEP_KEYS = {"source": _str, "name": _str, "sha256": _str}
 VERSION_KEYS = ("topdrift", "python", "numpy", "scipy", "numba", "h5py", "cpu")
@@ -135,14 +185,43 @@ def _check_table(label: str, table, keys: dict) -> None:
     for k, ok in keys.items():
         if k not in table:
             raise UserError(f"{label}: {k}: missing")
+        _no_bad_number(f"{label}: {k}", table[k])
         if not ok(table[k]):
-            raise UserError(f"{label}: {k}: unexpected value {table[k]!r}")
+            raise UserError(f"{label}: {k}: unexpected value {table[k]!r}{_WHY.get(ok, '')}")
+
+
+_WHY = {
+    _in_range: f" (expected a positive number from {SMALLEST:g} to {LARGEST:g})",
+    _in_range_or_none: f" (expected null or a positive number from {SMALLEST:g} to {LARGEST:g})",
+    _non_negative: " (expected a finite number >= 0)",
+    _non_negative_or_none: " (expected null or a finite number >= 0)",
+    _count_or_none: " (expected null or a whole number >= 0)",
+    _at_least_one: " (expected a whole number >= 1)",
+    _setting: ' (expected {"step": H} or {"rtol": R, "atol": A or null}, each in range)',
+}
+
+
+def _no_bad_number(label: str, v) -> None:
+    """Refuse a number literal no float64 or int64 holds, wherever it sits in the value."""
+    if isinstance(v, BadNumber):
+        raise UserError(
+            f"{label}: {v.text} is not a finite float64 number (JSON numbers must be finite; "
+            'a non-finite metric is written as "inf", "-inf" or "nan")'
+        )
+    if isinstance(v, dict):
+        for k, x in v.items():
+            _no_bad_number(f"{label}.{k}", x)
+    elif isinstance(v, list):
+        for i, x in enumerate(v):
+            _no_bad_number(f"{label}[{i}]", x)
 
 
 def validate(data, label: str) -> dict:
     """The baseline as read, checked against format version 1 (raises UserError)."""
     if not isinstance(data, dict):
         raise UserError(f"{label}: not a baseline file (expected a JSON object)")
+    for k in ("format", "format_version", "created", "skipped"):
+        _no_bad_number(f"{label}: {k}", data.get(k))
     if data.get("format") != FORMAT:
         raise UserError(f"{label}: format: expected {FORMAT!r}, got {data.get('format')!r}")
     if data.get("format_version") != FORMAT_VERSION:
@@ -187,7 +266,12 @@ def read_baseline(path: Path) -> dict:
     except OSError as exc:
         raise UserError(f"{label}: cannot read: {exc.strerror or exc}") from None
     try:
-        data = json.loads(raw.decode("utf-8"))
+        data = json.loads(
+            raw.decode("utf-8"),
+            parse_float=_parse_float,
+            parse_int=_parse_int,
+            parse_constant=BadNumber,  # NaN, Infinity: not JSON, though Python reads them
+        )
     except UnicodeDecodeError as exc:
         raise UserError(f"{label}: not UTF-8 text (offset {exc.start})") from None
     except json.JSONDecodeError as exc:

@@ -20,14 +20,33 @@ import numpy as np
 
 from topdrift.benchmarks.choose.roundoff import perturbed_starts
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.run.runner import RunPlan, RunResult, _Buffers, make_run_id, run_attrs
+from topdrift.benchmarks.run.runner import (
+    MAX_STEPS,
+    RunPlan,
+    RunResult,
+    SampleBuffers,
+    make_run_id,
+    run_attrs,
+)
 from topdrift.benchmarks.run.sampling import S_ENERGY, S_P_PHI, S_P_PSI
-from topdrift.benchmarks.store.writer import _COMPRESSION, RunGroup, ensure_room
+from topdrift.benchmarks.store.writer import COMPRESSION, RUNS, RunGroup, ensure_room
 from topdrift.integrators.ensemble import EnsembleStepper
 
 MAX_MEMBERS = 100_000
-BATCH = 256  # samples buffered between writes
+BATCH = 256  # samples buffered between writes, fewer for a large ensemble:
+BATCH_BYTES = 64 << 20  # at most this much of ensemble rows (48 B a member) between writes
+MEMBER_BYTES = 48  # energy, p_phi, p_psi and the figure axis of one member at one sample
 FLUSH_S = 2.0  # and at least this often, so that a killed run leaves what it did
+# Steps over all members together: the budget of one run (runner.MAX_STEPS).
+MAX_MEMBER_STEPS = MAX_STEPS
+# Member-samples: every member's invariants and figure axis at every sample are 48 bytes of
+# ensemble datasets; 10^9 of them are 48 GB before compression.
+MAX_MEMBER_SAMPLES = 1e9
+# Member-steps per call of the ensemble kernel: a compiled kernel hears no signal until it
+# returns, so a long sample interval is advanced in pieces of whole steps, fixed by the step
+# count (never by the clock). The states do not depend on the pieces; a splitting's count of
+# sub-flow evaluations includes one closing half-step per piece, as in a single run.
+CHUNK_MEMBER_STEPS = 1 << 20
 
 
 @dataclass
@@ -57,6 +76,7 @@ def plan_ensemble(plan: RunPlan, members: int, spread: float) -> EnsemblePlan:
             f"{plan.method.name}: ensembles run on fixed-step methods (splittings "
             f"and Gauss-Legendre)"
         )
+    check_size(plan, members)
     settings = dict(plan.settings, ensemble=members, spread=spread)
     run_id = make_run_id(
         plan.case.toml_text, plan.method.name, plan.form, settings, plan.horizon, plan.samples
@@ -73,6 +93,61 @@ def plan_ensemble(plan: RunPlan, members: int, spread: float) -> EnsemblePlan:
     return EnsemblePlan(plan, members, spread, seed, run_id)
 
 
+def check_size(plan: RunPlan, members: int) -> None:
+    """Refuse, before any start is made, an ensemble over the limits above (one line)."""
+    steps = float(plan.settings["steps_per_sample"]) * (plan.samples - 1)
+    if members * steps > MAX_MEMBER_STEPS:
+        raise UserError(
+            f"--ensemble {members}: {members} members x {steps:.3g} steps is "
+            f"{members * steps:.3g} member-steps, more than the {MAX_MEMBER_STEPS:.0e} a run may "
+            "take; use fewer members, a longer step or a shorter horizon"
+        )
+    if members * plan.samples > MAX_MEMBER_SAMPLES:
+        raise UserError(
+            f"--ensemble {members}: {members} members x {plan.samples} samples is "
+            f"{members * plan.samples:.3g} member-samples ({48e-9 * members * plan.samples:.3g} "
+            f"GB of ensemble datasets), more than the {MAX_MEMBER_SAMPLES:.0e} a run may hold; "
+            "use fewer members or fewer --samples"
+        )
+
+
+def batch_rows(members: int) -> int:
+    """Samples buffered between writes (and the chunk rows of the ensemble datasets): BATCH,
+    fewer where BATCH rows of every member would pass BATCH_BYTES, so that memory stays bounded
+    and one write (which a stop waits for) takes well under a second."""
+    return max(1, min(BATCH, BATCH_BYTES // (MEMBER_BYTES * members)))
+
+
+# Members recorded between two looks at the stop flag: recording is one compiled call per
+# member, and 10^5 members take about a second.
+RECORD_PIECE = 4096
+
+
+def _advance(ens, plan: RunPlan, k: int, stop) -> np.ndarray | None:
+    """Advance the ensemble to sample k in pieces of at most CHUNK_MEMBER_STEPS member-steps;
+    None when a stop was asked for between two pieces (the run ends at sample k - 1)."""
+    per = int(plan.settings["steps_per_sample"])
+    piece = max(1, CHUNK_MEMBER_STEPS // ens.y.shape[0])
+    h = plan.stepper_settings["step"]
+    t_prev = plan.sample_time(k - 1)
+    done = 0
+    while per - done > piece:
+        done += piece
+        ens.advance_to(t_prev + done * h)
+        if stop is not None and stop.requested:
+            return None
+    return ens.advance_to(plan.sample_time(k))
+
+
+def _record_members(buf, form: int, Y: np.ndarray, p: np.ndarray, stop) -> bool:
+    """Record every member's sample into buf; False when a stop came first."""
+    for j in range(Y.shape[0]):
+        buf.record(form, Y[j], p, j)
+        if j % RECORD_PIECE == RECORD_PIECE - 1 and stop is not None and stop.requested:
+            return False
+    return True
+
+
 def _axis_spread(axes: np.ndarray) -> float:
     mean = axes.mean(axis=0)
     norm = np.linalg.norm(mean)
@@ -85,7 +160,10 @@ def _axis_spread(axes: np.ndarray) -> float:
     return float(math.sqrt(np.mean(ang * ang)))
 
 
-def execute_ensemble(ep: EnsemblePlan, f, *, progress=None, stop=None) -> RunResult:
+def execute_ensemble(
+    ep: EnsemblePlan, f, *, progress=None, stop=None, parent: str = RUNS
+) -> RunResult:
+    """Run an ensemble plan into the open store f, its group under `parent` (as runner.execute)."""
     plan = ep.base
     form, p, n, m = plan.form_code, plan.params, plan.samples, ep.members
     h = plan.stepper_settings["step"]
@@ -95,9 +173,10 @@ def execute_ensemble(ep: EnsemblePlan, f, *, progress=None, stop=None) -> RunRes
     ens = EnsembleStepper(plan.method, form, p, 0.0, Y0, h)
     attrs = run_attrs(plan)
     attrs.update(ensemble_members=m, ensemble_spread=ep.spread, ensemble_seed=ep.seed)
-    group = RunGroup.create(f, ep.run_id, attrs, Y0.shape[1], False, n)
+    group = RunGroup.create(f, ep.run_id, attrs, Y0.shape[1], False, n, parent)
     g = group.g.create_group("ensemble")
-    rows = max(1, min(BATCH, n))
+    per_write = batch_rows(m)
+    rows = max(1, min(per_write, n))
     for name, shape in (
         ("energy", (m,)),
         ("p_phi", (m,)),
@@ -111,9 +190,9 @@ def execute_ensemble(ep: EnsemblePlan, f, *, progress=None, stop=None) -> RunRes
             maxshape=(None, *shape),
             chunks=(rows, *shape),
             dtype="f8",
-            **_COMPRESSION,
+            **COMPRESSION,
         )
-    buf = _Buffers(m, Y0.shape[1])
+    buf = SampleBuffers(m, Y0.shape[1])
     first = {}
     worst = {"energy": 0.0, "p_phi": 0.0, "p_psi": 0.0}
     spreads: list[float] = []
@@ -143,10 +222,15 @@ def execute_ensemble(ep: EnsemblePlan, f, *, progress=None, stop=None) -> RunRes
         st = ens.status
         if k > 0:
             t0 = time.perf_counter()
-            st = ens.advance_to(tk)
+            st = _advance(ens, plan, k, stop)
             wall += time.perf_counter() - t0
-        for j in range(m):
-            buf.record(form, ens.y[j], p, j)
+            if st is None:
+                status = "interrupted"
+                break
+        # The start is always recorded whole: the metrics need it.
+        if not _record_members(buf, form, ens.y, p, stop if k > 0 else None):
+            status = "interrupted"  # sample k is dropped whole: the run ends at k - 1
+            break
         row = {
             "energy": buf.scal[:m, S_ENERGY].copy(),
             "p_phi": buf.scal[:m, S_P_PHI].copy(),
@@ -182,7 +266,7 @@ def execute_ensemble(ep: EnsemblePlan, f, *, progress=None, stop=None) -> RunRes
                 "ensemble/axis_spread": np.array([spread]),
             }
         )
-        if len(pending) >= BATCH or time.perf_counter() - last_write > FLUSH_S:
+        if len(pending) >= per_write or time.perf_counter() - last_write > FLUSH_S:
             write()
         if progress:
             progress.update(k + 1, int(ens.counters[0, 0]))
@@ -217,4 +301,4 @@ def execute_ensemble(ep: EnsemblePlan, f, *, progress=None, stop=None) -> RunRes
     group.flush()
     if progress:
         progress.end(status)
-    return RunResult(ep.run_id, status, metrics, detail)
+    return RunResult(ep.run_id, status, metrics, detail, samples_stored=group.n_stored)

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import h5py
 
 from topdrift.benchmarks.run.runner import RunPlan, execute
-from topdrift.benchmarks.store.writer import FORMAT, FORMAT_VERSION, _attr_str
+from topdrift.benchmarks.store.writer import FORMAT, FORMAT_VERSION, attr_text
 
 
 @dataclass
@@ -35,12 +35,13 @@ def new_memory_store() -> tuple[h5py.File, io.BytesIO]:
     return f, buf
 
 
-def run_in_memory(plan: RunPlan) -> MemoryRun:
-    """Execute a plan into a fresh in-memory store; never touches the disk."""
+def run_in_memory(plan: RunPlan, stop=None) -> MemoryRun:
+    """Execute a plan into a fresh in-memory store; never touches the disk. A stop request
+    (a StopFlag) ends the run as `interrupted` at its next sample."""
     f, buf = new_memory_store()
     try:
         # flush_every is irrelevant in memory; a large value keeps batches large.
-        result = execute(plan, f, flush_every=3600.0)
+        result = execute(plan, f, stop=stop, flush_every=3600.0)
     finally:
         f.close()
     return MemoryRun(result.run_id, result.status, result.metrics, result.detail, buf.getvalue())
@@ -53,7 +54,7 @@ def copy_run(image: bytes, run_id: str, dst: h5py.File) -> None:
     that no reader takes for finished; an unfinished run of the same id is replaced."""
     with h5py.File(io.BytesIO(image), "r") as src:
         g = src["runs"][run_id]
-        final = _attr_str(g, "status")
+        final = attr_text(g, "status")
         runs = dst.require_group("runs")
         if run_id in runs:
             del runs[run_id]
@@ -67,4 +68,4 @@ def copy_run(image: bytes, run_id: str, dst: h5py.File) -> None:
 
 def metrics_of(image: bytes, run_id: str) -> dict:
     with h5py.File(io.BytesIO(image), "r") as src:
-        return json.loads(_attr_str(src["runs"][run_id], "metrics") or "{}")
+        return json.loads(attr_text(src["runs"][run_id], "metrics") or "{}")

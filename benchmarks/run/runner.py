@@ -19,7 +19,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from topdrift.benchmarks.cases.schema import LARGEST, MAX_SAMPLES, SMALLEST
+from topdrift.benchmarks.cases.numbers import positive
+from topdrift.benchmarks.cases.schema import MAX_SAMPLES
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.metrics import Accumulator, finish
 from topdrift.benchmarks.run.sampling import (
@@ -30,7 +31,15 @@ from topdrift.benchmarks.run.sampling import (
     S_P_PSI,
     record_sample,
 )
-from topdrift.benchmarks.store.writer import CHUNK_ROWS, NoRoom, RunGroup, ensure_room, utc_now
+from topdrift.benchmarks.stopping import StopFlag
+from topdrift.benchmarks.store.writer import (
+    CHUNK_ROWS,
+    RUNS,
+    NoRoom,
+    RunGroup,
+    ensure_room,
+    utc_now,
+)
 from topdrift.integrators import (
     ST_DIVERGED,
     ST_NO_CONVERGENCE,
@@ -48,17 +57,6 @@ from topdrift.models import FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
 FLUSH_EVERY_S = 2.0
 BATCH_ROWS = 4096
 CHUNK_STEPS = 1 << 20  # steps per call inside a long fixed-step interval (see _advance)
-
-
-@dataclass
-class StopFlag:
-    """Set by a signal handler; the runner looks at it after every sample."""
-
-    signum: int = 0
-
-    @property
-    def requested(self) -> bool:
-        return self.signum != 0
 
 
 @dataclass
@@ -99,21 +97,7 @@ class RunResult:
     status: str
     metrics: dict
     detail: str = ""
-
-
-def _positive(name: str, v) -> float:
-    try:
-        v = float(v)
-    except (TypeError, ValueError):
-        raise UserError(f"{name}: expected a number, got {v!r}") from None
-    if not (math.isfinite(v) and v > 0.0):
-        raise UserError(f"{name}: must be a positive finite number, got {v!r}")
-    if not SMALLEST <= v <= LARGEST:  # the range case files keep to (see case.py)
-        raise UserError(
-            f"{name}: {v:g} is outside the range topdrift computes with "
-            f"({SMALLEST:g} to {LARGEST:g} in SI units)"
-        )
-    return v
+    samples_stored: int | None = None  # of an interrupted run: where it stopped
 
 
 def steps_per_interval(interval: float, step: float) -> int:
@@ -177,7 +161,7 @@ def plan_run(
     """Validate a run and settle its settings; raises UserError or MethodRefused (exit 2)."""
     method = get_method(method_name)
     body = case.body
-    horizon = _positive("--horizon", case.horizon if horizon is None else horizon)
+    horizon = positive("--horizon", case.horizon if horizon is None else horizon)
     n = case.samples if samples is None else samples
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 2:
         raise UserError(f"--samples: need a whole number of at least 2 (t = 0 and T), got {n!r}")
@@ -195,7 +179,7 @@ def plan_run(
             raise UserError(f"{method.name}: a fixed-step method needs --step")
         if rtol is not None or atol is not None:
             raise UserError(f"{method.name}: a fixed-step method takes --step, not --rtol/--atol")
-        h_req = _positive("--step", step)
+        h_req = positive("--step", step)
         per = steps_per_interval(interval, h_req)
         h = interval / per
         settings = {"step": h, "step_requested": h_req, "steps_per_sample": per}
@@ -211,8 +195,8 @@ def plan_run(
             raise UserError(f"{method.name}: an adaptive method takes --rtol [--atol], not --step")
         if rtol is None:
             raise UserError(f"{method.name}: an adaptive method needs --rtol")
-        r = _positive("--rtol", rtol)
-        a = r * 1e-3 if atol is None else _positive("--atol", atol)
+        r = positive("--rtol", rtol)
+        a = r * 1e-3 if atol is None else positive("--atol", atol)
         settings = {"rtol": r, "atol": a}
         stepper_settings = {"rtol": r, "atol": a}
     method.check(body, form, stepper_settings)
@@ -330,7 +314,7 @@ class ExactFailed(RuntimeError):
     """The exact solution raised or returned non-finite values at some sample times."""
 
 
-class _Buffers:
+class SampleBuffers:
     """Preallocated sample rows between flushes, plus the scratch arrays of record_sample."""
 
     def __init__(self, rows: int, width: int):
@@ -376,7 +360,7 @@ def warm_up(plan: RunPlan) -> None:
     else:
         w.advance_to(interval * 1e-6)
     w.snapshot()
-    b = _Buffers(1, plan.y0.shape[0])
+    b = SampleBuffers(1, plan.y0.shape[0])
     b.record(plan.form_code, plan.y0, plan.params, 0)
 
 
@@ -514,19 +498,23 @@ def execute(
     progress=None,
     stop: StopFlag | None = None,
     flush_every: float = FLUSH_EVERY_S,
+    parent: str = RUNS,
 ) -> RunResult:
-    """Run a plan into the open store f (creating or continuing its group)."""
+    """Run a plan into the open store f (creating or continuing its group under `parent`:
+    /runs, or /replacing for a run that is to replace a stored one, store/replacement.py)."""
     stop = stop or StopFlag()
     has_exact = plan.exact is not None
     width = FORM_SIZE[plan.form_code]
     if resume:
-        group = RunGroup(f, plan.run_id)
+        group = RunGroup(f, plan.run_id, parent)
         run = _Run(plan, group)
         run.restore()
         group.set(status="running")
         group.flush()
     else:
-        group = RunGroup.create(f, plan.run_id, run_attrs(plan), width, has_exact, plan.samples)
+        group = RunGroup.create(
+            f, plan.run_id, run_attrs(plan), width, has_exact, plan.samples, parent
+        )
         run = _Run(plan, group)
     if not resume:
         run.stepper = plan.method.start(
@@ -553,7 +541,7 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
     p = plan.params
     n = plan.samples
     s = run.stepper
-    buf = _Buffers(min(BATCH_ROWS, n), FORM_SIZE[form])
+    buf = SampleBuffers(min(BATCH_ROWS, n), FORM_SIZE[form])
     j = 0
     status = "ok"
     detail = ""
@@ -689,7 +677,7 @@ def _interrupted(plan: RunPlan, run: _Run, progress) -> RunResult:
     run.group.flush()
     if progress:
         progress.end("interrupted")
-    return RunResult(plan.run_id, "interrupted", metrics)
+    return RunResult(plan.run_id, "interrupted", metrics, samples_stored=run.k)
 
 
 def _advance(plan: RunPlan, run: _Run, tk: float, stop: StopFlag, progress) -> int | None:

@@ -16,6 +16,7 @@ import os
 import numpy as np
 
 from topdrift.benchmarks.errors import UserError
+from topdrift.benchmarks.store.paths import not_a_file
 
 FORMAT_NAME = "topdrift-runs"
 FORMAT_VERSION = 1  # the newest layout this reader understands
@@ -54,8 +55,9 @@ def open_runs(path: str):
     path = os.fspath(path)
     if not os.path.exists(path):
         raise UserError(f"runs file '{path}' does not exist")
-    if os.path.isdir(path):
-        raise UserError(f"runs file '{path}' is a directory, not an HDF5 file")
+    wrong = not_a_file(path, "an HDF5 file")
+    if wrong:
+        raise UserError(f"runs file {wrong}")
     try:
         is_hdf5 = h5py.is_hdf5(path)
     except OSError as exc:

@@ -17,6 +17,7 @@ import h5py
 import numpy as np
 
 from topdrift.benchmarks.errors import UserError
+from topdrift.benchmarks.store.paths import not_a_file
 
 FORMAT = "topdrift-runs"
 FORMAT_VERSION = 1
@@ -38,8 +39,13 @@ SAMPLE_DATASETS = {
 }
 EXACT_DATASETS = {"exact/euler": 3, "exact/axis": 3}
 CHUNK_ROWS = 4096
+# Groups at the top of a run store. /runs holds one group per run. /replacing holds a run that
+# `run --force` computes to replace a stored run of the same id: it is moved into /runs only
+# once complete, so an interrupted --force leaves the stored run as it was (replacement.py).
+RUNS = "runs"
+REPLACING = "replacing"
 # gzip is in every HDF5 build (lzf is h5py's own); level 1 with shuffle costs little time.
-_COMPRESSION = {"compression": "gzip", "compression_opts": 1, "shuffle": True}
+COMPRESSION = {"compression": "gzip", "compression_opts": 1, "shuffle": True}
 
 
 def _open(path: Path, mode: str) -> h5py.File:
@@ -164,7 +170,8 @@ def ensure_room(f: h5py.File, nbytes: float, what: str) -> None:
         )
 
 
-def _attr_str(g, name: str, default=None):
+def attr_text(g, name: str, default=None):
+    """An attribute of a group, bytes decoded to str (h5py gives either, by how it was written)."""
     v = g.attrs.get(name, default)
     return v.decode() if isinstance(v, bytes) else v
 
@@ -173,6 +180,9 @@ def open_reader(path: Path) -> h5py.File:
     """Open a run store read-only, checking its format. Does not take the writer's lock, so that
     a file being written can be read up to its last flush."""
     path = Path(path)
+    wrong = not_a_file(path)
+    if wrong:
+        raise UserError(wrong)
     if not path.is_file():
         raise UserError(f"{path}: no such file")
     try:
@@ -204,25 +214,30 @@ def check_headers(f: h5py.File) -> None:
     f.visititems(visit)
 
 
-def existing_status(path: Path, run_id: str) -> tuple[str | None, int]:
-    """(status, samples stored) of a run in a file, (None, 0) when the file or run is absent.
-    Raises UserError when the file exists but is not a run store; never writes."""
+def existing_status(path: Path, run_id: str, parent: str = RUNS) -> tuple[str | None, int]:
+    """(status, samples stored) of a run in a file (under /runs, or the group `parent`), (None,
+    0) when the file or run is absent. Raises UserError when the file exists but is not a run
+    store; never writes."""
     path = Path(path)
-    if path.is_dir():
-        raise UserError(f"{path}: is a directory, not a results file")
+    wrong = not_a_file(path)
+    if wrong:
+        raise UserError(wrong)
     if not path.exists():
         return None, 0
     with open_reader(path) as f, damage_is_an_error(path):
         check_headers(f)
-        g = f.get(f"runs/{run_id}")
+        g = f.get(f"{parent}/{run_id}")
         if g is None:
             return None, 0
-        return _attr_str(g, "status"), int(g["t"].shape[0])
+        return attr_text(g, "status"), int(g["t"].shape[0])
 
 
 def open_writer(path: Path) -> h5py.File:
     """Open (or create) a run store for writing; results/ and the like are created as needed."""
     path = Path(path)
+    wrong = not_a_file(path)
+    if wrong:
+        raise UserError(wrong)
     if path.exists():
         # HDF5 opens an empty or foreign file in r+ mode and writes a superblock into it: look
         # before opening, so that such a file is refused as it is.
@@ -285,12 +300,13 @@ def _get_all(g: h5py.Group) -> dict:
 
 
 class RunGroup:
-    """One run's group in an open, writable store."""
+    """One run's group in an open, writable store (under /runs, or under `parent`)."""
 
-    def __init__(self, f: h5py.File, run_id: str):
+    def __init__(self, f: h5py.File, run_id: str, parent: str = RUNS):
         self.f = f
         self.run_id = run_id
-        self.g = f["runs"][run_id]
+        self.parent = parent
+        self.g = f[parent][run_id]
 
     @classmethod
     def create(
@@ -301,9 +317,11 @@ class RunGroup:
         state_width: int,
         has_exact: bool,
         samples: int,
+        parent: str = RUNS,
     ) -> RunGroup:
+        """A new, empty group for the run, replacing one of the same id under `parent`."""
         ensure_room(f, 64 * 1024, f"run {run_id}")
-        runs = f["runs"]
+        runs = f.require_group(parent)
         if run_id in runs:
             del runs[run_id]
         g = runs.create_group(run_id)
@@ -321,14 +339,14 @@ class RunGroup:
             maxshape = (None,) if k == 0 else (None, k)
             chunks = (rows,) if k == 0 else (rows, k)
             g.create_dataset(
-                name, shape=shape, maxshape=maxshape, chunks=chunks, dtype="f8", **_COMPRESSION
+                name, shape=shape, maxshape=maxshape, chunks=chunks, dtype="f8", **COMPRESSION
             )
         f.flush()
-        return cls(f, run_id)
+        return cls(f, run_id, parent)
 
     @property
     def status(self) -> str:
-        return _attr_str(self.g, "status")
+        return attr_text(self.g, "status")
 
     @property
     def n_stored(self) -> int:
@@ -385,7 +403,7 @@ class RunGroup:
         self.g.attrs["metrics"] = json.dumps(metrics)
 
     def attr(self, name: str, default=None):
-        return _attr_str(self.g, name, default)
+        return attr_text(self.g, name, default)
 
     def flush(self) -> None:
         self.f.flush()
@@ -402,7 +420,7 @@ def list_runs(f: h5py.File) -> list[dict]:
             raise OSError(f"the group of run {run_id} cannot be opened")
         row = {"run_id": run_id}
         for k in g.attrs:
-            v = _attr_str(g, k)
+            v = attr_text(g, k)
             if k in ("settings", "metrics", "versions"):
                 try:
                     v = json.loads(v)

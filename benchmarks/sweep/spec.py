@@ -20,13 +20,15 @@
 
 from __future__ import annotations
 
-import math
 import re
 import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
+from topdrift.benchmarks.cases.numbers import positive
+from topdrift.benchmarks.cases.schema import MAX_SAMPLES
 from topdrift.benchmarks.errors import UserError
+from topdrift.benchmarks.run.runner import MAX_STEPS
 
 TOP_KEYS = (
     "name",
@@ -64,19 +66,18 @@ class SweepSpec:
     max_steps: float
     per_method: dict[str, dict] = field(default_factory=dict)
     path: Path | None = None
+    label: str = ""  # how messages name the sweep file (as it was given)
 
 
 def _fail(label: str, key: str, what: str):
     raise UserError(f"{label}: {key}: {what}")
 
 
-def _number(label, key, v, *, positive=True) -> float:
+def _number(label, key, v) -> float:
+    """A positive number in the range topdrift computes with (cases/numbers.py)."""
     if isinstance(v, bool) or not isinstance(v, (int, float)):
         _fail(label, key, f"expected a number, got {type(v).__name__}")
-    v = float(v)
-    if not math.isfinite(v) or (positive and v <= 0.0):
-        _fail(label, key, f"must be a positive finite number, got {v!r}")
-    return v
+    return positive(f"{label}: {key}", v)
 
 
 def _ladder(label, key, v) -> list[float] | str:
@@ -129,8 +130,8 @@ def parse_sweep(text: str, label: str, base: Path | None = None) -> SweepSpec:
     samples = None
     if "samples" in data:
         s = data["samples"]
-        if isinstance(s, bool) or not isinstance(s, int) or s < 2:
-            _fail(label, "samples", f"expected a whole number of at least 2, got {s!r}")
+        if isinstance(s, bool) or not isinstance(s, int) or not 2 <= s <= MAX_SAMPLES:
+            _fail(label, "samples", f"expected a whole number from 2 to {MAX_SAMPLES}, got {s!r}")
         samples = s
     rungs = data.get("rungs", 4)
     if isinstance(rungs, bool) or not isinstance(rungs, int) or not 1 <= rungs <= 50:
@@ -165,10 +166,18 @@ def parse_sweep(text: str, label: str, base: Path | None = None) -> SweepSpec:
         if "atol_ratio" in data
         else None,
         rungs=rungs,
-        max_steps=_number(label, "max_steps", data.get("max_steps", 2e7)),
+        max_steps=_max_steps(label, data.get("max_steps", 2e7)),
         per_method=per_method,
         path=base,
+        label=label,
     )
+
+
+def _max_steps(label, v) -> float:
+    v = _number(label, "max_steps", v)
+    if v > MAX_STEPS:
+        _fail(label, "max_steps", f"at most {MAX_STEPS:.0e} (the most steps a run may take)")
+    return v
 
 
 def read_sweep(spec: str) -> SweepSpec:

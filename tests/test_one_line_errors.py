@@ -1,0 +1,124 @@
+"""Inputs that ended in a traceback (exit 1, which CI reads as a regression) or in a misleading
+message, each now one line naming what is wrong, exit 2, nothing written: command-line numbers
+range-checked as `run` checks them, baseline files with numbers no float64 holds or a
+normalised timing of 0, and paths that exist but are not files (a directory, a named pipe)."""
+
+from __future__ import annotations
+
+import json
+import os
+from pathlib import Path
+
+import pytest
+from test_cli_run import TOP_TOML, write
+
+from topdrift.benchmarks.cli import entry as cli
+
+BASELINE = Path(__file__).resolve().parents[1] / "results" / "baseline.json"
+
+
+def one_line(capsys) -> str:
+    err = capsys.readouterr().err
+    lines = err.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("topdrift: error: "), err
+    assert "Traceback" not in err
+    return lines[0]
+
+
+def main(argv) -> int:
+    try:
+        return cli.main(argv)
+    except SystemExit as exc:  # argparse's refusals
+        return exc.code
+
+
+@pytest.mark.parametrize(
+    ("extra", "says"),
+    [
+        (["--horizon", "inf"], "--horizon: must be a positive finite number, got inf"),
+        (["--horizon", "1e400"], "--horizon: must be a positive finite number"),
+        (["--horizon", "-2"], "--horizon: must be a positive finite number"),
+        (["--horizon", "1e90"], "samples, more than 10000000; give --samples"),
+        (["--target", "nan"], "--target: must be a positive finite number, got nan"),
+        (["--target", "1e-300"], "--target: 1e-300 is outside the range"),
+        (["--samples", "1"], "--samples: need a whole number of samples from 2 to 10000000"),
+        (["--samples", "100000000"], "--samples: need a whole number of samples"),
+    ],
+)
+def test_pick_numbers_are_range_checked_as_run_checks_them(capsys, extra, says):
+    argv = ["pick", "cusped-release", "--target", "1e-6", "--methods", "leapfrog", *extra]
+    assert main(argv) == 2
+    assert says in one_line(capsys)
+
+
+def _baseline(tmp_path, edit) -> Path:
+    text = edit(BASELINE.read_text())
+    path = tmp_path / "baseline.json"
+    path.write_text(text)
+    return path
+
+
+def _set_first(key: str, value: str):
+    """Replace the value of the first `"key": number` in the JSON text by `value`, verbatim
+    (json.dumps cannot write 1e400 or NaN, which is the point)."""
+
+    def edit(text: str) -> str:
+        data = json.loads(text)
+        marker = "@@VALUE@@"
+        for section in ("runs", "timings"):
+            for rec in data[section].values():
+                if key in rec:
+                    rec[key] = marker
+                    return json.dumps(data).replace(f'"{marker}"', value, 1)
+        data["calibration"][key] = marker
+        return json.dumps(data).replace(f'"{marker}"', value, 1)
+
+    return edit
+
+
+@pytest.mark.parametrize(
+    ("key", "value", "says"),
+    [
+        ("energy_rel_max", "1e400", "energy_rel_max: 1e400 is not a finite float64 number"),
+        ("horizon", "1e400", "horizon: 1e400 is not a finite float64 number"),
+        ("steps", "1" + "0" * 30, "steps: 1000000000000000000000000000000 is not"),
+        ("energy_rel_max", "NaN", "energy_rel_max: NaN is not a finite float64 number"),
+        ("ns_per_step_norm", "0", "ns_per_step_norm: unexpected value 0 (expected null or a pos"),
+        ("ns_per_iteration", "0", "calibration: ns_per_iteration: unexpected value 0"),
+        ("spread", "-1", "spread: unexpected value -1"),
+        ("repeats", "0", "repeats: unexpected value 0"),
+    ],
+)
+def test_a_baseline_with_numbers_out_of_range_is_one_line(tmp_path, capsys, key, value, says):
+    path = _baseline(tmp_path, _set_first(key, value))
+    assert main(["gate", "--baseline", str(path)]) == 2
+    line = one_line(capsys)
+    assert line.startswith(f"topdrift: error: {path}: ") and says in line, line
+
+
+def test_the_committed_baseline_still_reads():
+    from topdrift.benchmarks.gate.baseline_file import read_baseline
+
+    data = read_baseline(BASELINE)
+    assert data["format_version"] == 1 and data["runs"]
+
+
+def test_paths_that_are_not_files_are_named_for_what_they_are(tmp_path, capsys):
+    folder = tmp_path / "folder"
+    folder.mkdir()
+    fifo = tmp_path / "pipe.h5"
+    os.mkfifo(fifo)  # opening it would wait for a writer: every command must look first
+    assert main(["summary", str(folder)]) == 2
+    assert one_line(capsys) == f"topdrift: error: {folder}: is a directory, not a results file"
+    assert main(["summary", str(fifo)]) == 2
+    assert "is a named pipe (FIFO), not a results file" in one_line(capsys)
+    case = write(tmp_path, "top.toml", TOP_TOML)
+    run = ["run", str(case), "--method", "leapfrog", "--step", "0.01", "--out", str(fifo)]
+    assert main(run) == 2
+    assert "is a named pipe (FIFO), not a results file" in one_line(capsys)
+    for command in (["plot", str(fifo), "--kind", "drift"], ["report", str(fifo), "--out", "r"]):
+        assert main(command) == 2
+        assert "is a named pipe (FIFO)" in one_line(capsys)
+    assert main(["sweep", "quick", "--out", str(fifo), "--jobs", "1"]) == 2
+    assert "is a named pipe (FIFO), not a results file" in one_line(capsys)
+    assert not Path("r").exists()
