@@ -18,10 +18,9 @@ from test_cli_run import TOP_TOML, dataset_hashes, run_json, topdrift, write
 
 from topdrift.benchmarks.cases.schema import parse_case
 from topdrift.benchmarks.cli import entry as cli
-from topdrift.benchmarks.run import runner as runner_mod
 from topdrift.benchmarks.run.runner import execute, plan_run
 from topdrift.benchmarks.store.writer import open_writer
-from topdrift.integrators import ST_STEP_UNDERFLOW
+from topdrift.integrators import ST_STEP_UNDERFLOW, Method
 
 # Long enough that the signal lands mid-run (a few seconds), short enough for CI.
 SETTINGS = {
@@ -196,25 +195,37 @@ def test_degenerate_exact_solution_is_compared_or_noted_never_nan(tmp_path, caps
             assert np.all(np.isfinite(g["exact/axis"][()]))
 
 
-def test_step_underflow_is_a_failed_run_that_says_so(tmp_path, monkeypatch):
+class _UnderflowAtFourthSample(Method):
+    """The same method, whose stepper reports ST_STEP_UNDERFLOW when asked for its fourth
+    sample (the runner asks once per sample interval for an adaptive method)."""
+
+    def __init__(self, inner: Method):
+        self.inner = inner
+        self.info = inner.info
+
+    def start(self, form, params, t0, y0, settings):
+        s = self.inner.start(form, params, t0, y0, settings)
+        real, calls = s.advance_to, []
+
+        def advance_to(t_end):
+            calls.append(t_end)
+            if len(calls) < 4:
+                return real(t_end)
+            s.status, s.t_fail = ST_STEP_UNDERFLOW, float(s.t)
+            return ST_STEP_UNDERFLOW
+
+        s.advance_to = advance_to
+        return s
+
+
+def test_step_underflow_is_a_failed_run_that_says_so(tmp_path):
     # The kernels stop with ST_STEP_UNDERFLOW when the step falls below 10 ulp of t (see
     # integrators/rk_embedded_kernel.py). A real trigger needs a singular right-hand side the
     # body form does not have, so the stepper is made to report it after a few samples; what is
     # checked is the runner's side: status, time and a detail a user can act on.
     case = parse_case(write(tmp_path, "top.toml", TOP_TOML).read_text(), "top.toml")
     plan = plan_run(case, "rk45", rtol=1e-8, form="body")
-    real_advance = runner_mod._advance
-    calls = {"n": 0}
-
-    def advance(plan, run, tk, stop, progress):
-        calls["n"] += 1
-        if calls["n"] < 4:
-            return real_advance(plan, run, tk, stop, progress)
-        s = run.stepper
-        s.status, s.t_fail = ST_STEP_UNDERFLOW, float(s.t)
-        return ST_STEP_UNDERFLOW
-
-    monkeypatch.setattr(runner_mod, "_advance", advance)
+    plan.method = _UnderflowAtFourthSample(plan.method)
     f = open_writer(tmp_path / "r.h5")
     try:
         result = execute(plan, f)
