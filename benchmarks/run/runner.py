@@ -20,6 +20,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from topdrift.benchmarks.cases.schema import LARGEST, MAX_SAMPLES, SMALLEST
+from topdrift.benchmarks.cases.time_scales import fastest_rate
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.loop import (
     STOPPED,
@@ -267,21 +268,6 @@ def plan_run(
 # DESIGN.md), days for the others. A horizon that needs more is refused before anything runs,
 # instead of keeping a machine busy for ever.
 MAX_STEPS = 1e12
-
-
-def fastest_rate(case) -> float:
-    """The fastest angular rate of the case at its start (rad/s): the body's angular velocity
-    |w| = |I^-1 m|, or the pendulum rate sqrt(M g |chi| / I_min) of the gravity torque, whichever
-    is larger. An explicit method following a rotation or oscillation at rate w needs h w below
-    a small constant (its stability interval on the imaginary axis, below 2 pi for every method
-    here: common practice), and any method needs about one step per turn to resolve it."""
-    body = case.body
-    y = case.body_state()
-    w = np.asarray(y[4:7], dtype=np.float64) / np.asarray(body.inertia, dtype=np.float64)
-    spin = float(np.sqrt(np.sum(w * w)))
-    lever = float(np.sqrt(np.sum(np.asarray(body.com, dtype=np.float64) ** 2)))
-    swing = math.sqrt(body.mass * body.gravity * lever / min(body.inertia))
-    return max(spin, swing)
 
 
 def _check_budget(case, method, horizon: float, n: int, settings: dict) -> None:
