@@ -1,4 +1,4 @@
-"""What `topdrift describe` reports about a case, as one plain dict (the JSON contract in the
+"""What `topdrift describe` reports about a case, as one plain dict (the JSON contract in
 docs/case-files.md); the command renders the same dict as text."""
 
 from __future__ import annotations
