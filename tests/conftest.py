@@ -1,14 +1,16 @@
 """Fixtures shared by the test files: the command line run in this process, the tiny top as a
-case file, and a method swapped in the registry for one test."""
+case file, a method swapped in the registry for one test, and a run asked to stop."""
 
 from __future__ import annotations
 
 import json
+import signal
 
 import pytest
 from tiny_cases import TOP_TOML, write_case
 
 from topdrift.benchmarks.cli import entry as cli_entry
+from topdrift.benchmarks.run.runner import StopFlag
 from topdrift.integrators import UnknownMethod, get, register, unregister
 
 
@@ -68,3 +70,35 @@ def swap_method():
             unregister(name)
         else:
             register(previous, replace=True)
+
+
+class _StopAt:
+    """A progress sink that asks the run to stop once it has taken `k` samples."""
+
+    def __init__(self, stop: StopFlag, k: int):
+        self.stop, self.k = stop, k
+
+    def begin(self, *_):
+        pass
+
+    def flushed(self, *_):
+        pass
+
+    def end(self, *_):
+        pass
+
+    def update(self, k, _steps):
+        if k >= self.k:
+            self.stop.signum = signal.SIGINT
+
+
+@pytest.fixture
+def stop_at():
+    """stop_at(k) -> (stop flag, progress sink) for execute(): the sink sets the flag, as a
+    SIGINT would, once the run has taken k samples."""
+
+    def make(k: int) -> tuple[StopFlag, _StopAt]:
+        stop = StopFlag()
+        return stop, _StopAt(stop, k)
+
+    return make

@@ -253,37 +253,15 @@ def test_step_underflow_is_a_failed_run_that_says_so(tmp_path):
         assert g.attrs["status"] == "failed" and g["t"].shape == (4,)
 
 
-class _StopAt:
-    """A progress sink that asks the run to stop once it has taken `k` samples."""
-
-    def __init__(self, stop, k):
-        self.stop, self.k = stop, k
-
-    def begin(self, *_):
-        pass
-
-    def flushed(self, *_):
-        pass
-
-    def end(self, *_):
-        pass
-
-    def update(self, k, _steps):
-        if k >= self.k:
-            self.stop.signum = signal.SIGINT
-
-
-def test_resume_refuses_a_file_that_lost_samples_before_its_checkpoint(tmp_path, capsys):
-    from topdrift.benchmarks.run.runner import StopFlag
-
+def test_resume_refuses_a_file_that_lost_samples_before_its_checkpoint(tmp_path, capsys, stop_at):
     path = write_case(tmp_path, "top.toml", TOP_TOML)
     case = parse_case(path.read_text(), str(path))
     plan = plan_run(case, "leapfrog", step=0.01)
     out = tmp_path / "r.h5"
-    stop = StopFlag()
+    stop, progress = stop_at(5)
     f = open_writer(out)
     try:
-        r = execute(plan, f, stop=stop, progress=_StopAt(stop, 5), flush_every=0.0)
+        r = execute(plan, f, stop=stop, progress=progress, flush_every=0.0)
     finally:
         f.close()
     assert r.status == "interrupted"
