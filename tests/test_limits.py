@@ -10,7 +10,8 @@ import time
 
 import pytest
 from sweep_grid import N_RUNS, N_SKIPPED, write_grid
-from test_cli_run import TOP_TOML, write
+from tiny_cases import TOP_TOML
+from tiny_cases import write_case as write
 
 from topdrift.benchmarks.cli import entry as cli
 from topdrift.benchmarks.sweep.executor import expand

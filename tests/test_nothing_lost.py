@@ -13,7 +13,9 @@ import zlib
 
 import h5py
 import pytest
-from test_cli_run import TOP_TOML, run_json, topdrift, write
+from run_files import topdrift_process as topdrift
+from tiny_cases import TOP_TOML
+from tiny_cases import write_case as write
 
 from topdrift.benchmarks.cli import entry as cli
 
@@ -69,7 +71,9 @@ def _interrupted_force(case, out, sig):
 @pytest.mark.parametrize(
     "sig", [signal.SIGINT, signal.SIGTERM, signal.SIGKILL], ids=["SIGINT", "SIGTERM", "SIGKILL"]
 )
-def test_an_interrupted_force_keeps_the_stored_run_bit_for_bit(stored, tmp_path, capsys, sig):
+def test_an_interrupted_force_keeps_the_stored_run_bit_for_bit(
+    stored, tmp_path, capsys, command_json, sig
+):
     case, ref, run_id = stored
     out = tmp_path / "runs.h5"
     out.write_bytes(ref.read_bytes())
@@ -92,7 +96,7 @@ def test_an_interrupted_force_keeps_the_stored_run_bit_for_bit(stored, tmp_path,
     # not even opened for writing.
     file_before = out.read_bytes()
     capsys.readouterr()
-    rc, doc = run_json(capsys, [str(case), *LONG, "--out", str(out)])
+    rc, doc, _ = command_json("run", str(case), *LONG, "--out", str(out))
     assert rc == 0 and doc["runs"][0]["status"] == "ok"
     assert out.read_bytes() == file_before
     # summary lists the stored run as it is, and names the waiting replacement
@@ -112,18 +116,18 @@ def test_an_interrupted_force_keeps_the_stored_run_bit_for_bit(stored, tmp_path,
     assert dataset_hashes(out, f"runs/{run_id}") == dataset_hashes(ref, f"runs/{run_id}")
 
 
-def test_a_completed_force_replaces_the_stored_run(stored, tmp_path, capsys):
+def test_a_completed_force_replaces_the_stored_run(stored, tmp_path, command_json):
     case, ref, run_id = stored
     out = tmp_path / "runs.h5"
     out.write_bytes(ref.read_bytes())
     quick = ["--method", "leapfrog", "--step", "0.01", "--out", str(out)]
-    rc, doc = run_json(capsys, [str(case), *quick])
+    rc, doc, _ = command_json("run", str(case), *quick)
     assert rc == 0
     other = doc["runs"][0]["run_id"]
     before = group_hashes(out, f"runs/{run_id}")
     with h5py.File(out, "r") as f:
         created = f["runs"][other].attrs["created"]
-    rc, doc = run_json(capsys, [str(case), *quick, "--force"])
+    rc, doc, _ = command_json("run", str(case), *quick, "--force")
     assert rc == 0 and doc["runs"][0]["status"] == "ok"
     with h5py.File(out, "r") as f:
         assert sorted(f) == ["runs"] and sorted(f["runs"]) == sorted([run_id, other])

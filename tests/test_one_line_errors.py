@@ -10,7 +10,8 @@ import os
 from pathlib import Path
 
 import pytest
-from test_cli_run import TOP_TOML, write
+from tiny_cases import TOP_TOML
+from tiny_cases import write_case as write
 
 from topdrift.benchmarks.cli import entry as cli
 

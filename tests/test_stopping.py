@@ -12,15 +12,9 @@ import time
 
 import h5py
 import pytest
-from sweep_grid import (
-    N_RUNS,
-    PROGRESS,
-    reference_sweep,
-    run_datasets,
-    same_datasets,
-    topdrift_cmd,
-)
-from test_cli_run import TOP_TOML
+from run_files import topdrift_cmd
+from sweep_grid import N_RUNS, PROGRESS, reference_sweep, run_datasets, same_datasets
+from tiny_cases import TOP_TOML
 
 from topdrift.benchmarks.cli import entry as cli
 from topdrift.benchmarks.stopping import Interrupted

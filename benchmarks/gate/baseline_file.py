@@ -13,15 +13,34 @@ import math
 import os
 from pathlib import Path
 
-from topdrift.benchmarks.cases.schema import LARGEST, SMALLEST
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.gate.measure import COUNT_METRICS, ERROR_METRICS, INFO_METRICS
 
 FORMAT = "topdrift-baseline"
 FORMAT_VERSION = 1
 DEFAULT_FILE = Path("results") / "baseline.json"
 
+# The metrics each run of a baseline holds: keys of baseline format 1. The invariant and
+# trajectory errors, all "smaller is better", are spelled out rather than taken from
+# run/metrics.py's MAX_NAMES: a new metric there must not change this format.
+ERROR_METRICS = (
+    "energy_rel_max",
+    "p_phi_rel_max",
+    "p_psi_rel_max",
+    "norm_abs_max",
+    "axis_angle_max",
+    "theta_abs_max",
+    "phi_abs_max",
+    "psi_abs_max",
+)
+COUNT_METRICS = ("steps", "rhs_evals", "rejected")
+INFO_METRICS = ("energy_drift_exponent", "t_fail", "wall_s", "ns_per_step")
+
 _NONFINITE = {"inf": math.inf, "-inf": -math.inf, "nan": math.nan}
+# Steps, tolerances, horizons and timings keep to the range case files keep to (0, or a
+# magnitude from 1e-100 to 1e100; cases/schema.py says why). The format names its own bounds:
+# it imports nothing but the error type (tests/test_import_rules.py).
+SMALLEST = 1e-100
+LARGEST = 1e100
 # Counts are int64 in the kernels; a count beyond that is no count topdrift wrote.
 MAX_COUNT = 2**63 - 1
 

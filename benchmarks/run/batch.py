@@ -72,7 +72,12 @@ def _one(plan, action: Action, ensembles: dict, f, stop: StopFlag, flush_every: 
                 "checkpoint; running it again from the start\n"
             )
         return execute_ensemble(
-            ensembles[plan.run_id], f, progress=progress, stop=stop, parent=action.parent
+            ensembles[plan.run_id],
+            f,
+            progress=progress,
+            stop=stop,
+            flush_every=flush_every,
+            parent=action.parent,
         )
     return execute(
         plan,

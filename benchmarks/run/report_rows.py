@@ -7,7 +7,7 @@ import json
 from pathlib import Path
 
 from topdrift.benchmarks.run.stored_runs import REUSE
-from topdrift.benchmarks.store.writer import attr_text, open_reader
+from topdrift.benchmarks.store.writer import attr_str, open_reader
 
 
 def stored_result(out: Path, run_id: str) -> tuple[str, dict, str]:
@@ -15,9 +15,9 @@ def stored_result(out: Path, run_id: str) -> tuple[str, dict, str]:
     with open_reader(out) as f:
         g = f["runs"][run_id]
         return (
-            attr_text(g, "status"),
-            json.loads(attr_text(g, "metrics") or "{}"),
-            attr_text(g, "detail", "") or "",
+            attr_str(g, "status"),
+            json.loads(attr_str(g, "metrics") or "{}"),
+            attr_str(g, "detail", "") or "",
         )
 
 
