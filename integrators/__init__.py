@@ -18,7 +18,7 @@ from .base import (
     MethodRefused,
     Stepper,
 )
-from .registry import ENTRY_POINT_GROUP, UnknownMethod, all_methods, get, register
+from .registry import ENTRY_POINT_GROUP, UnknownMethod, all_methods, get, origin, register
 
 __all__ = [
     "C_EVALS",
@@ -40,5 +40,6 @@ __all__ = [
     "UnknownMethod",
     "all_methods",
     "get",
+    "origin",
     "register",
 ]
