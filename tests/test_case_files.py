@@ -359,12 +359,12 @@ def test_installed_command_prints_no_traceback(tmp_path):
 
 
 def test_readme_example_case_parses():
-    # The full example in the README's "Case files" section is part of the contract.
+    # The full example in docs/case-files.md is part of the contract.
     import re
     from pathlib import Path
 
-    readme = Path(__file__).resolve().parents[1] / "README.md"
-    section = readme.read_text(encoding="utf-8").split("## Case files", 1)[1]
+    page = Path(__file__).resolve().parents[1] / "docs" / "case-files.md"
+    section = page.read_text(encoding="utf-8").split("# Case files", 1)[1]
     example = re.search(r"```toml\n(.*?)```", section, re.S).group(1)
     case = parse_case(example, "README example")
     assert case.name == "brass-top"

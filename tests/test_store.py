@@ -1,4 +1,4 @@
-"""The HDF5 run store read with plain h5py, exactly as README "Run store (HDF5)" documents it."""
+"""The HDF5 run store read with plain h5py, exactly as docs/run-files.md documents it."""
 
 import json
 import math
@@ -193,16 +193,16 @@ def test_foreign_file_is_refused_and_left_alone(tmp_path):
 
 
 def test_readme_example_reads_a_run(stored, monkeypatch, capsys):
-    """The h5py example in README "Run store (HDF5)" runs as printed."""
+    """The h5py example in docs/run-files.md runs as printed."""
     from pathlib import Path
 
     _, out = stored
-    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
-    section = readme.split("## Run store (HDF5)", 1)[1]
+    page = (Path(__file__).resolve().parents[1] / "docs" / "run-files.md").read_text()
+    section = page.split("# Run store (HDF5)", 1)[1]
     code = section.split("```python\n", 1)[1].split("```", 1)[0]
     monkeypatch.chdir(out.parent.parent)  # the example reads results/runs.h5
     capsys.readouterr()
-    exec(compile(code, "README.md", "exec"), {})
+    exec(compile(code, "docs/run-files.md", "exec"), {})
     line = capsys.readouterr().out.split()
     assert line[1:4] == ["store-top", "gauss4", "ok"]
     assert 0.0 <= float(line[4]) < 1e-6

@@ -43,11 +43,22 @@ class _Parser(argparse.ArgumentParser):
         raise SystemExit(EXIT_BAD_INPUT)
 
 
+def package_version() -> str:
+    """The installed distribution's version (pyproject.toml), as `topdrift --version` prints it."""
+    from importlib.metadata import PackageNotFoundError, version
+
+    try:
+        return version("topdrift")
+    except PackageNotFoundError:  # run from a source tree that was never installed
+        return "unknown (not installed)"
+
+
 def build_parser() -> argparse.ArgumentParser:
     parser = _Parser(
         prog="topdrift",
         description="Long-run integrator benchmarks for spinning rigid bodies.",
     )
+    parser.add_argument("--version", action="version", version=f"topdrift {package_version()}")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
     sub.required = True
     for name in COMMANDS:
