@@ -171,7 +171,7 @@ def test_a_horizon_keeps_the_sample_interval_in_run_and_sweep():
     assert short.samples == 11
     assert short.settings["step"] == full.settings["step"]
     # a sweep's horizon without its own sample count follows the same rule
-    sweep = f'name = "h"\ncases = ["looping-nutation"]\nmethods = ["leapfrog"]\n'
+    sweep = 'name = "h"\ncases = ["looping-nutation"]\nmethods = ["leapfrog"]\n'
     sweep += f"horizon = {10 * interval!r}\nsteps = [{interval / 7!r}]\n"
     (job,), _ = expand(parse_sweep(sweep, "h"))
     assert job.samples == 11

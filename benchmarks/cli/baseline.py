@@ -1,5 +1,6 @@
 """`topdrift baseline [--out FILE] [--sweep SWEEP] [--rounds N] [--force]`: record the regression
-baseline that `topdrift gate` compares against (format in gate/baseline_file.py and docs/gate.md)."""
+baseline that `topdrift gate` compares against (format in gate/baseline_file.py and
+docs/gate.md)."""
 
 from __future__ import annotations
 

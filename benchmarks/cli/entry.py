@@ -26,7 +26,7 @@ COMMANDS = (
     "gate",
 )
 
-# Exit statuses, the same for every command (README "Exit statuses"): 0 done (the gate: no
+# Exit statuses, the same for every command (the table in README.md): 0 done (the gate: no
 # regression), 1 done with a negative answer (the gate: a regression; run and sweep: a run did
 # not end ok; pick: no method met the target; baseline: not written), 2 bad input, 3 an internal
 # error (a bug: one line on stderr, never Python's traceback and status 1, so that a CI job can

@@ -1,6 +1,6 @@
 """The regression baseline file (results/baseline.json): a JSON contract, format version 2.
 
-Documented in the README section "Regression gate in CI". The reader is strict: a missing or
+Documented in docs/gate.md. The reader is strict: a missing or
 unknown key, a wrong type, a value out of its range or another format version is a one-line
 UserError naming the key, so that the gate never compares against something it misread. In
 particular no number may be NaN (a NaN compares false with everything: a baseline holding one

@@ -1,6 +1,6 @@
 """The regression gate: a rerun of a baseline's grid compared with the baseline, rule by rule.
 
-Rules (the README section "Regression gate in CI" states them for users):
+Rules (docs/gate.md states them for users):
 
 - status is part of the contract: every cell of the baseline must be in the rerun with the same
   status. A cell that ran ok and now refuses, fails to start, fails, diverges or raises, or is
