@@ -193,6 +193,20 @@ def test_a_method_that_fails_in_its_first_steps_is_failed_not_refused(project):
     assert "was ok, now failed:" in row and "ZeroDivisionError in the first steps" in row
 
 
+def test_a_plugin_that_no_longer_loads_fails_naming_it(project):
+    plugins, _, _ = project
+    module = plugins / "steady_plugin.py"
+    module.write_text("raise ImportError('broken by an edit')\n")
+    try:
+        r = _gate(project)
+    finally:
+        _install(plugins, "normal")
+    assert r.returncode == 1, r.stdout + r.stderr
+    assert "plug-in 'steady' (steady_plugin:methods) not loaded: broken by an edit" in r.stderr
+    row = next(ln for ln in r.stdout.splitlines() if ln.startswith("REGRESSION") and KEY in ln)
+    assert "was ok, now error: unknown method 'steady-demo'" in row
+
+
 def test_three_times_the_work_fails_on_the_counts(project):
     plugins, _, _ = project
     _install(plugins, "triple")

@@ -38,7 +38,7 @@ from topdrift.benchmarks.store.writer import (
 )
 from topdrift.benchmarks.sweep.settings_ladder import rtol_ladder, step_ladder
 from topdrift.benchmarks.sweep.spec import SweepSpec
-from topdrift.integrators import MethodRefused
+from topdrift.integrators import MethodRefused, UnknownMethod
 from topdrift.integrators import get as get_method
 
 
@@ -143,7 +143,17 @@ def expand_grid(spec: SweepSpec, *, keep_errors: bool = False) -> tuple[list[Job
         # unless the sweep gives its own sample count.
         samples = spec.samples if spec.samples is not None else samples_for_horizon(case, horizon)
         for name in spec.methods:
-            method = get_method(name)
+            try:
+                method = get_method(name)
+            except UnknownMethod:
+                # For the gate, a method that is no longer registered (a plug-in that failed
+                # to load) is a cell that stopped running, not a sweep file to reject.
+                if not keep_errors:
+                    raise
+                why = f"unknown method {name!r}: not registered (a plug-in that did not load?)"
+                line = f"{case.name} {name}: {why}"
+                skipped.append(Skip(case.name, name, None, None, None, None, "error", why, line))
+                continue
             own = spec.per_method.get(name, {})
             wrong = "rtols" if method.info.control == "step" else "steps"
             if wrong in own:
