@@ -18,7 +18,15 @@ from .base import (
     MethodRefused,
     Stepper,
 )
-from .registry import ENTRY_POINT_GROUP, UnknownMethod, all_methods, get, register, unregister
+from .registry import (
+    ENTRY_POINT_GROUP,
+    UnknownMethod,
+    all_methods,
+    get,
+    origin,
+    register,
+    unregister,
+)
 
 __all__ = [
     "C_EVALS",
@@ -40,6 +48,7 @@ __all__ = [
     "UnknownMethod",
     "all_methods",
     "get",
+    "origin",
     "register",
     "unregister",
 ]

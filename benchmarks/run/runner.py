@@ -105,6 +105,13 @@ class RunResult:
     detail: str = ""
 
 
+class StartFailed(MethodRefused):
+    """The method's kernel raised (a division by zero, an overflow) in the first steps of a run:
+    refused like any run that cannot start, so `topdrift run` says why in one line and exits 2,
+    but told apart from a refusal by the method's own checks. A sweep skips it like a refusal;
+    the regression gate calls a cell that ran before and now ends here "failed", not "refused"."""
+
+
 def _positive(name: str, v) -> float:
     try:
         v = float(v)
@@ -118,6 +125,32 @@ def _positive(name: str, v) -> float:
             f"({SMALLEST:g} to {LARGEST:g} in SI units)"
         )
     return v
+
+
+def samples_at_interval(horizon: float, interval: float) -> int:
+    """The horizon rule, one for every command: a horizon other than the case's keeps the
+    sample interval, not the sample count, so that a fixed step that filled the case's interval
+    fills the new one too (squeezing the case's samples into a shorter horizon would round every
+    step down). The count is the nearest whole number of intervals, at least one; a horizon that
+    is not a whole number of intervals gets a slightly different interval, and the step rounding
+    then says so in the run's notes. An explicit sample count always wins over this rule."""
+    if not (math.isfinite(horizon) and horizon > 0.0):
+        raise UserError(f"--horizon: must be a positive finite number, got {horizon!r}")
+    n = max(2, round(horizon / interval) + 1)
+    if n > MAX_SAMPLES:
+        raise UserError(
+            f"--horizon {horizon:g} at a sample every {interval:g} s is {n:.3g} samples, more "
+            f"than {MAX_SAMPLES}; give --samples"
+        )
+    return n
+
+
+def samples_for_horizon(case, horizon: float) -> int:
+    """The case's sample count over its own horizon, else the horizon rule (samples_at_interval)
+    at the case's sample interval."""
+    if horizon == case.horizon:
+        return case.samples
+    return samples_at_interval(horizon, case.horizon / (case.samples - 1))
 
 
 def steps_per_interval(interval: float, step: float) -> int:
@@ -182,7 +215,7 @@ def plan_run(
     method = get_method(method_name)
     body = case.body
     horizon = _positive("--horizon", case.horizon if horizon is None else horizon)
-    n = case.samples if samples is None else samples
+    n = samples_for_horizon(case, horizon) if samples is None else samples
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 2:
         raise UserError(f"--samples: need a whole number of at least 2 (t = 0 and T), got {n!r}")
     if n > MAX_SAMPLES:  # the case files' own limit
@@ -257,7 +290,7 @@ def plan_run(
     except ArithmeticError as exc:
         # A kernel's own division by zero or overflow on this start (numba raises these): a
         # refusal naming it, not a traceback.
-        raise MethodRefused(
+        raise StartFailed(
             f"{method.name}: cannot start on {case.name}: {type(exc).__name__} in the first steps "
             f"({exc})"
         ) from None
