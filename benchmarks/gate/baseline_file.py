@@ -22,7 +22,6 @@ import os
 from pathlib import Path
 
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.gate.machine import FIELDS as MACHINE_KEYS
 
 FORMAT = "topdrift-baseline"
 FORMAT_VERSION = 2
@@ -45,6 +44,20 @@ COUNT_METRICS = ("steps", "rhs_evals", "rejected")
 INFO_METRICS = ("energy_drift_exponent", "t_fail", "wall_s", "ns_per_step")
 
 INT64_MAX = 2**63 - 1
+# The machine fingerprint's keys (benchmarks/gate/machine.py reads them off the machine).
+MACHINE_KEYS = (
+    "cpu",
+    "vendor",
+    "family",
+    "model",
+    "stepping",
+    "flags",
+    "cores",
+    "llvm_cpu",
+    "numba",
+    "llvmlite",
+    "llvm",
+)
 
 
 class _Bad(ValueError):

@@ -14,6 +14,8 @@ import functools
 import os
 import platform
 
+from topdrift.benchmarks.gate.baseline_file import MACHINE_KEYS
+
 # Extensions LLVM uses for the kernels' floating-point code when the host has them; a machine
 # with or without one of these runs different instructions.
 FLAGS = (
@@ -29,19 +31,7 @@ FLAGS = (
     "avx512_fp16",
     "amx_tile",
 )
-FIELDS = (
-    "cpu",
-    "vendor",
-    "family",
-    "model",
-    "stepping",
-    "flags",
-    "cores",
-    "llvm_cpu",
-    "numba",
-    "llvmlite",
-    "llvm",
-)
+FIELDS = MACHINE_KEYS  # the baseline format owns the key names
 
 
 def fingerprint() -> dict:
