@@ -22,7 +22,9 @@ from topdrift.benchmarks.choose.roundoff import perturbed_starts
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.runner import RunPlan, RunResult, _Buffers, make_run_id, run_attrs
 from topdrift.benchmarks.run.sampling import S_ENERGY, S_P_PHI, S_P_PSI
-from topdrift.benchmarks.store.writer import _COMPRESSION, RunGroup, ensure_room
+from topdrift.benchmarks.store.failures import ensure_room
+from topdrift.benchmarks.store.format import COMPRESSION
+from topdrift.benchmarks.store.writer import RunGroup
 from topdrift.integrators.ensemble import EnsembleStepper
 
 MAX_MEMBERS = 100_000
@@ -111,7 +113,7 @@ def execute_ensemble(ep: EnsemblePlan, f, *, progress=None, stop=None) -> RunRes
             maxshape=(None, *shape),
             chunks=(rows, *shape),
             dtype="f8",
-            **_COMPRESSION,
+            **COMPRESSION,
         )
     buf = _Buffers(m, Y0.shape[1])
     first = {}

@@ -30,7 +30,10 @@ from topdrift.benchmarks.run.sampling import (
     S_P_PSI,
     record_sample,
 )
-from topdrift.benchmarks.store.writer import CHUNK_ROWS, NoRoom, RunGroup, ensure_room, utc_now
+from topdrift.benchmarks.store.failures import NoRoom, damage_is_an_error, ensure_room
+from topdrift.benchmarks.store.format import CHUNK_ROWS, first_line
+from topdrift.benchmarks.store.reader import check_run_samples
+from topdrift.benchmarks.store.writer import RunGroup, utc_now
 from topdrift.integrators import (
     ST_DIVERGED,
     ST_NO_CONVERGENCE,
@@ -475,11 +478,32 @@ class _Run:
         )
 
     def restore(self) -> None:
-        cp = self.group.read_checkpoint()
+        """Everything a resume reads, read and checked before anything is written: the
+        checkpoint, the stored samples up to it (read through, so that a damaged chunk refuses
+        the resume while the file is as it was), and only then the rows past it dropped."""
+        p = self.plan
+        where = f"{self.group.f.filename}: run {p.run_id}"
+        with damage_is_an_error(self.group.f.filename):
+            cp = self.group.read_checkpoint()
         if cp is None or "run" not in cp:
-            raise UserError(f"run {self.plan.run_id}: no checkpoint to resume from; use --force")
+            raise UserError(f"{where}: no checkpoint to resume from; use --force")
+        try:
+            self._restore_from(cp)
+        except (KeyError, ValueError, TypeError, IndexError) as exc:
+            # What a checkpoint of another method or layout, or a damaged one, gives.
+            raise UserError(
+                f"{where}: the checkpoint cannot be restored ({type(exc).__name__}: "
+                f"{first_line(exc)}); use --force to run it again"
+            ) from None
+        self._check_rows()
+        check_run_samples(self.group.f, p.run_id)
+        self.group.truncate(self.k)
+
+    def _restore_from(self, cp: dict) -> None:
         p = self.plan
         self.k = int(cp["run"]["sample"])
+        if not 1 <= self.k <= p.samples:
+            raise ValueError(f"sample {self.k} is not between 1 and {p.samples}")
         self.wall = float(cp["run"]["wall_s"])
         self.cpu = float(cp["run"].get("cpu_s", 0.0))
         self.stepper = p.method.start(
@@ -490,8 +514,11 @@ class _Run:
         if not (
             self.stepper.t == cp["run"]["t"] and np.array_equal(self.stepper.y, cp["run"]["y"])
         ):
-            raise UserError(f"run {p.run_id}: the stepper did not restore its checkpoint exactly")
+            raise ValueError("the stepper did not restore its checkpoint exactly")
         self.acc = Accumulator.from_state(cp["metrics"])
+
+    def _check_rows(self) -> None:
+        p = self.plan
         # Rows past the checkpoint are dropped; rows missing before it (a file damaged after
         # its last flush) would leave a gap that appending cannot mend.
         short = {
@@ -500,10 +527,10 @@ class _Run:
         if short:
             name, rows = next(iter(short.items()))
             raise UserError(
-                f"run {p.run_id}: the checkpoint is at sample {self.k} but dataset '{name}' holds "
-                f"{rows} rows; the file lost samples: use --force to run it again"
+                f"{self.group.f.filename}: run {p.run_id}: the checkpoint is at sample {self.k} "
+                f"but dataset '{name}' holds {rows} rows; the file lost samples: use --force to "
+                "run it again"
             )
-        self.group.truncate(self.k)
 
 
 def execute(
