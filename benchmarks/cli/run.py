@@ -128,13 +128,24 @@ def _decide(plans, out: Path, force: bool, resume: bool) -> list[str]:
             actions.append("reuse")
         elif resume:
             # Killed before its first write: nothing was done, so nothing to continue from.
-            actions.append("resume" if p.y0 is not None and n > 0 else "new")
+            action = "resume" if p.y0 is not None and n > 0 else "new"
+            if action == "resume" and "ensemble" not in p.settings:  # ensembles start over
+                _check_resume(p, out)
+            actions.append(action)
         else:
             raise UserError(
                 f"{out}: run {p.run_id} ({p.case.name}, {p.method.name}) is {status} at sample "
                 f"{n}/{p.samples}; pass --resume to continue it or --force to start over"
             )
     return actions
+
+
+def _check_resume(plan, out: Path) -> None:
+    from topdrift.benchmarks.run.runner import check_resume
+    from topdrift.benchmarks.store.reader import open_reader
+
+    with open_reader(out) as f:
+        check_resume(plan, f)
 
 
 def _stored(out: Path, run_id: str) -> tuple[str, dict, str]:

@@ -477,10 +477,11 @@ class _Run:
             }
         )
 
-    def restore(self) -> None:
+    def restore(self, truncate: bool = True) -> None:
         """Everything a resume reads, read and checked before anything is written: the
         checkpoint, the stored samples up to it (read through, so that a damaged chunk refuses
-        the resume while the file is as it was), and only then the rows past it dropped."""
+        the resume while the file is as it was), and only then the rows past it dropped
+        (unless truncate is False: check_resume on a file open for reading)."""
         p = self.plan
         where = f"{self.group.f.filename}: run {p.run_id}"
         with damage_is_an_error(self.group.f.filename):
@@ -497,7 +498,8 @@ class _Run:
             ) from None
         self._check_rows()
         check_run_samples(self.group.f, p.run_id)
-        self.group.truncate(self.k)
+        if truncate:
+            self.group.truncate(self.k)
 
     def _restore_from(self, cp: dict) -> None:
         p = self.plan
@@ -531,6 +533,14 @@ class _Run:
                 f"but dataset '{name}' holds {rows} rows; the file lost samples: use --force to "
                 "run it again"
             )
+
+
+def check_resume(plan: RunPlan, f) -> None:
+    """Every check a resume of plan makes (its checkpoint restores exactly, the stored samples
+    up to it are all there and readable), on a file open for reading. The command line calls
+    this before it opens the file for writing, so that a refused resume leaves the file byte
+    for byte as it was (HDF5 may write into a file it only opens for writing)."""
+    _Run(plan, RunGroup(f, plan.run_id)).restore(truncate=False)
 
 
 def execute(

@@ -31,20 +31,22 @@ from topdrift.benchmarks.store.format import (
     cannot_open,
     first_line,
 )
-from topdrift.benchmarks.store.reader import check_path
+from topdrift.benchmarks.store.reader import open_reader
 from topdrift.benchmarks.store.validate import check_file
 
 
 def open_writer(path: Path) -> h5py.File:
     """Open (or create) a run file for writing; results/ and the like are created as needed.
 
-    An existing file passes the reader's checks (reader.check_path, then validate.check_file:
-    links, layout, every header) with the writer's lock held and before anything is written, so
-    that a file another process writes, a foreign, damaged or linking file is refused as it is:
-    HDF5 would write a superblock into an empty or foreign file opened for writing."""
+    An existing file passes the reader's checks (reader.open_reader: the path, then
+    validate.check_file: links, layout, every header) on a read-only open first, because HDF5
+    writes into a file it merely opens for writing (a superblock into an empty or foreign file,
+    the root group's cached entry into others), so that a foreign, damaged or linking file is
+    refused as it is; then again with the writer's lock held, before anything is written."""
     path = Path(path)
     if path.exists() or path.is_symlink():
-        check_path(path)
+        with open_reader(path):
+            pass
         try:
             f = h5py.File(path, "r+")
         except BlockingIOError:
