@@ -31,7 +31,13 @@ from topdrift.benchmarks.run.sampling import (
     record_sample,
 )
 from topdrift.benchmarks.store.failures import NoRoom, damage_is_an_error, ensure_room
-from topdrift.benchmarks.store.format import CHUNK_ROWS, first_line
+from topdrift.benchmarks.store.format import (
+    CHUNK_ROWS,
+    EXACT_DATASETS,
+    SAMPLE_DATASETS,
+    STATE_DATASET,
+    first_line,
+)
 from topdrift.benchmarks.store.reader import check_run_samples
 from topdrift.benchmarks.store.writer import RunGroup, utc_now
 from topdrift.integrators import (
@@ -521,6 +527,17 @@ class _Run:
 
     def _check_rows(self) -> None:
         p = self.plan
+        where = f"{self.group.f.filename}: run {p.run_id}"
+        present = self.group.datasets()
+        needed = [*SAMPLE_DATASETS, STATE_DATASET, *(EXACT_DATASETS if p.exact is not None else ())]
+        missing = [name for name in needed if name not in present]
+        if p.exact is None and any(name in present for name in EXACT_DATASETS):
+            raise UserError(f"{where}: holds exact-solution datasets its case does not have")
+        if missing:
+            raise UserError(
+                f"{where}: dataset '{missing[0]}' is missing; the file lost samples: use --force "
+                "to run it again"
+            )
         # Rows past the checkpoint are dropped; rows missing before it (a file damaged after
         # its last flush) would leave a gap that appending cannot mend.
         short = {
@@ -529,9 +546,8 @@ class _Run:
         if short:
             name, rows = next(iter(short.items()))
             raise UserError(
-                f"{self.group.f.filename}: run {p.run_id}: the checkpoint is at sample {self.k} "
-                f"but dataset '{name}' holds {rows} rows; the file lost samples: use --force to "
-                "run it again"
+                f"{where}: the checkpoint is at sample {self.k} but dataset '{name}' holds "
+                f"{rows} rows; the file lost samples: use --force to run it again"
             )
 
 

@@ -38,13 +38,7 @@ from topdrift.benchmarks.store.format import (
     not_a_regular_file,
     not_hdf5,
 )
-from topdrift.benchmarks.store.validate import (
-    check_file,
-    check_layout,
-    check_samples,
-    read_attrs,
-    run_name,
-)
+from topdrift.benchmarks.store.validate import check_file, check_resumable, read_attrs, run_name
 
 
 def check_path(path) -> None:
@@ -70,6 +64,33 @@ def check_path(path) -> None:
         raise not_hdf5(path)
 
 
+# Files this process checked and found good, by path -> the (device, inode, size, mtime) they had
+# then. A command opens its file several times (to decide, to check a resume, to write); a file
+# whose signature is unchanged is the file already checked, and is not checked again. Any write
+# changes the modification time, so a file this process or another changed is checked anew.
+_CHECKED: dict[str, tuple] = {}
+_CHECKED_MAX = 16
+
+
+def _signature(path: str) -> tuple:
+    st = os.stat(path)
+    return (st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns)
+
+
+def check_open_file(f: h5py.File, path) -> None:
+    """validate.check_file on an open file, unless this process checked the same path with the
+    same signature before; failed HDF5 reads are the damaged-file line."""
+    key = os.path.abspath(os.fspath(path))
+    sig = _signature(key)
+    if _CHECKED.get(key) == sig:
+        return
+    with damage_is_an_error(path):
+        check_file(f, path)
+    if len(_CHECKED) >= _CHECKED_MAX:
+        _CHECKED.clear()
+    _CHECKED[key] = sig
+
+
 class open_reader:
     """The run file opened read-only and checked (see the module docstring), for a with-block:
     `with open_reader(path) as f:`. The checks run when it is called, so that a refused file is
@@ -84,8 +105,7 @@ class open_reader:
         except OSError as exc:
             raise cannot_open(self.path, first_line(exc)) from None
         try:
-            with damage_is_an_error(self.path):
-                check_file(self.f, self.path)
+            check_open_file(self.f, self.path)
         except BaseException:
             self.f.close()
             raise
@@ -243,15 +263,9 @@ def complete_ids(f: h5py.File) -> set[str]:
 
 
 def check_run_samples(f: h5py.File, run_id: str) -> None:
-    """Read a run's stored samples through (validate.check_samples): the resume path calls this
-    before it writes anything, so that a damaged chunk refuses the resume and leaves the file
-    as it was."""
+    """A run's checkpoint kinds and its stored samples read through (validate.check_resumable):
+    the resume path calls this before it writes anything, so that a damaged chunk refuses the
+    resume and leaves the file as it was."""
     path = f.filename
     with damage_is_an_error(path):
-        check_samples(f["runs"][run_id], run_id, path)
-
-
-def check_open_file(f: h5py.File) -> None:
-    """The layout checks again on a file already open (after its links were checked)."""
-    with damage_is_an_error(f.filename):
-        check_layout(f, f.filename)
+        check_resumable(f["runs"][run_id], run_id, path)

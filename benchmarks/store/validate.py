@@ -10,15 +10,15 @@ Two passes over an open file, both reading metadata only (headers and attributes
    group; every known attribute of a run of its kind (UTF-8 text, JSON of the right type, a
    finite number, a whole number in range); every known dataset a float64 array of its shape,
    with no more rows than the run's `samples` (and exactly that many once it is `ok`); the
-   checkpoint numbers and text only, of bounded size.
-3. check_headers: every attribute of every object can be read.
+   checkpoint a group.
+
+Before a resume, check_resumable goes further into the one run resumed: its checkpoint holds
+numbers and text only, of bounded size, and its stored samples can all be read (slice by slice),
+so that a damaged chunk is found while the file is still as it was.
 
 A run may lack attributes or datasets (its writer has only begun it): readers mark it
 `incomplete`. What is there must be what the format says; anything else is a one-line
 UserError naming the file, the object and what is wrong.
-
-check_samples reads a run's samples through (slice by slice): the resume path calls it before
-it writes anything, so that a damaged chunk is found while the file is still as it was.
 """
 
 from __future__ import annotations
@@ -68,27 +68,9 @@ MAX_JSON_INT = 2**63
 
 
 def check_file(f: h5py.File, path) -> None:
-    """Links first, then the layout, then every header."""
+    """Links first (every object header is read there), then the layout."""
     check_links(f, path)
     check_layout(f, path)
-    check_headers(f, path)
-
-
-def check_headers(f: h5py.File, path) -> None:
-    """Read every object's attributes (names and values, not the samples), so that a file HDF5
-    cannot fully read is refused before anything is written into it. After check_links: every
-    link is a hard one. Milliseconds for a file of many runs."""
-    stack = [f]
-    while stack:
-        obj = stack.pop()
-        try:
-            for key in list(obj.attrs):
-                obj.attrs[key]
-        except (OSError, RuntimeError, KeyError, TypeError, ValueError) as exc:
-            why = first_line(exc)
-            raise damaged(path, f"attributes of {obj.name} cannot be read ({why})") from None
-        if isinstance(obj, h5py.Group):
-            stack.extend(obj[raw.decode("utf-8")] for raw in list(obj.id))
 
 
 # --- pass 1: links -----------------------------------------------------------------------------
@@ -276,8 +258,6 @@ def check_run(g: h5py.Group, run_id: str, path) -> dict:
             raise damaged(path, f"{what} has shape {ds.shape}, not ({want})")
         rows[name] = int(ds.shape[0])
     _check_rows(rows, attrs, run_id, path)
-    if "checkpoint" in g:
-        _check_checkpoint(g["checkpoint"], run_id, path)
     return attrs
 
 
@@ -299,6 +279,18 @@ def _check_rows(rows: dict, attrs: dict, run_id: str, path) -> None:
             said = f"its {limit} samples" if "samples" in attrs else f"{MAX_ROWS} rows"
             raise damaged(path, f"run {run_id}: '{name}' declares {n} rows, more than {said}")
     status = attrs.get("status")
+    if status in FINAL_STATUSES:
+        # A finished run holds its samples: its times at least and, when it names its sample
+        # count (every run the writer makes does), every dataset the writer makes, the exact
+        # solution's both or neither.
+        needed = ["t"]
+        if "samples" in attrs:
+            needed += [*SAMPLE_DATASETS, STATE_DATASET]
+            if any(name in rows for name in EXACT_DATASETS):
+                needed += list(EXACT_DATASETS)
+        missing = [name for name in needed if name not in rows]
+        if missing:
+            raise damaged(path, f"run {run_id} is {status} but has no dataset '{missing[0]}'")
     if status in FINAL_STATUSES and rows:
         # A finished run's datasets were appended batch by batch, all together.
         counts = sorted(set(rows.values()))
@@ -316,7 +308,7 @@ def _check_rows(rows: dict, attrs: dict, run_id: str, path) -> None:
             )
 
 
-def _check_checkpoint(cp, run_id: str, path) -> None:
+def check_checkpoint(cp, run_id: str, path) -> None:
     """Numbers and text only: every part a group of attributes (scalars) and numeric arrays."""
     for part_name in list(cp):
         part = cp[part_name]
@@ -358,6 +350,13 @@ def _checkpoint_number(v, what: str) -> None:
 # --- samples -----------------------------------------------------------------------------------
 
 READ_ROWS = 1 << 16  # rows per read while checking samples: memory stays a few MB
+
+
+def check_resumable(g: h5py.Group, run_id: str, path) -> None:
+    """The checkpoint of a run about to be resumed (if any) and its stored samples."""
+    if "checkpoint" in g:
+        check_checkpoint(g["checkpoint"], run_id, path)
+    check_samples(g, run_id, path)
 
 
 def check_samples(g: h5py.Group, run_id: str, path) -> None:

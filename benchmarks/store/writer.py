@@ -17,7 +17,7 @@ import h5py
 import numpy as np
 
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.store.failures import damage_is_an_error, ensure_room
+from topdrift.benchmarks.store.failures import ensure_room
 from topdrift.benchmarks.store.format import (
     CHUNK_ROWS,
     COMPRESSION,
@@ -31,8 +31,7 @@ from topdrift.benchmarks.store.format import (
     cannot_open,
     first_line,
 )
-from topdrift.benchmarks.store.reader import open_reader
-from topdrift.benchmarks.store.validate import check_file
+from topdrift.benchmarks.store.reader import check_open_file, open_reader
 
 
 def open_writer(path: Path) -> h5py.File:
@@ -56,8 +55,7 @@ def open_writer(path: Path) -> h5py.File:
                 raise busy(path) from None
             raise cannot_open(path, first_line(exc)) from None
         try:
-            with damage_is_an_error(path):
-                check_file(f, path)
+            check_open_file(f, path)
         except UserError:
             f.close()
             raise
