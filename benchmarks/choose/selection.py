@@ -8,7 +8,7 @@ import re
 
 from topdrift.benchmarks.choose import analysis
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.store.format import STATUS_INCOMPLETE
+from topdrift.benchmarks.store.format import STATUS_INCOMPLETE, BadRunFile
 
 
 def _listing(names: list[str], limit: int = 8) -> str:
@@ -119,7 +119,7 @@ def load_labelled(
             try:
                 s = read_series(f, r["run_id"])
             except UserError as exc:
-                if strict or str(exc).startswith(f"{path}: damaged"):
+                if strict or isinstance(exc, BadRunFile):
                     raise
                 continue
             if len(s["t"]) == 0:

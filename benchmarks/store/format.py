@@ -107,15 +107,20 @@ def not_a_run_file(path, found: str) -> UserError:
     )
 
 
-def damaged(path, what: str) -> UserError:
+class BadRunFile(UserError):
+    """A file that fails the run-file checks or cannot be read where it should be: no command
+    goes on with it (a reader that skips runs it cannot use still stops on this)."""
+
+
+def damaged(path, what: str) -> BadRunFile:
     """The file holds something the format does not allow, or HDF5 cannot read a part of it."""
-    return UserError(f"{path}: damaged run file: {what}")
+    return BadRunFile(f"{path}: damaged run file: {what}")
 
 
-def refused_link(path, what: str) -> UserError:
+def refused_link(path, what: str) -> BadRunFile:
     """A link, virtual dataset or external storage that would make a command read or write
     another file than the one named."""
-    return UserError(
+    return BadRunFile(
         f"{path}: refused: {what}; a run file must hold its data itself (no command reads or "
         "writes another file through it)"
     )
