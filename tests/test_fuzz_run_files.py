@@ -33,7 +33,7 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, Phase, example, given, settings
 from hypothesis import strategies as st
-from test_cli_run import TOP_TOML, write
+from tiny_cases import TOP_TOML, write_case
 
 from topdrift.benchmarks.cases.schema import read_case
 from topdrift.benchmarks.cli import entry as cli
@@ -104,7 +104,7 @@ class Bases(dict):
 @pytest.fixture(scope="module")
 def bases(tmp_path_factory):
     d = tmp_path_factory.mktemp("fuzz-bases")
-    case = write(d, "top.toml", TOP_TOML)
+    case = write_case(d, "top.toml", TOP_TOML)
     base = d / "base.h5"
     for opts in (REUSED, ["--method", "rk45", "--rtol", "1e-8"]):
         rc, _, err = _run(["run", case, *opts, "--out", base])

@@ -7,17 +7,16 @@ from __future__ import annotations
 
 import errno
 import hashlib
-import signal
 
 import h5py
 import numpy as np
 import pytest
-from test_cli_run import TOP_TOML, write
+from tiny_cases import TOP_TOML, write_case
 
 from topdrift.benchmarks.cases.schema import MAX_SAMPLES, read_case
 from topdrift.benchmarks.cli import entry as cli
 from topdrift.benchmarks.run.ensemble import MAX_MEMBERS
-from topdrift.benchmarks.run.runner import StopFlag, execute, plan_run
+from topdrift.benchmarks.run.runner import execute, plan_run
 from topdrift.benchmarks.store import failures, format
 from topdrift.benchmarks.store.writer import open_writer
 
@@ -36,27 +35,9 @@ def one_line(capsys) -> str:
     return lines[0]
 
 
-class _StopAt:
-    def __init__(self, stop, k):
-        self.stop, self.k = stop, k
-
-    def begin(self, *_):
-        pass
-
-    def flushed(self, *_):
-        pass
-
-    def end(self, *_):
-        pass
-
-    def update(self, k, _steps):
-        if k >= self.k:
-            self.stop.signum = signal.SIGINT
-
-
 @pytest.fixture()
 def files(tmp_path):
-    case = write(tmp_path, "top.toml", TOP_TOML)
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     other = tmp_path / "other.h5"
     assert cli.main(["run", str(case), *LEAPFROG, "--out", str(other)]) == 0
     return case, other
@@ -128,17 +109,17 @@ def test_other_ways_out_of_the_file_are_refused(files, tmp_path, capsys, kind):
     assert digest(bad) == before
 
 
-def test_a_damaged_chunk_refuses_the_resume_as_damage_not_a_full_disk(tmp_path, capsys):
+def test_a_damaged_chunk_refuses_the_resume_as_damage_not_a_full_disk(tmp_path, capsys, stop_at):
     """The measured confusion: bytes flipped in a data chunk of an interrupted run, then
     `--resume`, said "cannot write the results (... filter returned failure during read) ...
     make room" and left datasets at different lengths, status running."""
-    case = write(tmp_path, "top.toml", TOP_TOML)
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     out = tmp_path / "r.h5"
     plan = plan_run(read_case(case), "leapfrog", step=0.01)
-    stop = StopFlag()
+    stop, progress = stop_at(5)
     f = open_writer(out)
     try:
-        r = execute(plan, f, stop=stop, progress=_StopAt(stop, 5), flush_every=0.0)
+        r = execute(plan, f, stop=stop, progress=progress, flush_every=0.0)
     finally:
         f.close()
     assert r.status == "interrupted"

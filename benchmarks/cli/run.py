@@ -205,7 +205,13 @@ def run(args) -> int:
                                 f"topdrift: {p.case.name}: an ensemble run keeps no "
                                 "checkpoint; running it again from the start\n"
                             )
-                        r = execute_ensemble(ensembles[p.run_id], f, progress=progress, stop=stop)
+                        r = execute_ensemble(
+                            ensembles[p.run_id],
+                            f,
+                            progress=progress,
+                            stop=stop,
+                            flush_every=flush_every,
+                        )
                     else:
                         r = execute(
                             p,

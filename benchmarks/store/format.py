@@ -19,9 +19,16 @@ FORMAT_VERSION = 1  # the version this topdrift writes
 READABLE_VERSIONS = (1,)  # the versions this topdrift reads
 DEFAULT_FILE = Path("results") / "runs.h5"
 
-STATUSES = ("running", "ok", "diverged", "singular", "interrupted", "failed")
-FINAL_STATUSES = ("ok", "diverged", "singular", "failed")
-STATUS_OK = "ok"
+# A run's `status` attribute: running while it is written, then how it ended.
+RUNNING = "running"
+OK = "ok"
+DIVERGED = "diverged"  # the state or its energy blew up
+SINGULAR = "singular"  # the state left the domain of its form
+INTERRUPTED = "interrupted"  # stopped by a signal or a full disk; --resume goes on
+FAILED = "failed"  # the method or the exact reference failed
+STATUSES = (RUNNING, OK, DIVERGED, SINGULAR, INTERRUPTED, FAILED)
+FINAL_STATUSES = (OK, DIVERGED, SINGULAR, FAILED)
+STATUS_OK = OK
 # Not a writer's status: a reader's word for a group that lacks what a run must have (its writer
 # has only begun it).
 STATUS_INCOMPLETE = "incomplete"
@@ -155,7 +162,7 @@ def text_value(value, what: str) -> str:
     raise ValueError(f"{what} is {_kind(value)}, not text")
 
 
-def attr_text(g, name: str, default=None):
+def attr_str(g, name: str, default=None):
     """A text attribute of a group or file, or default where it is absent. For files the reader
     has checked (and in-memory images this topdrift wrote); raises the damaged-file error when
     the value is not UTF-8 text."""

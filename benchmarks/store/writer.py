@@ -26,7 +26,7 @@ from topdrift.benchmarks.store.format import (
     FORMAT_VERSION,
     SAMPLE_DATASETS,
     STATE_DATASET,
-    attr_text,
+    attr_str,
     busy,
     cannot_open,
     first_line,
@@ -137,19 +137,27 @@ class RunGroup:
         if has_exact:
             cols.update(EXACT_DATASETS)
         rows = max(1, min(CHUNK_ROWS, int(samples)))  # a short run needs no 4096-row chunk
-        for name, k in cols.items():
-            shape = (0,) if k == 0 else (0, k)
-            maxshape = (None,) if k == 0 else (None, k)
-            chunks = (rows,) if k == 0 else (rows, k)
-            g.create_dataset(
-                name, shape=shape, maxshape=maxshape, chunks=chunks, dtype="f8", **COMPRESSION
-            )
+        group = cls(f, run_id)
+        group.add_datasets({name: () if k == 0 else (k,) for name, k in cols.items()}, rows)
         f.flush()
-        return cls(f, run_id)
+        return group
+
+    def add_datasets(self, rows: dict[str, tuple[int, ...]], chunk_rows: int) -> None:
+        """Sample datasets that grow by one row a sample: path in the group -> shape of one
+        row, chunked by chunk_rows samples and compressed like every sample dataset."""
+        for name, shape in rows.items():
+            self.g.create_dataset(
+                name,
+                shape=(0, *shape),
+                maxshape=(None, *shape),
+                chunks=(chunk_rows, *shape),
+                dtype="f8",
+                **COMPRESSION,
+            )
 
     @property
     def status(self) -> str:
-        return attr_text(self.g, "status")
+        return attr_str(self.g, "status")
 
     @property
     def n_stored(self) -> int:
@@ -206,7 +214,7 @@ class RunGroup:
         self.g.attrs["metrics"] = json.dumps(metrics)
 
     def attr(self, name: str, default=None):
-        return attr_text(self.g, name, default)
+        return attr_str(self.g, name, default)
 
     def flush(self) -> None:
         self.f.flush()
