@@ -12,7 +12,8 @@ from tiny_cases import top_toml
 
 from topdrift.benchmarks.cli import entry as cli
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.store.writer import existing_status, open_reader, open_writer
+from topdrift.benchmarks.store.reader import existing_status, open_reader
+from topdrift.benchmarks.store.writer import open_writer
 
 TOP_TOML = top_toml(
     "store-top",
@@ -156,7 +157,7 @@ def test_foreign_file_is_refused_and_left_alone(tmp_path):
         open_writer(path)
     with pytest.raises(UserError, match="not a topdrift run store"):
         existing_status(path, "0" * 16)
-    with pytest.raises(UserError, match="no such file"):
+    with pytest.raises(UserError, match="does not exist"):
         open_reader(tmp_path / "missing.h5")
     assert path.read_bytes() == before
 

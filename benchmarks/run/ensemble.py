@@ -36,7 +36,9 @@ from topdrift.benchmarks.run.runner import (
     run_attrs,
 )
 from topdrift.benchmarks.run.sampling import S_ENERGY, S_P_PHI, S_P_PSI, SampleBuffers
-from topdrift.benchmarks.store.writer import FAILED, OK, RunGroup, ensure_room
+from topdrift.benchmarks.store.failures import ensure_room
+from topdrift.benchmarks.store.format import FAILED, OK
+from topdrift.benchmarks.store.writer import RunGroup
 from topdrift.integrators import C_EVALS, C_STEPS, ST_OK, ST_SINGULAR
 from topdrift.integrators.ensemble import EnsembleStepper
 

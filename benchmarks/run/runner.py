@@ -33,16 +33,22 @@ from topdrift.benchmarks.run.loop import (
 )
 from topdrift.benchmarks.run.metrics import Accumulator, finish
 from topdrift.benchmarks.run.sampling import S_ENERGY, SampleBuffers
-from topdrift.benchmarks.store.writer import (
+from topdrift.benchmarks.store.failures import NoRoom, damage_is_an_error, ensure_room
+from topdrift.benchmarks.store.format import (
     CHUNK_ROWS,
     DIVERGED,
+    EXACT_DATASETS,
     FAILED,
     INTERRUPTED,
     OK,
     RUNNING,
-    NoRoom,
+    SAMPLE_DATASETS,
+    STATE_DATASET,
+    first_line,
+)
+from topdrift.benchmarks.store.reader import check_run_samples
+from topdrift.benchmarks.store.writer import (
     RunGroup,
-    ensure_room,
     utc_now,
 )
 from topdrift.integrators import C_STEPS, ST_OK, Method, MethodRefused, Stepper
@@ -476,12 +482,35 @@ class _Run(SampledRun):
             }
         )
 
-    def restore(self) -> None:
-        cp = self.group.read_checkpoint()
+    def restore(self, truncate: bool = True) -> None:
+        """Everything a resume reads, read and checked before anything is written: the
+        checkpoint, the stored samples up to it (read through, so that a damaged chunk refuses
+        the resume while the file is as it was), and only then the rows past it dropped
+        (unless truncate is False: check_resume on a file open for reading)."""
+        p = self.plan
+        where = f"{self.group.f.filename}: run {p.run_id}"
+        with damage_is_an_error(self.group.f.filename):
+            cp = self.group.read_checkpoint()
         if cp is None or "run" not in cp:
-            raise UserError(f"run {self.plan.run_id}: no checkpoint to resume from; use --force")
+            raise UserError(f"{where}: no checkpoint to resume from; use --force")
+        try:
+            self._restore_from(cp)
+        except (KeyError, ValueError, TypeError, IndexError) as exc:
+            # What a checkpoint of another method or layout, or a damaged one, gives.
+            raise UserError(
+                f"{where}: the checkpoint cannot be restored ({type(exc).__name__}: "
+                f"{first_line(exc)}); use --force to run it again"
+            ) from None
+        self._check_rows()
+        check_run_samples(self.group.f, p.run_id)
+        if truncate:
+            self.group.truncate(self.k)
+
+    def _restore_from(self, cp: dict) -> None:
         p = self.plan
         self.k = int(cp["run"]["sample"])
+        if not 1 <= self.k <= p.samples:
+            raise ValueError(f"sample {self.k} is not between 1 and {p.samples}")
         self.wall = float(cp["run"]["wall_s"])
         self.cpu = float(cp["run"].get("cpu_s", 0.0))
         self.stepper = self.fresh_stepper()
@@ -490,8 +519,22 @@ class _Run(SampledRun):
         if not (
             self.stepper.t == cp["run"]["t"] and np.array_equal(self.stepper.y, cp["run"]["y"])
         ):
-            raise UserError(f"run {p.run_id}: the stepper did not restore its checkpoint exactly")
+            raise ValueError("the stepper did not restore its checkpoint exactly")
         self.acc = Accumulator.from_state(cp["metrics"])
+
+    def _check_rows(self) -> None:
+        p = self.plan
+        where = f"{self.group.f.filename}: run {p.run_id}"
+        present = self.group.datasets()
+        needed = [*SAMPLE_DATASETS, STATE_DATASET, *(EXACT_DATASETS if p.exact is not None else ())]
+        missing = [name for name in needed if name not in present]
+        if p.exact is None and any(name in present for name in EXACT_DATASETS):
+            raise UserError(f"{where}: holds exact-solution datasets its case does not have")
+        if missing:
+            raise UserError(
+                f"{where}: dataset '{missing[0]}' is missing; the file lost samples: use --force "
+                "to run it again"
+            )
         # Rows past the checkpoint are dropped; rows missing before it (a file damaged after
         # its last flush) would leave a gap that appending cannot mend.
         short = {
@@ -500,10 +543,9 @@ class _Run(SampledRun):
         if short:
             name, rows = next(iter(short.items()))
             raise UserError(
-                f"run {p.run_id}: the checkpoint is at sample {self.k} but dataset '{name}' holds "
+                f"{where}: the checkpoint is at sample {self.k} but dataset '{name}' holds "
                 f"{rows} rows; the file lost samples: use --force to run it again"
             )
-        self.group.truncate(self.k)
 
     # The loop's side of a single run (see loop.SampledRun).
 
@@ -627,6 +669,14 @@ class _Run(SampledRun):
         t = g["t"][()]
         energy = g["invariants/energy"][()]
         return finish(self.acc, self.stepper.counters, self.wall, self.cpu, t, energy, t_fail)
+
+
+def check_resume(plan: RunPlan, f) -> None:
+    """Every check a resume of plan makes (its checkpoint restores exactly, the stored samples
+    up to it are all there and readable), on a file open for reading. The command line calls
+    this before it opens the file for writing, so that a refused resume leaves the file byte
+    for byte as it was (HDF5 may write into a file it only opens for writing)."""
+    _Run(plan, RunGroup(f, plan.run_id), StopFlag(), None).restore(truncate=False)
 
 
 def execute(

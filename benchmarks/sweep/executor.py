@@ -27,15 +27,9 @@ from topdrift.benchmarks.cases.schema import parse_case
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.in_memory import MemoryRun, copy_run, run_in_memory
 from topdrift.benchmarks.run.runner import StartFailed, plan_run, samples_for_horizon
-from topdrift.benchmarks.store.writer import (
-    FINAL_STATUSES,
-    attr_str,
-    close_after_failure,
-    ensure_room,
-    is_write_failure,
-    open_writer,
-    write_reason,
-)
+from topdrift.benchmarks.store.failures import ensure_room, file_failure
+from topdrift.benchmarks.store.reader import complete_ids
+from topdrift.benchmarks.store.writer import open_writer
 from topdrift.benchmarks.sweep.settings_ladder import rtol_ladder, step_ladder
 from topdrift.benchmarks.sweep.spec import SweepSpec
 from topdrift.integrators import MethodRefused, UnknownMethod
@@ -260,13 +254,6 @@ def _skip(job: Job, kind: str, reason: str) -> Skip:
     )
 
 
-def _complete_ids(f) -> set[str]:
-    runs = f.get("runs")
-    if runs is None:
-        return set()
-    return {rid for rid, g in runs.items() if attr_str(g, "status") in FINAL_STATUSES}
-
-
 def run_sweep(
     spec: SweepSpec,
     out: Path,
@@ -292,7 +279,7 @@ def run_sweep(
             client.close()
         raise
     try:
-        done = _complete_ids(f)
+        done = complete_ids(f)
         todo = [j for j in grid if j.run_id not in done]
         outcome.reused = [j.run_id for j in grid if j.run_id in done]
         for line in skipped:
@@ -332,17 +319,20 @@ def run_sweep(
                     accept(job, result, None)
         else:
             _on_pool(todo, jobs, accept, outcome, stop)
-    except (OSError, RuntimeError) as exc:
-        if not is_write_failure(exc):
+    except (OSError, RuntimeError, KeyError) as exc:
+        # A full disk or a file-size limit while a run was copied in, or a part of the file
+        # HDF5 could not read.
+        error = file_failure(
+            exc,
+            f,
+            out,
+            in_hand="the runs already copied in are kept",
+            next_step="run the same sweep again (complete runs are not run twice)",
+        )
+        if error is None:
             raise
-        # A full disk or a file-size limit while a run was copied in. HDF5 may not finish its
-        # own bookkeeping, so the file can be left unreadable: the message says to check it.
-        close_after_failure(f)
         f = None
-        raise UserError(
-            f"{out}: cannot write the results ({write_reason(exc)}); make room, check the file "
-            "with `topdrift summary`, then run the same sweep again (complete runs are kept)"
-        ) from None
+        raise error from None
     finally:
         try:
             if f is not None:
