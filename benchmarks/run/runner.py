@@ -41,6 +41,7 @@ from topdrift.integrators import (
     Method,
     MethodRefused,
     Stepper,
+    whole_steps,
 )
 from topdrift.integrators import get as get_method
 from topdrift.models import FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
@@ -118,13 +119,13 @@ def _positive(name: str, v) -> float:
 
 def steps_per_interval(interval: float, step: float) -> int:
     """How many steps of about `step` fill one sample interval: the ratio rounded up, except that
-    a ratio within 1e-9 of a whole number is that number (200 / 1e4 / 1e-5 is 2000.0000000000002
-    in floating point, and means 2000 steps, not 2001)."""
-    ratio = interval / step
-    k = round(ratio)
-    if k >= 1 and abs(ratio - k) <= 1e-9 * k:
+    a ratio on the step grid by the contract's rule (whole_steps: within GRID_RTOL of a whole
+    number) is that number (200 / 1e4 / 1e-5 is 2000.0000000000002 in floating point, and means
+    2000 steps, not 2001)."""
+    k = whole_steps(interval, step)
+    if k is not None and k >= 1:
         return k
-    return max(1, math.ceil(ratio))
+    return max(1, math.ceil(interval / step))
 
 
 def start_state(case, form: str) -> np.ndarray:
