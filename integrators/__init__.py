@@ -1,5 +1,7 @@
-"""The numerics of topdrift: a registry of pluggable methods, each a coefficient table plus a
-small numba kernel family. Imports the models' kernels; knows nothing of cases or files."""
+"""The numerics of topdrift: the method contract (base.py, validation.py), the registry of
+built-in and plug-in methods (registry.py), a base for fixed-step plug-ins (fixed_step.py), and
+one sub-package per family, each a coefficient table plus a small numba kernel family. Imports
+the models' kernels; knows nothing of cases or files."""
 
 from .base import (
     C_EVALS,
@@ -21,7 +23,9 @@ from .base import (
     grid_steps,
     whole_steps,
 )
+from .fixed_step import FixedStepMethod, FixedStepStepper
 from .registry import ENTRY_POINT_GROUP, UnknownMethod, all_methods, get, register
+from .validation import Setting, SnapshotRefused
 
 __all__ = [
     "C_EVALS",
@@ -42,6 +46,10 @@ __all__ = [
     "Stepper",
     "grid_steps",
     "whole_steps",
+    "FixedStepMethod",
+    "FixedStepStepper",
+    "Setting",
+    "SnapshotRefused",
     "ENTRY_POINT_GROUP",
     "UnknownMethod",
     "all_methods",

@@ -190,8 +190,9 @@ def _field(name: str, key: str, v, spec, status_ok: bool) -> None:
     kind = _kind_of(dtype)
     if shape == ():
         if not _scalar_ok(kind, v):
+            article = "an" if kind == "int" else "a"
             raise SnapshotRefused(
-                f"{name}: snapshot field {key!r} must be a {kind}, got {type(v).__name__}"
+                f"{name}: snapshot field {key!r} must be {article} {kind}, got {type(v).__name__}"
             )
         values = np.array([v], dtype=np.float64) if kind == "float" else None
     else:
