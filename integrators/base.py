@@ -44,7 +44,7 @@ ST_DIVERGED = 1  # a non-finite state
 ST_SINGULAR = 2  # the state left the domain of its form (Euler angles at the pole)
 ST_STEP_UNDERFLOW = 3  # an adaptive step fell below round-off of t
 ST_NO_CONVERGENCE = 4  # an implicit solve did not converge
-ST_FAILED = 5  # any other failure reported by a library (scipy references)
+ST_FAILED = 5  # any other failure: a library's (scipy references), a plug-in step's exception
 STATUS_NAMES = ("ok", "diverged", "singular", "step-underflow", "no-convergence", "failed")
 
 FAMILIES = ("explicit-rk", "adaptive-rk", "splitting", "gauss-legendre", "reference", "external")
