@@ -24,7 +24,7 @@ from .base import (
     whole_steps,
 )
 from .fixed_step import FixedStepMethod, FixedStepStepper
-from .registry import ENTRY_POINT_GROUP, UnknownMethod, all_methods, get, register
+from .registry import ENTRY_POINT_GROUP, UnknownMethod, all_methods, get, register, unregister
 from .validation import Setting, SnapshotRefused
 
 __all__ = [
@@ -55,4 +55,5 @@ __all__ = [
     "all_methods",
     "get",
     "register",
+    "unregister",
 ]

@@ -47,6 +47,13 @@ def register(method: Method, *, replace: bool = False) -> Method:
     return method
 
 
+def unregister(name: str) -> Method | None:
+    """Take the method registered under `name` out of the registry (a script's or a test's own
+    method, registered for a while); returns it, or None when the name held none."""
+    _ensure_loaded()
+    return _methods.pop(name, None)
+
+
 def _load_plugins() -> None:
     for ep in entry_points(group=ENTRY_POINT_GROUP):
         try:

@@ -5,10 +5,10 @@ from __future__ import annotations
 
 import math
 import subprocess
-import sys
 
 import numpy as np
 import pytest
+from run_files import topdrift_cmd
 
 from topdrift.benchmarks.cases.library import find_case, library_cases, library_paths, load_case
 from topdrift.benchmarks.cases.schema import parse_case, read_case
@@ -344,7 +344,7 @@ def test_installed_command_prints_no_traceback(tmp_path):
     path = tmp_path / "case.toml"
     path.write_text(_case_text(start_extra={"theta_rate": '"3 furlong/s"'}), encoding="utf-8")
     proc = subprocess.run(
-        [sys.executable, "-m", "topdrift.benchmarks.cli.entry", "describe", str(path)],
+        topdrift_cmd("describe", str(path)),
         capture_output=True,
         text=True,
         cwd=tmp_path,

@@ -7,6 +7,7 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 from scipy.spatial.transform import Rotation
+from tiny_cases import top_toml
 
 from topdrift.benchmarks.cases.schema import parse_case
 from topdrift.benchmarks.errors import UserError
@@ -15,28 +16,22 @@ from topdrift.benchmarks.run.runner import StopFlag, execute, make_run_id, plan_
 from topdrift.benchmarks.store import writer as store
 from topdrift.integrators import MethodRefused
 
-TOP_TOML = """
-name = "runner-top"
-description = "a heavy symmetric top for the runner tests"
-horizon = 0.5
-samples = 11
-
-[body]
-mass = 1.0
-inertia = [0.02, 0.02, 0.01]
-com = [0.0, 0.0, 0.05]
-
-[start]
-theta = "30 deg"
-phi = 0.3
-psi = -0.2
-theta_rate = 0.5
-phi_rate = 1.0
-psi_rate = "300 rpm"
-"""
-
-ASYM_TOML = TOP_TOML.replace("runner-top", "runner-asym").replace(
-    "[0.02, 0.02, 0.01]", "[0.02, 0.025, 0.01]"
+# The runner's top starts off its steady motion: a tilt rate and phases, at 300 rpm.
+RUNNER_START = {"phi": 0.3, "psi": -0.2, "theta_rate": 0.5, "psi_rate": "300 rpm"}
+TOP_TOML = top_toml(
+    "runner-top",
+    "a heavy symmetric top for the runner tests",
+    horizon=0.5,
+    samples=11,
+    **RUNNER_START,
+)
+ASYM_TOML = top_toml(
+    "runner-asym",
+    "a heavy symmetric top for the runner tests",
+    horizon=0.5,
+    samples=11,
+    inertia=(0.02, 0.025, 0.01),
+    **RUNNER_START,
 )
 
 

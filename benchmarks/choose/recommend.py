@@ -15,10 +15,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from topdrift.benchmarks.cases.time_scales import fastest_period
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.in_memory import run_in_memory
 from topdrift.benchmarks.run.runner import plan_run, steps_per_interval
-from topdrift.benchmarks.sweep.settings_ladder import fastest_period
 from topdrift.integrators import MethodRefused
 from topdrift.integrators import get as get_method
 from topdrift.models.quaternion import figure_axis

@@ -137,14 +137,14 @@ def _decide(plans, out: Path, force: bool, resume: bool) -> list[str]:
 
 
 def _stored(out: Path, run_id: str) -> tuple[str, dict, str]:
-    from topdrift.benchmarks.store.writer import _attr_str, open_reader
+    from topdrift.benchmarks.store.writer import attr_str, open_reader
 
     with open_reader(out) as f:
         g = f["runs"][run_id]
         return (
-            _attr_str(g, "status"),
-            json.loads(_attr_str(g, "metrics") or "{}"),
-            _attr_str(g, "detail", "") or "",
+            attr_str(g, "status"),
+            json.loads(attr_str(g, "metrics") or "{}"),
+            attr_str(g, "detail", "") or "",
         )
 
 
@@ -204,7 +204,13 @@ def run(args) -> int:
                                 f"topdrift: {p.case.name}: an ensemble run keeps no "
                                 "checkpoint; running it again from the start\n"
                             )
-                        r = execute_ensemble(ensembles[p.run_id], f, progress=progress, stop=stop)
+                        r = execute_ensemble(
+                            ensembles[p.run_id],
+                            f,
+                            progress=progress,
+                            stop=stop,
+                            flush_every=flush_every,
+                        )
                     else:
                         r = execute(
                             p,

@@ -23,9 +23,11 @@ from dataclasses import asdict, dataclass, field
 
 from topdrift.benchmarks.errors import UserError
 
-# grid_measure (and through it the runner and the sweep) is imported where a comparison runs:
-# every `topdrift` command imports this module for the defaults of its parser, and the chain
-# costs about 0.1 s of each process's start-up (measured with -X importtime).
+# The metric names come from the baseline format, which imports nothing of the runner: every
+# `topdrift` command imports this module for the defaults of its parser, and the measuring code
+# (the runner, the sweep) would cost about 0.1 s of each process's start-up (-X importtime).
+from topdrift.benchmarks.gate.baseline_file import ERROR_METRICS
+
 DEFAULT_ERROR_FACTOR = 1.5
 DEFAULT_ERROR_FLOOR = 1e-13
 DEFAULT_STEPS_TOLERANCE = 0.02
@@ -171,8 +173,6 @@ def _compare_count(run: str, name: str, a, b, allowed: float, t: Thresholds, out
 
 
 def compare_runs(base: dict, now: dict, t: Thresholds, result: GateResult) -> None:
-    from topdrift.benchmarks.gate.measure import ERROR_METRICS
-
     out = result.findings
     for key, a in base.items():
         b = now.get(key)

@@ -30,6 +30,7 @@ from dataclasses import replace
 from pathlib import Path
 
 from topdrift.benchmarks.cases.schema import parse_case
+from topdrift.benchmarks.gate.baseline_file import COUNT_METRICS, ERROR_METRICS, INFO_METRICS
 from topdrift.benchmarks.gate.reference_workload import (
     CLOCK,
     ITERATIONS,
@@ -40,21 +41,6 @@ from topdrift.benchmarks.gate.reference_workload import (
 from topdrift.benchmarks.run.runner import plan_run
 from topdrift.benchmarks.sweep.executor import Job, expand, run_job
 from topdrift.integrators import C_STEPS, STATUS_NAMES
-
-# The invariant and trajectory errors, all "smaller is better". Spelled out rather than taken
-# from metrics.MAX_NAMES: they are keys of baseline format 1, which a new metric must not change.
-ERROR_METRICS = (
-    "energy_rel_max",
-    "p_phi_rel_max",
-    "p_psi_rel_max",
-    "norm_abs_max",
-    "axis_angle_max",
-    "theta_abs_max",
-    "phi_abs_max",
-    "psi_abs_max",
-)
-COUNT_METRICS = ("steps", "rhs_evals", "rejected")
-INFO_METRICS = ("energy_drift_exponent", "t_fail", "wall_s", "ns_per_step")
 
 TIMING_TARGET_S = 0.1
 TIMING_REPEATS = 5

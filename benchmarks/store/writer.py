@@ -22,8 +22,15 @@ FORMAT = "topdrift-runs"
 FORMAT_VERSION = 1
 DEFAULT_FILE = Path("results") / "runs.h5"
 
-STATUSES = ("running", "ok", "diverged", "singular", "interrupted", "failed")
-FINAL_STATUSES = ("ok", "diverged", "singular", "failed")
+# A run's `status` attribute: running while it is written, then how it ended.
+RUNNING = "running"
+OK = "ok"
+DIVERGED = "diverged"  # the state or its energy blew up
+SINGULAR = "singular"  # the state left the domain of its form
+INTERRUPTED = "interrupted"  # stopped by a signal or a full disk; --resume goes on
+FAILED = "failed"  # the method or the exact reference failed
+STATUSES = (RUNNING, OK, DIVERGED, SINGULAR, INTERRUPTED, FAILED)
+FINAL_STATUSES = (OK, DIVERGED, SINGULAR, FAILED)
 
 # Sample datasets: path inside the run group -> number of columns (0: one value per sample).
 SAMPLE_DATASETS = {
@@ -164,7 +171,8 @@ def ensure_room(f: h5py.File, nbytes: float, what: str) -> None:
         )
 
 
-def _attr_str(g, name: str, default=None):
+def attr_str(g, name: str, default=None):
+    """An attribute of a group as text (h5py gives bytes for some strings), or default."""
     v = g.attrs.get(name, default)
     return v.decode() if isinstance(v, bytes) else v
 
@@ -217,7 +225,7 @@ def existing_status(path: Path, run_id: str) -> tuple[str | None, int]:
         g = f.get(f"runs/{run_id}")
         if g is None:
             return None, 0
-        return _attr_str(g, "status"), int(g["t"].shape[0])
+        return attr_str(g, "status"), int(g["t"].shape[0])
 
 
 def open_writer(path: Path) -> h5py.File:
@@ -316,19 +324,27 @@ class RunGroup:
         if has_exact:
             cols.update(EXACT_DATASETS)
         rows = max(1, min(CHUNK_ROWS, int(samples)))  # a short run needs no 4096-row chunk
-        for name, k in cols.items():
-            shape = (0,) if k == 0 else (0, k)
-            maxshape = (None,) if k == 0 else (None, k)
-            chunks = (rows,) if k == 0 else (rows, k)
-            g.create_dataset(
-                name, shape=shape, maxshape=maxshape, chunks=chunks, dtype="f8", **_COMPRESSION
-            )
+        group = cls(f, run_id)
+        group.add_datasets({name: () if k == 0 else (k,) for name, k in cols.items()}, rows)
         f.flush()
-        return cls(f, run_id)
+        return group
+
+    def add_datasets(self, rows: dict[str, tuple[int, ...]], chunk_rows: int) -> None:
+        """Sample datasets that grow by one row a sample: path in the group -> shape of one
+        row, chunked by chunk_rows samples and compressed like every sample dataset."""
+        for name, shape in rows.items():
+            self.g.create_dataset(
+                name,
+                shape=(0, *shape),
+                maxshape=(None, *shape),
+                chunks=(chunk_rows, *shape),
+                dtype="f8",
+                **_COMPRESSION,
+            )
 
     @property
     def status(self) -> str:
-        return _attr_str(self.g, "status")
+        return attr_str(self.g, "status")
 
     @property
     def n_stored(self) -> int:
@@ -385,7 +401,7 @@ class RunGroup:
         self.g.attrs["metrics"] = json.dumps(metrics)
 
     def attr(self, name: str, default=None):
-        return _attr_str(self.g, name, default)
+        return attr_str(self.g, name, default)
 
     def flush(self) -> None:
         self.f.flush()
@@ -402,7 +418,7 @@ def list_runs(f: h5py.File) -> list[dict]:
             raise OSError(f"the group of run {run_id} cannot be opened")
         row = {"run_id": run_id}
         for k in g.attrs:
-            v = _attr_str(g, k)
+            v = attr_str(g, k)
             if k in ("settings", "metrics", "versions"):
                 try:
                     v = json.loads(v)

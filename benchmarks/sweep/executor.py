@@ -29,7 +29,7 @@ from topdrift.benchmarks.run.in_memory import MemoryRun, copy_run, run_in_memory
 from topdrift.benchmarks.run.runner import plan_run
 from topdrift.benchmarks.store.writer import (
     FINAL_STATUSES,
-    _attr_str,
+    attr_str,
     close_after_failure,
     ensure_room,
     is_write_failure,
@@ -190,7 +190,7 @@ def _complete_ids(f) -> set[str]:
     runs = f.get("runs")
     if runs is None:
         return set()
-    return {rid for rid, g in runs.items() if _attr_str(g, "status") in FINAL_STATUSES}
+    return {rid for rid, g in runs.items() if attr_str(g, "status") in FINAL_STATUSES}
 
 
 def run_sweep(
