@@ -150,3 +150,11 @@ def test_the_example_has_order_four(example):
         assert st.counters[C_EVALS] == 4 * round(t_end / h)
     orders = np.log2(np.array(errs[:-1]) / np.array(errs[1:]))
     assert np.all(np.abs(orders - 4.0) < 0.2), (errs, orders)
+
+
+def test_the_hand_built_install_is_found_too(tmp_path):
+    # The offline fallback of the fixture (no setuptools or wheel): the same entry point.
+    _hand_install(tmp_path)
+    r = _topdrift(tmp_path, "methods", "--json")
+    assert r.returncode == 0, r.stderr
+    assert "kutta38" in {m["name"] for m in json.loads(r.stdout)["methods"]}
