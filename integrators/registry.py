@@ -9,6 +9,9 @@ from importlib.metadata import entry_points
 
 from .base import Method, MethodInfo
 
+# The entry-point group a plug-in package publishes its methods under (docs/plugins.md): each
+# entry point names a Method, a list of Methods, or a function returning either. Loaded once,
+# after the built-in families, the first time the registry is asked for a method.
 ENTRY_POINT_GROUP = "topdrift.integrators"
 
 # Each module defines METHODS, a list of Method instances.
@@ -29,11 +32,16 @@ _loaded = False
 
 
 class UnknownMethod(KeyError):
+    """No method of that name is registered; the message lists the known ones."""
+
     def __str__(self) -> str:  # KeyError quotes its message; a user wants the sentence
         return str(self.args[0])
 
 
 def register(method: Method, *, replace: bool = False) -> Method:
+    """Add `method` under its info.name, for this process, and return it. Refuses (TypeError)
+    anything but a Method with a MethodInfo, and (ValueError) a name already taken by another
+    method unless replace=True. Commands and sweeps then run it like a built-in method."""
     if not isinstance(method, Method) or not isinstance(getattr(method, "info", None), MethodInfo):
         raise TypeError(f"not a topdrift Method: {method!r}")
     name = method.info.name
@@ -107,11 +115,16 @@ def _owner(module: str) -> tuple[str | None, str | None]:
 
 
 def all_methods() -> list[Method]:
+    """Every registered method: the built-in families in their order, then the plug-ins, then
+    those registered by hand. Loads the plug-ins the first time; a plug-in that fails to load is
+    reported on stderr and left out."""
     _ensure_loaded()
     return list(_methods.values())
 
 
 def get(name: str) -> Method:
+    """The method registered under `name`; UnknownMethod (one line listing the known names)
+    when there is none."""
     _ensure_loaded()
     try:
         return _methods[name]

@@ -51,7 +51,7 @@ from topdrift.benchmarks.store.writer import (
     RunGroup,
     utc_now,
 )
-from topdrift.integrators import C_STEPS, ST_OK, Method, MethodRefused, Stepper
+from topdrift.integrators import C_STEPS, ST_OK, Method, MethodRefused, Stepper, whole_steps
 from topdrift.integrators import get as get_method
 from topdrift.models import FORM_EULER, FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
 
@@ -161,13 +161,13 @@ def samples_for_horizon(case, horizon: float) -> int:
 
 def steps_per_interval(interval: float, step: float) -> int:
     """How many steps of about `step` fill one sample interval: the ratio rounded up, except that
-    a ratio within 1e-9 of a whole number is that number (200 / 1e4 / 1e-5 is 2000.0000000000002
-    in floating point, and means 2000 steps, not 2001)."""
-    ratio = interval / step
-    k = round(ratio)
-    if k >= 1 and abs(ratio - k) <= 1e-9 * k:
+    a ratio on the step grid by the contract's rule (whole_steps: within GRID_RTOL of a whole
+    number) is that number (200 / 1e4 / 1e-5 is 2000.0000000000002 in floating point, and means
+    2000 steps, not 2001)."""
+    k = whole_steps(interval, step)
+    if k is not None and k >= 1:
         return k
-    return max(1, math.ceil(ratio))
+    return max(1, math.ceil(interval / step))
 
 
 def start_state(case, form: str) -> np.ndarray:

@@ -22,7 +22,6 @@ side and puts that state back. A resumed run repeats the same bits (tested for a
 
 from __future__ import annotations
 
-import math
 import pickle
 import types
 import warnings
@@ -47,8 +46,6 @@ from topdrift.models import FORM_NAMES, FORM_SIZE
 from topdrift.models.dynamics import rhs, singular
 
 REJECTED_UNKNOWN = -1
-
-SETTING_KEYS = ("rtol", "atol")
 
 _FUNCTION_TYPES = (types.FunctionType, types.MethodType, types.BuiltinFunctionType)
 
@@ -256,20 +253,10 @@ class ReferenceMethod(Method):
         form = int(form)
         if form < 0 or form >= len(FORM_NAMES):
             raise MethodRefused(f"{self.name}: unknown state form code {form!r}")
-        for key in settings:
-            if key not in SETTING_KEYS:
-                raise MethodRefused(
-                    f"{self.name}: unknown setting {key!r} (known: {', '.join(SETTING_KEYS)})"
-                )
-        for key in SETTING_KEYS:
-            v = settings.get(key)
-            if not isinstance(v, float) or not v > 0.0 or not math.isfinite(v):
-                raise MethodRefused(f"{self.name}: needs a positive finite {key}, got {v!r}")
+        checked = self.settings(settings)  # rtol, atol: positive finite floats (base.py)
         y = self.start_state(form, y0)
         p = np.ascontiguousarray(params, dtype=np.float64)
-        return ReferenceStepper(
-            self, form, p, float(t0), y, float(settings["rtol"]), float(settings["atol"])
-        )
+        return ReferenceStepper(self, form, p, float(t0), y, checked["rtol"], checked["atol"])
 
 
 def _scipy_version() -> str:
