@@ -58,10 +58,18 @@ from .exact_constants import (
     periodic_motion,
     steady_motion,
 )
+from .exact_kernels import (
+    K_COUNT0,
+    angles_kernel,
+    landen_ratios,
+    pack_periodic,
+    pack_steady,
+    phase_kernel,
+    steady_kernel,
+)
 from .exact_roots import EPS, Roots, solve_roots
 from .exact_start import ExactInput, ExactUnavailable, Start, start_of
 from .forms import FORM_BODY, FORM_EULER, form_code
-from .jacobi import sn_cn_dn_reduced
 
 __all__ = [
     "MOTIONS",
@@ -239,8 +247,10 @@ class LagrangeTop:
         self.spin_per_period = n.spin_per_period
         self.mean_precession_rate = n.mean_precession_rate
         self.mean_spin_rate = n.mean_spin_rate
-        # Pole passes already counted at the start (the count is taken relative to it).
-        self._count0 = int(_pass_count(pm, *_reduce(pm, np.zeros(1), np.zeros(1)))[0])
+        self._consts = pack_periodic(pm, self._flip)
+        self._landen = landen_ratios(pm.phase.m, pm.phase.mc)
+        # Pole passes already counted at the start: the count is taken relative to them.
+        self._consts[K_COUNT0] = float(self._phase(np.zeros(1), np.zeros(1))[4][0])
 
     def _build_steady(self, inp: ExactInput, st: Start, beta: float, theta0: float) -> None:
         """No transverse momentum with no torque: the axis stays where it is."""
@@ -258,6 +268,7 @@ class LagrangeTop:
             self.motion = "hanging"
         sm = steady_motion(inp, self._flip, st.pole, beta == 0.0)
         self._steady = sm
+        self._consts = pack_steady(sm)
         self._theta0 = theta0
         if self._flip:
             roots = (-roots[1], -roots[0], -roots[2])
@@ -308,18 +319,30 @@ class LagrangeTop:
         return np.column_stack((np.sin(ang.phi) * st, -np.cos(ang.phi) * st, np.cos(ang.theta)))
 
     def _evaluate(self, th, tl, want_rates: bool):
-        if self._steady is not None:
-            return self._evaluate_steady(th, tl), None
-        return _evaluate_periodic(self._periodic, self._count0, self._flip, th, tl, want_rates)
-
-    def _evaluate_steady(self, th, tl) -> FoldedAngles:
-        sm = self._steady
         n = th.shape[0]
-        phi, phi_turns = dd.fold(np.full(n, sm.phi0[0]), np.full(n, sm.phi0[1]))
-        xh, xl = dd.mul(sm.spin_rate[0], sm.spin_rate[1], th, tl)
-        xh, xl = dd.add(xh, xl, sm.psi0[0], sm.psi0[1])
-        psi, psi_turns = dd.fold(xh, xl)
-        return FoldedAngles(np.full(n, self._theta0), phi, phi_turns, psi, psi_turns)
+        theta, phi, psi = np.empty(n), np.empty(n), np.empty(n)
+        phi_turns, psi_turns = np.empty(n, np.int64), np.empty(n, np.int64)
+        if self._steady is not None:
+            steady_kernel(self._consts, th, tl, phi, phi_turns, psi, psi_turns)
+            theta[:] = self._theta0
+            return FoldedAngles(theta, phi, phi_turns, psi, psi_turns), None
+        j1, j2, rh, rl, count, sn, cn, dn, delta = self._phase(th, tl)
+        term1, term2 = _third_kind_terms(self._periodic.shape, sn, cn, dn)
+        mperp, chi = (np.empty(n), np.empty(n)) if want_rates else (np.empty(0), np.empty(0))
+        angles_kernel(
+            self._consts, j1, j2, rh, rl, count, sn, cn, dn, delta, term1, term2,
+            theta, phi, phi_turns, psi, psi_turns, mperp, chi,
+        )  # fmt: skip
+        angles = FoldedAngles(theta, phi, phi_turns, psi, psi_turns)
+        return angles, (_Rates(mperp=mperp, chi=chi) if want_rates else None)
+
+    def _phase(self, th, tl):
+        n = th.shape[0]
+        j1, j2, rh, rl = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+        count = np.empty(n, np.int64)
+        sn, cn, dn, delta = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+        phase_kernel(self._consts, self._landen, th, tl, j1, j2, rh, rl, count, sn, cn, dn, delta)
+        return j1, j2, rh, rl, count, sn, cn, dn, delta
 
     def summary(self) -> dict:
         def clean(v):
@@ -387,118 +410,35 @@ def _classify(st: Start, roots: Roots, beta: float, flip: bool) -> str:
 
 # --------------------------------------------------------------------- per-sample evaluation
 def _times(t, t_lo):
-    th = np.atleast_1d(np.asarray(t, dtype=np.float64)).ravel()
+    th = np.ascontiguousarray(np.atleast_1d(np.asarray(t, dtype=np.float64)).ravel())
     if t_lo is None:
         return th, np.zeros_like(th)
-    tl = np.atleast_1d(np.asarray(t_lo, dtype=np.float64)).ravel()
+    tl = np.ascontiguousarray(np.atleast_1d(np.asarray(t_lo, dtype=np.float64)).ravel())
     if tl.shape != th.shape:
         raise ValueError(f"t_lo: expected shape {th.shape} like t, got {tl.shape}")
-    return dd.two_sum(th, tl)
+    # renormalise (two-sum), so that |t_lo| <= ulp(t) / 2 as the kernels assume
+    hi = th + tl
+    back = hi - th
+    return hi, (th - (hi - back)) + (tl - back)
 
 
-def _reduce(pm: PeriodicMotion, th, tl):
-    """tau = lam t + tau0 = 2 K (j1 + j2) + r: whole periods as two exact double integers (the
-    second corrects the first when tau / 2K is beyond 2^53) and r as a double-double."""
-    ph = pm.phase
-    xh, xl = dd.mul(ph.lam[0], ph.lam[1], th, tl)
-    xh, xl = dd.add(xh, xl, ph.tau0[0], ph.tau0[1])
-    two_k = (2.0 * ph.quarter[0], 2.0 * ph.quarter[1])
-    j1 = np.rint(xh / two_k[0])
-    qh, ql = dd.mul(two_k[0], two_k[1], j1, 0.0)
-    rh, rl = dd.add(xh, xl, -qh, -ql)
-    j2 = np.rint(rh / two_k[0])
-    qh, ql = dd.mul(two_k[0], two_k[1], j2, 0.0)
-    rh, rl = dd.add(rh, rl, -qh, -ql)
-    return j1, j2, rh, rl
-
-
-def _pass_count(pm: PeriodicMotion, j1, j2, rh, rl):
-    """Passes through the vertical since tau = 0: one at every tau = K mod 2K (u = u2 = 1) and
-    one at every tau = 0 mod 2K (u = u1 = -1), the instant itself counted as passed."""
-    j = j1.astype(np.int64) + j2.astype(np.int64)
-    count = np.zeros_like(j)
-    adv, quarter = pm.advances, pm.phase.quarter
-    if adv.top_pass:
-        at_top = (rh > quarter[0]) | ((rh == quarter[0]) & (rl >= quarter[1]))
-        count += j - 1 + at_top
-    if adv.bottom_pass:
-        at_bottom = (rh > 0.0) | ((rh == 0.0) & (rl >= 0.0))
-        count += j - 1 + at_bottom
-    return count
-
-
-def _whole(base, per, j1, j2, count_sign, count, lin, rh, rl, small):
-    """base + per (j1 + j2) + count_sign pi count + lin r + small, folded, with its turns; the
-    large part is reduced first so that the within-period terms are added at full precision."""
-    xh, xl = dd.mul(per[0], per[1], j1, 0.0)
-    yh, yl = dd.mul(per[0], per[1], j2, 0.0)
-    xh, xl = dd.add(xh, xl, yh, yl)
-    xh, xl = dd.add(xh, xl, base[0], base[1])
-    xh, xl, turns = dd.reduce(xh, xl)
-    c = count_sign * count
-    half = np.floor_divide(c, 2)
-    odd = (c - 2 * half).astype(np.float64)
-    xh, xl = dd.add(xh, xl, odd * dd.PI[0], odd * dd.PI[1])
-    yh, yl = dd.mul(lin[0], lin[1], rh, rl)
-    xh, xl = dd.add(xh, xl, yh, yl)
-    xh, xl = dd.add(xh, xl, small, 0.0)
-    angle, more = dd.fold(xh, xl)
-    return angle, turns + half + more
-
-
-def _evaluate_periodic(pm: PeriodicMotion, count0: int, flip: bool, th, tl, want_rates: bool):
-    ph, adv, sh = pm.phase, pm.advances, pm.shape
-    j1, j2, rh, rl = _reduce(pm, th, tl)
-    count = _pass_count(pm, j1, j2, rh, rl) - count0
-    sn, cn, dn, delta = sn_cn_dn_reduced(rh, rl, ph.quarter, ph.m, ph.mc, ph.kprime)
+def _third_kind_terms(sh, sn, cn, dn):
+    """The R_J parts of phi and psi in the reduced period (scipy's Carlson forms, vectorised):
+    sn^3 c1 R_J(cn^2, dn^2, 1, 1 - n1 sn^2) and its twin for n2, or for n2 < -1 the partner
+    form of DLMF 19.7.8 (the axis passing close to the lower vertical: Carlson's form cancels
+    to 1/sqrt(-n) there), with n' = m / n2 (both terms odd in sn)."""
     sn2, cn2, dn2 = sn * sn, cn * cn, dn * dn
     sn3 = sn * sn2
-    omu = sh.om2 + sh.gap * cn2  # 1 - u and 1 + u as sums of non-negative terms
-    opu = sh.op1 + sh.gap * sn2
+    opu_ratio = (sh.op1 + sh.gap * sn2) / sh.op1
     zero = np.zeros_like(sn)
-    term1 = sn3 * sh.c1 * elliprj(cn2, dn2, 1.0, omu / sh.om1) if sh.bma != 0.0 else zero
+    term1 = zero
+    if sh.bma != 0.0:
+        term1 = sn3 * sh.c1 * elliprj(cn2, dn2, 1.0, (sh.om2 + sh.gap * cn2) / sh.om1)
     if sh.bpa == 0.0:
-        term2 = zero
-    elif sh.alt2:
-        # Large negative n (axis passing close to the lower vertical): Carlson's form cancels
-        # to 1/sqrt(-n); DLMF 19.7.8 with the partner n' = m / n (both terms odd in sn).
+        return term1, zero
+    if sh.alt2:
         q = 1.0 - sh.nn * sn2
-        term2 = sh.half2 * (
-            -sh.nn / 3.0 * sn3 * elliprj(cn2, dn2, 1.0, q)
-            + sn * elliprc(cn2 * dn2, (opu / sh.op1) * q)
+        return term1, sh.half2 * (
+            -sh.nn / 3.0 * sn3 * elliprj(cn2, dn2, 1.0, q) + sn * elliprc(cn2 * dn2, opu_ratio * q)
         )
-    else:
-        term2 = sn3 * sh.c2 * elliprj(cn2, dn2, 1.0, opu / sh.op1)
-    # Rates per unit of tau, for the first-order correction by delta (and the momentum).
-    part1 = 0.5 * sh.bma / omu if sh.bma != 0.0 else zero
-    part2 = 0.5 * sh.bpa / opu if sh.bpa != 0.0 else zero
-    phi_rate = (part1 + part2) / sh.lam
-    psi_rate = sh.rate_psi + (part2 - part1) / sh.lam
-    udot = 2.0 * sh.gap * sn * cn * dn  # du / dtau
-    sin_theta = np.sqrt(omu * opu)
-    theta_rate = np.where(sin_theta > 0.0, -udot / np.where(sin_theta > 0.0, sin_theta, 1.0), 0.0)
-    if flip:
-        theta = 2.0 * np.arctan2(np.sqrt(opu), np.sqrt(omu)) - theta_rate * delta
-    else:
-        theta = 2.0 * np.arctan2(np.sqrt(omu), np.sqrt(opu)) + theta_rate * delta
-    small_phi = term1 + term2 + (phi_rate - adv.cf_phi[0]) * delta
-    small_psi = term2 - term1 + (psi_rate - adv.cf_psi[0]) * delta
-    phi, phi_turns = _whole(adv.phi_c, adv.dphi, j1, j2, 1, count, adv.cf_phi, rh, rl, small_phi)
-    psi, psi_turns = _whole(adv.psi_c, adv.dpsi, j1, j2, -1, count, adv.cf_psi, rh, rl, small_psi)
-    if flip:
-        psi, psi_turns = -psi, -psi_turns
-    angles = FoldedAngles(theta, phi, phi_turns, psi, psi_turns)
-    if not want_rates:
-        return angles, None
-    # |m_perp| = I1 sqrt(alpha - beta u) and its direction chi = atan2(A, sin(theta) p_theta)
-    # in the frame that tilts with the axis, both regular at the poles; A / I1 = b - a u taken
-    # from the side of the nearer pole (exactly zero there when the axis passes through it).
-    x = sh.x1 + sh.gap * sn2
-    mperp = sh.i1 * np.sqrt(np.maximum(sh.k0 - sh.beta * x, 0.0))
-    big_a = np.where(omu <= opu, sh.bma + sh.a * omu, sh.bpa - sh.a * opu)
-    s_ptheta = (1.0 if flip else -1.0) * sh.lam * udot
-    chi = np.arctan2(big_a, s_ptheta)
-    # At the very instant of a pass both vanish: the axis is leaving the pole.
-    at_pole = (big_a == 0.0) & (s_ptheta == 0.0)
-    chi = np.where(at_pole, np.where(theta < 1.0, 0.0, math.pi), chi)
-    return angles, _Rates(mperp=mperp, chi=chi)
+    return term1, sn3 * sh.c2 * elliprj(cn2, dn2, 1.0, opu_ratio)

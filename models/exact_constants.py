@@ -36,6 +36,7 @@ MAX_EXTRA_DIGITS = 60
 PHASE_DIGITS = 26
 
 DD = tuple[float, float]
+TD = tuple[float, float, float]
 
 
 def _dd(x) -> DD:
@@ -43,11 +44,19 @@ def _dd(x) -> DD:
     return hi, float(x - hi)
 
 
+def _td(x) -> TD:
+    hi = float(x)
+    mid = float(x - hi)
+    return hi, mid, float(x - hi - mid)
+
+
 @dataclass(frozen=True)
 class Phase:
-    """tau = lam t + tau0 and the quarter period K (double-doubles), with the parameter m."""
+    """tau = lam t + tau0 = 2 K j + r: lam and 2 K as triple-doubles (they multiply t and j),
+    tau0 and the quarter period K as double-doubles, with the parameter m."""
 
-    lam: DD
+    lam: TD
+    two_k: TD
     quarter: DD
     tau0: DD
     m: float
@@ -208,7 +217,8 @@ def periodic_motion(inp: ExactInput, flip: bool, digits: int) -> PeriodicMotion:
             theta_max=float(tmax),
         )
         phase = Phase(
-            lam=_dd(lam),
+            lam=_td(lam),
+            two_k=_td(2 * quarter),
             quarter=_dd(quarter),
             tau0=_dd(tau0),
             m=float(m),

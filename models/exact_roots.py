@@ -187,10 +187,12 @@ def solve_roots(st: Start, beta, ar: Arithmetic) -> Roots:
             x3 = w_minus
         d32 = x3 - x2
     elif bma != 0 and om2 < POLE_POLISH:
-        w2 = pole_root(0 * k0, -k_top - a * a, h1_top, h0_top, om2)
+        # h(w) = f(1 - w) = -beta w^3 + (2 beta - (alpha - beta) - a^2) w^2 + h1 w + h0
+        w2 = pole_root(-beta, 2 * beta - k_top - a * a, h1_top, h0_top, om2)
         if w2 < x2:
             om2, x2 = w2, w_minus - w2
     if bpa != 0 and op1 < POLE_POLISH:
+        # h(w) = f(-1 + w) = beta w^3 - ((alpha + beta) + 2 beta + a^2) w^2 + h1 w + h0
         w1b = pole_root(
             beta,
             -k_bot - 2 * beta - a * a,
