@@ -18,7 +18,7 @@ from .base import (
     MethodRefused,
     Stepper,
 )
-from .registry import ENTRY_POINT_GROUP, UnknownMethod, all_methods, get, register
+from .registry import ENTRY_POINT_GROUP, UnknownMethod, all_methods, get, register, unregister
 
 __all__ = [
     "C_EVALS",
@@ -41,4 +41,5 @@ __all__ = [
     "all_methods",
     "get",
     "register",
+    "unregister",
 ]

@@ -12,13 +12,18 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
+from topdrift.integrators.gauss.kernel import N_ITERS, N_MEMO, gauss_steps, work_size
+from topdrift.integrators.gauss.methods import GaussMethod
+from topdrift.integrators.splitting.kernels import (
+    close_compensated,
+    close_plain,
+    run_compensated,
+    run_plain,
+)
+from topdrift.integrators.splitting.methods import GRID_RTOL, SplittingMethod
 from topdrift.models import FORM_SIZE
 
 from .base import N_COUNTERS, ST_OK, MethodRefused
-from .gauss import GaussMethod
-from .gauss_kernel import N_ITERS, N_MEMO, gauss_steps, work_size
-from .splitting import GRID_RTOL, SplittingMethod
-from .splitting_kernels import close_compensated, close_plain, run_compensated, run_plain
 
 
 @njit(cache=True, parallel=True)

@@ -13,11 +13,11 @@ ENTRY_POINT_GROUP = "topdrift.integrators"
 
 # Each module defines METHODS, a list of Method instances.
 _BUILTIN_MODULES = (
-    "topdrift.integrators.rk_explicit",
-    "topdrift.integrators.rk_adaptive",
-    "topdrift.integrators.splitting",
-    "topdrift.integrators.gauss",
-    "topdrift.integrators.reference",
+    "topdrift.integrators.rk.fixed",
+    "topdrift.integrators.rk.adaptive",
+    "topdrift.integrators.splitting.methods",
+    "topdrift.integrators.gauss.methods",
+    "topdrift.integrators.reference.scipy_methods",
 )
 
 _methods: dict[str, Method] = {}
@@ -37,6 +37,13 @@ def register(method: Method, *, replace: bool = False) -> Method:
         raise ValueError(f"a method named {name!r} is registered already")
     _methods[name] = method
     return method
+
+
+def unregister(name: str) -> Method | None:
+    """Take the method registered under `name` out of the registry (a script's or a test's own
+    method, registered for a while); returns it, or None when the name held none."""
+    _ensure_loaded()
+    return _methods.pop(name, None)
 
 
 def _load_plugins() -> None:

@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 from handmade_store import build
 
-from topdrift.benchmarks import analysis
-from topdrift.benchmarks.metrics import drift_exponent
-from topdrift.benchmarks.run_reader import load_records
+from topdrift.benchmarks.choose import analysis
+from topdrift.benchmarks.run.metrics import drift_exponent
+from topdrift.benchmarks.store.reader import load_records
 
 
 def rec(run_id, method, error, cost, status="ok", evals=None, case="c", **settings):

@@ -4,8 +4,8 @@ import json
 
 import h5py
 
-from topdrift.benchmarks.cli import main
-from topdrift.benchmarks.commands.demo import LINEUP
+from topdrift.benchmarks.cli.demo import LINEUP
+from topdrift.benchmarks.cli.entry import main
 
 
 def test_demo_runs_every_family_and_reuses_its_runs(tmp_path, capsys):

@@ -9,8 +9,8 @@ import math
 import numpy as np
 import pytest
 
-from topdrift.benchmarks.cli import main
-from topdrift.benchmarks.library import library_paths, load_case
+from topdrift.benchmarks.cases.library import library_paths, load_case
+from topdrift.benchmarks.cli.entry import main
 
 
 def _json(capsys, argv):

@@ -13,7 +13,7 @@ import mpmath
 import numpy as np
 import pytest
 
-from topdrift.integrators.compositions import TABLES, triple_jump
+from topdrift.integrators.splitting.compositions import TABLES, triple_jump
 
 mpmath.mp.dps = 40
 

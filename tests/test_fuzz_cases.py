@@ -1,6 +1,6 @@
 """Bad case files, generated: every one exits 2 with one stderr line naming the key and the
 problem, never a traceback, and writes nothing (no results file appears, an existing one keeps
-its bytes). Most go through `topdrift.benchmarks.cli.main` in this process; a few through the
+its bytes). Most go through `topdrift.benchmarks.cli.entry.main` in this process; a few through the
 installed `topdrift` command. Physically extreme but well-formed cases either run or are refused
 on one line, within a time budget."""
 
@@ -18,7 +18,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from topdrift.benchmarks import cli
+from topdrift.benchmarks.cli import entry as cli
 
 # A valid case, as a nested dict, that every fault below breaks in one place.
 VALID = {

@@ -15,9 +15,9 @@ import pytest
 from handmade_store import build, quaternion_zxz
 from scipy.spatial.transform import Rotation
 
-from topdrift.benchmarks import plots
-from topdrift.benchmarks.cli import main
-from topdrift.benchmarks.run_reader import load_records
+from topdrift.benchmarks.choose import plots
+from topdrift.benchmarks.cli.entry import main
+from topdrift.benchmarks.store.reader import load_records
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), section 5.2
 

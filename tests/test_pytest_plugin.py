@@ -9,9 +9,9 @@ from pathlib import Path
 
 # The inner sessions run in this process, and pytester drops the modules they import when each
 # ends; numpy cannot be imported twice in a process, so what the fixture imports is loaded here.
-import topdrift.benchmarks.library  # noqa: F401
-import topdrift.benchmarks.memrun  # noqa: F401
-import topdrift.benchmarks.runner  # noqa: F401
+import topdrift.benchmarks.cases.library  # noqa: F401
+import topdrift.benchmarks.run.in_memory  # noqa: F401
+import topdrift.benchmarks.run.runner  # noqa: F401
 
 pytest_plugins = ["pytester"]
 
@@ -66,7 +66,7 @@ def test_plugin_start_up_imports_nothing_heavy():
     code = (
         "import sys, topdrift.benchmarks.pytest_plugin; "
         "heavy = [m for m in ('numpy', 'numba', 'scipy', 'h5py', 'topdrift.integrators', "
-        "'topdrift.models', 'topdrift.benchmarks.runner') if m in sys.modules]; print(heavy)"
+        "'topdrift.models', 'topdrift.benchmarks.run.runner') if m in sys.modules]; print(heavy)"
     )
     out = subprocess.run(
         [sys.executable, "-c", code], capture_output=True, text=True, check=True

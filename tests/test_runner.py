@@ -7,36 +7,31 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 from scipy.spatial.transform import Rotation
+from tiny_cases import top_toml
 
-from topdrift.benchmarks import store
-from topdrift.benchmarks.case import parse_case
+from topdrift.benchmarks.cases.schema import parse_case
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.metrics import axis_angle, drift_exponent, wrapped
-from topdrift.benchmarks.runner import StopFlag, execute, make_run_id, plan_run
+from topdrift.benchmarks.run.metrics import axis_angle, drift_exponent, wrapped
+from topdrift.benchmarks.run.runner import StopFlag, execute, make_run_id, plan_run
+from topdrift.benchmarks.store import writer as store
 from topdrift.integrators import MethodRefused
 
-TOP_TOML = """
-name = "runner-top"
-description = "a heavy symmetric top for the runner tests"
-horizon = 0.5
-samples = 11
-
-[body]
-mass = 1.0
-inertia = [0.02, 0.02, 0.01]
-com = [0.0, 0.0, 0.05]
-
-[start]
-theta = "30 deg"
-phi = 0.3
-psi = -0.2
-theta_rate = 0.5
-phi_rate = 1.0
-psi_rate = "300 rpm"
-"""
-
-ASYM_TOML = TOP_TOML.replace("runner-top", "runner-asym").replace(
-    "[0.02, 0.02, 0.01]", "[0.02, 0.025, 0.01]"
+# The runner's top starts off its steady motion: a tilt rate and phases, at 300 rpm.
+RUNNER_START = {"phi": 0.3, "psi": -0.2, "theta_rate": 0.5, "psi_rate": "300 rpm"}
+TOP_TOML = top_toml(
+    "runner-top",
+    "a heavy symmetric top for the runner tests",
+    horizon=0.5,
+    samples=11,
+    **RUNNER_START,
+)
+ASYM_TOML = top_toml(
+    "runner-asym",
+    "a heavy symmetric top for the runner tests",
+    horizon=0.5,
+    samples=11,
+    inertia=(0.02, 0.025, 0.01),
+    **RUNNER_START,
 )
 
 
@@ -273,7 +268,7 @@ def test_a_failing_reference_ends_the_run_as_failed_without_nan(top, tmp_path):
 def test_long_intervals_in_pieces_resume_to_the_same_bits(top, tmp_path, monkeypatch, stop_after):
     """An interval longer than CHUNK_STEPS is advanced in pieces; a stop inside one rolls back
     to the last sample, and the resumed run repeats the bits of one that never stopped."""
-    from topdrift.benchmarks import runner
+    from topdrift.benchmarks.run import runner
 
     monkeypatch.setattr(runner, "CHUNK_STEPS", 7)
     plan = plan_run(top, "leapfrog", step=0.001, form="body")  # 50 steps per interval
@@ -302,7 +297,7 @@ def test_long_intervals_in_pieces_resume_to_the_same_bits(top, tmp_path, monkeyp
 def test_progress_bar_on_a_terminal_and_lines_otherwise():
     import io
 
-    from topdrift.benchmarks.progress import Progress
+    from topdrift.benchmarks.run.progress import Progress
 
     tty = io.StringIO()
     p = Progress("case m 0123abcd", 100, stream=tty, tty=True)

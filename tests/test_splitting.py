@@ -6,11 +6,11 @@ import math
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
+from scipy_reference import scipy_rhs
 
 from topdrift.integrators import C_EVALS, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGULAR, MethodRefused
-from topdrift.integrators.splitting import METHODS
+from topdrift.integrators.splitting.methods import METHODS
 from topdrift.models import RigidBody, body_state, euler_state, invariants_of
-from topdrift.models.dynamics import rhs
 from topdrift.models.forms import FORM_BODY, FORM_EULER
 
 TOP = RigidBody(1.0, (0.05, 0.05, 0.02), com=(0.0, 0.0, 0.1))
@@ -36,14 +36,8 @@ def run(method, body, form, h, n, y0=None):
 
 def reference(body, form, t_end):
     """scipy's DOP853 at rtol = atol = 1e-13: the outside reference for the orders."""
-    p = body.params()
     y0 = start_state(body, form)
-
-    def f(t, y):
-        d = np.empty(len(y))
-        rhs(form, y, p, d)
-        return d
-
+    f = scipy_rhs(form, body.params())
     sol = solve_ivp(f, (0.0, t_end), y0, method="DOP853", rtol=1e-13, atol=1e-13)
     return sol.y[:, -1]
 

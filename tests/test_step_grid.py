@@ -1,7 +1,7 @@
 """The runner's step grid: a step that divides the sample interval up to floating-point noise
 is taken as dividing it."""
 
-from topdrift.benchmarks.runner import steps_per_interval
+from topdrift.benchmarks.run.runner import steps_per_interval
 
 
 def test_ratio_a_hair_above_a_whole_number_is_that_number():

@@ -10,10 +10,10 @@ import distributed  # in the `test` extra, so that CI runs these tests
 import pytest
 from sweep_grid import N_RUNS, PROGRESS, reference_sweep, run_datasets, same_datasets
 
-from topdrift.benchmarks import cli
-from topdrift.benchmarks import sweep as sweep_mod
-from topdrift.benchmarks.sweep import run_sweep
-from topdrift.benchmarks.sweep_spec import read_sweep
+from topdrift.benchmarks.cli import entry as cli
+from topdrift.benchmarks.sweep import executor as sweep_mod
+from topdrift.benchmarks.sweep.executor import run_sweep
+from topdrift.benchmarks.sweep.spec import read_sweep
 
 
 @pytest.fixture(scope="module")

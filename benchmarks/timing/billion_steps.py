@@ -31,7 +31,7 @@ def cli_run(steps: int, samples: int, out: Path) -> dict:
     cmd = [
         sys.executable,
         "-m",
-        "topdrift.benchmarks.cli",
+        "topdrift.benchmarks.cli.entry",
         "run",
         CASE,
         "--method",
@@ -73,9 +73,9 @@ def cli_run(steps: int, samples: int, out: Path) -> dict:
 
 
 def overhead(steps: int, samples: int) -> dict:
-    from topdrift.benchmarks import store
-    from topdrift.benchmarks.library import load_case
-    from topdrift.benchmarks.runner import execute, plan_run
+    from topdrift.benchmarks.cases.library import load_case
+    from topdrift.benchmarks.run.runner import execute, plan_run
+    from topdrift.benchmarks.store import writer as store
 
     plan = plan_run(
         load_case(CASE), METHOD, step=STEP, form="euler", horizon=steps * STEP, samples=samples

@@ -3,9 +3,9 @@
     python benchmarks/timing/brouwer.py [--case looping-nutation] [--order 4] [--step 2e-3]
                                         [--steps 1e7] [--starts 16] [--json OUT] [--plot PNG]
 
-Runs the round-off study (topdrift.benchmarks.roundoff) on one ensemble of perturbed starts in the
-body form, where the energy is a quadratic invariant that Gauss methods keep exactly, so that its
-error is pure round-off, for three variants of the K-stage method:
+Runs the round-off study (topdrift.benchmarks.choose.roundoff) on one ensemble of perturbed
+starts in the body form, where the energy is a quadratic invariant that Gauss methods keep
+exactly, so that its error is pure round-off, for three variants of the K-stage method:
 
   gaussK-kahan   the registered compensated method: tableau of doubles that satisfies the
                  symplecticity condition exactly, stages rounded to the double nearest the exact
@@ -41,10 +41,10 @@ import json
 import sys
 import time
 
-from topdrift.benchmarks.library import load_case
-from topdrift.benchmarks.roundoff import plot_roundoff, roundoff_study
-from topdrift.integrators.gauss import GaussMethod
-from topdrift.integrators.gauss_tableau import GAUSS2, GAUSS3, Tableau
+from topdrift.benchmarks.cases.library import load_case
+from topdrift.benchmarks.choose.roundoff import plot_roundoff, roundoff_study
+from topdrift.integrators.gauss.methods import GaussMethod
+from topdrift.integrators.gauss.tableau import GAUSS2, GAUSS3, Tableau
 
 TARGET = 0.5
 TOLERANCE = 0.1

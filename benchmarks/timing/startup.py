@@ -41,7 +41,7 @@ def once(method: str, control: str, cache: str, out: str) -> tuple[float, float]
     cmd = [
         sys.executable,
         "-m",
-        "topdrift.benchmarks.cli",
+        "topdrift.benchmarks.cli.entry",
         "run",
         "looping-nutation",
         "--method",

@@ -17,9 +17,9 @@ from pathlib import Path
 
 import pytest
 
-from topdrift.benchmarks import store
-from topdrift.benchmarks.library import load_case
-from topdrift.benchmarks.runner import execute, plan_run
+from topdrift.benchmarks.cases.library import load_case
+from topdrift.benchmarks.run.runner import execute, plan_run
+from topdrift.benchmarks.store import writer as store
 
 CASE = "demo-wheel"
 METHOD = "leapfrog"

@@ -10,7 +10,7 @@ from the kernels' own counters) in its extra_info. Targets: the Euler-form leapf
 import pytest
 
 from topdrift.integrators import C_EVALS, C_STEPS, ST_OK
-from topdrift.integrators.splitting import METHODS
+from topdrift.integrators.splitting.methods import METHODS
 from topdrift.models import RigidBody, body_state, euler_state, form_code
 
 # A brass-and-steel toy top of our own: 0.3 kg, centre of mass 3 cm up the figure axis,

@@ -1,0 +1,2 @@
+"""Case files: the TOML schema, units, the shipped case library and what `describe`
+reports of a case."""

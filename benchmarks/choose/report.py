@@ -1,0 +1,215 @@
+"""The Markdown report of a results file: per case a table of runs, the cheapest method per
+target error and the figures, written as report.md and PNG files into one directory."""
+
+from __future__ import annotations
+
+import math
+from datetime import UTC, datetime
+from pathlib import Path
+
+from topdrift.benchmarks.choose import analysis, plots
+from topdrift.benchmarks.choose.selection import load_labelled, slug
+
+_COST_WORDS = {"wall": "wall time", "evals": "evaluations"}
+
+
+def _num(v, fmt: str = ".2e") -> str:
+    if v is None or isinstance(v, bool):
+        return "-"
+    if isinstance(v, int):
+        return str(v)
+    try:
+        x = float(v)
+    except (TypeError, ValueError):
+        return _cell(v)
+    return format(x, fmt) if math.isfinite(x) else str(x)
+
+
+def _cell(text) -> str:
+    return str(text).replace("|", "\\|").replace("\n", " ")
+
+
+def _cost(v: float, cost: str) -> str:
+    return f"{v:.3g}" if cost == "evals" else f"{v:.3g} s"
+
+
+def _law_text(exponent, energy_err) -> str:
+    law = analysis.drift_law(exponent)
+    if law != analysis.LAW_UNKNOWN and analysis.at_roundoff(energy_err):
+        return f"{law}, at round-off"
+    return law
+
+
+def runs_table(records: list[dict], case: str) -> list[str]:
+    recs = analysis.case_records(records, case)
+    labels = analysis.series_labels(recs)
+    head = (
+        "method",
+        "setting",
+        "status",
+        "axis err (rad)",
+        "energy err",
+        "p_phi err",
+        "p_psi err",
+        "steps",
+        "evals",
+        "wall (s)",
+        "ns/step",
+        "drift exp.",
+        "drift law",
+    )
+    lines = ["| " + " | ".join(head) + " |", "|" + "---|" * len(head)]
+
+    def order(r):
+        m = r.get("metrics") or {}
+        c = m.get("rhs_evals")
+        return (labels[analysis.series_key(r)], c if isinstance(c, (int, float)) else math.inf)
+
+    for r in sorted(recs, key=order):
+        m = r.get("metrics") or {}
+        exp = m.get("energy_drift_exponent")
+        row = (
+            _cell(labels[analysis.series_key(r)]),
+            _cell(analysis.knob_text(r.get("settings") or {})),
+            _cell(r.get("status")) if r.get("status") == "ok" else f"**{_cell(r.get('status'))}**",
+            _num(m.get("axis_angle_max")),
+            _num(m.get("energy_rel_max")),
+            _num(m.get("p_phi_rel_max")),
+            _num(m.get("p_psi_rel_max")),
+            _num(m.get("steps")),
+            _num(m.get("rhs_evals")),
+            _num(m.get("wall_s"), ".3g"),
+            _num(m.get("ns_per_step"), ".3g"),
+            _num(exp, ".2f"),
+            _law_text(exp, m.get("energy_rel_max")),
+        )
+        lines.append("| " + " | ".join(row) + " |")
+    return lines
+
+
+def cheapest_table(records: list[dict], case: str, error: str) -> list[str]:
+    frs = {c: analysis.frontiers(records, case, error, c) for c in ("wall", "evals")}
+    targets = sorted(
+        set(analysis.default_targets(frs["wall"])) | set(analysis.default_targets(frs["evals"])),
+        reverse=True,
+    )
+    if not targets:
+        return ["No ok run has this error; nothing to rank."]
+    picks = {
+        c: {row["target"]: row for row in analysis.cheapest(fr, targets)} for c, fr in frs.items()
+    }
+    _, qty, unit = analysis.ERRORS[error]
+    lines = [
+        f"| target {_cell(qty)} ({unit}) | cheapest by wall time | cheapest by evaluations | "
+        "runner-up by wall time |",
+        "|---|---|---|---|",
+    ]
+    for t in targets:
+        cells = [f"{t:.3g}"]
+        for c in ("wall", "evals"):
+            row = picks[c][t]
+            if row["label"] is None:
+                cells.append("none reaches it")
+            else:
+                cells.append(f"{_cell(row['label'])}: {_cost(row['cost'], c)} ({row['how']})")
+        rank = picks["wall"][t]["ranking"]
+        cells.append(f"{_cell(rank[1][0])}: {_cost(rank[1][1], 'wall')}" if len(rank) > 1 else "-")
+        lines.append("| " + " | ".join(cells) + " |")
+    return lines
+
+
+def _series(path: str, records: list[dict], points: list) -> list[dict]:
+    by_id = {r["run_id"]: r for r in records}
+    return load_labelled(path, records, [by_id[p.run_id] for p in points])
+
+
+def case_section(path: str, records: list[dict], case: str, out_dir: Path) -> list[str]:
+    recs = analysis.case_records(records, case)
+    statuses = {}
+    for r in recs:
+        statuses[r.get("status")] = statuses.get(r.get("status"), 0) + 1
+    counts = ", ".join(f"{n} {s}" for s, n in sorted(statuses.items(), key=lambda x: str(x[0])))
+    lines = [f"## Case `{case}`", "", f"{len(recs)} run(s): {counts}.", "", "### Runs", ""]
+    lines += runs_table(records, case)
+    lines += [
+        "",
+        "Errors are maxima over the run: axis err is the angle of the figure axis from "
+        "the exact solution's; energy err is |E - E0| / |E0|; the momentum errors are "
+        "relative to |L0|. The drift law classifies the exponent p of the energy error's "
+        f"growth ~ t^p: bounded below {analysis.BOUNDED_BELOW}, random walk below "
+        f"{analysis.RANDOM_WALK_BELOW}, linear below {analysis.LINEAR_BELOW}, faster "
+        'than linear above; unknown where too few samples allowed a fit. "At round-off": '
+        f"the energy error stays below {analysis.ROUNDOFF_LEVEL:.1e} (100 machine epsilons), "
+        "where the law describes accumulated rounding, not the method's truncation "
+        "error.",
+        "",
+    ]
+    errors = ["axis", "energy"] if analysis.default_error(records, case) == "axis" else ["energy"]
+    lines += [
+        "### Cheapest method per target error",
+        "",
+        "Costs between two runs of a method are interpolated along its Pareto front, "
+        'linearly in log(cost) against log(error); "at most": the method\'s cheapest run '
+        "already beats the target, so its cost is an upper bound (no extrapolation below "
+        "the cheapest run). Only runs with status ok count.",
+        "",
+    ]
+    for e in errors:
+        lines += [f"By {analysis.ERRORS[e][1]}:", ""] + cheapest_table(records, case, e) + [""]
+    lines += ["### Figures", ""]
+    base = slug(case)
+    figs = []
+    for e in errors:
+        name = f"{base}-work-precision-{e}.png"
+        plots.work_precision(records, case, out_dir / name, error=e)
+        figs.append((name, f"work-precision, {analysis.ERRORS[e][1]}"))
+    fr = analysis.frontiers(records, case, errors[0], "wall")
+    reps = analysis.representatives(fr)
+    runs = _series(path, records, reps)
+    if runs:
+        plots.drift(runs, case, out_dir / f"{base}-drift.png")
+        figs.append(
+            (
+                f"{base}-drift.png",
+                "invariant errors against time, the most accurate run of each method",
+            )
+        )
+        if any(r["exact_euler"] is not None for r in runs):
+            plots.theta(runs, case, out_dir / f"{base}-theta.png")
+            figs.append(
+                (
+                    f"{base}-theta.png",
+                    "theta against the exact solution, the most accurate run of each method",
+                )
+            )
+        ranked = sorted(reps, key=lambda p: p.error)
+        ends = [ranked[-1]] + ([ranked[0]] if len(ranked) > 1 else [])
+        plots.axis_path(_series(path, records, ends), case, out_dir / f"{base}-axis-path.png")
+        figs.append(
+            (
+                f"{base}-axis-path.png",
+                "path of the figure axis seen from above, the "
+                "least and the most accurate of those runs",
+            )
+        )
+    else:
+        lines += ["No ok run with samples: no time-series figures.", ""]
+    for name, what in figs:
+        lines += [f"![{case}: {what}]({name})", "", f"*{what}*", ""]
+    return lines
+
+
+def write_report(path: str, records: list[dict], out_dir: Path, cases: list[str]) -> Path:
+    out_dir.mkdir(parents=True, exist_ok=True)
+    lines = [
+        "# topdrift report",
+        "",
+        f"Runs file: `{path}`, read {datetime.now(UTC).strftime('%Y-%m-%d %H:%M UTC')}; "
+        f"{len(records)} runs, {len(cases)} case(s).",
+        "",
+    ]
+    for case in cases:
+        lines += case_section(path, records, case, out_dir)
+    out = out_dir / "report.md"
+    out.write_text("\n".join(lines).rstrip() + "\n", encoding="utf-8")
+    return out

@@ -1,0 +1,1 @@
+"""The `topdrift` command line: the entry point and one module per command."""

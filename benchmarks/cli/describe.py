@@ -1,0 +1,172 @@
+"""`topdrift describe CASE [--json]` / `topdrift describe --demo [--json]`: the body, the start in
+both state forms, its invariants and, for a Lagrange top, a summary of the exact motion."""
+
+from __future__ import annotations
+
+import json
+import math
+import textwrap
+
+KIND_TEXT = {
+    "lagrange": "Lagrange top: symmetric, centre of mass on the figure axis (exactly solvable)",
+    "kovalevskaya": "Kovalevskaya top: I1 = I2 = 2 I3, centre of mass in the equatorial plane",
+    "free": "free body: centre of mass at the pivot, no gravity torque",
+    "symmetric": "symmetric heavy top with its centre of mass off the figure axis",
+    "asymmetric": "asymmetric heavy top",
+}
+
+
+def add_parser(sub) -> None:
+    p = sub.add_parser(
+        "describe", help="show a case: body, start in both forms, invariants, exact motion"
+    )
+    p.add_argument("case", nargs="?", help="a case file or the name of a library case")
+    p.add_argument("--demo", action="store_true", help="describe the demo-wheel case")
+    p.add_argument("--json", action="store_true", help="print the JSON contract")
+    p.set_defaults(func=run)
+
+
+def run(args) -> int:
+    from topdrift.benchmarks.cases.library import DEMO_CASE, load_case
+    from topdrift.benchmarks.errors import UserError
+
+    if args.demo and args.case:
+        raise UserError("describe: give a CASE or --demo, not both")
+    if not args.demo and not args.case:
+        raise UserError("describe: give a CASE (a file or a library name) or --demo")
+    from topdrift.benchmarks.cases.description import summarise
+
+    info = summarise(load_case(DEMO_CASE if args.demo else args.case))
+    if args.json:
+        print(json.dumps(info, indent=2, allow_nan=False))
+    else:
+        print(render(info))
+    return 0
+
+
+def _g(x: float | None, digits: int = 6) -> str:
+    return "-" if x is None else f"{x:.{digits}g}"
+
+
+def _vec(v) -> str:
+    return "(" + ", ".join(_g(x) for x in v) + ")"
+
+
+def _table(rows: list[tuple[str, ...]], indent: str = "  ") -> list[str]:
+    widths = [max(len(r[k]) for r in rows) for k in range(len(rows[0]))]
+    return [
+        indent + "  ".join(c.ljust(w) for c, w in zip(r, widths, strict=True)).rstrip()
+        for r in rows
+    ]
+
+
+def _angle(x: float) -> str:
+    return f"{x:.6g} rad ({math.degrees(x):.6g} deg)"
+
+
+def _rate(x: float) -> str:
+    return f"{x:.6g} rad/s ({x * 60 / (2 * math.pi):.6g} rpm)"
+
+
+def render(info: dict) -> str:
+    c = info["case"]
+    out = [f"case {c['name']}"]
+    if c["path"]:
+        out.append(f"  file     {c['path']}")
+    out += ["  " + line for line in textwrap.wrap(c["description"], 96)]
+    out.append(f"  horizon  {_g(c['horizon'])} s, {c['samples']} samples (both ends included)")
+    if c["run"]:
+        out.append("  run      " + ", ".join(f"{k} {v}" for k, v in c["run"].items()))
+
+    b = info["body"]
+    out += ["", "body", f"  {KIND_TEXT[info['kind']]}"]
+    out += _table(
+        [
+            ("mass", _g(b["mass"]), "kg"),
+            ("I1", _g(b["inertia"][0]), "kg m^2  (about the pivot)"),
+            ("I2", _g(b["inertia"][1]), "kg m^2"),
+            ("I3", _g(b["inertia"][2]), "kg m^2"),
+            ("com", _vec(b["com"]), "m  (body axes)"),
+            ("gravity", _g(b["gravity"]), "m/s^2"),
+        ]
+    )
+
+    w = info["wheel"]
+    if w is not None:
+        rows = [("part", "mass kg", "com m", "axial kg m^2", "transverse kg m^2")]
+        for p in w["parts"]:
+            rows.append(
+                (p["name"], _g(p["mass"]), _g(p["com"]), _g(p["axial"]), _g(p["transverse"]))
+            )
+        t = w["totals"]
+        rows.append(("total", _g(t["mass"]), _g(t["com"]), _g(t["axial"]), _g(t["transverse"])))
+        out += ["", "wheel parts (moments about the pivot; com along the axle)"]
+        out += _table(rows)
+
+    s = info["start"]
+    a, r = s["angles"], s["rates"]
+    out += ["", "start"]
+    out += _table(
+        [
+            ("theta", _angle(a["theta"]), "theta_rate", _rate(r["theta_rate"])),
+            ("phi", _angle(a["phi"]), "phi_rate", _rate(r["phi_rate"])),
+            ("psi", _angle(a["psi"]), "psi_rate", _rate(r["psi_rate"])),
+        ]
+    )
+    out += _table(
+        [
+            ("body form", f"q = {_vec(s['body']['q'])}"),
+            ("", f"m = {_vec(s['body']['m'])} kg m^2/s"),
+        ]
+    )
+    e = s["euler"]
+    if e is not None:
+        out += _table(
+            [
+                ("euler form", f"(phi, theta, psi) = {_vec([e['phi'], e['theta'], e['psi']])} rad"),
+                (
+                    "",
+                    f"(p_phi, p_theta, p_psi) = {_vec([e['p_phi'], e['p_theta'], e['p_psi']])}"
+                    " kg m^2/s",
+                ),
+            ]
+        )
+    else:
+        out.append(f"  euler form  none: {s['euler_unavailable']}")
+
+    inv = info["invariants"]
+    conserved_psi = info["kind"] == "lagrange"
+    rows = [
+        ("energy", _g(inv["energy"], 10), "J"),
+        ("p_phi", _g(inv["p_phi"], 10), "kg m^2/s  (L . e_z)"),
+        (
+            "p_psi",
+            _g(inv["p_psi"], 10),
+            "kg m^2/s  (L . e3)" + ("" if conserved_psi else ", not conserved for this body"),
+        ),
+    ]
+    if inv.get("kovalevskaya") is not None:
+        rows.append(("kovalevskaya", _g(inv["kovalevskaya"], 10), "s^-4  (Kovalevskaya integral)"))
+    out += ["", "invariants"] + _table(rows)
+
+    x = info["exact"]
+    if x is not None:
+        out += ["", "exact motion"]
+        out += _table(
+            [
+                ("motion", str(x["motion"]), ""),
+                ("theta min", _angle(x["theta_min"]) if x["theta_min"] is not None else "-", ""),
+                ("theta max", _angle(x["theta_max"]) if x["theta_max"] is not None else "-", ""),
+                ("nutation period", _g(x["nutation_period"]), "s"),
+                ("precession per period", _g(x["precession_per_period"]), "rad"),
+                ("mean precession rate", _g(x["mean_precession_rate"]), "rad/s"),
+            ]
+            + (
+                [("mean spin rate", _g(x["mean_spin_rate"]), "rad/s")]
+                if "mean_spin_rate" in x
+                else []
+            )
+        )
+    elif "exact_unavailable" in info:
+        out += ["", f"exact motion  unavailable: {info['exact_unavailable']}"]
+    return "\n".join(out)

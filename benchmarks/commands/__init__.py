@@ -1,1 +1,0 @@
-"""One module per `topdrift` subcommand: add_parser(subparsers) and run(args)."""

@@ -1,0 +1,2 @@
+"""Running a case: the runner and its sampling kernel, metrics, in-memory runs, ensembles,
+progress lines."""

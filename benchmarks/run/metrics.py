@@ -1,0 +1,239 @@
+"""Per-run metrics: running maxima of the invariant and trajectory errors, cost, drift law.
+
+The maxima are kept as a value (`Accumulator.state()` / `from_state()`), so that a checkpoint
+holds them and a resumed run ends with the same numbers as an uninterrupted one.
+
+Scales: energy errors are relative to |E0|; the momentum errors p_phi and p_psi are relative to
+|L0|, the norm of the start's angular momentum, since p_phi = L.e_z and p_psi = L.e3 are
+projections of L and either may start at zero. A start with E0 = 0 (or L0 = 0) falls back to a
+scale built from the start's kinetic and potential energy magnitudes (or to 1 kg m^2/s), so that
+no metric is a division by zero.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from topdrift.benchmarks.run.sampling import S_ENERGY, S_NORM, S_P_PHI, S_P_PSI
+
+# Running maxima, in this order, in the accumulator's array.
+MAX_NAMES = (
+    "energy_rel_max",
+    "p_phi_rel_max",
+    "p_psi_rel_max",
+    "norm_abs_max",
+    "axis_angle_max",
+    "theta_abs_max",
+    "phi_abs_max",
+    "psi_abs_max",
+)
+_EXACT_NAMES = ("axis_angle_max", "theta_abs_max", "phi_abs_max", "psi_abs_max")
+
+METRIC_NAMES = MAX_NAMES + (
+    "steps",
+    "rhs_evals",
+    "rejected",
+    "wall_s",
+    "cpu_s",
+    "ns_per_step",
+    "energy_drift_exponent",
+    "t_fail",
+)
+
+# The drift law is fitted over the last DRIFT_DECADES decades of sample times, on
+# DRIFT_POINTS log-spaced times, so that each decade weighs the same (uniform samples would
+# otherwise put nine tenths of the weight in the last decade).
+DRIFT_DECADES = 2.0
+DRIFT_POINTS = 24
+DRIFT_MIN_POINTS = 3
+
+
+def wrapped(d: np.ndarray) -> np.ndarray:
+    """An angle difference folded into [-pi, pi): angles stored folded compare this way."""
+    return np.mod(d + math.pi, 2.0 * math.pi) - math.pi
+
+
+def axis_angle(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Angle (rad) between rows of two (n, 3) arrays of directions; atan2 of the cross and dot
+    products stays accurate for small angles, where acos of the dot product loses half the
+    digits (common practice)."""
+    cross = np.linalg.norm(np.cross(a, b), axis=1)
+    dot = np.einsum("ij,ij->i", a, b)
+    return np.arctan2(cross, dot)
+
+
+class Accumulator:
+    """Reference values from the start sample and the running maxima since."""
+
+    def __init__(
+        self,
+        e0: float,
+        e_scale: float,
+        p_phi0: float,
+        p_psi0: float,
+        l_scale: float,
+        has_exact: bool,
+        has_norm: bool,
+    ):
+        self.e0 = float(e0)
+        self.e_scale = float(e_scale)
+        self.p_phi0 = float(p_phi0)
+        self.p_psi0 = float(p_psi0)
+        self.l_scale = float(l_scale)
+        self.has_exact = bool(has_exact)
+        self.has_norm = bool(has_norm)
+        self.maxima = np.zeros(len(MAX_NAMES))
+
+    @classmethod
+    def at_start(
+        cls,
+        scal0: np.ndarray,
+        mom0: np.ndarray,
+        params: np.ndarray,
+        has_exact: bool,
+        has_norm: bool,
+    ) -> Accumulator:
+        """scal0: the start sample's scalar row; mom0: its body angular momentum."""
+        from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+
+        e0 = float(scal0[S_ENERGY])
+        l0 = float(np.linalg.norm(mom0))
+        e_scale = abs(e0)
+        if e_scale == 0.0:
+            kin = 0.5 * float(
+                mom0[0] ** 2 * params[P_INV1]
+                + mom0[1] ** 2 * params[P_INV2]
+                + mom0[2] ** 2 * params[P_INV3]
+            )
+            e_scale = kin + math.hypot(params[P_MGX], params[P_MGY], params[P_MGZ])
+            if e_scale == 0.0:
+                e_scale = 1.0
+        return cls(
+            e0,
+            e_scale,
+            scal0[S_P_PHI],
+            scal0[S_P_PSI],
+            l0 if l0 > 0.0 else 1.0,
+            has_exact,
+            has_norm,
+        )
+
+    def update(
+        self,
+        scal: np.ndarray,
+        euler: np.ndarray,
+        axis: np.ndarray,
+        exact_euler: np.ndarray | None,
+        exact_axis: np.ndarray | None,
+    ) -> None:
+        """Fold a batch of samples (rows) into the maxima."""
+        if scal.shape[0] == 0:
+            return
+        m = self.maxima
+        m[0] = max(m[0], float(np.max(np.abs(scal[:, S_ENERGY] - self.e0))) / self.e_scale)
+        m[1] = max(m[1], float(np.max(np.abs(scal[:, S_P_PHI] - self.p_phi0))) / self.l_scale)
+        m[2] = max(m[2], float(np.max(np.abs(scal[:, S_P_PSI] - self.p_psi0))) / self.l_scale)
+        m[3] = max(m[3], float(np.max(np.abs(scal[:, S_NORM] - 1.0))))
+        if self.has_exact and exact_euler is not None and exact_axis is not None:
+            m[4] = max(m[4], float(np.max(axis_angle(axis, exact_axis))))
+            m[5] = max(m[5], float(np.max(np.abs(euler[:, 1] - exact_euler[:, 1]))))
+            m[6] = max(m[6], float(np.max(np.abs(wrapped(euler[:, 0] - exact_euler[:, 0])))))
+            m[7] = max(m[7], float(np.max(np.abs(wrapped(euler[:, 2] - exact_euler[:, 2])))))
+
+    def energy_rel(self, energy: np.ndarray) -> np.ndarray:
+        return np.abs(energy - self.e0) / self.e_scale
+
+    def state(self) -> dict:
+        return {
+            "e0": self.e0,
+            "e_scale": self.e_scale,
+            "p_phi0": self.p_phi0,
+            "p_psi0": self.p_psi0,
+            "l_scale": self.l_scale,
+            "has_exact": int(self.has_exact),
+            "has_norm": int(self.has_norm),
+            "maxima": self.maxima.copy(),
+        }
+
+    @classmethod
+    def from_state(cls, s: dict) -> Accumulator:
+        acc = cls(
+            s["e0"],
+            s["e_scale"],
+            s["p_phi0"],
+            s["p_psi0"],
+            s["l_scale"],
+            bool(s["has_exact"]),
+            bool(s["has_norm"]),
+        )
+        acc.maxima[:] = np.asarray(s["maxima"], dtype=np.float64)
+        return acc
+
+    def maxima_dict(self) -> dict:
+        out = {}
+        for name, v in zip(MAX_NAMES, self.maxima, strict=True):
+            if name in _EXACT_NAMES and not self.has_exact:
+                out[name] = None
+            elif name == "norm_abs_max" and not self.has_norm:
+                out[name] = None  # the Euler form carries no quaternion to drift
+            else:
+                out[name] = float(v)
+        return out
+
+
+def drift_exponent(t: np.ndarray, e_rel: np.ndarray) -> float | None:
+    """Slope of log(running max of e_rel) against log(t) over the last two decades of samples.
+
+    About 0 for a bounded error, 0.5 for a random walk (round-off), 1 for linear drift.
+    The fit is least squares on DRIFT_POINTS log-spaced times in [t_end / 100, t_end], each
+    taking the running maximum at the last sample not after it. A running maximum that is zero
+    throughout the window (the invariant kept to the bit) counts as bounded: 0. Zeros at the start
+    of the window are dropped (their log is undefined); fewer than three usable points: None.
+    """
+    t = np.asarray(t, dtype=np.float64)
+    e = np.asarray(e_rel, dtype=np.float64)
+    keep = t > 0.0
+    t, e = t[keep], e[keep]
+    if t.size < DRIFT_MIN_POINTS:
+        return None
+    run = np.maximum.accumulate(e)
+    t_end = float(t[-1])
+    t_lo = max(float(t[0]), t_end * 10.0 ** (-DRIFT_DECADES))
+    targets = np.geomspace(t_lo, t_end, DRIFT_POINTS)
+    idx = np.unique(np.clip(np.searchsorted(t, targets, side="right") - 1, 0, t.size - 1))
+    tw, mw = t[idx], run[idx]
+    if not np.any(mw > 0.0):
+        return 0.0
+    pos = mw > 0.0
+    tw, mw = tw[pos], mw[pos]
+    if tw.size < DRIFT_MIN_POINTS or tw[0] == tw[-1]:
+        return None
+    slope = np.polyfit(np.log(tw), np.log(mw), 1)[0]
+    return float(slope)
+
+
+def finish(
+    acc: Accumulator,
+    counters: np.ndarray,
+    wall_s: float,
+    cpu_s: float,
+    t: np.ndarray,
+    energy: np.ndarray,
+    t_fail: float | None,
+) -> dict:
+    """The metrics of a run from its accumulator, counters, timing and energy samples."""
+    from topdrift.integrators import C_EVALS, C_REJECTED, C_STEPS
+
+    steps = int(counters[C_STEPS])
+    out = acc.maxima_dict()
+    out["steps"] = steps
+    out["rhs_evals"] = int(counters[C_EVALS])
+    out["rejected"] = int(counters[C_REJECTED])
+    out["wall_s"] = float(wall_s)
+    out["cpu_s"] = float(cpu_s)
+    out["ns_per_step"] = float(wall_s * 1e9 / steps) if steps > 0 else None
+    out["energy_drift_exponent"] = drift_exponent(t, acc.energy_rel(energy)) if len(t) else None
+    out["t_fail"] = None if t_fail is None or math.isnan(t_fail) else float(t_fail)
+    return out

@@ -1,0 +1,639 @@
+"""The long-horizon runner: one case, one method, one setting, sampled at uniform times.
+
+A run advances its stepper from sample to sample (t_k = k T / (n - 1), t = 0 and T included), so
+memory stays constant however many steps the horizon takes; dense output between steps is the
+adaptive stepper's job, and for fixed-step methods the step is rounded down to divide the sample
+interval. Samples are buffered and written in batches, each batch followed by a checkpoint
+(stepper snapshot, sample index, metric accumulators, time spent), so that `resume` continues a
+killed or interrupted run to the same bits as one that never stopped.
+"""
+
+from __future__ import annotations
+
+import functools
+import hashlib
+import json
+import math
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from topdrift.benchmarks.cases.schema import LARGEST, MAX_SAMPLES, SMALLEST
+from topdrift.benchmarks.cases.time_scales import fastest_rate
+from topdrift.benchmarks.errors import UserError
+from topdrift.benchmarks.run.loop import (
+    STOPPED,
+    Outcome,
+    SampledRun,
+    close_run,
+    failure_time,
+    sample_loop,
+    stepper_outcome,
+)
+from topdrift.benchmarks.run.metrics import Accumulator, finish
+from topdrift.benchmarks.run.sampling import S_ENERGY, SampleBuffers
+from topdrift.benchmarks.store.writer import (
+    CHUNK_ROWS,
+    DIVERGED,
+    FAILED,
+    INTERRUPTED,
+    OK,
+    RUNNING,
+    NoRoom,
+    RunGroup,
+    ensure_room,
+    utc_now,
+)
+from topdrift.integrators import C_STEPS, ST_OK, Method, MethodRefused, Stepper
+from topdrift.integrators import get as get_method
+from topdrift.models import FORM_EULER, FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
+
+FLUSH_EVERY_S = 2.0
+BATCH_ROWS = 4096
+CHUNK_STEPS = 1 << 20  # steps per call inside a long fixed-step interval (see _Run._advance_to)
+
+
+@dataclass
+class StopFlag:
+    """Set by a signal handler; the runner looks at it after every sample."""
+
+    signum: int = 0
+
+    @property
+    def requested(self) -> bool:
+        return self.signum != 0
+
+
+@dataclass
+class RunPlan:
+    """Everything a run needs, validated before any file is touched."""
+
+    case: object
+    method: Method
+    form: str
+    horizon: float
+    samples: int
+    settings: dict  # stored with the run: requested and used values
+    stepper_settings: dict  # what the stepper is given
+    y0: np.ndarray | None  # start state in `form`; None when it cannot be written in it
+    params: np.ndarray
+    exact: object | None
+    run_id: str
+    notes: list[str] = field(default_factory=list)
+    start_singular: str = ""  # why the start has no state in this form (the pole)
+
+    @property
+    def form_code(self) -> int:
+        return form_code(self.form)
+
+    @property
+    def label(self) -> str:
+        return f"{self.case.name} {self.method.name} {self.run_id[:8]}"
+
+    def sample_time(self, k: int) -> float:
+        if k == self.samples - 1:
+            return self.horizon
+        return self.horizon * k / (self.samples - 1)
+
+
+@dataclass
+class RunResult:
+    run_id: str
+    status: str
+    metrics: dict
+    detail: str = ""
+
+
+def _positive(name: str, v) -> float:
+    try:
+        v = float(v)
+    except (TypeError, ValueError):
+        raise UserError(f"{name}: expected a number, got {v!r}") from None
+    if not (math.isfinite(v) and v > 0.0):
+        raise UserError(f"{name}: must be a positive finite number, got {v!r}")
+    if not SMALLEST <= v <= LARGEST:  # the range case files keep to (see case.py)
+        raise UserError(
+            f"{name}: {v:g} is outside the range topdrift computes with "
+            f"({SMALLEST:g} to {LARGEST:g} in SI units)"
+        )
+    return v
+
+
+def steps_per_interval(interval: float, step: float) -> int:
+    """How many steps of about `step` fill one sample interval: the ratio rounded up, except that
+    a ratio within 1e-9 of a whole number is that number (200 / 1e4 / 1e-5 is 2000.0000000000002
+    in floating point, and means 2000 steps, not 2001)."""
+    ratio = interval / step
+    k = round(ratio)
+    if k >= 1 and abs(ratio - k) <= 1e-9 * k:
+        return k
+    return max(1, math.ceil(ratio))
+
+
+def start_state(case, form: str) -> np.ndarray:
+    """The case's start state in `form` as a fresh C-contiguous float64 array.
+
+    Raises SingularAttitude for a start on the vertical in the Euler form (see plan_run)."""
+    theta = case.start.theta
+    # theta = pi has sin(theta) = 1.2e-16, not 0, in floating point: the pole is tested by value.
+    on_pole = theta <= 0.0 or theta >= math.pi or math.sin(theta) == 0.0
+    if form == "euler" and case.body.lagrange_top and on_pole:
+        pole = "upward" if theta < 1.0 else "downward"
+        raise SingularAttitude(
+            f"{case.name}: start.theta = {theta:.17g} rad is on the {pole} vertical, the pole of "
+            "the Euler angles (sin(theta) = 0), where the Euler form is singular; run it in the "
+            "body form (--form body)"
+        )
+    y = case.state(form)
+    return np.ascontiguousarray(np.array(y, dtype=np.float64))
+
+
+def make_run_id(
+    case_toml: str, method: str, form: str, settings: dict, horizon: float, samples: int
+) -> str:
+    """A stable hash of what determines the run's numbers."""
+    key = json.dumps(
+        {
+            "case_toml": case_toml,
+            "method": method,
+            "form": form,
+            "settings": settings,
+            "horizon": repr(float(horizon)),
+            "samples": int(samples),
+        },
+        sort_keys=True,
+    )
+    return hashlib.sha256(key.encode()).hexdigest()[:16]
+
+
+def plan_run(
+    case,
+    method_name: str,
+    *,
+    step=None,
+    rtol=None,
+    atol=None,
+    form=None,
+    horizon=None,
+    samples=None,
+) -> RunPlan:
+    """Validate a run and settle its settings; raises UserError or MethodRefused (exit 2)."""
+    method = get_method(method_name)
+    body = case.body
+    horizon = _positive("--horizon", case.horizon if horizon is None else horizon)
+    n = case.samples if samples is None else samples
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 2:
+        raise UserError(f"--samples: need a whole number of at least 2 (t = 0 and T), got {n!r}")
+    if n > MAX_SAMPLES:  # the case files' own limit
+        raise UserError(f"--samples: at most {MAX_SAMPLES} (t = 0 and T included), got {n}")
+    n = int(n)
+    notes = []
+    if form is None:
+        form = method.default_form(body)
+    elif form not in FORM_NAMES:
+        raise UserError(f"--form: expected one of {', '.join(FORM_NAMES)}, got {form!r}")
+    interval = horizon / (n - 1)
+    if method.info.control == "step":
+        if step is None:
+            raise UserError(f"{method.name}: a fixed-step method needs --step")
+        if rtol is not None or atol is not None:
+            raise UserError(f"{method.name}: a fixed-step method takes --step, not --rtol/--atol")
+        h_req = _positive("--step", step)
+        per = steps_per_interval(interval, h_req)
+        h = interval / per
+        settings = {"step": h, "step_requested": h_req, "steps_per_sample": per}
+        stepper_settings = {"step": h}
+        if h != h_req:
+            notes.append(
+                f"step rounded {'down' if h < h_req else 'up'} from {h_req:.17g} to {h:.17g} "
+                f"so that {per} steps fill "
+                f"each sample interval of {interval:.17g}"
+            )
+    else:
+        if step is not None:
+            raise UserError(f"{method.name}: an adaptive method takes --rtol [--atol], not --step")
+        if rtol is None:
+            raise UserError(f"{method.name}: an adaptive method needs --rtol")
+        r = _positive("--rtol", rtol)
+        a = r * 1e-3 if atol is None else _positive("--atol", atol)
+        settings = {"rtol": r, "atol": a}
+        stepper_settings = {"rtol": r, "atol": a}
+    method.check(body, form, stepper_settings)
+    params = body.params()
+    start_singular = ""
+    try:
+        y0 = start_state(case, form)
+    except SingularAttitude as exc:
+        # The Euler form cannot hold a start at the pole. Refused up front, like any other run a
+        # method cannot do: a stored run that ends at t = 0 says nothing a user could not be told.
+        raise MethodRefused(str(exc)) from None
+    if y0.shape != (FORM_SIZE[form_code(form)],):
+        raise UserError(f"{case.name}: start state has shape {y0.shape} for the {form} form")
+    _check_budget(case, method, horizon, n, settings)
+    exact = None
+    if body.lagrange_top:
+        k = np.arange(min(n, BATCH_ROWS))
+        probe = np.append(horizon * k / (n - 1), horizon)
+        exact = _exact_solution(body, form, y0, notes, probe)
+    run_id = make_run_id(case.toml_text, method.name, form, settings, horizon, n)
+    plan = RunPlan(
+        case,
+        method,
+        form,
+        horizon,
+        n,
+        settings,
+        stepper_settings,
+        y0,
+        params,
+        exact,
+        run_id,
+        notes,
+        start_singular,
+    )
+    try:
+        warm_up(plan)  # compiles, and lets start() refuse before any file exists
+    except ArithmeticError as exc:
+        # A kernel's own division by zero or overflow on this start (numba raises these): a
+        # refusal naming it, not a traceback.
+        raise MethodRefused(
+            f"{method.name}: cannot start on {case.name}: {type(exc).__name__} in the first steps "
+            f"({exc})"
+        ) from None
+    return plan
+
+
+# The most steps one run may take: about 10 hours at 35 ns a step (the fastest kernels, see
+# DESIGN.md), days for the others. A horizon that needs more is refused before anything runs,
+# instead of keeping a machine busy for ever.
+MAX_STEPS = 1e12
+
+
+def _check_budget(case, method, horizon: float, n: int, settings: dict) -> None:
+    """Refuse a run that cannot finish in any reasonable time (see MAX_STEPS)."""
+    if "steps_per_sample" in settings:
+        steps = float(settings["steps_per_sample"]) * (n - 1)
+        if steps > MAX_STEPS:
+            raise UserError(
+                f"--horizon {horizon:g} with --step {settings['step_requested']:g} is "
+                f"{steps:.3g} steps, more than the {MAX_STEPS:.0e} a run may take; shorten the "
+                "horizon or lengthen the step"
+            )
+        return
+    turns = horizon * fastest_rate(case) / (2.0 * math.pi)
+    if turns > MAX_STEPS:
+        raise UserError(
+            f"--horizon {horizon:g}: {case.name} turns {turns:.3g} times over the horizon at its "
+            f"fastest rate, so an adaptive method would take more than the {MAX_STEPS:.0e} steps "
+            "a run may take; shorten the horizon"
+        )
+
+
+def _exact_solution(body, form: str, y0: np.ndarray, notes: list[str], probe: np.ndarray):
+    try:
+        from topdrift.models.exact import ExactUnavailable, LagrangeTop
+    except ImportError:
+        notes.append("no exact solution: topdrift.models.exact is not available")
+        return None
+    try:
+        top = LagrangeTop.from_state(body, form, y0)
+    except ExactUnavailable as exc:
+        notes.append(f"no exact solution: {exc}")
+        return None
+    except ArithmeticError as exc:
+        # The reference is a comparison, not the run: a start it cannot handle is said, not fatal.
+        notes.append(f"no exact solution: {type(exc).__name__} while setting it up ({exc})")
+        return None
+    # Evaluate it once at the first batch of sample times and at T, so that a reference that
+    # cannot be evaluated for this start is known before the run, not half way through it.
+    try:
+        _exact_rows(top, probe)
+    except ExactFailed as exc:
+        notes.append(f"no exact solution: {exc}")
+        return None
+    return top
+
+
+class ExactFailed(RuntimeError):
+    """The exact solution raised or returned non-finite values at some sample times."""
+
+
+def warm_up(plan: RunPlan) -> None:
+    """Compile every kernel the run calls, on throwaway copies, before any clock starts."""
+    interval = plan.horizon / (plan.samples - 1)
+    w = plan.method.start(
+        plan.form_code, plan.params.copy(), 0.0, plan.y0.copy(), dict(plan.stepper_settings)
+    )
+    if "step" in plan.stepper_settings:
+        h = plan.stepper_settings["step"]
+        w.advance_to(2.0 * h)
+    else:
+        w.advance_to(interval * 1e-6)
+    w.snapshot()
+    SampleBuffers(1, plan.y0.shape[0]).record(plan.form_code, plan.y0, plan.params, 0)
+
+
+def _exact_rows(top, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Exact (phi, theta, psi), folded like the computed ones, and the exact figure axis."""
+    try:
+        e = np.array(top.euler(t), dtype=np.float64).reshape(-1, 3)
+        a = np.array(top.axis(t), dtype=np.float64).reshape(-1, 3)
+    except Exception as exc:  # a reference that breaks must end the run loudly, not crash it
+        raise ExactFailed(
+            f"the exact solution failed for t in [{t[0]:.6g}, {t[-1]:.6g}]: "
+            f"{type(exc).__name__}: {exc}"
+        ) from None
+    if not (np.all(np.isfinite(e)) and np.all(np.isfinite(a))):
+        bad = t[~(np.all(np.isfinite(e), axis=1) & np.all(np.isfinite(a), axis=1))]
+        raise ExactFailed(f"the exact solution is not finite at t = {bad[0]:.17g}")
+    e[:, 0] = np.arctan2(np.sin(e[:, 0]), np.cos(e[:, 0]))
+    e[:, 2] = np.arctan2(np.sin(e[:, 2]), np.cos(e[:, 2]))
+    return e, a
+
+
+def versions() -> dict:
+    """Library versions and the CPU model (a fresh dict each call)."""
+    return dict(_versions())
+
+
+@functools.cache
+def _versions() -> dict:
+    # Looked up once per process: package metadata reads take milliseconds.
+    import platform
+    import sys
+    from importlib.metadata import PackageNotFoundError, version
+
+    out = {"python": sys.version.split()[0]}
+    for pkg in ("topdrift", "numpy", "scipy", "numba", "h5py"):
+        try:
+            out[pkg] = version(pkg)
+        except PackageNotFoundError:
+            out[pkg] = None
+    cpu = platform.processor() or platform.machine()
+    try:
+        with open("/proc/cpuinfo") as fh:
+            for line in fh:
+                if line.startswith("model name"):
+                    cpu = line.split(":", 1)[1].strip()
+                    break
+    except OSError:
+        pass
+    out["cpu"] = cpu
+    return out
+
+
+def run_attrs(plan: RunPlan) -> dict:
+    c = plan.case
+    return {
+        "case": c.name,
+        "case_toml": c.toml_text,
+        "method": plan.method.name,
+        "form": plan.form,
+        "settings": json.dumps(plan.settings),
+        "horizon": float(plan.horizon),
+        "samples": int(plan.samples),
+        "created": utc_now(),
+        "versions": json.dumps(versions()),
+        "notes": json.dumps(plan.notes),
+    }
+
+
+class _Run(SampledRun):
+    """A single run in progress, as the sample loop drives it; its state() is the checkpoint.
+
+    A batch holds BATCH_ROWS samples; each write appends them with the exact solution at their
+    times, folds them into the metric accumulator and replaces the checkpoint."""
+
+    def __init__(self, plan: RunPlan, group: RunGroup, stop: StopFlag, progress):
+        self.plan = plan
+        self.group = group
+        self.stop = stop
+        self.progress = progress
+        self.samples = plan.samples
+        self.has_exact = plan.exact is not None
+        self.k = 0  # next sample to take
+        self.wall = 0.0
+        self.cpu = 0.0  # CPU time of the same calls: on a shared machine, the steadier number
+        self.stepper: Stepper | None = None
+        self.acc: Accumulator | None = None
+        self.rows = min(BATCH_ROWS, plan.samples)
+        self.buf = SampleBuffers(self.rows, FORM_SIZE[plan.form_code])
+
+    def fresh_stepper(self) -> Stepper:
+        p = self.plan
+        return p.method.start(
+            p.form_code, p.params.copy(), 0.0, p.y0.copy(), dict(p.stepper_settings)
+        )
+
+    def checkpoint(self) -> None:
+        s = self.stepper
+        self.group.write_checkpoint(
+            {
+                "run": {
+                    "sample": self.k,
+                    "wall_s": self.wall,
+                    "cpu_s": self.cpu,
+                    "t": float(s.t),
+                    "y": np.array(s.y, dtype=np.float64),
+                    "counters": np.array(s.counters, dtype=np.int64),
+                },
+                "stepper": s.snapshot(),
+                "metrics": self.acc.state(),
+            }
+        )
+
+    def restore(self) -> None:
+        cp = self.group.read_checkpoint()
+        if cp is None or "run" not in cp:
+            raise UserError(f"run {self.plan.run_id}: no checkpoint to resume from; use --force")
+        p = self.plan
+        self.k = int(cp["run"]["sample"])
+        self.wall = float(cp["run"]["wall_s"])
+        self.cpu = float(cp["run"].get("cpu_s", 0.0))
+        self.stepper = self.fresh_stepper()
+        self.stepper.restore(cp["stepper"])
+        self.stepper.counters[:] = cp["run"]["counters"]
+        if not (
+            self.stepper.t == cp["run"]["t"] and np.array_equal(self.stepper.y, cp["run"]["y"])
+        ):
+            raise UserError(f"run {p.run_id}: the stepper did not restore its checkpoint exactly")
+        self.acc = Accumulator.from_state(cp["metrics"])
+        # Rows past the checkpoint are dropped; rows missing before it (a file damaged after
+        # its last flush) would leave a gap that appending cannot mend.
+        short = {
+            name: ds.shape[0] for name, ds in self.group.datasets().items() if ds.shape[0] < self.k
+        }
+        if short:
+            name, rows = next(iter(short.items()))
+            raise UserError(
+                f"run {p.run_id}: the checkpoint is at sample {self.k} but dataset '{name}' holds "
+                f"{rows} rows; the file lost samples: use --force to run it again"
+            )
+        self.group.truncate(self.k)
+
+    # The loop's side of a single run (see loop.SampledRun).
+
+    def sample_time(self, k: int) -> float:
+        return self.plan.sample_time(k)
+
+    def steps(self) -> int:
+        return int(self.stepper.counters[C_STEPS])
+
+    def take_start(self) -> int:
+        if self.k > 0:
+            return 0
+        form, s, buf = self.plan.form_code, self.stepper, self.buf
+        buf.t[0] = 0.0
+        if not buf.record(form, s.y, self.plan.params, 0):
+            raise UserError(f"{self.plan.case.name}: the start state is not finite")
+        self.acc = Accumulator.at_start(
+            buf.scal[0], buf.mom[0], self.plan.params, self.has_exact, form != FORM_EULER
+        )
+        self.k = 1
+        return 1
+
+    def advance(self, tk: float) -> Outcome | None:
+        try:
+            st = self._advance_to(tk)
+        except MethodRefused as exc:
+            return Outcome(FAILED, str(exc), float(self.stepper.t))
+        if st is None:
+            return STOPPED
+        if st != ST_OK:
+            s = self.stepper
+            return stepper_outcome(st, failure_time(s.t_fail, s.t))
+        return None
+
+    def record(self, j: int, tk: float) -> Outcome | None:
+        self.buf.t[j] = tk
+        if not self.buf.record(self.plan.form_code, self.stepper.y, self.plan.params, j):
+            return Outcome(DIVERGED, f"non-finite state at t = {tk:.17g}", tk)
+        return None
+
+    def check(self, j: int, tk: float) -> Outcome | None:
+        e_rel = abs(self.buf.scal[j, S_ENERGY] - self.acc.e0) / self.acc.e_scale
+        if not e_rel <= 1.0:
+            return Outcome(DIVERGED, f"relative energy error {e_rel:.3g} > 1 at t = {tk:.17g}", tk)
+        return None
+
+    def write(self, j: int) -> Outcome | None:
+        buf = self.buf
+        # Checked before anything is written (see store.NoRoom). A write appends the new rows
+        # and rewrites the last, partly filled chunk of every dataset (compressed, perhaps at a
+        # new place in the file), plus the checkpoint: rows + one chunk of rows, uncompressed,
+        # bound it.
+        row_bytes = 8 * (buf.state.shape[1] + 3 + 4 + 3 + 4 + (6 if self.has_exact else 0))
+        rows = j + min(CHUNK_ROWS, self.samples)
+        ensure_room(self.group.f, rows * row_bytes + 64 * 1024, f"the samples up to {self.k}")
+        if j:
+            tb = buf.t[:j].copy()
+            batch = {"t": tb, **buf.rows_of(0, j)}
+            ee = ea = None
+            if self.has_exact:
+                try:
+                    ee, ea = _exact_rows(self.plan.exact, tb)
+                except ExactFailed as exc:
+                    # The batch is dropped whole: every stored row has its exact counterpart.
+                    return Outcome(FAILED, str(exc))
+                batch["exact/euler"] = ee
+                batch["exact/axis"] = ea
+            self.acc.update(buf.scal[:j], buf.euler[:j], buf.axis[:j], ee, ea)
+            self.group.append(batch)
+        self.checkpoint()
+        m = self.acc.maxima_dict()
+        m["steps"] = self.steps()
+        self.group.set_metrics(m)
+        self.group.flush()
+        return None
+
+    def _advance_to(self, tk: float) -> int | None:
+        """Advance the stepper to the sample time tk, timing the calls; returns its status, or
+        None when a stop was asked for inside a long interval (the stepper is then back at
+        t_(k-1)).
+
+        A fixed-step interval longer than CHUNK_STEPS steps is taken in pieces of CHUNK_STEPS,
+        so that the progress bar moves and a signal is heard within a fraction of a second. The
+        pieces are fixed by the step count, never by the clock, so that a run repeats its
+        bits."""
+        plan, s = self.plan, self.stepper
+        per = plan.settings.get("steps_per_sample", 0)
+        if per <= CHUNK_STEPS:
+            return self._timed(s, tk)
+        at_start = (s.snapshot(), self.wall, self.cpu)
+        h = plan.stepper_settings["step"]
+        t_prev = plan.sample_time(self.k - 1)
+        done = 0
+        while True:
+            left = per - done
+            target = tk if left <= CHUNK_STEPS else t_prev + (done + CHUNK_STEPS) * h
+            st = self._timed(s, target)
+            if st != ST_OK or target == tk:
+                return st
+            done += CHUNK_STEPS
+            if self.progress:
+                self.progress.update(self.k - 1 + done / per, self.steps())
+            if self.stop.requested:
+                # Back to the last sample: the checkpoint must describe a state at a sample time.
+                fresh = self.fresh_stepper()
+                fresh.restore(at_start[0])
+                self.stepper = fresh
+                self.wall, self.cpu = at_start[1], at_start[2]
+                return None
+
+    def _timed(self, s: Stepper, t: float) -> int:
+        c0, t0 = time.thread_time(), time.perf_counter()
+        try:
+            return s.advance_to(t)
+        finally:
+            self.wall += time.perf_counter() - t0
+            self.cpu += time.thread_time() - c0
+
+    def final_metrics(self, t_fail) -> dict:
+        g = self.group.g
+        t = g["t"][()]
+        energy = g["invariants/energy"][()]
+        return finish(self.acc, self.stepper.counters, self.wall, self.cpu, t, energy, t_fail)
+
+
+def execute(
+    plan: RunPlan,
+    f,
+    *,
+    resume: bool = False,
+    progress=None,
+    stop: StopFlag | None = None,
+    flush_every: float = FLUSH_EVERY_S,
+) -> RunResult:
+    """Run a plan into the open store f (creating or continuing its group)."""
+    stop = stop or StopFlag()
+    width = FORM_SIZE[plan.form_code]
+    if resume:
+        group = RunGroup(f, plan.run_id)
+        run = _Run(plan, group, stop, progress)
+        run.restore()
+        group.set(status=RUNNING)
+        group.flush()
+    else:
+        has_exact = plan.exact is not None
+        group = RunGroup.create(f, plan.run_id, run_attrs(plan), width, has_exact, plan.samples)
+        run = _Run(plan, group, stop, progress)
+        run.stepper = run.fresh_stepper()
+    try:
+        end = sample_loop(run, progress=progress, stop=stop, flush_every=flush_every)
+    except NoRoom as exc:
+        # Nothing of the batch was written: the run stops at its last checkpoint, marked
+        # interrupted (a few bytes, within the margin kept), and --resume goes on from there.
+        group.set(status=INTERRUPTED, detail=str(exc))
+        group.flush()
+        if progress:
+            progress.end(INTERRUPTED)
+        done = group.n_stored
+        raise NoRoom(
+            f"{exc}; run {plan.run_id} is interrupted with {done} of {plan.samples} samples "
+            "stored: make room, then go on with --resume"
+        ) from None
+    end = end or Outcome(OK)
+    metrics = run.final_metrics(end.t_fail)
+    close_run(group, end.status, end.detail, metrics, progress)
+    return RunResult(plan.run_id, end.status, metrics, end.detail)

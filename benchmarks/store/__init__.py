@@ -1,0 +1,1 @@
+"""The run-file format (HDF5): its one writer and one reader."""

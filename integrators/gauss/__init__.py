@@ -1,0 +1,1 @@
+"""Gauss-Legendre collocation: the tableaux and the implicit kernel."""

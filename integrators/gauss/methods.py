@@ -1,0 +1,207 @@
+"""Gauss-Legendre collocation, 2 and 3 stages (orders 4 and 6), fixed step, in both state forms,
+with plain or compensated (Kahan) summation of the update.
+
+Which invariants a run keeps. Gauss collocation keeps every quadratic first integral of the ODE
+exactly, up to the round-off of the stage solve (G. J. Cooper, "Stability of Runge-Kutta methods
+for trajectory problems", IMA J. Numer. Anal. 7 (1987) 1-13, from memory), and like every
+Runge-Kutta method every linear one. Worked out per form:
+
+  body form  |q|^2 is quadratic and d|q|^2/dt = 0 for any w: kept.
+             H = m.I^-1 m / 2 + M g chi.Gamma(q) with Gamma(q) = R(q)^T e_z quadratic in q, and H
+             is a first integral of the equations as written, for any |q|: kept, for every body.
+             p_phi = m.Gamma(q) is cubic: not kept (drifts at the truncation error).
+             p_psi = m3 is linear and a first integral when I1 = I2 and chi is on axis 3: kept.
+  euler form p_phi and p_psi have identically zero derivative: kept bit for bit.
+             H is not polynomial in theta: not kept (bounded error, as for any symplectic method).
+             norm is 1 by definition.
+
+So `keeps` claims what holds in both forms: p_psi and norm. Energy (body form) and p_phi (Euler
+form) are kept too, in that form only; the tests check all four statements.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from topdrift.integrators.base import ST_OK, Method, MethodInfo, MethodRefused, Stepper
+from topdrift.integrators.gauss.kernel import N_ITERS, N_MEMO, gauss_steps, work_size
+from topdrift.integrators.gauss.tableau import GAUSS2, GAUSS3, Tableau
+from topdrift.models import FORM_NAMES
+
+# Sweeps of the fixed-point iteration allowed per step, unless settings say otherwise. At the
+# steps these methods are meant for, the iteration contracts by a factor h L |A| < 0.3 per sweep
+# and needs 4 to 15 sweeps; 60 leaves room for a slowly contracting step before giving up.
+DEFAULT_MAX_ITERATIONS = 60
+
+# advance_to needs t_end - t to be a whole number of steps to this relative precision.
+GRID_RTOL = 1e-9
+
+SOURCE = (
+    "Butcher 1964, Math. Comp. 18; Hairer and Wanner, Solving ODEs II, sec. IV.5; "
+    "Hairer, Lubich and Wanner, Geometric Numerical Integration, sec. II.1.3"
+)
+
+SETTING_KEYS = ("step", "max_iterations")
+
+
+class GaussStepper(Stepper):
+    def __init__(self, method, form, params, t0, y0, h, max_iter):
+        super().__init__(form=form, params=params, t=t0, y=y0)
+        tab = method.tableau
+        n = y0.shape[0]
+        s = tab.stages
+        self.method_name = method.name
+        self.h = h
+        self.max_iter = max_iter
+        self.compensated = method.info.compensated
+        self.tab = tab
+        self.comp = np.zeros(n)
+        self.fprev = np.zeros(s * n)
+        self.memo = np.full(N_MEMO, np.nan)
+        self.iters = np.zeros(N_ITERS, dtype=np.int64)
+        self.work = np.zeros(work_size(s, n))
+
+    def advance_to(self, t_end: float) -> int:
+        if self.status != ST_OK:
+            return self.status
+        span = float(t_end) - self.t
+        whole = round(span / self.h)
+        if abs(span - whole * self.h) > GRID_RTOL * max(abs(span), self.h):
+            raise MethodRefused(
+                f"{self.method_name}: t_end = {t_end!r} is not a whole number of steps "
+                f"(step {self.h!r}) from t = {self.t!r}"
+            )
+        if whole == 0:
+            return ST_OK
+        h = self.h if whole > 0 else -self.h
+        status, done = gauss_steps(
+            self.form,
+            self.y,
+            self.params,
+            h,
+            abs(whole),
+            self.tab.a,
+            self.tab.b,
+            self.tab.c,
+            self.tab.e,
+            self.compensated,
+            self.max_iter,
+            self.comp,
+            self.fprev,
+            self.memo,
+            self.work,
+            self.counters,
+            self.iters,
+        )
+        if status == ST_OK:
+            self.t = float(t_end)
+        else:
+            self.t = self.t + done * h
+            self.status = int(status)
+            self.t_fail = self.t
+        return self.status
+
+    @property
+    def sweeps(self) -> int:
+        """Fixed-point sweeps so far (each costs one rhs evaluation per stage)."""
+        return int(self.iters[0])
+
+    def snapshot(self) -> dict:
+        return {
+            "method": self.method_name,
+            "step": self.h,
+            "max_iterations": self.max_iter,
+            "t": self.t,
+            "y": self.y.copy(),
+            "comp": self.comp.copy(),
+            "fprev": self.fprev.copy(),
+            "memo": self.memo.copy(),
+            "counters": self.counters.copy(),
+            "iters": self.iters.copy(),
+            "status": self.status,
+            "t_fail": self.t_fail,
+        }
+
+    def restore(self, snap: dict) -> None:
+        if snap.get("method") != self.method_name or snap.get("step") != self.h:
+            raise MethodRefused(
+                f"{self.method_name}: snapshot is of {snap.get('method')!r} with step "
+                f"{snap.get('step')!r}, not of this run (step {self.h!r})"
+            )
+        for key, dest in (
+            ("y", self.y),
+            ("comp", self.comp),
+            ("fprev", self.fprev),
+            ("memo", self.memo),
+            ("counters", self.counters),
+            ("iters", self.iters),
+        ):
+            src = np.asarray(snap[key])
+            if src.shape != dest.shape:
+                raise MethodRefused(
+                    f"{self.method_name}: snapshot field {key!r} has shape {src.shape}, "
+                    f"expected {dest.shape}"
+                )
+            dest[:] = src
+        self.max_iter = int(snap["max_iterations"])
+        self.t = float(snap["t"])
+        self.status = int(snap["status"])
+        self.t_fail = float(snap["t_fail"])
+
+
+class GaussMethod(Method):
+    def __init__(self, name: str, table: dict, compensated: bool) -> None:
+        self.tableau = Tableau(table)
+        s = self.tableau.stages
+        summation = (
+            "the update added with Kahan's compensated summation"
+            if compensated
+            else "plain summation of the update"
+        )
+        self.info = MethodInfo(
+            name=name,
+            family="gauss-legendre",
+            order=self.tableau.order,
+            symplectic=True,
+            forms=("euler", "body"),
+            control="step",
+            keeps=("p_psi", "norm"),
+            compensated=compensated,
+            description=(
+                f"Gauss-Legendre collocation, {s} stages, order {self.tableau.order}; stage "
+                f"equations solved by fixed-point iteration to round-off; {summation}. Also "
+                f"keeps energy in the body form and p_phi in the Euler form"
+            ),
+            source=SOURCE,
+        )
+
+    def start(self, form, params, t0, y0, settings) -> Stepper:
+        form = int(form)
+        if form < 0 or form >= len(FORM_NAMES) or FORM_NAMES[form] not in self.info.forms:
+            raise MethodRefused(f"{self.name}: unknown state form code {form!r}")
+        for key in settings:
+            if key not in SETTING_KEYS:
+                raise MethodRefused(
+                    f"{self.name}: unknown setting {key!r} (known: {', '.join(SETTING_KEYS)})"
+                )
+        h = settings.get("step")
+        if not isinstance(h, float) or not h > 0.0 or not math.isfinite(h):
+            raise MethodRefused(f"{self.name}: needs a positive finite step, got {h!r}")
+        max_iter = settings.get("max_iterations", DEFAULT_MAX_ITERATIONS)
+        if isinstance(max_iter, bool) or not isinstance(max_iter, int) or max_iter < 2:
+            raise MethodRefused(
+                f"{self.name}: max_iterations must be an integer of at least 2, got {max_iter!r}"
+            )
+        y = self.start_state(form, y0)
+        p = np.ascontiguousarray(params, dtype=np.float64)
+        return GaussStepper(self, form, p, float(t0), y, h, int(max_iter))
+
+
+METHODS = [
+    GaussMethod("gauss4", GAUSS2, compensated=False),
+    GaussMethod("gauss6", GAUSS3, compensated=False),
+    GaussMethod("gauss4-kahan", GAUSS2, compensated=True),
+    GaussMethod("gauss6-kahan", GAUSS3, compensated=True),
+]

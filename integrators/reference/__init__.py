@@ -1,0 +1,1 @@
+"""scipy.integrate's solvers behind topdrift's method contract."""

@@ -1,0 +1,311 @@
+"""Adaptive embedded Runge-Kutta methods: Dormand-Prince 5(4) (`rk45`) and DOP853 (`dop853`).
+
+Both run on the one tableau-driven kernel in rk_embedded_kernel.py (one body, compiled into one
+entry point per state form).
+
+Settings (floats): "rtol", "atol" (required; rtol >= 100 machine epsilons, as scipy enforces by
+clamping); "first_step" (optional, else Hairer's starting-step heuristic); "horizon" (optional:
+the last time the run will ask for; steps are then clipped to end exactly on it, as scipy's
+t_bound, and the starting step never exceeds the interval. Without a horizon no step is ever
+clipped and every output, the last included, comes from the dense output.)
+
+advance_to(t_out) steps while the internal time is below t_out, never shortening a step for an
+output time, then evaluates the dense output at t_out: the step sequence does not depend on how
+often the run is sampled. The controller (internal t, y, f, the proposed step, the last step's
+stages and dense coefficients) lives in the stepper and is part of its snapshot.
+
+Counters (kept by the kernels): steps = accepted steps; rejected = rejected attempts; evals =
+every right-hand-side evaluation: 1 for f(t0), 1 for the starting-step heuristic (none with
+first_step), 6 per rk45 attempt; 11 per dop853 attempt plus 1 per accepted step (its FSAL stage
+is evaluated after acceptance, as in Hairer's code, where scipy evaluates it on every attempt),
+plus 3 per dop853 step whose dense output serves an output time. The accepted steps themselves
+match scipy's RK45 / DOP853 step for step on the same problem, tolerances and first step.
+
+Failures: a state past the chart's edge (singular(form, y)) stops with ST_SINGULAR; a step below
+10 ulp of t with ST_STEP_UNDERFLOW, or ST_DIVERGED when the attempts that drove it there were
+not finite. t_fail, t and y are then the end of the last accepted step.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from topdrift.integrators.base import (
+    N_COUNTERS,
+    ST_OK,
+    Method,
+    MethodInfo,
+    MethodRefused,
+    Stepper,
+)
+from topdrift.integrators.rk.embedded_kernel import (
+    CT_DENSE_OK,
+    CT_H,
+    CT_H_PREV,
+    CT_T,
+    CT_T_OLD,
+    N_CTRL,
+    N_TOL,
+    TL_ATOL,
+    TL_EXPONENT,
+    TL_RTOL,
+    TL_T_BOUND,
+    advance_kernel,
+    first_derivative,
+    initial_step,
+)
+from topdrift.integrators.rk.packed import pack
+from topdrift.integrators.rk.tableaux import DOP853, DP5, Tableau
+from topdrift.models import FORM_SIZE
+
+EPS = float(np.finfo(float).eps)
+SETTING_KEYS = ("rtol", "atol", "first_step", "horizon")
+
+# Runge-Kutta methods keep every linear invariant whose derivative the right-hand side makes
+# exactly zero. In the Euler form that holds for p_phi and p_psi (rhs writes 0.0 for both), but
+# in the body form neither L.e_z (not linear in q, m) nor m3 (m1 w2 - m2 w1 rounds to nonzero)
+# is kept to round-off; energy and |q| are kept by no explicit RK method. `keeps` is per method
+# over all its forms, so these methods claim nothing.
+_KEEPS: tuple[str, ...] = ()
+
+
+def _float_setting(name: str, settings: dict, key: str, required: bool) -> float | None:
+    v = settings.get(key)
+    if v is None and not required:
+        return None
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        raise MethodRefused(f"{name}: setting {key!r} must be a number, got {v!r}")
+    v = float(v)
+    if not math.isfinite(v) or v <= 0.0:
+        raise MethodRefused(f"{name}: setting {key!r} must be positive and finite, got {v!r}")
+    return v
+
+
+class EmbeddedRK(Method):
+    def __init__(self, tab: Tableau, description: str) -> None:
+        self.tableau = tab
+        self.packed = pack(tab)
+        self._kernel_args = self.packed.args()
+        self.info = MethodInfo(
+            name=tab.name,
+            family="adaptive-rk",
+            order=tab.order,
+            symplectic=False,
+            forms=("body", "euler"),
+            control="tolerance",
+            keeps=_KEEPS,
+            compensated=False,
+            description=description,
+            source=tab.source,
+        )
+
+    def _settings(self, settings: dict, t0: float | None = None) -> dict:
+        unknown = sorted(set(settings) - set(SETTING_KEYS))
+        if unknown:
+            raise MethodRefused(
+                f"{self.name}: unknown setting(s) {', '.join(map(repr, unknown))}; "
+                f"known: {', '.join(SETTING_KEYS)}"
+            )
+        rtol = _float_setting(self.name, settings, "rtol", True)
+        atol = _float_setting(self.name, settings, "atol", True)
+        if rtol < 100 * EPS:
+            raise MethodRefused(
+                f"{self.name}: rtol {rtol:g} is below 100 machine epsilons ({100 * EPS:.3g}), "
+                f"where the error estimate is round-off"
+            )
+        first = _float_setting(self.name, settings, "first_step", False)
+        horizon = settings.get("horizon")
+        if horizon is not None:
+            if isinstance(horizon, bool) or not isinstance(horizon, (int, float)):
+                raise MethodRefused(f"{self.name}: setting 'horizon' must be a number")
+            horizon = float(horizon)
+            if not math.isfinite(horizon):
+                raise MethodRefused(f"{self.name}: setting 'horizon' must be finite")
+            if t0 is not None and not horizon > t0:
+                raise MethodRefused(
+                    f"{self.name}: horizon {horizon!r} must be later than the start {t0!r}"
+                )
+            if t0 is not None and first is not None and first > horizon - t0:
+                raise MethodRefused(
+                    f"{self.name}: first_step {first!r} exceeds the interval to the horizon"
+                )
+        return {"rtol": rtol, "atol": atol, "first_step": first, "horizon": horizon}
+
+    def check(self, body, form: str, settings: dict) -> None:
+        super().check(body, form, settings)
+        self._settings(settings)
+
+    def start(self, form, params, t0, y0, settings) -> EmbeddedStepper:
+        s = self._settings(settings, float(t0))
+        return EmbeddedStepper.begin(self, int(form), params, float(t0), y0, s)
+
+
+class EmbeddedStepper(Stepper):
+    """A run of an embedded pair; the controller's state is in the arrays below."""
+
+    method: EmbeddedRK
+    horizon: float | None
+
+    @classmethod
+    def begin(cls, method: EmbeddedRK, form: int, params, t0: float, y0, s: dict):
+        y0 = np.ascontiguousarray(y0, dtype=np.float64).copy()
+        if y0.shape != (FORM_SIZE[form],):
+            raise MethodRefused(
+                f"{method.name}: state has shape {y0.shape}, the form needs {FORM_SIZE[form]}"
+            )
+        params = np.ascontiguousarray(params, dtype=np.float64)
+        st = cls(form=form, params=params, t=t0, y=y0.copy())
+        st.method = method
+        st.horizon = s["horizon"]
+        st.kernel = advance_kernel(form)
+        n = y0.shape[0]
+        tab = method.tableau
+        rows = method.packed.n_rows
+        st.tol = np.empty(N_TOL)
+        st.tol[TL_RTOL] = s["rtol"]
+        st.tol[TL_ATOL] = s["atol"]
+        st.tol[TL_T_BOUND] = math.inf if st.horizon is None else st.horizon
+        st.tol[TL_EXPONENT] = -1.0 / (tab.error_order + 1)
+        st.yi = y0  # internal state at ctrl[CT_T]
+        st.f = np.empty(n)
+        st.K = np.zeros(rows * n)
+        st.yold = y0.copy()
+        st.ynew = np.empty(n)
+        st.ytmp = np.empty(n)
+        st.ftmp = np.empty(n)
+        st.etmp = np.empty(2 * n)
+        st.dense = np.zeros((3 + tab.dense.shape[0]) * n)
+        st.ctrl = np.zeros(N_CTRL)
+        st.counters = np.zeros(N_COUNTERS, dtype=np.int64)
+        first_derivative(form, params, st.yi, st.f, st.counters)
+        if s["first_step"] is not None:
+            h0 = s["first_step"]
+        else:
+            interval = math.inf if st.horizon is None else st.horizon - t0
+            h0 = initial_step(
+                form,
+                params,
+                st.yi,
+                st.f,
+                st.ytmp,
+                st.ftmp,
+                s["rtol"],
+                s["atol"],
+                tab.error_order,
+                interval,
+                st.counters,
+            )
+        st.ctrl[CT_T] = t0
+        st.ctrl[CT_H] = h0
+        st.ctrl[CT_T_OLD] = t0
+        st.ctrl[CT_H_PREV] = 0.0
+        st.ctrl[CT_DENSE_OK] = 0.0
+        return st
+
+    def advance_to(self, t_end: float) -> int:
+        if self.status != ST_OK:
+            return self.status
+        t_end = float(t_end)
+        if not t_end >= self.t:
+            raise MethodRefused(
+                f"{self.method.name}: asked for t = {t_end!r}, before the current time {self.t!r}"
+            )
+        if self.horizon is not None and t_end > self.horizon:
+            raise MethodRefused(
+                f"{self.method.name}: asked for t = {t_end!r}, past the horizon {self.horizon!r} "
+                f"the run was started with"
+            )
+        y_out = np.empty_like(self.yi)
+        status = self.kernel(
+            (
+                self.params,
+                *self.method._kernel_args,
+                self.tol,
+                self.yi,
+                self.f,
+                self.K,
+                self.yold,
+                self.ynew,
+                self.ytmp,
+                self.etmp,
+                self.dense,
+                self.ctrl,
+                self.counters,
+                t_end,
+                y_out,
+            )
+        )
+        if status != ST_OK:
+            self.status = int(status)
+            self.t_fail = float(self.ctrl[CT_T])
+            self.t = self.t_fail
+            self.y = self.yi.copy()
+            return self.status
+        self.t = t_end
+        self.y = y_out
+        return ST_OK
+
+    @property
+    def t_internal(self) -> float:
+        """End of the last accepted step (at or after self.t)."""
+        return float(self.ctrl[CT_T])
+
+    @property
+    def step_proposed(self) -> float:
+        return float(self.ctrl[CT_H])
+
+    _ARRAYS = ("y", "yi", "f", "K", "yold", "dense", "ctrl", "counters")
+
+    def snapshot(self) -> dict:
+        """Plain numbers and arrays only. `tol` (rtol, atol, horizon, exponent) and `order` are
+        there to refuse a snapshot of other settings or of the other method."""
+        snap = {k: getattr(self, k).copy() for k in self._ARRAYS}
+        snap["tol"] = self.tol.copy()
+        snap.update(
+            order=self.method.info.order,
+            form=self.form,
+            t=self.t,
+            status=self.status,
+            t_fail=self.t_fail,
+        )
+        return snap
+
+    def restore(self, snap: dict) -> None:
+        name = self.method.name
+        if int(snap.get("order", -1)) != self.method.info.order or int(snap.get("form", -1)) != int(
+            self.form
+        ):
+            raise MethodRefused(
+                f"{name}: snapshot is of an order-{snap.get('order')} method in form "
+                f"{snap.get('form')}, not of this stepper"
+            )
+        if not np.array_equal(np.asarray(snap["tol"]), self.tol):
+            raise MethodRefused(f"{name}: snapshot was made with other tolerances or horizon")
+        for k in self._ARRAYS:
+            src = np.asarray(snap[k])
+            dst = getattr(self, k)
+            if src.shape != dst.shape:
+                raise MethodRefused(f"{name}: snapshot field {k!r} has the wrong shape")
+            if k == "y":
+                self.y = src.astype(np.float64, copy=True)  # outputs already handed out stay
+            else:
+                dst[...] = src
+        self.t = float(snap["t"])
+        self.status = int(snap["status"])
+        self.t_fail = float(snap["t_fail"])
+
+
+RK45 = EmbeddedRK(
+    DP5,
+    "Dormand-Prince 5(4), FSAL, local extrapolation, 4th-order dense output; step control as "
+    "scipy's RK45",
+)
+DOP853_METHOD = EmbeddedRK(
+    DOP853,
+    "Dormand-Prince 8(5,3) as coded by Hairer, FSAL, 7th-order dense output; step control as "
+    "scipy's DOP853",
+)
+
+METHODS = [RK45, DOP853_METHOD]

@@ -1,0 +1,155 @@
+"""The one kernel family behind every splitting method: any coefficient table, either form.
+
+A step is the sequence B(b_0 h) A(a_1 h) B(b_1 h) ... A(a_s h) B(b_s h) (compositions.py). The
+closing kick of one step and the opening kick of the next are merged into one kick of
+(b_s + b_0) h: a kick keeps the coordinates it depends on fixed, so it is linear in its time and
+the merge is exact in exact arithmetic. The stepper therefore carries the "open" state w, the
+state before the closing kick b_s h, and hands out closed states as copies. Output times never
+change the step sequence, so a run sampled often gives the same bits as a run sampled rarely.
+
+fresh = 1 means w is a closed state (no step taken yet): the first kick is b_0 h, not the merge.
+
+Kernels call the model kernels by name (flow_a, flow_b, increment_a, increment_b, singular),
+allocate nothing inside the step loop, and count their own steps and sub-flow evaluations.
+"""
+
+from __future__ import annotations
+
+import math
+
+from numba import njit
+
+from topdrift.integrators.base import C_EVALS, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGULAR
+from topdrift.models.dynamics import singular
+from topdrift.models.flows import flow_a, flow_b, increment_a, increment_b
+from topdrift.models.forms import FORM_BODY, FORM_EULER
+
+
+@njit(cache=True, inline="always")
+def _plain_steps(form, p, kick, drift, nsteps, w, first, counters):
+    s = drift.shape[0]
+    n = w.shape[0]
+    wrap = kick[s] + kick[0]
+    status = ST_OK
+    done = 0
+    for _ in range(nsteps):
+        flow_b(form, first, w, p)
+        first = wrap
+        for i in range(s - 1):
+            flow_a(form, drift[i], w, p)
+            flow_b(form, kick[i + 1], w, p)
+        flow_a(form, drift[s - 1], w, p)
+        acc = 0.0
+        for i in range(n):
+            acc += w[i]
+        if not math.isfinite(acc):
+            status = ST_DIVERGED
+            break
+        if singular(form, w):
+            status = ST_SINGULAR
+            break
+        done += 1
+    attempted = done + (1 if status != ST_OK else 0)
+    counters[C_STEPS] += done
+    counters[C_EVALS] += 2 * s * attempted
+    return status, done
+
+
+@njit(cache=True)
+def run_plain(form, p, kick, drift, nsteps, w, fresh, counters):
+    """Advance the open state w by nsteps steps in place. kick (s + 1) and drift (s) are the
+    coefficients already multiplied by the step. Returns (status, good steps taken).
+
+    The loop is inlined once per form with the form a constant, so that the sub-flows' switch
+    on the form folds away (measured: 62 -> 36 ns per Euler-form leapfrog step)."""
+    if nsteps <= 0:
+        return ST_OK, 0
+    first = kick[0] if fresh[0] != 0 else kick[kick.shape[0] - 1] + kick[0]
+    fresh[0] = 0
+    if form == FORM_EULER:
+        return _plain_steps(FORM_EULER, p, kick, drift, nsteps, w, first, counters)
+    return _plain_steps(FORM_BODY, p, kick, drift, nsteps, w, first, counters)
+
+
+@njit(cache=True, inline="always")
+def _add_compensated(w, e, d, n):
+    """w + e += d with Knuth's TwoSum: the rounding error of every addition goes into e, exact
+    whatever the relative sizes of w and d (Kahan's shortcut needs |w| >= |d|)."""
+    for i in range(n):
+        a = d[i] + e[i]
+        s = w[i] + a
+        bp = s - w[i]
+        e[i] = (w[i] - (s - bp)) + (a - bp)
+        w[i] = s
+
+
+@njit(cache=True, inline="always")
+def _compensated_steps(form, p, kick, drift, nsteps, w, e, d, first, counters):
+    s = drift.shape[0]
+    n = w.shape[0]
+    wrap = kick[s] + kick[0]
+    status = ST_OK
+    done = 0
+    for _ in range(nsteps):
+        increment_b(form, first, w, p, d)
+        _add_compensated(w, e, d, n)
+        first = wrap
+        for i in range(s - 1):
+            increment_a(form, drift[i], w, p, d)
+            _add_compensated(w, e, d, n)
+            increment_b(form, kick[i + 1], w, p, d)
+            _add_compensated(w, e, d, n)
+        increment_a(form, drift[s - 1], w, p, d)
+        _add_compensated(w, e, d, n)
+        acc = 0.0
+        for i in range(n):
+            acc += w[i]
+        if not math.isfinite(acc):
+            status = ST_DIVERGED
+            break
+        if singular(form, w):
+            status = ST_SINGULAR
+            break
+        done += 1
+    attempted = done + (1 if status != ST_OK else 0)
+    counters[C_STEPS] += done
+    counters[C_EVALS] += 2 * s * attempted
+    return status, done
+
+
+@njit(cache=True)
+def run_compensated(form, p, kick, drift, nsteps, w, e, d, fresh, counters):
+    """run_plain with compensated summation: every sub-flow is evaluated as an increment d of
+    the rounded state w and added to (w, e) with TwoSum; e carries what did not fit into w.
+    d is scratch of the state's length."""
+    if nsteps <= 0:
+        return ST_OK, 0
+    first = kick[0] if fresh[0] != 0 else kick[kick.shape[0] - 1] + kick[0]
+    fresh[0] = 0
+    if form == FORM_EULER:
+        return _compensated_steps(FORM_EULER, p, kick, drift, nsteps, w, e, d, first, counters)
+    return _compensated_steps(FORM_BODY, p, kick, drift, nsteps, w, e, d, first, counters)
+
+
+@njit(cache=True)
+def close_plain(form, p, kick, w, fresh, out, counters):
+    """The closed state: w with the pending kick b_s h applied, into out (w unchanged)."""
+    for i in range(w.shape[0]):
+        out[i] = w[i]
+    if fresh[0] == 0:
+        flow_b(form, kick[kick.shape[0] - 1], out, p)
+        counters[C_EVALS] += 1
+
+
+@njit(cache=True)
+def close_compensated(form, p, kick, w, e, d, fresh, out, counters):
+    """The closed state of a compensated run, rounded once: w + (e + d)."""
+    n = w.shape[0]
+    if fresh[0] == 0:
+        increment_b(form, kick[kick.shape[0] - 1], w, p, d)
+        counters[C_EVALS] += 1
+    else:
+        for i in range(n):
+            d[i] = 0.0
+    for i in range(n):
+        out[i] = w[i] + (e[i] + d[i])
