@@ -123,6 +123,11 @@ class FoldedAngles:
     psi: np.ndarray
     psi_turns: np.ndarray
 
+    def axis(self) -> np.ndarray:
+        """The figure axis R e3 in space, (sin phi sin theta, -cos phi sin theta, cos theta)."""
+        st = np.sin(self.theta)
+        return np.column_stack((np.sin(self.phi) * st, -np.cos(self.phi) * st, np.cos(self.theta)))
+
     def unfolded(self) -> np.ndarray:
         """(phi, theta, psi) with phi and psi unfolded, rounded to double: shape (n, 3)."""
         return np.column_stack(
@@ -294,8 +299,7 @@ class LagrangeTop:
         th, tl = _times(t, t_lo)
         ang, rates = self._evaluate(th, tl, want_rates=True)
         phi, theta, psi = ang.phi, ang.theta, ang.psi
-        st = np.sin(theta)
-        axis = np.column_stack((np.sin(phi) * st, -np.cos(phi) * st, np.cos(theta)))
+        axis = ang.axis()
         ch, sh = np.cos(0.5 * theta), np.sin(0.5 * theta)
         sp, sm = 0.5 * (phi + psi), 0.5 * (phi - psi)
         quat = np.column_stack((ch * np.cos(sp), sh * np.cos(sm), sh * np.sin(sm), ch * np.sin(sp)))
@@ -314,9 +318,7 @@ class LagrangeTop:
 
     def axis(self, t) -> np.ndarray:
         """The figure axis R e3 in space at the times t, shape (n, 3)."""
-        ang = self.folded(t)
-        st = np.sin(ang.theta)
-        return np.column_stack((np.sin(ang.phi) * st, -np.cos(ang.phi) * st, np.cos(ang.theta)))
+        return self.folded(t).axis()
 
     def _evaluate(self, th, tl, want_rates: bool):
         n = th.shape[0]

@@ -77,7 +77,9 @@ class QuadratureTop:
         # f(u) = (alpha - beta u)(1 - u^2) - (b - a u)^2, ascending coefficients
         coeffs = [alpha - b**2, 2 * a * b - beta, -(alpha + a**2), beta]
         if beta != 0:
-            r = sorted(mp.re(x) for x in mp.polyroots(coeffs, extraprec=400, maxsteps=400, asc=True))
+            r = sorted(
+                mp.re(x) for x in mp.polyroots(coeffs, extraprec=400, maxsteps=400, asc=True)
+            )
             self.u1, self.u2, u3 = (r[0], r[1], r[2]) if beta > 0 else (r[1], r[2], r[0])
             self.w = lambda u: beta * (u3 - u)
         else:
@@ -152,10 +154,11 @@ class QuadratureTop:
         return n
 
     # ------------------------------------------------------------------ evaluation
-    def at(self, t):
-        """(theta, phi, psi) at the double t as mpf (phi, psi unfolded), and the whole periods."""
+    def at(self, t, t_lo=0.0):
+        """(theta, phi, psi) as mpf at the time t + t_lo (doubles, summed exactly), phi and psi
+        unfolded."""
         with mp.workdps(self.digits):
-            s = _mp(t) + self.t0
+            s = _mp(t) + _mp(t_lo) + self.t0
             j = mp.floor(s / self.period)
             rem = s - j * self.period
             chi = mp.pi * rem / self.period
@@ -186,10 +189,10 @@ class QuadratureTop:
             theta = 2 * mp.atan2(mp.sqrt(1 - u), mp.sqrt(1 + u))
             return theta, phi, psi
 
-    def folded(self, t):
-        """(theta, phi folded, phi turns, psi folded, psi turns) at the double t: the angles as
-        mpf in (-pi, pi], the turns as Python integers."""
-        theta, phi, psi = self.at(t)
+    def folded(self, t, t_lo=0.0):
+        """(theta, phi folded, phi turns, psi folded, psi turns) at t + t_lo: the angles as mpf
+        in (-pi, pi], the turns as Python integers."""
+        theta, phi, psi = self.at(t, t_lo)
         with mp.workdps(self.digits):
             kp = int(mp.nint(phi / (2 * mp.pi)))
             ks = int(mp.nint(psi / (2 * mp.pi)))
