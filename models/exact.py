@@ -431,13 +431,13 @@ def _third_kind_terms(sh, sn, cn, dn):
     to 1/sqrt(-n) there), with n' = m / n2 (both terms odd in sn)."""
     sn2, cn2, dn2 = sn * sn, cn * cn, dn * dn
     sn3 = sn * sn2
-    opu_ratio = (sh.op1 + sh.gap * sn2) / sh.op1
     zero = np.zeros_like(sn)
     term1 = zero
     if sh.bma != 0.0:
         term1 = sn3 * sh.c1 * elliprj(cn2, dn2, 1.0, (sh.om2 + sh.gap * cn2) / sh.om1)
     if sh.bpa == 0.0:
         return term1, zero
+    opu_ratio = (sh.op1 + sh.gap * sn2) / sh.op1
     if sh.alt2:
         q = 1.0 - sh.nn * sn2
         return term1, sh.half2 * (

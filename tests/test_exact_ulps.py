@@ -76,6 +76,10 @@ TOPS = {
         library("sleeping-above"),
         "cusps",
     ),
+    "sleeping top below the threshold (library sleeping-below)": (
+        library("sleeping-below"),
+        "cusps",
+    ),
     "M g l < 0": (
         (HANGING, FORM_EULER, euler_state(HANGING, 0.3, 2.5, -0.2, 1.0, -1.5, 20.0)),
         "loops",
@@ -104,7 +108,7 @@ TIME_CAP = 1e12  # s
 
 
 def times_for(period, periods=PERIODS, offsets=OFFSETS):
-    ts = [float(n * period) for n in periods]
+    ts = [0.0] + [float(n * period) for n in periods]
     ts += [float((n + f) * period) for n, f in zip(periods, offsets, strict=True)]
     return ts + [TIME_CAP]
 
