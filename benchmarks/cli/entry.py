@@ -12,6 +12,7 @@ COMMANDS = (
     "demo",
     "methods",
     "describe",
+    "exact",
     "cases",
     "run",
     "summary",
