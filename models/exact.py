@@ -92,7 +92,9 @@ CUSP_RTOL = 1e-12
 SEPARATRIX_RTOL = 1e-10
 # Closer than this (in 1 - |u|) a motion is labelled as passing through the vertical.
 POLE_GAP = 1e-14
-# Times beyond this (s) are refused: a double t above it is known only to ulp(t) > 0.1 s.
+# The largest time (s) the accuracy statement covers: a double t above it is known only to
+# ulp(t) = 0.125 s, and the phase's third words no longer carry 1e-32 (topdrift exact refuses
+# later times).
 MAX_TIME = 1e15
 
 MOTIONS = (

@@ -23,10 +23,11 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 from .exact_arith import multiprecision
 from .exact_roots import Roots, solve_roots
-from .exact_start import ExactInput, start_of
+from .exact_start import ExactInput, Start, start_of
 
 # Decimal digits for the constants: 40 keeps a double-double (32 digits) correctly rounded with
 # margin; more where the double-precision roots show that a small distance sets the size.
@@ -98,7 +99,6 @@ class Shape:
     half2: float
     nn: float
     a: float
-    au0: float
     bma: float
     bpa: float
     k0: float
@@ -152,115 +152,164 @@ def extra_digits(*distances: float) -> int:
     return min(MAX_EXTRA_DIGITS, int(-math.log10(min(small))) + 1)
 
 
+@dataclass(frozen=True)
+class _Elliptic:
+    """The multiprecision parameters of the elliptic solution (reflected problem): m and its
+    complement, lambda, K, the spin-rate part of psi per unit of tau, the characteristics n of
+    the two third-kind integrals with their coefficients half = (b -/+ a) / (2 (1 -/+ u1) lam)
+    and complete values Pi(n | m)."""
+
+    m: Any
+    mc: Any
+    lam: Any
+    quarter: Any
+    rate: Any
+    n1: Any
+    n2: Any
+    half1: Any
+    half2: Any
+    big1: Any
+    big2: Any
+
+
 def periodic_motion(inp: ExactInput, flip: bool, digits: int) -> PeriodicMotion:
-    """The constants of a nutating motion, from the exact start at `digits` decimal digits."""
+    """The constants of a nutating motion, from the exact start at `digits` decimal digits:
+    the start and its turning points again (in multiprecision), the elliptic parameters, then
+    the phase, the per-period advances, the within-period shape and the summary numbers."""
+    import mpmath as mp
+
+    with mp.workdps(digits):
+        ar = multiprecision()
+        st = start_of(inp, ar)
+        if flip:
+            st = st.reflected()
+        beta = 2 * abs(mp.mpf(inp.mgl)) / mp.mpf(inp.i1)
+        roots = solve_roots(st, beta, ar)
+        ell = _elliptic(inp, st, roots, beta)
+        tau0, pi1, pi2 = _start_phase(roots, ell, st.udot0)
+        phase = Phase(
+            lam=_td(ell.lam),
+            two_k=_td(2 * ell.quarter),
+            quarter=_dd(ell.quarter),
+            tau0=_dd(tau0),
+            m=float(ell.m),
+            mc=float(ell.mc),
+            kprime=float(mp.sqrt(ell.mc)),
+        )
+        advances = _advances(st, roots, ell, tau0, pi1, pi2)
+        shape = _shape(inp, st, roots, ell, beta)
+        numbers = _numbers(st, roots, ell, advances, beta, flip)
+    return PeriodicMotion(phase, advances, shape, numbers)
+
+
+def _elliptic(inp: ExactInput, st: Start, roots: Roots, beta) -> _Elliptic:
     import mpmath as mp
 
     from . import carlson
 
-    ar = multiprecision()
-    with mp.workdps(digits):
-        st = start_of(inp, ar)
-        if flip:
-            st = st.reflected()
-        i1, i3 = mp.mpf(inp.i1), mp.mpf(inp.i3)
-        beta = 2 * abs(mp.mpf(inp.mgl)) / i1
-        roots = solve_roots(st, beta, ar)
-        x1, x2, gap = roots.x1, roots.x2, roots.gap
-        om1, om2, op1, op2 = roots.om1, roots.om2, roots.op1, roots.op2
-        if beta > 0:
-            span = roots.d32 + gap
-            m, mc, kappa = gap / span, roots.d32 / span, beta * span
-        else:
-            m, mc, kappa = mp.mpf(0), mp.mpf(1), st.k0 + st.a**2
-        lam = mp.sqrt(kappa) / 2
-        quarter = carlson.complete_first(mc)
-        a, bma, bpa = st.a, st.bma, st.bpa
-        w3 = a * i1 / i3  # p_psi / I3 of the (reflected) problem
-        rate = (w3 - a) / lam
-        # Characteristics of the two third-kind integrals: 1 - u = om1 (1 - n1 sn^2) and
-        # 1 + u = op1 (1 - n2 sn^2), with 1 - n as a ratio of distances.
-        n1 = gap / om1 if bma != 0 else mp.mpf(0)
-        n2 = -gap / op1 if bpa != 0 else mp.mpf(0)
-        half1 = bma / (2 * om1 * lam) if bma != 0 else mp.mpf(0)
-        half2 = bpa / (2 * op1 * lam) if bpa != 0 else mp.mpf(0)
-        big1 = carlson.complete_third(n1, om2 / om1, mc) if bma != 0 else mp.mpf(0)
-        big2 = carlson.complete_third(n2, op2 / op1, mc) if bpa != 0 else mp.mpf(0)
-        part1, part2 = 2 * half1 * big1, 2 * half2 * big2
-        dphi = part1 + part2
-        dpsi = 2 * quarter * rate - part1 + part2
-        tau0, pi1, pi2 = _start_phase(roots, mc, m, n1, n2, quarter, big1, big2, st.udot0)
-        s_phi0 = half1 * pi1 + half2 * pi2
-        s_psi0 = -half1 * pi1 + half2 * pi2 + rate * tau0
-        alt2 = bool(n2 < -1)
-        top_pass = bool(gap > 0 and om2 == 0)
-        bottom_pass = bool(gap > 0 and op1 == 0)
-        period = 2 * quarter / lam
-        passes = int(top_pass) + int(bottom_pass)
-        per_phi = dphi + mp.pi * passes
-        per_psi = dpsi - mp.pi * passes
-        sign = -1 if flip else 1
-        u = (st.u0 + x1, st.u0 + x2, st.u0 + roots.x3 if beta > 0 else mp.inf)
-        tmin = 2 * mp.atan2(mp.sqrt(om2), mp.sqrt(op2))
-        tmax = 2 * mp.atan2(mp.sqrt(om1), mp.sqrt(op1))
-        if flip:
-            u = (-u[1], -u[0], -u[2])
-            tmin, tmax = mp.pi - tmax, mp.pi - tmin
-        numbers = PeriodNumbers(
-            period=float(period),
-            precession_per_period=float(per_phi),
-            spin_per_period=float(sign * per_psi),
-            mean_precession_rate=float(per_phi / period),
-            mean_spin_rate=float(sign * per_psi / period),
-            roots=(float(u[0]), float(u[1]), float(u[2])),
-            theta_min=float(tmin),
-            theta_max=float(tmax),
-        )
-        phase = Phase(
-            lam=_td(lam),
-            two_k=_td(2 * quarter),
-            quarter=_dd(quarter),
-            tau0=_dd(tau0),
-            m=float(m),
-            mc=float(mc),
-            kprime=float(mp.sqrt(mc)),
-        )
-        advances = Advances(
-            dphi=_dd(dphi),
-            dpsi=_dd(dpsi),
-            cf_phi=_dd(half1 + (0 if alt2 else half2)),
-            cf_psi=_dd(rate - half1 + (0 if alt2 else half2)),
-            phi_c=_dd(st.phi0 - s_phi0),
-            psi_c=_dd(st.psi0 - s_psi0),
-            top_pass=top_pass,
-            bottom_pass=bottom_pass,
-        )
-        shape = Shape(
-            gap=float(gap),
-            x1=float(x1),
-            om1=float(om1),
-            om2=float(om2),
-            op1=float(op1),
-            n1=float(n1),
-            c1=float(half1 * n1 / 3),
-            c2=float(half2 * n2 / 3),
-            alt2=alt2,
-            half2=float(half2),
-            nn=float(m / n2) if alt2 else 0.0,
-            a=float(a),
-            au0=float(st.au0),
-            bma=float(bma),
-            bpa=float(bpa),
-            k0=float(st.k0),
-            beta=float(beta),
-            lam=float(lam),
-            rate_psi=float(rate),
-            i1=inp.i1,
-        )
-    return PeriodicMotion(phase, advances, shape, numbers)
+    gap, om1, om2, op1, op2 = roots.gap, roots.om1, roots.om2, roots.op1, roots.op2
+    if beta > 0:
+        span = roots.d32 + gap
+        m, mc, kappa = gap / span, roots.d32 / span, beta * span
+    else:
+        m, mc, kappa = mp.mpf(0), mp.mpf(1), st.k0 + st.a**2
+    lam = mp.sqrt(kappa) / 2
+    w3 = st.a * mp.mpf(inp.i1) / mp.mpf(inp.i3)  # p_psi / I3 of the (reflected) problem
+    zero = mp.mpf(0)
+    # 1 - u = om1 (1 - n1 sn^2) and 1 + u = op1 (1 - n2 sn^2), with 1 - n as a ratio of
+    # distances; a term whose numerator b -/+ a is exactly zero (a pole pass) is absent.
+    top, bottom = st.bma != 0, st.bpa != 0
+    n1 = gap / om1 if top else zero
+    n2 = -gap / op1 if bottom else zero
+    return _Elliptic(
+        m=m,
+        mc=mc,
+        lam=lam,
+        quarter=carlson.complete_first(mc),
+        rate=(w3 - st.a) / lam,
+        n1=n1,
+        n2=n2,
+        half1=st.bma / (2 * om1 * lam) if top else zero,
+        half2=st.bpa / (2 * op1 * lam) if bottom else zero,
+        big1=carlson.complete_third(n1, om2 / om1, mc) if top else zero,
+        big2=carlson.complete_third(n2, op2 / op1, mc) if bottom else zero,
+    )
 
 
-def _start_phase(roots: Roots, mc, m, n1, n2, quarter, big1, big2, udot0):
+def _advances(st: Start, roots: Roots, ell: _Elliptic, tau0, pi1, pi2) -> Advances:
+    """Over a period Pi(n; am tau) gains 2 Pi(n | m); psi also gains rate 2K. The offsets make
+    phi(0) = phi0 and psi(0) = psi0 with the start phase's integrals pi1, pi2."""
+    part1, part2 = 2 * ell.half1 * ell.big1, 2 * ell.half2 * ell.big2
+    s_phi0 = ell.half1 * pi1 + ell.half2 * pi2
+    s_psi0 = -ell.half1 * pi1 + ell.half2 * pi2 + ell.rate * tau0
+    # The first-kind part of Pi(n2) is linear in r unless the partner form replaces it.
+    linear2 = 0 if ell.n2 < -1 else ell.half2
+    return Advances(
+        dphi=_dd(part1 + part2),
+        dpsi=_dd(2 * ell.quarter * ell.rate - part1 + part2),
+        cf_phi=_dd(ell.half1 + linear2),
+        cf_psi=_dd(ell.rate - ell.half1 + linear2),
+        phi_c=_dd(st.phi0 - s_phi0),
+        psi_c=_dd(st.psi0 - s_psi0),
+        top_pass=bool(roots.gap > 0 and roots.om2 == 0),
+        bottom_pass=bool(roots.gap > 0 and roots.op1 == 0),
+    )
+
+
+def _shape(inp: ExactInput, st: Start, roots: Roots, ell: _Elliptic, beta) -> Shape:
+    alt2 = bool(ell.n2 < -1)
+    return Shape(
+        gap=float(roots.gap),
+        x1=float(roots.x1),
+        om1=float(roots.om1),
+        om2=float(roots.om2),
+        op1=float(roots.op1),
+        n1=float(ell.n1),
+        c1=float(ell.half1 * ell.n1 / 3),
+        c2=float(ell.half2 * ell.n2 / 3),
+        alt2=alt2,
+        half2=float(ell.half2),
+        nn=float(ell.m / ell.n2) if alt2 else 0.0,
+        a=float(st.a),
+        bma=float(st.bma),
+        bpa=float(st.bpa),
+        k0=float(st.k0),
+        beta=float(beta),
+        lam=float(ell.lam),
+        rate_psi=float(ell.rate),
+        i1=inp.i1,
+    )
+
+
+def _numbers(st: Start, roots: Roots, ell: _Elliptic, adv: Advances, beta, flip) -> PeriodNumbers:
+    """The per-period summary in the true problem, each rounded once from multiprecision."""
+    import mpmath as mp
+
+    period = 2 * ell.quarter / ell.lam
+    passes = int(adv.top_pass) + int(adv.bottom_pass)
+    part1, part2 = 2 * ell.half1 * ell.big1, 2 * ell.half2 * ell.big2
+    per_phi = part1 + part2 + mp.pi * passes
+    per_psi = (2 * ell.quarter * ell.rate - part1 + part2 - mp.pi * passes) * (-1 if flip else 1)
+    u0 = st.u0
+    u = (u0 + roots.x1, u0 + roots.x2, u0 + roots.x3 if beta > 0 else mp.inf)
+    tmin = 2 * mp.atan2(mp.sqrt(roots.om2), mp.sqrt(roots.op2))
+    tmax = 2 * mp.atan2(mp.sqrt(roots.om1), mp.sqrt(roots.op1))
+    if flip:
+        u = (-u[1], -u[0], -u[2])
+        tmin, tmax = mp.pi - tmax, mp.pi - tmin
+    return PeriodNumbers(
+        period=float(period),
+        precession_per_period=float(per_phi),
+        spin_per_period=float(per_psi),
+        mean_precession_rate=float(per_phi / period),
+        mean_spin_rate=float(per_psi / period),
+        roots=(float(u[0]), float(u[1]), float(u[2])),
+        theta_min=float(tmin),
+        theta_max=float(tmax),
+    )
+
+
+def _start_phase(roots: Roots, ell: _Elliptic, udot0):
     """tau0 with sn^2(tau0) = (u0 - u1) / (u2 - u1), signed by du/dt, and Pi(n1; am tau0),
     Pi(n2; am tau0): constant offsets, computed at PHASE_DIGITS (plus the digits that a large
     negative n2 cancels in Carlson's form)."""
@@ -273,7 +322,8 @@ def _start_phase(roots: Roots, mc, m, n1, n2, quarter, big1, big2, udot0):
     if gap == 0 or x1 == 0:
         return zero, zero, zero
     if x2 == 0:
-        return quarter, big1, big2
+        return ell.quarter, ell.big1, ell.big2
+    m, mc, n1, n2 = ell.m, ell.mc, ell.n1, ell.n2
     sn2, cn2 = -x1 / gap, x2 / gap
     dn2 = mc + m * cn2
     guard = int(mp.log10(1 + abs(n2))) // 2 + 1

@@ -130,7 +130,8 @@ def cubic_roots(c3, c2, c1, c0, w_minus, ar: Arithmetic):
 
 
 def solve_roots(st: Start, beta, ar: Arithmetic) -> Roots:
-    """The turning points of the (reflected, beta >= 0) problem started at st."""
+    """The turning points of the (reflected, beta >= 0) problem started at st: the cubic about
+    the start, the exact roots put in place, then the refinements about the two poles."""
     a, k0, u0 = st.a, st.k0, st.u0
     w_minus, w_plus, bma, bpa = st.w_minus, st.w_plus, st.bma, st.bpa
     c3 = beta
@@ -146,11 +147,34 @@ def solve_roots(st: Start, beta, ar: Arithmetic) -> Roots:
         x2 = w_minus  # u = 1 is a root of the free top's quadratic
     if bpa == 0:
         x1 = -w_plus
-    om2, op1 = w_minus - x2, w_plus + x1
+    x2, x3, om2, d32, d32_err = _refine_top(st, beta, x1, x2, x3, ar)
+    x1, op1 = _refine_bottom(st, beta, x1)
+    gap = x2 - x1
+    if not (ar.isfinite(x1) and ar.isfinite(x2) and gap >= 0):
+        raise ExactUnavailable("start: the cubic f(u) has no admissible pair of roots")
+    return Roots(
+        x1=x1,
+        x2=x2,
+        x3=x3,
+        om1=w_minus - x1,
+        om2=om2,
+        op1=op1,
+        op2=w_plus + x2,
+        d32=d32,
+        d32_err=d32_err,
+    )
+
+
+def _refine_top(st: Start, beta, x1, x2, x3, ar: Arithmetic):
+    """(x2, x3, 1 - u2, u3 - u2, its error estimate) near the upper pole and the separatrix,
+    where 1 - u2 is tiny (it divides the third-kind terms) or u2 and u3 crowd together at 1:
+    solved on h(w) = f(1 - w), whose coefficients come from the state without cancellation
+    (h(0) = -(b - a)^2 exactly)."""
+    a, k0, w_minus, bma = st.a, st.k0, st.w_minus, st.bma
+    om2 = w_minus - x2
     d32 = x3 - x2
     d32_err = 4 * EPS * (abs(x2) + abs(x3))
     k_top = k0 - beta * w_minus  # alpha - beta
-    k_bot = k0 + beta * w_plus  # alpha + beta
     h1_top = 2 * k_top - 2 * a * bma
     h0_top = -(bma**2)
     w1 = w_minus - x1
@@ -174,25 +198,32 @@ def solve_roots(st: Start, beta, ar: Arithmetic) -> Roots:
             om2, x2 = w2, w_minus - w2
         else:
             om2 = w_minus - x2
-        d32 = om2 - w3
-        x3 = w_minus - w3
         # h'(0) = 2 (alpha - beta) - 2 a (b - a) is a difference of energies here.
         d32_err = 4 * EPS * (k0 + beta * w_minus + abs(a * bma)) / (beta * w1)
-    elif beta > 0 and bma == 0:
+        return x2, w_minus - w3, om2, om2 - w3, d32_err
+    if beta > 0 and bma == 0:
         # All three roots crowd near u = 1: keep the expansion about u0, but put the exact
         # root u = 1 in place of the nearer of x2 and x3.
         if abs(x2 - w_minus) <= abs(x3 - w_minus):
             x2, om2 = w_minus, 0 * w_minus
         else:
             x3 = w_minus
-        d32 = x3 - x2
-    elif bma != 0 and om2 < POLE_POLISH:
+        return x2, x3, om2, x3 - x2, d32_err
+    if bma != 0 and om2 < POLE_POLISH:
         # h(w) = f(1 - w) = -beta w^3 + (2 beta - (alpha - beta) - a^2) w^2 + h1 w + h0
         w2 = pole_root(-beta, 2 * beta - k_top - a * a, h1_top, h0_top, om2)
         if w2 < x2:
             om2, x2 = w2, w_minus - w2
+    return x2, x3, om2, d32, d32_err
+
+
+def _refine_bottom(st: Start, beta, x1):
+    """(x1, 1 + u1) near the lower pole, on h(w) = f(-1 + w) (h(0) = -(b + a)^2 exactly)."""
+    a, k0, w_plus, bpa = st.a, st.k0, st.w_plus, st.bpa
+    op1 = w_plus + x1
     if bpa != 0 and op1 < POLE_POLISH:
-        # h(w) = f(-1 + w) = beta w^3 - ((alpha + beta) + 2 beta + a^2) w^2 + h1 w + h0
+        k_bot = k0 + beta * w_plus  # alpha + beta
+        # h(w) = beta w^3 - ((alpha + beta) + 2 beta + a^2) w^2 + h1 w + h0
         w1b = pole_root(
             beta,
             -k_bot - 2 * beta - a * a,
@@ -202,17 +233,4 @@ def solve_roots(st: Start, beta, ar: Arithmetic) -> Roots:
         )
         if w1b < -x1:
             op1, x1 = w1b, w1b - w_plus
-    gap = x2 - x1
-    if not (ar.isfinite(x1) and ar.isfinite(x2) and gap >= 0):
-        raise ExactUnavailable("start: the cubic f(u) has no admissible pair of roots")
-    return Roots(
-        x1=x1,
-        x2=x2,
-        x3=x3,
-        om1=w_minus - x1,
-        om2=om2,
-        op1=op1,
-        op2=w_plus + x2,
-        d32=d32,
-        d32_err=d32_err,
-    )
+    return x1, op1

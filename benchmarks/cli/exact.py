@@ -13,10 +13,6 @@ import json
 import math
 import re
 
-# Beyond this a double time is known to no better than 0.125 s (ulp(1e15)), and the exact
-# solution's own bound no longer holds.
-MAX_TIME = 1e15
-
 
 def add_parser(sub) -> None:
     p = sub.add_parser(
@@ -49,6 +45,7 @@ _NEGATIVE_NUMBER = re.compile(r"^-(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?$|^-(inf|infin
 def parse_times(values: list[str]) -> list[float]:
     """The --at values as doubles, or a UserError naming the first bad one."""
     from topdrift.benchmarks.errors import UserError
+    from topdrift.models.exact import MAX_TIME
 
     out = []
     for text in values:
