@@ -244,15 +244,13 @@ def test_a_failing_reference_ends_the_run_as_failed_without_nan(top, tmp_path):
     good = plan.exact
 
     class BreaksLate:
-        """The exact solution, raising past t = 0.2 as a broken reference would."""
+        """The exact solution, raising past t = 0.2 as a broken reference would (the runner
+        asks it for the folded angles)."""
 
-        def euler(self, t):
+        def folded(self, t):
             if np.max(t) > 0.2:
                 raise ValueError("cannot convert float NaN to integer")
-            return good.euler(t)
-
-        def axis(self, t):
-            return good.axis(t)
+            return good.folded(t)
 
     plan.exact = BreaksLate()
     r = _run(plan, tmp_path / "r.h5", flush_every=0.0)

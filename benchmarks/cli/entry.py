@@ -14,6 +14,7 @@ COMMANDS = (
     "demo",
     "methods",
     "describe",
+    "exact",
     "cases",
     "run",
     "summary",

@@ -374,10 +374,12 @@ def warm_up(plan: RunPlan) -> None:
 
 
 def _exact_rows(top, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Exact (phi, theta, psi), folded like the computed ones, and the exact figure axis."""
+    """Exact (phi, theta, psi), folded like the computed ones, and the exact figure axis (both
+    from the exact solution's folded angles: no bit is lost to the unfolded ones)."""
     try:
-        e = np.array(top.euler(t), dtype=np.float64).reshape(-1, 3)
-        a = np.array(top.axis(t), dtype=np.float64).reshape(-1, 3)
+        ang = top.folded(t)
+        e = np.column_stack((ang.phi, ang.theta, ang.psi))
+        a = ang.axis()
     except Exception as exc:  # a reference that breaks must end the run loudly, not crash it
         raise ExactFailed(
             f"the exact solution failed for t in [{t[0]:.6g}, {t[-1]:.6g}]: "
@@ -386,8 +388,6 @@ def _exact_rows(top, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     if not (np.all(np.isfinite(e)) and np.all(np.isfinite(a))):
         bad = t[~(np.all(np.isfinite(e), axis=1) & np.all(np.isfinite(a), axis=1))]
         raise ExactFailed(f"the exact solution is not finite at t = {bad[0]:.17g}")
-    e[:, 0] = np.arctan2(np.sin(e[:, 0]), np.cos(e[:, 0]))
-    e[:, 2] = np.arctan2(np.sin(e[:, 2]), np.cos(e[:, 2]))
     return e, a
 
 
