@@ -3,6 +3,7 @@ small numba kernel family. Imports the models' kernels; knows nothing of cases o
 
 from .base import (
     C_EVALS,
+    C_FORCE_EVALS,
     C_REJECTED,
     C_STEPS,
     N_COUNTERS,
@@ -22,6 +23,7 @@ from .registry import ENTRY_POINT_GROUP, UnknownMethod, all_methods, get, regist
 
 __all__ = [
     "C_EVALS",
+    "C_FORCE_EVALS",
     "C_REJECTED",
     "C_STEPS",
     "N_COUNTERS",

@@ -436,7 +436,10 @@ def test_registry_metadata():
         assert info.compensated == comp
         assert info.control == "step"
         assert set(info.forms) == {"euler", "body"}
-        assert info.keeps == ("p_psi", "norm")
+        assert info.keeps == ()
+        assert info.keeps_roundoff == ("p_psi", "norm")
+        assert info.kept_in("body") == ("energy", "norm", "p_psi")
+        assert info.kept_in("euler") == ("p_phi", "p_psi", "norm")
 
 
 @pytest.mark.parametrize("form,body", CASES, ids=CASE_IDS)

@@ -126,7 +126,11 @@ def test_metadata():
         assert info.forms == ("body", "euler")
         assert info.control == "tolerance"
         assert not info.symplectic and not info.compensated
-        assert info.keeps == ()
+        assert info.keeps == () and info.keeps_roundoff == ("p_psi",)
+        assert info.keeps_by_form == {
+            "euler": (("p_phi", "p_psi", "norm"), ()),
+            "body": ((), ("p_psi",)),
+        }
         assert "Dormand" in info.source
 
 
@@ -304,11 +308,12 @@ def test_energy_drifts_secularly(name):
 
 @pytest.mark.parametrize("name", ["rk45", "dop853"])
 def test_linear_invariants_in_the_euler_form_only(name):
-    # Why `keeps` is empty. In the Euler form p_phi and p_psi have an identically zero
-    # derivative, so every stage adds exactly 0.0 and they never change. In the body form the
-    # spin momentum m3 of the same symmetric top has the derivative m1 w2 - m2 w1, which rounds
-    # to nonzero (checked below on a tumbling start, where m1, m2 are as large as m3), so m3 is
-    # kept only to round-off that accumulates, not by construction.
+    # Why p_psi is kept to the bit in the Euler form and only to round-off in the body form
+    # (`keeps_by_form`). In the Euler form p_phi and p_psi have an identically zero derivative,
+    # so every stage adds exactly 0.0 and they never change. In the body form the spin momentum
+    # m3 of the same symmetric top has the derivative m1 w2 - m2 w1, which rounds to nonzero
+    # (checked below on a tumbling start, where m1, m2 are as large as m3), so m3 moves by
+    # round-off, not by truncation error.
     settings = {"rtol": 1e-6, "atol": 1e-9}
     y0 = y_start(FORM_EULER)
     st = get(name).start(FORM_EULER, P, 0.0, y0, settings)
@@ -325,14 +330,16 @@ def test_counters_are_the_kernels():
     # rk45 evaluates 6 new stages per attempt (FSAL), plus 2 to start (f0 and the starting step).
     st = get("rk45").start(FORM_BODY, P, 0.0, y_start(FORM_BODY), {"rtol": 1e-6, "atol": 1e-9})
     st.advance_to(1.0)
-    steps, rejected, evals = (int(v) for v in st.counters)
+    steps, rejected, evals, forces = (int(v) for v in st.counters)
     assert evals == 2 + 6 * (steps + rejected) + 0  # the end fell on a step or dense output
+    assert forces == evals  # every stage evaluates the torque
     # dop853 evaluates its FSAL stage after acceptance (11 + 1 per accepted step, 11 per
     # rejected) and its 3 dense stages once per step that serves an output.
     st = get("dop853").start(FORM_BODY, P, 0.0, y_start(FORM_BODY), {"rtol": 1e-6, "atol": 1e-9})
     st.advance_to(1.0)
-    steps, rejected, evals = (int(v) for v in st.counters)
+    steps, rejected, evals, forces = (int(v) for v in st.counters)
     assert evals == 2 + 12 * steps + 11 * rejected + 3
+    assert forces == evals
 
 
 # ---------------------------------------------------------------------------------------------

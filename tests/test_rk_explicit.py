@@ -63,7 +63,7 @@ def test_metadata():
         assert info.forms == ("body", "euler")
         assert info.compensated is comp
         assert not info.symplectic
-        assert info.keeps == ()
+        assert info.keeps == () and info.keeps_roundoff == ("p_psi",)
 
 
 @pytest.mark.parametrize("name", METHODS)

@@ -7,7 +7,15 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
-from topdrift.integrators import C_EVALS, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGULAR, MethodRefused
+from topdrift.integrators import (
+    C_EVALS,
+    C_FORCE_EVALS,
+    C_STEPS,
+    ST_DIVERGED,
+    ST_OK,
+    ST_SINGULAR,
+    MethodRefused,
+)
 from topdrift.integrators.splitting.methods import METHODS
 from topdrift.models import RigidBody, body_state, euler_state, invariants_of
 from topdrift.models.dynamics import rhs
@@ -386,6 +394,16 @@ def test_counters():
     assert st.counters[C_STEPS] == 100
     # 9 drifts and 9 kicks per step (merged half kicks), plus one closing kick per output
     assert st.counters[C_EVALS] == 100 * 18 + 2
+    # of these, the kicks are the force evaluations: 9 per step and the closing ones
+    assert st.counters[C_FORCE_EVALS] == 100 * 9 + 2
+    # the same in the body form, plain and compensated (the compensated kernel is separate)
+    for name in ("leapfrog-kl6", "leapfrog-kl6-kahan", "leapfrog"):
+        st = BY_NAME[name].start(FORM_BODY, TOP.params(), 0.0, start_state(TOP, FORM_BODY),
+                                 {"step": 1e-2})
+        st.advance_to(1.0)
+        kicks = BY_NAME[name].table.stages
+        assert st.counters[C_FORCE_EVALS] == 100 * kicks + 1
+        assert st.counters[C_EVALS] == 100 * 2 * kicks + 1
 
 
 def test_off_grid_time_is_refused():
@@ -443,5 +461,6 @@ def test_registry_metadata():
         assert i.family == "splitting" and i.symplectic and i.control == "step"
         assert i.forms == ("euler", "body")
         assert "energy" not in i.keeps
+        assert i.keeps == ("p_psi",) and i.keeps_roundoff == ("p_phi", "norm")
         assert i.compensated == i.name.endswith("-kahan")
         assert i.source

@@ -23,6 +23,7 @@ from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.runner import RunPlan, RunResult, _Buffers, make_run_id, run_attrs
 from topdrift.benchmarks.run.sampling import S_ENERGY, S_P_PHI, S_P_PSI
 from topdrift.benchmarks.store.writer import _COMPRESSION, RunGroup, ensure_room
+from topdrift.integrators import C_EVALS, C_FORCE_EVALS
 from topdrift.integrators.ensemble import EnsembleStepper
 
 MAX_MEMBERS = 100_000
@@ -206,7 +207,8 @@ def execute_ensemble(ep: EnsemblePlan, f, *, progress=None, stop=None) -> RunRes
         "spread": ep.spread,
         "steps": int(ens.counters[0, 0]),
         "member_steps": member_steps,
-        "rhs_evals": int(ens.counters[:, 2].sum()),
+        "rhs_evals": int(ens.counters[:, C_EVALS].sum()),
+        "force_evals": int(ens.counters[:, C_FORCE_EVALS].sum()),
         "rejected": 0,
         "wall_s": wall,
         "ns_per_step": wall / member_steps * 1e9 if member_steps else None,

@@ -34,6 +34,7 @@ _EXACT_NAMES = ("axis_angle_max", "theta_abs_max", "phi_abs_max", "psi_abs_max")
 METRIC_NAMES = MAX_NAMES + (
     "steps",
     "rhs_evals",
+    "force_evals",
     "rejected",
     "wall_s",
     "cpu_s",
@@ -224,12 +225,13 @@ def finish(
     t_fail: float | None,
 ) -> dict:
     """The metrics of a run from its accumulator, counters, timing and energy samples."""
-    from topdrift.integrators import C_EVALS, C_REJECTED, C_STEPS
+    from topdrift.integrators import C_EVALS, C_FORCE_EVALS, C_REJECTED, C_STEPS
 
     steps = int(counters[C_STEPS])
     out = acc.maxima_dict()
     out["steps"] = steps
     out["rhs_evals"] = int(counters[C_EVALS])
+    out["force_evals"] = int(counters[C_FORCE_EVALS])
     out["rejected"] = int(counters[C_REJECTED])
     out["wall_s"] = float(wall_s)
     out["cpu_s"] = float(cpu_s)

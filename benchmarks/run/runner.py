@@ -32,6 +32,7 @@ from topdrift.benchmarks.run.sampling import (
 )
 from topdrift.benchmarks.store.writer import CHUNK_ROWS, NoRoom, RunGroup, ensure_room, utc_now
 from topdrift.integrators import (
+    N_COUNTERS,
     ST_DIVERGED,
     ST_NO_CONVERGENCE,
     ST_OK,
@@ -479,6 +480,16 @@ class _Run:
         if cp is None or "run" not in cp:
             raise UserError(f"run {self.plan.run_id}: no checkpoint to resume from; use --force")
         p = self.plan
+        counters = np.asarray(cp["run"].get("counters", ()))
+        if counters.shape != (N_COUNTERS,):
+            # Checkpoints of topdrift before the force-evaluation counter hold 3 counters. The
+            # missing count cannot be made up afterwards (for a splitting it is not a fixed
+            # share of the evaluations), so such a run is not continued with a wrong one.
+            raise UserError(
+                f"run {p.run_id}: its checkpoint holds {counters.size} counters, this topdrift "
+                f"keeps {N_COUNTERS} (force evaluations were added): it was written by an older "
+                "version and cannot be resumed; run it again with --force"
+            )
         self.k = int(cp["run"]["sample"])
         self.wall = float(cp["run"]["wall_s"])
         self.cpu = float(cp["run"].get("cpu_s", 0.0))
