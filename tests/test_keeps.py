@@ -102,8 +102,11 @@ def test_keeps_what_it_claims_and_no_more(name, form, body_name):
     method = next(m for m in BUILTIN if m.name == name)
     body = LAGRANGE if body_name == "lagrange" else ASYMMETRIC
     try:
-        method.check(body, form, {"step": 0.1} if method.info.control == "step" else
-                     {"rtol": 1e-5, "atol": 1e-8})
+        method.check(
+            body,
+            form,
+            {"step": 0.1} if method.info.control == "step" else {"rtol": 1e-5, "atol": 1e-8},
+        )
     except MethodRefused as exc:
         pytest.skip(f"refused, as it says: {exc}")
     to_bit, to_roundoff = method.info.keeps_by_form[form]

@@ -398,8 +398,9 @@ def test_counters():
     assert st.counters[C_FORCE_EVALS] == 100 * 9 + 2
     # the same in the body form, plain and compensated (the compensated kernel is separate)
     for name in ("leapfrog-kl6", "leapfrog-kl6-kahan", "leapfrog"):
-        st = BY_NAME[name].start(FORM_BODY, TOP.params(), 0.0, start_state(TOP, FORM_BODY),
-                                 {"step": 1e-2})
+        st = BY_NAME[name].start(
+            FORM_BODY, TOP.params(), 0.0, start_state(TOP, FORM_BODY), {"step": 1e-2}
+        )
         st.advance_to(1.0)
         kicks = BY_NAME[name].table.stages
         assert st.counters[C_FORCE_EVALS] == 100 * kicks + 1

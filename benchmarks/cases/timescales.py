@@ -40,16 +40,6 @@ class Timescales:
     slowest_what: str
     slowest_exact: bool  # False when `slowest` is an estimate (no period exists)
 
-    def as_json(self) -> dict:
-        clean = (lambda v: v if math.isfinite(v) else None)
-        return {
-            "fastest_period": clean(self.fastest),
-            "fastest_what": self.fastest_what,
-            "slowest_period": clean(self.slowest),
-            "slowest_what": self.slowest_what,
-            "slowest_exact": self.slowest_exact,
-        }
-
 
 def _start_rates(case) -> tuple[float, float, float]:
     """(|w|, the pendulum rate sqrt(M g |chi| / I_min), |L|) at the start."""

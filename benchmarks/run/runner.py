@@ -20,11 +20,13 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from topdrift.benchmarks.cases.schema import LARGEST, MAX_SAMPLES, SMALLEST
+from topdrift.benchmarks.cases.timescales import Timescales, timescales
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.metrics import Accumulator, finish
 from topdrift.benchmarks.run.sampling import (
     N_SCALARS,
     S_ENERGY,
+    S_KOV,
     S_NORM,
     S_P_PHI,
     S_P_PSI,
@@ -79,6 +81,7 @@ class RunPlan:
     run_id: str
     notes: list[str] = field(default_factory=list)
     start_singular: str = ""  # why the start has no state in this form (the pole)
+    scales: Timescales | None = None  # the case's fastest and slowest periods
 
     @property
     def form_code(self) -> int:
@@ -234,6 +237,10 @@ def plan_run(
         probe = np.append(horizon * k / (n - 1), horizon)
         exact = _exact_solution(body, form, y0, notes, probe)
     run_id = make_run_id(case.toml_text, method.name, form, settings, horizon, n)
+    scales = timescales(case)
+    alias = aliasing_note(interval, scales)
+    if alias:
+        notes.append(alias)
     plan = RunPlan(
         case,
         method,
@@ -248,6 +255,7 @@ def plan_run(
         run_id,
         notes,
         start_singular,
+        scales,
     )
     try:
         warm_up(plan)  # compiles, and lets start() refuse before any file exists
@@ -259,6 +267,18 @@ def plan_run(
             f"({exc})"
         ) from None
     return plan
+
+
+def aliasing_note(interval: float, scales: Timescales) -> str:
+    """The note for samples too far apart to show the fastest motion (more than half its period:
+    the sampling theorem, common practice), or "" when they are not."""
+    if not interval > 0.5 * scales.fastest:
+        return ""
+    return (
+        f"samples every {interval:.3g} s are more than half the fastest period "
+        f"({scales.fastest:.3g} s, {scales.fastest_what}): that motion is aliased in every "
+        "figure drawn from the samples; more --samples show it"
+    )
 
 
 # The most steps one run may take: about 10 hours at 35 ns a step (the fastest kernels, see
@@ -537,7 +557,15 @@ def execute(
         group.set(status="running")
         group.flush()
     else:
-        group = RunGroup.create(f, plan.run_id, run_attrs(plan), width, has_exact, plan.samples)
+        group = RunGroup.create(
+            f,
+            plan.run_id,
+            run_attrs(plan),
+            width,
+            has_exact,
+            plan.samples,
+            kovalevskaya=plan.case.body.kovalevskaya,
+        )
         run = _Run(plan, group)
     if not resume:
         run.stepper = plan.method.start(
@@ -580,7 +608,7 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
         # and rewrites the last, partly filled chunk of every dataset (compressed, perhaps at a
         # new place in the file), plus the checkpoint: rows + one chunk of rows, uncompressed,
         # bound it.
-        row_bytes = 8 * (buf.state.shape[1] + 3 + 4 + 3 + 4 + (6 if has_exact else 0))
+        row_bytes = 8 * (buf.state.shape[1] + 3 + 4 + 3 + N_SCALARS + (6 if has_exact else 0))
         rows = j + min(CHUNK_ROWS, n)
         ensure_room(run.group.f, rows * row_bytes + 64 * 1024, f"the samples up to {run.k}")
         if j:
@@ -596,6 +624,8 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
                 "invariants/p_psi": buf.scal[:j, S_P_PSI],
                 "invariants/norm": buf.scal[:j, S_NORM],
             }
+            if run.acc.has_kovalevskaya:
+                batch["invariants/kovalevskaya"] = buf.scal[:j, S_KOV]
             ee = ea = None
             if has_exact:
                 ee, ea = _exact_rows(plan.exact, tb)  # raises ExactFailed
@@ -617,7 +647,16 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
         buf.t[0] = 0.0
         if not buf.record(form, s.y, p, 0):
             raise UserError(f"{plan.case.name}: the start state is not finite")
-        run.acc = Accumulator.at_start(buf.scal[0], buf.mom[0], p, has_exact, form != 0)
+        body = plan.case.body
+        run.acc = Accumulator.at_start(
+            buf.scal[0],
+            buf.mom[0],
+            p,
+            has_exact,
+            form != 0,
+            has_p_psi=body.lagrange_top,
+            has_kovalevskaya=body.kovalevskaya,
+        )
         j = 1
         run.k = 1
     while run.k < n:
@@ -752,4 +791,6 @@ def _final_metrics(run: _Run, t_fail) -> dict:
     g = run.group.g
     t = g["t"][()]
     energy = g["invariants/energy"][()]
-    return finish(run.acc, run.stepper.counters, run.wall, run.cpu, t, energy, t_fail)
+    return finish(
+        run.acc, run.stepper.counters, run.wall, run.cpu, t, energy, t_fail, run.plan.scales
+    )

@@ -13,7 +13,14 @@ import math
 from numba import njit
 
 from topdrift.models.forms import FORM_EULER, body_to_euler, euler_to_body
-from topdrift.models.invariants import INV_ENERGY, INV_NORM, INV_P_PHI, INV_P_PSI, invariants
+from topdrift.models.invariants import (
+    INV_ENERGY,
+    INV_KOV,
+    INV_NORM,
+    INV_P_PHI,
+    INV_P_PSI,
+    invariants,
+)
 from topdrift.models.quaternion import figure_axis
 
 # Columns of the per-sample scalar block `inv` (one row per sample).
@@ -21,7 +28,9 @@ S_ENERGY = 0
 S_P_PHI = 1
 S_P_PSI = 2
 S_NORM = 3
-N_SCALARS = 4
+S_KOV = 4  # Kovalevskaya's integral (NaN unless the body has chi off axis 3; stored only for
+# Kovalevskaya tops, where it is an invariant)
+N_SCALARS = 5
 
 
 @njit(cache=True)
@@ -81,4 +90,5 @@ def record_sample(form, y, p, j, state, euler, quat, mom, axis, scal, ye, yb, in
     scal[j, S_P_PHI] = inv[INV_P_PHI]
     scal[j, S_P_PSI] = inv[INV_P_PSI]
     scal[j, S_NORM] = inv[INV_NORM]
+    scal[j, S_KOV] = inv[INV_KOV]
     return math.isfinite(inv[INV_ENERGY])

@@ -186,6 +186,9 @@ def load_series(path: str, run_id: str) -> dict:
                 raise UserError(f"run {run_id} in '{path}' has no dataset '{name}'")
             out[key] = _read(g, name, run_id, path)
         out["exact_euler"] = _read(g, "exact/euler", run_id, path) if "exact/euler" in g else None
+        # Present only for a Kovalevskaya top, where it is an invariant.
+        kov = "invariants/kovalevskaya"
+        out["kovalevskaya"] = _read(g, kov, run_id, path) if kov in g else None
     n = min(len(v) for k, v in out.items() if k != "record" and v is not None)
     for k, v in out.items():
         if k != "record" and v is not None:

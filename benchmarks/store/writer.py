@@ -37,6 +37,9 @@ SAMPLE_DATASETS = {
     "invariants/norm": 0,
 }
 EXACT_DATASETS = {"exact/euler": 3, "exact/axis": 3}
+# Optional sample datasets, present only where the quantity is an invariant of the run's body.
+KOVALEVSKAYA_DATASET = "invariants/kovalevskaya"
+OPTIONAL_DATASETS = {KOVALEVSKAYA_DATASET: 0}
 CHUNK_ROWS = 4096
 # gzip is in every HDF5 build (lzf is h5py's own); level 1 with shuffle costs little time.
 _COMPRESSION = {"compression": "gzip", "compression_opts": 1, "shuffle": True}
@@ -301,6 +304,7 @@ class RunGroup:
         state_width: int,
         has_exact: bool,
         samples: int,
+        kovalevskaya: bool = False,
     ) -> RunGroup:
         ensure_room(f, 64 * 1024, f"run {run_id}")
         runs = f["runs"]
@@ -315,6 +319,8 @@ class RunGroup:
         cols["state"] = state_width
         if has_exact:
             cols.update(EXACT_DATASETS)
+        if kovalevskaya:  # Kovalevskaya's integral, an invariant of such a top only
+            cols[KOVALEVSKAYA_DATASET] = 0
         rows = max(1, min(CHUNK_ROWS, int(samples)))  # a short run needs no 4096-row chunk
         for name, k in cols.items():
             shape = (0,) if k == 0 else (0, k)
@@ -352,13 +358,13 @@ class RunGroup:
 
     def datasets(self) -> dict:
         """The run's sample datasets present in its group, by name."""
-        names = list(SAMPLE_DATASETS) + ["state"] + list(EXACT_DATASETS)
+        names = list(SAMPLE_DATASETS) + ["state"] + list(EXACT_DATASETS) + list(OPTIONAL_DATASETS)
         return {name: self.g[name] for name in names if name in self.g}
 
     def truncate(self, n: int) -> None:
         """Drop samples beyond n (written after the last checkpoint, if any)."""
-        for name in list(SAMPLE_DATASETS) + ["state"] + list(EXACT_DATASETS):
-            if name in self.g and self.g[name].shape[0] > n:
+        for name in self.datasets():
+            if self.g[name].shape[0] > n:
                 self.g[name].resize(n, axis=0)
 
     def write_checkpoint(self, parts: dict[str, dict]) -> None:

@@ -29,7 +29,6 @@ from topdrift.models import FORM_SIZE
 GRID_RTOL = 1e-9
 
 
-
 class FixedStepRK(Method):
     def __init__(self, tab: Tableau, name: str, kahan: bool, description: str) -> None:
         if tab.a.shape[0] != tab.n_stages + 1:
