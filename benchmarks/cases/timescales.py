@@ -37,7 +37,7 @@ class Timescales:
     fastest: float  # s
     fastest_what: str
     slowest: float  # s; inf when the slowest motion never repeats (a separatrix)
-    slowest_what: str
+    slowest_what: str  # "nutation", "free motion", or the estimate's description
     slowest_exact: bool  # False when `slowest` is an estimate (no period exists)
 
 
@@ -79,17 +79,17 @@ def timescales(case) -> Timescales:
     body = case.body
     torque = body.mass * body.gravity * float(np.linalg.norm(np.asarray(body.com, dtype=float)))
     if nutation is not None:
-        return Timescales(fastest, fastest_what, nutation, "nutation period", True)
+        return Timescales(fastest, fastest_what, nutation, "nutation", True)
     if torque == 0.0:
         y = np.asarray(case.body_state(), dtype=np.float64)
         period = free_body_period(body.inertia, y[4:7])
-        return Timescales(fastest, fastest_what, period, "period of the free motion", True)
+        return Timescales(fastest, fastest_what, period, "free motion", True)
     turn = 2.0 * math.pi * l_norm / torque
     slowest = max(_period(spin), _period(swing), turn)
     return Timescales(
         fastest,
         fastest_what,
         slowest,
-        "estimated slowest time scale (no period exists for this body)",
+        "slowest time scale (an estimate: this motion has no period)",
         False,
     )

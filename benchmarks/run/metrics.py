@@ -262,21 +262,28 @@ def drift_fit(
         return None, None, f"{t.size} sample(s) after t = 0: too few for a fit"
     t_end = float(t[-1])
     t_lo = max(float(t[0]), t_end * 10.0 ** (-DRIFT_DECADES))
+    skip = 0.0
     if slowest is not None and slowest > 0.0:
         if not math.isfinite(slowest):
             return None, None, f"the {slowest_what or 'slowest motion'} never repeats"
-        t_lo = max(t_lo, DRIFT_SKIP_PERIODS * slowest)
-    if t_end < t_lo * 10.0**DRIFT_MIN_DECADES:
-        what = slowest_what or "slowest period"
-        need = DRIFT_SKIP_PERIODS * 10.0**DRIFT_MIN_DECADES
-        if slowest is not None and math.isfinite(slowest) and slowest > 0.0:
+        skip = DRIFT_SKIP_PERIODS * slowest
+    if t_end < max(t_lo, skip) * 10.0**DRIFT_MIN_DECADES:
+        if skip > t_lo:
+            what = slowest_what or "slowest motion"
+            need = DRIFT_SKIP_PERIODS * 10.0**DRIFT_MIN_DECADES
             return (
                 None,
                 None,
                 f"the horizon {t_end:.3g} s holds {t_end / slowest:.3g} periods of the "
                 f"{what} ({slowest:.3g} s); a growth law needs at least {need:g}",
             )
-        return None, None, f"the samples span {math.log10(t_end / t_lo):.2g} decades after t = 0"
+        return (
+            None,
+            None,
+            f"the samples after t = 0 span {math.log10(t_end / t_lo):.2g} decades; a growth law "
+            f"needs {DRIFT_MIN_DECADES:g}",
+        )
+    t_lo = max(t_lo, skip)
     targets = np.geomspace(t_lo, t_end, DRIFT_POINTS)
     idx = np.unique(np.clip(np.searchsorted(t, targets, side="right") - 1, 0, t.size - 1))
     idx = idx[t[idx] >= t_lo * (1.0 - 1e-12)]  # the sample at or before t_lo may lie before it
