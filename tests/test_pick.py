@@ -184,6 +184,7 @@ def test_text_output_names_the_winner(cases, capsys):
         "setting",
         "wall",
         "s",
+        "forces",
         "evals",
         "achieved",
         "margin",

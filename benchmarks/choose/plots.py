@@ -124,7 +124,7 @@ def work_precision(
     case: str,
     out,
     error: str = "axis",
-    costs: tuple[str, ...] = ("wall", "evals"),
+    costs: tuple[str, ...] = ("wall", "force"),
 ) -> Path:
     """Error against cost on log-log axes, one panel per cost measure. Per series: the Pareto
     front as line + filled markers, dominated runs as hollow markers; under them, in grey, the
@@ -163,6 +163,9 @@ def work_precision(
                 lw=1.3,
                 zorder=3,
             )
+            inv = analysis.ERROR_INVARIANT.get(error)
+            if inv is not None and analysis.series_keeps(key, inv):
+                lab = f"{lab} (keeps the {inv} by construction: its error is rounding)"
             handles.setdefault(lab, h)
             if off:
                 ax.plot(
@@ -482,7 +485,7 @@ LONG_PATH_TURNS = 2.0
 ERROR_PATH_SHADES = 12  # the error path is drawn light to dark, start to end
 
 
-def _turns(a: np.ndarray) -> np.ndarray:
+def path_turns(a: np.ndarray) -> np.ndarray:
     """Turns round the vertical so far, per sample, from the unwrapped azimuth of the path."""
     az = np.unwrap(np.arctan2(a[:, 1], a[:, 0]))
     return np.abs(az - az[0]) / (2.0 * math.pi)
@@ -528,11 +531,11 @@ def axis_path(runs: list[dict], case: str, out) -> Path:
     if exact is not None:
         paths.append(("exact", axis_from_euler(exact["exact_euler"]), "black", (0, (4, 3))))
     ref = paths[-1] if exact is not None else (paths[0] if paths else None)
-    turns = float(_turns(ref[1])[-1]) if ref is not None and len(ref[1]) > 1 else 0.0
+    turns = float(path_turns(ref[1])[-1]) if ref is not None and len(ref[1]) > 1 else 0.0
     long_run = turns > LONG_PATH_TURNS
     first = slice(None)
     if long_run:
-        n_first = int(np.searchsorted(_turns(ref[1]), 1.0)) + 1
+        n_first = int(np.searchsorted(path_turns(ref[1]), 1.0)) + 1
         first = slice(0, n_first)
     for label, a, color, ls in paths:
         lw = 1.0 if label == "exact" else 0.9
