@@ -14,7 +14,13 @@ import os
 from pathlib import Path
 
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.gate.measure import COUNT_METRICS, ERROR_METRICS, INFO_METRICS
+from topdrift.benchmarks.gate.measure import (
+    COUNT_METRICS,
+    ERROR_METRICS,
+    INFO_METRICS,
+    OPTIONAL_COUNT_METRICS,
+    OPTIONAL_ERROR_METRICS,
+)
 
 FORMAT = "topdrift-baseline"
 FORMAT_VERSION = 1
@@ -71,6 +77,11 @@ RUN_KEYS = {
     **{k: _num_or_none for k in INFO_METRICS},
     "ns_per_step_norm": _num_or_none,
 }
+# Keys a run record may have (added within format 1; absent in baselines recorded before).
+OPTIONAL_RUN_KEYS = {
+    **{k: _num_or_none for k in OPTIONAL_ERROR_METRICS},
+    **{k: _int_or_none for k in OPTIONAL_COUNT_METRICS},
+}
 TIMING_KEYS = {
     "run": _str,
     "horizon": _num,
@@ -126,16 +137,20 @@ def decode_nonfinite(v):
     return v
 
 
-def _check_table(label: str, table, keys: dict) -> None:
+def _check_table(label: str, table, keys: dict, optional: dict | None = None) -> None:
+    optional = optional or {}
     if not isinstance(table, dict):
         raise UserError(f"{label}: expected an object")
     for k in table:
-        if k not in keys:
+        if k not in keys and k not in optional:
             raise UserError(f"{label}: unknown key {k!r}")
     for k, ok in keys.items():
         if k not in table:
             raise UserError(f"{label}: {k}: missing")
         if not ok(table[k]):
+            raise UserError(f"{label}: {k}: unexpected value {table[k]!r}")
+    for k, ok in optional.items():
+        if k in table and not ok(table[k]):
             raise UserError(f"{label}: {k}: unexpected value {table[k]!r}")
 
 
@@ -161,12 +176,15 @@ def validate(data, label: str) -> dict:
     _check_table(f"{label}: sweep", data["sweep"], SWEEP_KEYS)
     _check_table(f"{label}: versions", data["versions"], {k: _str_or_none for k in VERSION_KEYS})
     _check_table(f"{label}: calibration", data["calibration"], CALIBRATION_KEYS)
-    for section, keys in (("runs", RUN_KEYS), ("timings", TIMING_KEYS)):
+    for section, keys, optional in (
+        ("runs", RUN_KEYS, OPTIONAL_RUN_KEYS),
+        ("timings", TIMING_KEYS, None),
+    ):
         table = data[section]
         if not isinstance(table, dict):
             raise UserError(f"{label}: {section}: expected an object keyed by run")
         for key, rec in table.items():
-            _check_table(f"{label}: {section}[{key!r}]", rec, keys)
+            _check_table(f"{label}: {section}[{key!r}]", rec, keys, optional)
     for key, rec in data["timings"].items():
         if rec["run"] not in data["runs"]:
             raise UserError(f"{label}: timings[{key!r}]: run {rec['run']!r} is not in runs")

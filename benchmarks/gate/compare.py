@@ -171,7 +171,11 @@ def _compare_count(run: str, name: str, a, b, allowed: float, t: Thresholds, out
 
 
 def compare_runs(base: dict, now: dict, t: Thresholds, result: GateResult) -> None:
-    from topdrift.benchmarks.gate.measure import ERROR_METRICS
+    from topdrift.benchmarks.gate.measure import (
+        ERROR_METRICS,
+        OPTIONAL_COUNT_METRICS,
+        OPTIONAL_ERROR_METRICS,
+    )
 
     out = result.findings
     for key, a in base.items():
@@ -192,9 +196,14 @@ def compare_runs(base: dict, now: dict, t: Thresholds, result: GateResult) -> No
             continue
         for name in ERROR_METRICS:
             _compare_error(key, name, a.get(name), b.get(name), t, out)
-        for name in ("steps", "rhs_evals"):
+        # Keys a baseline of an older topdrift lacks are compared only where it has them.
+        for name in OPTIONAL_ERROR_METRICS:
+            if name in a:
+                _compare_error(key, name, a[name], b.get(name), t, out)
+        counts = ("steps", "rhs_evals") + tuple(n for n in OPTIONAL_COUNT_METRICS if n in a)
+        for name in counts:
             allowed = t.steps_tolerance * abs(a[name]) if a[name] is not None else 0.0
-            _compare_count(key, name, a[name], b[name], allowed, t, out)
+            _compare_count(key, name, a[name], b.get(name), allowed, t, out)
         allowed = t.steps_tolerance * (a["steps"] or 0)
         _compare_count(key, "rejected", a["rejected"], b["rejected"], allowed, t, out)
     result.new_runs.extend(k for k in now if k not in base)

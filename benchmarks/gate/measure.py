@@ -55,6 +55,12 @@ ERROR_METRICS = (
 )
 COUNT_METRICS = ("steps", "rhs_evals", "rejected")
 INFO_METRICS = ("energy_drift_exponent", "t_fail", "wall_s", "ns_per_step")
+# Added to baseline format 1 as optional keys (a baseline without them is read as before and
+# they are compared only where both sides have them): Kovalevskaya's integral, measured in every
+# run of a Kovalevskaya top, and the force (torque) evaluations.
+OPTIONAL_ERROR_METRICS = ("kovalevskaya_rel_max",)
+OPTIONAL_COUNT_METRICS = ("force_evals",)
+OPTIONAL_METRICS = OPTIONAL_ERROR_METRICS + OPTIONAL_COUNT_METRICS
 
 TIMING_TARGET_S = 0.1
 TIMING_REPEATS = 5
@@ -110,13 +116,13 @@ def measure_run(job: Job) -> dict:
         result = run_job(job)
     except Exception as exc:  # noqa: BLE001 - reported per run, see above
         record.update({"status": "error", "detail": f"{type(exc).__name__}: {exc}"})
-        for name in COUNT_METRICS + ERROR_METRICS + INFO_METRICS:
+        for name in COUNT_METRICS + ERROR_METRICS + INFO_METRICS + OPTIONAL_METRICS:
             record[name] = None
         return record
     m = result.metrics
     record["status"] = result.status
     record["detail"] = result.detail
-    for name in COUNT_METRICS + ERROR_METRICS + INFO_METRICS:
+    for name in COUNT_METRICS + ERROR_METRICS + INFO_METRICS + OPTIONAL_METRICS:
         record[name] = m.get(name)
     return record
 
