@@ -114,7 +114,7 @@ def _perturbed_s4(monkeypatch, delta: float) -> None:
     """Move the outer four weights of leapfrog-s4's composition by delta and the middle one by
     -4 delta: still symmetric and consistent (weights sum to 1), so still order 2, but the
     order-4 condition sum(gamma^3) = 0 no longer holds (Yoshida, Phys. Lett. A 150 (1990) 262;
-    Hairer, Lubich and Wanner, Geometric Numerical Integration, Sec. II.4)."""
+    Hairer, Lubich and Wanner, Geometric Numerical Integration, Sec. II.4) [from memory]."""
     m = get("leapfrog-s4")
     g = m.table.coefficients
     assert len(g) == 5

@@ -75,7 +75,7 @@ def test_tableau_is_gauss_legendre_collocation(table):
     np.testing.assert_allclose(tab.c, (x + 1.0) / 2.0, rtol=0, atol=1e-15)
     np.testing.assert_allclose(tab.b, w / 2.0, rtol=0, atol=1e-15)
     # Collocation conditions C(s): sum_j a_ij c_j^(k-1) = c_i^k / k, k = 1..s, which define A
-    # (Hairer and Wanner, Solving ODEs II, sec. IV.5).
+    # (Hairer and Wanner, Solving ODEs II, sec. IV.5) [from memory].
     c = (x + 1.0) / 2.0
     k = np.arange(1, s + 1)
     m = c[:, None] ** (k[None, :] - 1)
@@ -88,10 +88,10 @@ def test_tableau_is_gauss_legendre_collocation(table):
 @pytest.mark.parametrize("table", [GAUSS2, GAUSS3], ids=["2 stages", "3 stages"])
 def test_float_tableau_is_exactly_symplectic(table):
     # The condition b_i a_ij + b_j a_ji = b_i b_j (Sanz-Serna 1988; Hairer, Lubich, Wanner, GNI
-    # Theorem VI.4.3) must hold for the doubles themselves, checked in rational arithmetic: a
-    # defect of 1e-17 (what correctly rounded tables have) is a systematic energy change every
-    # step (Hairer, McLachlan, Razakarivony, BIT 48 (2008) 231-243, from memory). The doubles
-    # must still be the table's values to a few units in the last place (mpmath, 40 digits).
+    # Theorem VI.4.3) [from memory] must hold for the doubles themselves, checked in rational
+    # arithmetic: a defect of 1e-17 (what correctly rounded tables have) is a systematic energy
+    # change every step (Hairer, McLachlan, Razakarivony, BIT 48 (2008) 231-243, from memory). The
+    # doubles must still be the table's values to a few units in the last place (mpmath, 40 digits).
     # The ulp bounds are this construction's own (integrators/gauss_tableau.py), not published.
     import mpmath as mp
 
@@ -230,8 +230,8 @@ def test_body_form_keeps_p_psi_of_a_symmetric_top():
 
 def test_euler_form_energy_error_stays_bounded():
     # Energy is not polynomial in theta and is not kept, but a symplectic method's energy error
-    # stays bounded over long times (Hairer, Lubich, Wanner, GNI ch. IX): the last tenth of 10^5
-    # steps is no worse than twice the first tenth.
+    # stays bounded over long times (Hairer, Lubich, Wanner, GNI ch. IX) [from memory]: the last
+    # tenth of 10^5 steps is no worse than twice the first tenth.
     p = LAGRANGE.params()
     y0 = state(FORM_EULER, LAGRANGE)
     e0 = invariants_of(FORM_EULER, y0, p)["energy"]
@@ -251,8 +251,8 @@ def test_euler_form_energy_error_stays_bounded():
 @pytest.mark.parametrize("form,body", CASES, ids=CASE_IDS)
 @pytest.mark.parametrize("name", ["gauss4", "gauss6"])
 def test_time_reversible(name, form, body):
-    # Gauss methods are symmetric (Hairer, Lubich, Wanner, GNI sec. V.2): N steps forward and N
-    # back return to the start up to the round-off of the stage solves.
+    # Gauss methods are symmetric (Hairer, Lubich, Wanner, GNI sec. V.2) [from memory]: N steps
+    # forward and N back return to the start up to the round-off of the stage solves.
     y0 = state(form, body)
     st = get(name).start(form, body.params(), 0.0, y0, {"step": 0.01})
     assert st.advance_to(10.0) == ST_OK
@@ -300,8 +300,8 @@ def _one_step_jacobian(a, b, c, h, y0, p, delta=1e-5):
     return jac
 
 
-# Radau IIA with two stages (Hairer and Wanner, Solving ODEs II, Table IV.5.5): a collocation
-# method too, but not symplectic. It shows that the check below can fail.
+# Radau IIA with two stages (Hairer and Wanner, Solving ODEs II, Table IV.5.5) [from memory]: a
+# collocation method too, but not symplectic. It shows that the check below can fail.
 RADAU2 = (
     np.array([5.0 / 12.0, -1.0 / 12.0, 3.0 / 4.0, 1.0 / 4.0]),
     np.array([3.0 / 4.0, 1.0 / 4.0]),
@@ -319,8 +319,9 @@ def _symplecticity_defect(a, b, c):
 
 @pytest.mark.parametrize("table", [GAUSS2, GAUSS3], ids=["2 stages", "3 stages"])
 def test_symplectic_in_canonical_variables(table):
-    # M^T J M = J for the Jacobian M of one step (Hairer, Lubich, Wanner, GNI sec. VI.4): the
-    # canonical variables (phi, theta, psi; p_phi, p_theta, p_psi) make J the standard one.
+    # M^T J M = J for the Jacobian M of one step (Hairer, Lubich, Wanner, GNI sec. VI.4) [from
+    # memory]: the canonical variables (phi, theta, psi; p_phi, p_theta, p_psi) make J the standard
+    # one.
     tab = Tableau(table)
     assert _symplecticity_defect(tab.a, tab.b, tab.c) < 1e-7
     assert _symplecticity_defect(*RADAU2) > 1e-5
@@ -333,8 +334,9 @@ def test_symplectic_in_canonical_variables(table):
 def test_compensated_summation_slows_round_off_growth(name):
     # Body form: energy is a quadratic first integral, so at a tiny step its error is pure
     # round-off. Adding the small update with Kahan's compensated summation removes the rounding
-    # of y_n + increment that dominates it (Hairer, Lubich, Wanner, GNI sec. VIII.5). Six starts,
-    # 10^5 steps each; the RMS energy error must be at least ten times smaller for most of them.
+    # of y_n + increment that dominates it (Hairer, Lubich, Wanner, GNI sec. VIII.5) [from memory].
+    # Six starts, 10^5 steps each; the RMS energy error must be at least ten times smaller for most
+    # of them.
     p = GENERAL.params()
     ratios = []
     for k in range(6):

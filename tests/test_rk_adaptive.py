@@ -102,10 +102,10 @@ def test_dop853_table_matches_scipy():
 
 @pytest.mark.parametrize("tab", [DP5, DOP853], ids=lambda t: t.name)
 def test_order_conditions(tab):
-    # Independent of any library: row sums of A equal c (HNW I, sec. II.1, eq. (1.9)); the
-    # "bushy tree" conditions sum b_i c_i^(k-1) = 1/k for k = 1..order and sum b_i a_ij c_j
-    # = 1/6 (HNW I, sec. II.2, Table 2.2); both error estimates weigh stages summing to 0, so
-    # that they vanish on constant right-hand sides.
+    # Independent of any library: row sums of A equal c (HNW I, sec. II.1, eq. (1.9) [from
+    # memory]); the "bushy tree" conditions sum b_i c_i^(k-1) = 1/k for k = 1..order and sum b_i
+    # a_ij c_j = 1/6 (HNW I, sec. II.2, Table 2.2) [from memory]; both error estimates weigh stages
+    # summing to 0, so that they vanish on constant right-hand sides.
     rows = tab.a.shape[0]
     np.testing.assert_allclose(tab.a.sum(axis=1), tab.c[:rows], rtol=0, atol=1e-14)
     ns = tab.n_stages
@@ -211,7 +211,7 @@ def test_default_first_step_and_dense_output_match_scipy(name, cls):
 
 @pytest.mark.parametrize("name", ["rk45", "dop853"])
 def test_error_falls_in_proportion_to_tolerance(name):
-    # Tolerance proportionality of local-extrapolation codes (HNW I, sec. II.4, common
+    # Tolerance proportionality of local-extrapolation codes (HNW I, sec. II.4 [from memory], common
     # practice): over four decades of rtol the global error falls at every step, and the
     # fitted log-log slope is close to 1.
     t_end = 2.0
@@ -288,9 +288,9 @@ def test_snapshot_restore_continues_to_identical_bits(name):
 @pytest.mark.parametrize("name", ["rk45", "dop853"])
 def test_energy_drifts_secularly(name):
     # Explicit RK is not symplectic: over a long run the energy error is a trend, not a bounded
-    # oscillation (HNW I, sec. II.16 and Hairer, Lubich and Wanner, Geometric Numerical
-    # Integration, ch. I; common practice). The fitted drift over the run is many times the
-    # scatter about the fitted line.
+    # oscillation (HNW I, sec. II.16 [from memory] and Hairer, Lubich and Wanner, Geometric
+    # Numerical Integration, ch. I [from memory]; common practice). The fitted drift over the run
+    # is many times the scatter about the fitted line.
     y0 = y_start(FORM_BODY)
     e0 = invariants(FORM_BODY, y0, P)["energy"]
     st = get(name).start(FORM_BODY, P, 0.0, y0, {"rtol": 1e-6, "atol": 1e-9})

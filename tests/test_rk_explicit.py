@@ -50,7 +50,8 @@ def reference(form: int, t_end: float) -> np.ndarray:
 
 
 def test_table_is_the_classical_method():
-    # Kutta (1901); HNW I, sec. II.1, Table 1.2: c = (0, 1/2, 1/2, 1), b = (1, 2, 2, 1)/6.
+    # Kutta (1901); HNW I, sec. II.1, Table 1.2 [from memory]: c = (0, 1/2, 1/2, 1), b = (1, 2, 2,
+    # 1)/6.
     assert np.array_equal(RK4.c, [0.0, 0.5, 0.5, 1.0])
     assert np.array_equal(RK4.b * 6.0, [1.0, 2.0, 2.0, 1.0])
     assert RK4.a[1, 0] == 0.5 and RK4.a[2, 1] == 0.5 and RK4.a[3, 2] == 1.0
@@ -109,7 +110,8 @@ def test_kahan_reduces_round_off():
     # Round-off from adding small increments to a large state grows with the number of steps;
     # compensated summation (Kahan 1965) removes most of it. At h = 2e-6 the truncation error
     # of RK4 (~1e-18 here) is below round-off, so the error against the reference is round-off.
-    # Higham, Accuracy and Stability of Numerical Algorithms, sec. 4.3 (common practice).
+    # Higham, Accuracy and Stability of Numerical Algorithms, sec. 4.3 [from memory] (common
+    # practice).
     t_end = 0.5
     y_ref = reference(FORM_EULER, t_end)
     errs = {}
@@ -164,8 +166,8 @@ def test_snapshot_restore_continues_to_identical_bits(name):
 @pytest.mark.parametrize("name", METHODS)
 def test_energy_drifts_secularly(name):
     # RK4 is not symplectic: the energy error is a trend over the run, not a bounded
-    # oscillation (Hairer, Lubich and Wanner, Geometric Numerical Integration, ch. I; common
-    # practice). The fitted drift is many times the scatter about the fitted line.
+    # oscillation (Hairer, Lubich and Wanner, Geometric Numerical Integration, ch. I [from memory];
+    # common practice). The fitted drift is many times the scatter about the fitted line.
     y0 = y_start(FORM_BODY)
     e0 = invariants(FORM_BODY, y0, P)["energy"]
     st = get(name).start(FORM_BODY, P, 0.0, y0, {"step": 2e-3})

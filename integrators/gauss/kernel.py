@@ -33,10 +33,10 @@ looking for an exact fixed point.
 
 The update y_{n+1} = y_n + h sum_i b_i F_i is added either plainly or with compensated
 summation (Kahan's idea, carrying the compensation from step to step; Hairer, Lubich, Wanner,
-Geometric Numerical Integration, sec. VIII.5). The compensated update carries every rounding
-error of the update, not only that of y_n + increment: the increment h sum_i b_i F_i is formed
-as an unevaluated sum of two doubles by error-free transformations (eft.py), and both parts and
-the old compensation go into y_{n+1} + comp_{n+1} exactly (Knuth's TwoSum). Measured as above
+Geometric Numerical Integration, sec. VIII.5) [from memory]. The compensated update carries every
+rounding error of the update, not only that of y_n + increment: the increment h sum_i b_i F_i is
+formed as an unevaluated sum of two doubles by error-free transformations (eft.py), and both parts
+and the old compensation go into y_{n+1} + comp_{n+1} exactly (Knuth's TwoSum). Measured as above
 for gauss6-kahan: the rounding of the plain weighted sum sum_i b_i F_i alone drifted the energy
 by -1.1e-21 per step (2 of 16 starts positive), the main shared drift once the stages were
 unbiased; carried exactly, the update term is below 1e-36. The plain update rounds as before.

@@ -42,8 +42,8 @@ DEFAULT_MAX_ITERATIONS = 60
 GRID_RTOL = 1e-9
 
 SOURCE = (
-    "Butcher 1964, Math. Comp. 18; Hairer and Wanner, Solving ODEs II, sec. IV.5; "
-    "Hairer, Lubich and Wanner, Geometric Numerical Integration, sec. II.1.3"
+    "Butcher 1964, Math. Comp. 18; Hairer and Wanner, Solving ODEs II, sec. IV.5 [from memory]; "
+    "Hairer, Lubich and Wanner, Geometric Numerical Integration, sec. II.1.3 [from memory]"
 )
 
 SETTING_KEYS = ("step", "max_iterations")

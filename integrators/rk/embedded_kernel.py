@@ -196,8 +196,9 @@ def first_derivative(form, p, y, f, counters):
 
 @njit(cache=True)
 def initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counters):
-    """Hairer's starting step (Hairer, Norsett and Wanner, Solving ODEs I, sec. II.4), in the
-    variant of scipy's select_initial_step: f must hold rhs(y); costs one evaluation."""
+    """Hairer's starting step (Hairer, Norsett and Wanner, Solving ODEs I, sec. II.4) [from
+    memory], in the variant of scipy's select_initial_step: f must hold rhs(y); costs one
+    evaluation."""
     n = y.shape[0]
     d0 = 0.0
     d1 = 0.0
