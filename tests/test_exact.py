@@ -18,6 +18,7 @@ import mpmath as mp
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
+from scipy_reference import dop853  # scipy's DOP853 at rtol = atol = 1e-13
 
 from topdrift.models import FORM_BODY, FORM_EULER, RigidBody, body_state, euler_state
 from topdrift.models.dynamics import rhs
@@ -56,14 +57,16 @@ class MpTop:
         beta = 2 * mgl / i1
         a, b = ppsi / i1, pphi / i1
         self.a, self.b, self.i1, self.i3, self.beta, self.ppsi = a, b, i1, i3, beta, ppsi
-        # f(u) = beta u^3 - (alpha + a^2) u^2 + (2 a b - beta) u + (alpha - b^2)
+        # f(u) = beta u^3 - (alpha + a^2) u^2 + (2 a b - beta) u + (alpha - b^2), coefficients
+        # in ascending order (mpmath >= 1.4 deprecates the descending one)
         if beta != 0:
             r = sorted(
                 mp.re(x)
                 for x in mp.polyroots(
-                    [beta, -(alpha + a**2), 2 * a * b - beta, alpha - b**2],
+                    [alpha - b**2, 2 * a * b - beta, -(alpha + a**2), beta],
                     extraprec=200,
                     maxsteps=200,
+                    asc=True,
                 )
             )
             self.u1, self.u2, self.u3 = (r[0], r[1], r[2]) if beta > 0 else (r[1], r[2], r[0])
@@ -71,7 +74,9 @@ class MpTop:
         else:
             r = sorted(
                 mp.re(x)
-                for x in mp.polyroots([-(alpha + a**2), 2 * a * b, alpha - b**2], extraprec=200)
+                for x in mp.polyroots(
+                    [alpha - b**2, 2 * a * b, -(alpha + a**2)], extraprec=200, asc=True
+                )
             )
             self.u1, self.u2 = r
             lead = alpha + a**2
@@ -192,21 +197,6 @@ def test_near_separatrix_against_mpmath_and_refused_on_it():
 
 
 # --------------------------------------------------------------------------- scipy DOP853
-def dop853(form, body, y0, t):
-    p = body.params()
-    n = len(y0)
-
-    def f(_, y):
-        d = np.empty(n)
-        rhs(form, y, p, d)
-        return d
-
-    # scipy's DOP853 at tight tolerance: a general-purpose reference integrator.
-    sol = solve_ivp(f, (0.0, t[-1]), y0, method="DOP853", rtol=1e-13, atol=1e-13, t_eval=t)
-    assert sol.success
-    return sol.y.T
-
-
 def dop853_reduced(body, ye, period, periods, per_period=20):
     """DOP853 over whole nutation periods, restarting each period with phi and psi folded
     into (-pi, pi] and the whole turns kept aside. The equations do not depend on phi and psi,

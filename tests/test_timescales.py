@@ -9,7 +9,7 @@ import pytest
 from scipy.integrate import solve_ivp
 
 from topdrift.benchmarks.cases.library import library_cases, load_case
-from topdrift.benchmarks.cases.timescales import timescales
+from topdrift.benchmarks.cases.time_scales import timescales
 from topdrift.benchmarks.choose import analysis
 from topdrift.benchmarks.run.in_memory import run_in_memory
 from topdrift.benchmarks.run.metrics import DRIFT_SKIP_PERIODS, drift_fit

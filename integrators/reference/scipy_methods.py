@@ -23,7 +23,6 @@ side and puts that state back. A resumed run repeats the same bits (tested for a
 
 from __future__ import annotations
 
-import math
 import pickle
 import types
 import warnings
@@ -56,8 +55,6 @@ REJECTED_UNKNOWN = -1
 # is exactly 0.0 and every update, Newton correction and interpolant of it is 0.0), p_psi to
 # round-off in the body form. Measured, 6 random starts each, tests/test_keeps.py.
 KEEPS_BY_FORM = {"euler": (("p_phi", "p_psi", "norm"), ()), "body": ((), ("p_psi",))}
-
-SETTING_KEYS = ("rtol", "atol")
 
 _FUNCTION_TYPES = (types.FunctionType, types.MethodType, types.BuiltinFunctionType)
 
@@ -267,20 +264,10 @@ class ReferenceMethod(Method):
         form = int(form)
         if form < 0 or form >= len(FORM_NAMES):
             raise MethodRefused(f"{self.name}: unknown state form code {form!r}")
-        for key in settings:
-            if key not in SETTING_KEYS:
-                raise MethodRefused(
-                    f"{self.name}: unknown setting {key!r} (known: {', '.join(SETTING_KEYS)})"
-                )
-        for key in SETTING_KEYS:
-            v = settings.get(key)
-            if not isinstance(v, float) or not v > 0.0 or not math.isfinite(v):
-                raise MethodRefused(f"{self.name}: needs a positive finite {key}, got {v!r}")
+        checked = self.settings(settings)  # rtol, atol: positive finite floats (base.py)
         y = self.start_state(form, y0)
         p = np.ascontiguousarray(params, dtype=np.float64)
-        return ReferenceStepper(
-            self, form, p, float(t0), y, float(settings["rtol"]), float(settings["atol"])
-        )
+        return ReferenceStepper(self, form, p, float(t0), y, checked["rtol"], checked["atol"])
 
 
 def _scipy_version() -> str:

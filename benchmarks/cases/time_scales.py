@@ -1,10 +1,21 @@
-"""The fastest and the slowest time scales of a case's motion, from its body and start.
+"""How fast a case's start turns: the rates that size a step ladder, the first step a
+recommendation tries, and the step budget of an adaptive run.
 
-Two verdicts depend on them. Samples further apart than half the fastest period cannot show that
-motion: any figure drawn from them aliases it (the sampling theorem, common practice), and the
-run says so. And a growth law of the energy error means something only over a horizon that holds
-many periods of the slowest motion the error can follow: a bounded error reaches its plateau only
-after about one such period, so before that any error grows, whatever the method.
+Two rates are at play: the body's angular velocity w = I^-1 m (rad/s) and the pendulum rate
+sqrt(M g |chi| / I_min) of the gravity torque. An explicit method following a rotation or
+oscillation at rate w needs h w below a small constant (its stability interval on the imaginary
+axis, below 2 pi for every method here: common practice), and any method needs about one step
+per turn to resolve it. The ladder takes the largest body axis component of w (the documented
+rule of "auto" ladders, README), the budget the whole |w|: the two differ by at most sqrt(3),
+and each fixes numbers that users already have (the steps of auto ladders, hence run ids).
+
+The periods of the motion, `timescales(case)`: the fastest and the slowest time scales of a
+case's motion, from its body and start. Two verdicts depend on them. Samples further apart than
+half the fastest period cannot show that motion: any figure drawn from them aliases it (the
+sampling theorem, common practice), and the run says so. And a growth law of the energy error
+means something only over a horizon that holds many periods of the slowest motion the error can
+follow: a bounded error reaches its plateau only after about one such period, so before that any
+error grows, whatever the method.
 
 - fastest: the shortest of 2 pi / |w| (the body's angular velocity at the start), the pendulum
   period of gravity 2 pi sqrt(I_min / (M g |chi|)) and, for a Lagrange top, its nutation period.
@@ -29,7 +40,36 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 from topdrift.models.free_body import free_body_period
+
+
+def body_rates(case) -> np.ndarray:
+    """|w_i| about each body axis at the start, rad/s."""
+    p = case.body.params()
+    y = case.body_state()
+    return np.abs(y[4:7] * p[[P_INV1, P_INV2, P_INV3]])
+
+
+def gravity_rate(case) -> float:
+    """The small-oscillation rate of the gravity torque, sqrt(M g |chi| / I_min), rad/s."""
+    p = case.body.params()
+    mg_chi = math.sqrt(p[P_MGX] ** 2 + p[P_MGY] ** 2 + p[P_MGZ] ** 2)
+    return math.sqrt(mg_chi * max(p[P_INV1], p[P_INV2], p[P_INV3]))
+
+
+def fastest_rate(case) -> float:
+    """The fastest rate of the start for a step budget: |w| or the pendulum rate, rad/s."""
+    return max(float(np.sqrt(np.sum(body_rates(case) ** 2))), gravity_rate(case))
+
+
+def fastest_period(case) -> float:
+    """2 pi over the fastest rate of the start for a step ladder: the largest body axis rate or
+    the pendulum rate; the horizon for a body at rest (any step will do)."""
+    rate = max(float(np.max(body_rates(case))), gravity_rate(case))
+    if not rate > 0.0:
+        return case.horizon
+    return 2.0 * math.pi / rate
 
 
 @dataclass(frozen=True)
@@ -43,13 +83,9 @@ class Timescales:
 
 def _start_rates(case) -> tuple[float, float, float]:
     """(|w|, the pendulum rate sqrt(M g |chi| / I_min), |L|) at the start."""
-    body = case.body
-    y = np.asarray(case.body_state(), dtype=np.float64)
-    m = y[4:7]
-    w = m / np.asarray(body.inertia, dtype=np.float64)
-    lever = float(np.linalg.norm(np.asarray(body.com, dtype=np.float64)))
-    swing = math.sqrt(body.mass * body.gravity * lever / min(body.inertia))
-    return float(np.linalg.norm(w)), swing, float(np.linalg.norm(m))
+    spin = float(np.sqrt(np.sum(body_rates(case) ** 2)))
+    m = np.asarray(case.body_state(), dtype=np.float64)[4:7]
+    return spin, gravity_rate(case), float(np.linalg.norm(m))
 
 
 def _period(rate: float) -> float:
