@@ -5,6 +5,7 @@ the models' kernels; knows nothing of cases or files."""
 
 from .base import (
     C_EVALS,
+    C_FORCE_EVALS,
     C_REJECTED,
     C_STEPS,
     GRID_RTOL,
@@ -37,6 +38,7 @@ from .validation import Setting, SnapshotRefused
 
 __all__ = [
     "C_EVALS",
+    "C_FORCE_EVALS",
     "C_REJECTED",
     "C_STEPS",
     "N_COUNTERS",

@@ -3,8 +3,9 @@
 - mpmath at 30 digits (mp.dps = 30): roots of the cubic f(u) with mpmath.polyroots, and every
   time and angle by tanh-sinh quadrature of dt = du / sqrt(f(u)), phidot dt and psidot dt over
   u = u1 + (u2 - u1) sin^2(chi), which makes the integrands smooth (Goldstein, Classical
-  Mechanics, sec. 5.7, for f(u) and the rates). It shares no code and no elliptic-function
-  library with the module under test (which uses scipy's Carlson forms and Jacobi functions).
+  Mechanics, sec. 5.7 [from memory], for f(u) and the rates). It shares no code and no
+  elliptic-function library with the module under test (which uses scipy's Carlson forms and Jacobi
+  functions).
 - scipy's DOP853 (solve_ivp, rtol = atol = 1e-13) on the canonical equations of
   topdrift.models.dynamics.rhs, and on the body form where the axis passes the vertical.
 """

@@ -72,7 +72,8 @@ def _run(plan, path, **kw):
 
 def _euler_poisson(body):
     """Body-form equations written out again here in numpy, independent of the kernels:
-    m' = m x w + M g (Gamma x chi), q' = q (0, w)/2 (Euler-Poisson; Goldstein sec. 5.6)."""
+    m' = m x w + M g (Gamma x chi), q' = q (0, w)/2 (Euler-Poisson; Goldstein sec. 5.6) [from
+    memory]."""
     inertia = np.array(body.inertia)
     mg_chi = body.weight * np.array(body.com)
 
@@ -231,7 +232,7 @@ def test_drift_exponent_of_bounded_zero_and_random_walk():
     # Kept to the bit: bounded, 0.
     assert drift_exponent(t, np.zeros_like(t)) == 0.0
     # A random walk's running max grows like sqrt(t) (reflection principle; Feller vol. 1,
-    # ch. III); with a fixed seed the fitted slope lands near 0.5.
+    # ch. III) [from memory]; with a fixed seed the fitted slope lands near 0.5.
     rng = np.random.default_rng(7)
     walk = np.abs(np.cumsum(rng.standard_normal(t.size)))
     assert drift_exponent(t, walk) == pytest.approx(0.5, abs=0.2)

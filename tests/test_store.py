@@ -36,13 +36,19 @@ METRIC_KEYS = {
     "theta_abs_max",
     "phi_abs_max",
     "psi_abs_max",
+    "kovalevskaya_rel_max",
     "steps",
     "rhs_evals",
+    "force_evals",
     "rejected",
     "wall_s",
     "cpu_s",
     "ns_per_step",
     "energy_drift_exponent",
+    "energy_drift_window",
+    "energy_drift_unknown",
+    "fastest_period",
+    "slowest_period",
     "t_fail",
 }
 
@@ -108,8 +114,9 @@ def test_layout_as_documented(stored):
         assert np.allclose(np.linalg.norm(q, axis=1), 1.0, atol=1e-12)
         assert np.array_equal(g["state"][:, :4], q)
         assert np.array_equal(g["state"][:, 4:], g["momentum"][()])
-        # Figure axis R e3 from a unit quaternion: third column of the rotation matrix
-        # (common practice; e.g. Shuster 1993, eq. 159).
+        # Figure axis R e3 from a unit quaternion: third column of the body-to-space rotation
+        # matrix (common practice), the third row of Shuster's space-to-body attitude matrix
+        # (Shuster 1993, A Survey of Attitude Representations, eq. 159, scalar last; from memory).
         q0, q1, q2, q3 = q.T
         axis = np.column_stack(
             [2 * (q1 * q3 + q0 * q2), 2 * (q2 * q3 - q0 * q1), q0**2 - q1**2 - q2**2 + q3**2]

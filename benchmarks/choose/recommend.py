@@ -51,6 +51,7 @@ class Trial:
     rhs_evals: int
     status: str
     settings: dict
+    force_evals: int = 0  # torque evaluations (a splitting's kicks; every rhs otherwise)
 
 
 @dataclass
@@ -179,6 +180,7 @@ class Picker:
             int(m.get("rhs_evals") or 0),
             run.status,
             dict(plan.settings),
+            int(m.get("force_evals") or 0),
         )
 
     def search(self, method: str, form: str | None) -> Choice:
@@ -192,6 +194,15 @@ class Picker:
             )
         except MethodRefused as exc:
             return Choice(method, form or "?", reason=str(exc))
+        if self.metric == "energy" and "energy" in m.info.kept_in(form):
+            # Its energy error is rounding at any setting: the cheapest setting "meeting" an
+            # energy target would say nothing about the method. Ranked by --metric axis.
+            return Choice(
+                method,
+                form,
+                reason=f"keeps the energy by construction in the {form} form (its error is "
+                "round-off at any setting): not ranked by energy; rank it with --metric axis",
+            )
         choice = Choice(method, form)
         step = m.info.control == "step"
         interval = self.horizon / (self.samples - 1)
@@ -349,6 +360,7 @@ def pick(
                 "settings": settings,
                 "wall_s": v.wall_s,
                 "rhs_evals": v.rhs_evals,
+                "force_evals": v.force_evals,
                 "achieved": v.achieved,
                 "margin": target / v.achieved if v.achieved > 0 else None,
                 "trials": len(c.tried),

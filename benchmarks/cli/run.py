@@ -177,7 +177,9 @@ def run(args) -> int:
             ep = plan_ensemble(p, args.ensemble, args.spread)
             ensembles[ep.run_id] = ep
     actions = _decide(plans, out, args.force, args.resume)
-    for p in plans:
+
+    def say_notes(p) -> None:
+        # Once a run is done (or reused), so that a refusal on the way stays one line.
         for note in p.notes:
             sys.stderr.write(f"topdrift: {p.case.name} {p.method.name}: {note}\n")
 
@@ -222,6 +224,7 @@ def run(args) -> int:
                             flush_every=flush_every,
                         )
                     results.append(r)
+                    say_notes(p)
                     if stop.requested:
                         break
             except NoRoom:
@@ -255,6 +258,7 @@ def run(args) -> int:
             if action != "reuse":
                 continue  # not reached: stopped by a signal
             status, metrics, detail = _stored(out, p.run_id)
+            say_notes(p)
             sys.stderr.write(
                 f"topdrift: {p.case.name} {p.method.name}: already in {out} as run {p.run_id} "
                 f"({status}); reusing it (--force runs it again)\n"

@@ -42,6 +42,12 @@ ERROR_METRICS = (
 )
 COUNT_METRICS = ("steps", "rhs_evals", "rejected")
 INFO_METRICS = ("energy_drift_exponent", "t_fail", "wall_s", "ns_per_step")
+# Optional keys of a run (added within format 2: a baseline without them is read as before, and
+# they are compared only where the baseline has them): Kovalevskaya's integral, measured in every
+# run of a Kovalevskaya top, and the force (torque) evaluations.
+OPTIONAL_ERROR_METRICS = ("kovalevskaya_rel_max",)
+OPTIONAL_COUNT_METRICS = ("force_evals",)
+OPTIONAL_METRICS = OPTIONAL_ERROR_METRICS + OPTIONAL_COUNT_METRICS
 
 INT64_MAX = 2**63 - 1
 # The machine fingerprint's keys (benchmarks/gate/machine.py reads them off the machine).
@@ -187,6 +193,11 @@ RUN_KEYS = {
     "ns_per_step": _opt(_nonneg),
     "ns_per_step_norm": _opt(_nonneg),
 }
+# Keys a run record may have (absent in baselines recorded before them).
+OPTIONAL_RUN_KEYS = {
+    **{k: _opt(_error) for k in OPTIONAL_ERROR_METRICS},
+    **{k: _opt(_count) for k in OPTIONAL_COUNT_METRICS},
+}
 TIMING_KEYS = {
     "run": _name,
     "horizon": _positive,
@@ -240,17 +251,26 @@ def encode_nonfinite(v):
     return v
 
 
-def _table(label: str, table, keys: dict) -> dict:
-    """The table with every value read by its check; raises UserError on the first bad one."""
+def _table(label: str, table, keys: dict, optional: dict | None = None) -> dict:
+    """The table with every value read by its check; raises UserError on the first bad one.
+    Keys in `optional` may be absent; when present they are read like the others."""
+    optional = optional or {}
     if not isinstance(table, dict):
         raise UserError(f"{label}: expected an object")
     for k in table:
-        if k not in keys:
+        if k not in keys and k not in optional:
             raise UserError(f"{label}: unknown key {k!r}")
     out = {}
     for k, read in keys.items():
         if k not in table:
             raise UserError(f"{label}: {k}: missing")
+        try:
+            out[k] = read(table[k])
+        except _Bad as exc:
+            raise UserError(f"{label}: {k}: unexpected value {_show(table[k])} ({exc})") from None
+    for k, read in optional.items():
+        if k not in table:
+            continue
         try:
             out[k] = read(table[k])
         except _Bad as exc:
@@ -300,12 +320,15 @@ def validate(data, label: str) -> dict:
                 f"{label}: plugins[{name!r}]: unexpected value {_show(rec)} ({exc})"
             ) from None
     data["reference"] = _table(f"{label}: reference", data["reference"], REFERENCE_KEYS)
-    for section, keys in (("runs", RUN_KEYS), ("timings", TIMING_KEYS)):
+    for section, keys, optional in (
+        ("runs", RUN_KEYS, OPTIONAL_RUN_KEYS),
+        ("timings", TIMING_KEYS, None),
+    ):
         table = data[section]
         if not isinstance(table, dict):
             raise UserError(f"{label}: {section}: expected an object keyed by run")
         for key, rec in table.items():
-            table[key] = _table(f"{label}: {section}[{key!r}]", rec, keys)
+            table[key] = _table(f"{label}: {section}[{key!r}]", rec, keys, optional)
     for key, rec in data["timings"].items():
         if rec["run"] not in data["runs"]:
             raise UserError(f"{label}: timings[{key!r}]: run {rec['run']!r} is not in runs")

@@ -35,7 +35,11 @@ from topdrift.benchmarks.errors import UserError
 # The metric names come from the baseline format, which imports nothing of the runner: every
 # `topdrift` command imports this module for the defaults of its parser, and the measuring code
 # (the runner, the sweep) would cost about 0.1 s of each process's start-up (-X importtime).
-from topdrift.benchmarks.gate.baseline_file import ERROR_METRICS
+from topdrift.benchmarks.gate.baseline_file import (
+    ERROR_METRICS,
+    OPTIONAL_COUNT_METRICS,
+    OPTIONAL_ERROR_METRICS,
+)
 
 DEFAULT_ERROR_FACTOR = 1.5
 DEFAULT_ERROR_FLOOR = 1e-13
@@ -285,9 +289,14 @@ def compare_runs(
             continue
         for name in ERROR_METRICS:
             _compare_error(key, name, a.get(name), b.get(name), t, out)
-        for name in ("steps", "rhs_evals"):
+        # Keys a baseline of an older topdrift lacks are compared only where it has them.
+        for name in OPTIONAL_ERROR_METRICS:
+            if name in a:
+                _compare_error(key, name, a[name], b.get(name), t, out)
+        counts = ("steps", "rhs_evals") + tuple(n for n in OPTIONAL_COUNT_METRICS if n in a)
+        for name in counts:
             allowed = t.steps_tolerance * abs(a[name]) if a[name] is not None else 0.0
-            _compare_count(key, name, a[name], b[name], allowed, t, out)
+            _compare_count(key, name, a[name], b.get(name), allowed, t, out)
         allowed = t.steps_tolerance * (a["steps"] or 0)
         _compare_count(key, "rejected", a["rejected"], b["rejected"], allowed, t, out)
     result.new_runs.extend(k for k in now if k not in base)

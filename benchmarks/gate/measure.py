@@ -32,7 +32,12 @@ from pathlib import Path
 from statistics import median
 
 from topdrift.benchmarks.cases.schema import parse_case
-from topdrift.benchmarks.gate.baseline_file import COUNT_METRICS, ERROR_METRICS, INFO_METRICS
+from topdrift.benchmarks.gate.baseline_file import (
+    COUNT_METRICS,
+    ERROR_METRICS,
+    INFO_METRICS,
+    OPTIONAL_METRICS,
+)
 from topdrift.benchmarks.gate.reference_workload import (
     CLOCK,
     SCALAR_STEPS,
@@ -132,13 +137,13 @@ def measure_run(job: Job) -> dict:
         result = run_job(job)
     except Exception as exc:  # noqa: BLE001 - reported per run, see above
         record.update({"status": "error", "detail": f"{type(exc).__name__}: {exc}"})
-        for name in COUNT_METRICS + ERROR_METRICS + INFO_METRICS:
+        for name in COUNT_METRICS + ERROR_METRICS + INFO_METRICS + OPTIONAL_METRICS:
             record[name] = None
         return record
     m = result.metrics
     record["status"] = result.status
     record["detail"] = result.detail
-    for name in COUNT_METRICS + ERROR_METRICS:
+    for name in COUNT_METRICS + ERROR_METRICS + OPTIONAL_METRICS:
         record[name] = m.get(name)
     for name in INFO_METRICS:  # for reading only: a NaN there (a fit of nothing) is no value
         v = m.get(name)

@@ -20,7 +20,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from topdrift.benchmarks.cases.schema import LARGEST, MAX_SAMPLES, SMALLEST
-from topdrift.benchmarks.cases.time_scales import fastest_rate
+from topdrift.benchmarks.cases.time_scales import Timescales, fastest_rate, timescales
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.loop import (
     STOPPED,
@@ -32,7 +32,7 @@ from topdrift.benchmarks.run.loop import (
     stepper_outcome,
 )
 from topdrift.benchmarks.run.metrics import Accumulator, finish
-from topdrift.benchmarks.run.sampling import S_ENERGY, SampleBuffers
+from topdrift.benchmarks.run.sampling import N_SCALARS, S_ENERGY, SampleBuffers
 from topdrift.benchmarks.store.failures import NoRoom, damage_is_an_error, ensure_room
 from topdrift.benchmarks.store.format import (
     CHUNK_ROWS,
@@ -51,7 +51,15 @@ from topdrift.benchmarks.store.writer import (
     RunGroup,
     utc_now,
 )
-from topdrift.integrators import C_STEPS, ST_OK, Method, MethodRefused, Stepper, whole_steps
+from topdrift.integrators import (
+    C_STEPS,
+    N_COUNTERS,
+    ST_OK,
+    Method,
+    MethodRefused,
+    Stepper,
+    whole_steps,
+)
 from topdrift.integrators import get as get_method
 from topdrift.models import FORM_EULER, FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
 
@@ -88,6 +96,7 @@ class RunPlan:
     run_id: str
     notes: list[str] = field(default_factory=list)
     start_singular: str = ""  # why the start has no state in this form (the pole)
+    scales: Timescales | None = None  # the case's fastest and slowest periods
 
     @property
     def form_code(self) -> int:
@@ -276,6 +285,10 @@ def plan_run(
         probe = np.append(horizon * k / (n - 1), horizon)
         exact = _exact_solution(body, form, y0, notes, probe)
     run_id = make_run_id(case.toml_text, method.name, form, settings, horizon, n)
+    scales = timescales(case)
+    alias = aliasing_note(interval, scales)
+    if alias:
+        notes.append(alias)
     plan = RunPlan(
         case,
         method,
@@ -290,6 +303,7 @@ def plan_run(
         run_id,
         notes,
         start_singular,
+        scales,
     )
     try:
         warm_up(plan)  # compiles, and lets start() refuse before any file exists
@@ -301,6 +315,18 @@ def plan_run(
             f"({exc})"
         ) from None
     return plan
+
+
+def aliasing_note(interval: float, scales: Timescales) -> str:
+    """The note for samples too far apart to show the fastest motion (more than half its period:
+    the sampling theorem, common practice), or "" when they are not."""
+    if not interval > 0.5 * scales.fastest:
+        return ""
+    return (
+        f"samples every {interval:.3g} s are more than half the fastest period "
+        f"({scales.fastest:.3g} s, {scales.fastest_what}): that motion is aliased in every "
+        "figure drawn from the samples; more --samples show it"
+    )
 
 
 # The most steps one run may take: about 10 hours at 35 ns a step (the fastest kernels, see
@@ -508,6 +534,16 @@ class _Run(SampledRun):
 
     def _restore_from(self, cp: dict) -> None:
         p = self.plan
+        counters = np.asarray(cp["run"].get("counters", ()))
+        if counters.shape != (N_COUNTERS,):
+            # Checkpoints of topdrift before the force-evaluation counter hold 3 counters. The
+            # missing count cannot be made up afterwards (for a splitting it is not a fixed
+            # share of the evaluations), so such a run is not continued with a wrong one.
+            raise UserError(
+                f"run {p.run_id}: its checkpoint holds {counters.size} counters, this topdrift "
+                f"keeps {N_COUNTERS} (force evaluations were added): it was written by an older "
+                "version and cannot be resumed; run it again with --force"
+            )
         self.k = int(cp["run"]["sample"])
         if not 1 <= self.k <= p.samples:
             raise ValueError(f"sample {self.k} is not between 1 and {p.samples}")
@@ -562,8 +598,15 @@ class _Run(SampledRun):
         buf.t[0] = 0.0
         if not buf.record(form, s.y, self.plan.params, 0):
             raise UserError(f"{self.plan.case.name}: the start state is not finite")
+        body = self.plan.case.body
         self.acc = Accumulator.at_start(
-            buf.scal[0], buf.mom[0], self.plan.params, self.has_exact, form != FORM_EULER
+            buf.scal[0],
+            buf.mom[0],
+            self.plan.params,
+            self.has_exact,
+            form != FORM_EULER,
+            has_p_psi=body.lagrange_top,
+            has_kovalevskaya=body.kovalevskaya,
         )
         self.k = 1
         return 1
@@ -598,12 +641,12 @@ class _Run(SampledRun):
         # and rewrites the last, partly filled chunk of every dataset (compressed, perhaps at a
         # new place in the file), plus the checkpoint: rows + one chunk of rows, uncompressed,
         # bound it.
-        row_bytes = 8 * (buf.state.shape[1] + 3 + 4 + 3 + 4 + (6 if self.has_exact else 0))
+        row_bytes = 8 * (buf.state.shape[1] + 3 + 4 + 3 + N_SCALARS + (6 if self.has_exact else 0))
         rows = j + min(CHUNK_ROWS, self.samples)
         ensure_room(self.group.f, rows * row_bytes + 64 * 1024, f"the samples up to {self.k}")
         if j:
             tb = buf.t[:j].copy()
-            batch = {"t": tb, **buf.rows_of(0, j)}
+            batch = {"t": tb, **buf.rows_of(0, j, kovalevskaya=self.acc.has_kovalevskaya)}
             ee = ea = None
             if self.has_exact:
                 try:
@@ -668,7 +711,8 @@ class _Run(SampledRun):
         g = self.group.g
         t = g["t"][()]
         energy = g["invariants/energy"][()]
-        return finish(self.acc, self.stepper.counters, self.wall, self.cpu, t, energy, t_fail)
+        acc, counters = self.acc, self.stepper.counters
+        return finish(acc, counters, self.wall, self.cpu, t, energy, t_fail, self.plan.scales)
 
 
 def check_resume(plan: RunPlan, f) -> None:
@@ -699,7 +743,15 @@ def execute(
         group.flush()
     else:
         has_exact = plan.exact is not None
-        group = RunGroup.create(f, plan.run_id, run_attrs(plan), width, has_exact, plan.samples)
+        group = RunGroup.create(
+            f,
+            plan.run_id,
+            run_attrs(plan),
+            width,
+            has_exact,
+            plan.samples,
+            kovalevskaya=plan.case.body.kovalevskaya,
+        )
         run = _Run(plan, group, stop, progress)
         run.stepper = run.fresh_stepper()
     try:

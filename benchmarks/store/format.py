@@ -45,6 +45,10 @@ SAMPLE_DATASETS = {
     "invariants/norm": 0,
 }
 EXACT_DATASETS = {"exact/euler": 3, "exact/axis": 3}
+# Optional sample datasets of format 1, present only where the quantity is an invariant of the
+# run's body: Kovalevskaya's integral for a Kovalevskaya top.
+KOVALEVSKAYA_DATASET = "invariants/kovalevskaya"
+OPTIONAL_DATASETS = {KOVALEVSKAYA_DATASET: 0}
 STATE_DATASET = "state"
 STATE_WIDTHS = {"euler": 6, "body": 7}  # columns of `state` by the run's form
 # An ensemble run's own datasets: path -> the shape of one row after the member count

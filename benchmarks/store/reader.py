@@ -28,6 +28,7 @@ from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.store.failures import damage_is_an_error
 from topdrift.benchmarks.store.format import (
     FINAL_STATUSES,
+    KOVALEVSKAYA_DATASET,
     STATUS_INCOMPLETE,
     STATUS_OK,  # noqa: F401  (the records' status for a complete run, for readers of records)
     cannot_open,
@@ -218,6 +219,9 @@ def read_series(f: h5py.File, run_id: str) -> dict:
             raise UserError(f"{path}: run {run_id} has no dataset '{name}'")
         out[key] = _read(g, name, run_id, path)
     out["exact_euler"] = _read(g, "exact/euler", run_id, path) if "exact/euler" in g else None
+    # Present only for a Kovalevskaya top, where it is an invariant.
+    kov = KOVALEVSKAYA_DATASET
+    out["kovalevskaya"] = _read(g, kov, run_id, path) if kov in g else None
     n = min(len(v) for k, v in out.items() if k != "record" and v is not None)
     for k, v in out.items():
         if k != "record" and v is not None:

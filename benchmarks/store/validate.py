@@ -39,6 +39,7 @@ from topdrift.benchmarks.store.format import (
     MAX_MEMBERS,
     MAX_ROWS,
     NUMBER_ATTRS,
+    OPTIONAL_DATASETS,
     RUN_SUBGROUPS,
     SAMPLE_DATASETS,
     STATE_DATASET,
@@ -266,6 +267,7 @@ def expected_shapes(attrs: dict) -> dict:
     out = {name: () if k == 0 else (k,) for name, k in SAMPLE_DATASETS.items()}
     out[STATE_DATASET] = (STATE_WIDTHS.get(attrs.get("form")),)
     out.update({name: (k,) for name, k in EXACT_DATASETS.items()})
+    out.update({name: () if k == 0 else (k,) for name, k in OPTIONAL_DATASETS.items()})
     members = attrs.get("ensemble_members")
     for name, row in ENSEMBLE_DATASETS.items():
         out[name] = tuple(members if d == "m" else d for d in row)
@@ -362,7 +364,8 @@ def check_resumable(g: h5py.Group, run_id: str, path) -> None:
 def check_samples(g: h5py.Group, run_id: str, path) -> None:
     """Read every stored row of the run's datasets once (in slices), so that a chunk HDF5 cannot
     read (bytes overwritten, a file cut short) is found before anything is written."""
-    for name in (*SAMPLE_DATASETS, STATE_DATASET, *EXACT_DATASETS, *ENSEMBLE_DATASETS):
+    datasets = (*SAMPLE_DATASETS, STATE_DATASET, *EXACT_DATASETS, *OPTIONAL_DATASETS)
+    for name in (*datasets, *ENSEMBLE_DATASETS):
         if name not in g:
             continue
         ds = g[name]

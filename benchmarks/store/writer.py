@@ -24,6 +24,8 @@ from topdrift.benchmarks.store.format import (
     EXACT_DATASETS,
     FORMAT,
     FORMAT_VERSION,
+    KOVALEVSKAYA_DATASET,
+    OPTIONAL_DATASETS,
     SAMPLE_DATASETS,
     STATE_DATASET,
     attr_str,
@@ -122,6 +124,7 @@ class RunGroup:
         state_width: int,
         has_exact: bool,
         samples: int,
+        kovalevskaya: bool = False,
     ) -> RunGroup:
         ensure_room(f, 64 * 1024, f"run {run_id}")
         runs = f["runs"]
@@ -136,6 +139,8 @@ class RunGroup:
         cols[STATE_DATASET] = state_width
         if has_exact:
             cols.update(EXACT_DATASETS)
+        if kovalevskaya:  # Kovalevskaya's integral, an invariant of such a top only
+            cols[KOVALEVSKAYA_DATASET] = 0
         rows = max(1, min(CHUNK_ROWS, int(samples)))  # a short run needs no 4096-row chunk
         group = cls(f, run_id)
         group.add_datasets({name: () if k == 0 else (k,) for name, k in cols.items()}, rows)
@@ -181,13 +186,13 @@ class RunGroup:
 
     def datasets(self) -> dict:
         """The run's sample datasets present in its group, by name."""
-        names = list(SAMPLE_DATASETS) + [STATE_DATASET] + list(EXACT_DATASETS)
+        names = [*SAMPLE_DATASETS, STATE_DATASET, *EXACT_DATASETS, *OPTIONAL_DATASETS]
         return {name: self.g[name] for name in names if name in self.g}
 
     def truncate(self, n: int) -> None:
         """Drop samples beyond n (written after the last checkpoint, if any)."""
-        for name in list(SAMPLE_DATASETS) + [STATE_DATASET] + list(EXACT_DATASETS):
-            if name in self.g and self.g[name].shape[0] > n:
+        for name in self.datasets():
+            if self.g[name].shape[0] > n:
                 self.g[name].resize(n, axis=0)
 
     def write_checkpoint(self, parts: dict[str, dict]) -> None:
