@@ -73,14 +73,17 @@ def test_the_count_is_the_grid_worked_out_by_hand(tmp_path):
         ("steps = [1e-13]", "steps[0]: a step of 1e-13 s"),
         ("max_steps = 1e13", "max_steps: at most 1e+12"),
         ("samples = 20000000", "samples: expected a whole number from 2 to 10000000"),
-        # 5e6 samples: 224 bytes each (every dataset of the body form with the exact solution)
-        # is 1120 MB per run in a worker's memory, over the 1 GiB a sweep run may take
-        ("samples = 5000000", "samples: 5000000 samples are 1120 MB"),
+        # 5e6 samples: 232 bytes each (every dataset of the body form with the exact solution
+        # and Kovalevskaya's integral) is 1160 MB per run in a worker's memory, over 1 GiB
+        ("samples = 5000000", "samples: 5000000 samples are 1160 MB"),
         ("horizon = 1e300", "horizon: 1e+300 is outside the range"),
         ("horizon = inf", "horizon: must be a positive finite number"),
         ("rtols = [nan]", "rtols[0]: must be a positive finite number"),
         # each run under 1e12 steps (6.7e11, 5e11, 3.3e11), together over the grid's 1e12
-        ("horizon = 1e6\nsteps = [1.5e-6, 2e-6, 3e-6]", "the grid's fixed-step runs take 1.5e+12"),
+        (
+            "horizon = 1e6\nsamples = 11\nsteps = [1.5e-6, 2e-6, 3e-6]",
+            "the grid's fixed-step runs take 1.5e+12",
+        ),
     ],
 )
 def test_sweep_files_over_a_limit_name_the_file_and_the_key(tmp_path, capsys, extra, says):

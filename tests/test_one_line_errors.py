@@ -52,56 +52,31 @@ def test_pick_numbers_are_range_checked_as_run_checks_them(capsys, extra, says):
     assert says in one_line(capsys)
 
 
-def _baseline(tmp_path, edit) -> Path:
-    text = edit(BASELINE.read_text())
+def _baseline_with(tmp_path, section: str, key: str, value: str) -> Path:
+    """The committed baseline with the first entry of `section` holding `value` at `key`, as
+    JSON text verbatim (json.dumps cannot write 1e400, which is the point)."""
+    data = json.loads(BASELINE.read_text())
+    marker = "@@VALUE@@"
+    next(iter(data[section].values()))[key] = marker
     path = tmp_path / "baseline.json"
-    path.write_text(text)
+    path.write_text(json.dumps(data).replace(f'"{marker}"', value, 1))
     return path
 
 
-def _set_first(key: str, value: str):
-    """Replace the value of the first `"key": number` in the JSON text by `value`, verbatim
-    (json.dumps cannot write 1e400 or NaN, which is the point)."""
-
-    def edit(text: str) -> str:
-        data = json.loads(text)
-        marker = "@@VALUE@@"
-        for section in ("runs", "timings"):
-            for rec in data[section].values():
-                if key in rec:
-                    rec[key] = marker
-                    return json.dumps(data).replace(f'"{marker}"', value, 1)
-        data["calibration"][key] = marker
-        return json.dumps(data).replace(f'"{marker}"', value, 1)
-
-    return edit
-
-
 @pytest.mark.parametrize(
-    ("key", "value", "says"),
+    ("section", "key", "value"),
     [
-        ("energy_rel_max", "1e400", "energy_rel_max: 1e400 is not a finite float64 number"),
-        ("horizon", "1e400", "horizon: 1e400 is not a finite float64 number"),
-        ("steps", "1" + "0" * 30, "steps: 1000000000000000000000000000000 is not"),
-        ("energy_rel_max", "NaN", "energy_rel_max: NaN is not a finite float64 number"),
-        ("ns_per_step_norm", "0", "ns_per_step_norm: unexpected value 0 (expected null or a pos"),
-        ("ns_per_iteration", "0", "calibration: ns_per_iteration: unexpected value 0"),
-        ("spread", "-1", "spread: unexpected value -1"),
-        ("repeats", "0", "repeats: unexpected value 0"),
+        ("runs", "energy_rel_max", "1e400"),  # read as infinity by Python: an OverflowError once
+        ("runs", "steps", "1e400"),
+        ("timings", "ns_per_step_norm", "0"),  # divided by: a ZeroDivisionError once
+        ("timings", "horizon", "1e400"),
     ],
 )
-def test_a_baseline_with_numbers_out_of_range_is_one_line(tmp_path, capsys, key, value, says):
-    path = _baseline(tmp_path, _set_first(key, value))
+def test_a_baseline_with_numbers_out_of_range_is_one_line(tmp_path, capsys, section, key, value):
+    path = _baseline_with(tmp_path, section, key, value)
     assert main(["gate", "--baseline", str(path)]) == 2
     line = one_line(capsys)
-    assert line.startswith(f"topdrift: error: {path}: ") and says in line, line
-
-
-def test_the_committed_baseline_still_reads():
-    from topdrift.benchmarks.gate.baseline_file import read_baseline
-
-    data = read_baseline(BASELINE)
-    assert data["format_version"] == 1 and data["runs"]
+    assert str(path) in line and key in line, line
 
 
 def test_paths_that_are_not_files_are_named_for_what_they_are(tmp_path, capsys):
@@ -110,16 +85,16 @@ def test_paths_that_are_not_files_are_named_for_what_they_are(tmp_path, capsys):
     fifo = tmp_path / "pipe.h5"
     os.mkfifo(fifo)  # opening it would wait for a writer: every command must look first
     assert main(["summary", str(folder)]) == 2
-    assert one_line(capsys) == f"topdrift: error: {folder}: is a directory, not a results file"
+    assert one_line(capsys) == f"topdrift: error: {folder}: is a directory, not a run file"
     assert main(["summary", str(fifo)]) == 2
-    assert "is a named pipe (FIFO), not a results file" in one_line(capsys)
+    assert "is a named pipe (FIFO), not a run file" in one_line(capsys)
     case = write(tmp_path, "top.toml", TOP_TOML)
     run = ["run", str(case), "--method", "leapfrog", "--step", "0.01", "--out", str(fifo)]
     assert main(run) == 2
-    assert "is a named pipe (FIFO), not a results file" in one_line(capsys)
+    assert "is a named pipe (FIFO), not a run file" in one_line(capsys)
     for command in (["plot", str(fifo), "--kind", "drift"], ["report", str(fifo), "--out", "r"]):
         assert main(command) == 2
         assert "is a named pipe (FIFO)" in one_line(capsys)
     assert main(["sweep", "quick", "--out", str(fifo), "--jobs", "1"]) == 2
-    assert "is a named pipe (FIFO), not a results file" in one_line(capsys)
+    assert "is a named pipe (FIFO), not a run file" in one_line(capsys)
     assert not Path("r").exists()

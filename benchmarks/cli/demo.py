@@ -42,11 +42,9 @@ def run(args) -> int:
     from topdrift.benchmarks.cli.describe import render
     from topdrift.benchmarks.run.runner import execute, plan_run
     from topdrift.benchmarks.stopping import Interrupted, deferred
-    from topdrift.benchmarks.store.writer import (
-        FINAL_STATUSES,
-        existing_status,
-        open_writer,
-    )
+    from topdrift.benchmarks.store.format import FINAL_STATUSES
+    from topdrift.benchmarks.store.reader import existing_status
+    from topdrift.benchmarks.store.writer import open_writer
 
     case = load_case(DEMO_CASE)
     out = Path(args.out) if args.out else DEFAULT_OUT
@@ -87,7 +85,7 @@ def run(args) -> int:
 
 def _show(args, case, plans, out) -> int:
     from topdrift.benchmarks.cli.summary import print_table
-    from topdrift.benchmarks.store.writer import list_runs, open_reader
+    from topdrift.benchmarks.store.reader import list_runs, open_reader
 
     ids = [p.run_id for p in plans]
     with open_reader(out) as f:

@@ -80,7 +80,7 @@ def run(args) -> int:
     from topdrift.benchmarks.run.requested import Request, plan_cases, plan_ensembles
     from topdrift.benchmarks.run.stored_runs import decide
     from topdrift.benchmarks.stopping import Interrupted, deferred
-    from topdrift.benchmarks.store.writer import DEFAULT_FILE
+    from topdrift.benchmarks.store.format import DEFAULT_FILE
 
     def say(line: str) -> None:
         sys.stderr.write(line + "\n")

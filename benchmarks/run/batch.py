@@ -18,15 +18,10 @@ from topdrift.benchmarks.run.progress import Progress
 from topdrift.benchmarks.run.runner import FLUSH_EVERY_S, RunResult, execute
 from topdrift.benchmarks.run.stored_runs import RESUME, REUSE, Action
 from topdrift.benchmarks.stopping import StopFlag
+from topdrift.benchmarks.store.failures import NoRoom, file_failure
+from topdrift.benchmarks.store.format import FINAL_STATUSES
 from topdrift.benchmarks.store.replacement import swap_in
-from topdrift.benchmarks.store.writer import (
-    FINAL_STATUSES,
-    NoRoom,
-    close_after_failure,
-    is_write_failure,
-    open_writer,
-    write_reason,
-)
+from topdrift.benchmarks.store.writer import open_writer
 
 # Below this many seconds between two writes of a run's samples, `run --flush-every` warns.
 # Every write rewrites the last, partly filled chunk of each dataset and the checkpoint, so
@@ -121,20 +116,21 @@ def execute_batch(
                     outcome.kept.append(p.run_id)
     except NoRoom:
         raise  # nothing failed to write: the run was stopped before it could
-    except (OSError, RuntimeError) as exc:
-        if not is_write_failure(exc):
+    except (OSError, RuntimeError, KeyError) as exc:
+        # A write that failed (a full disk, a file-size limit, the medium gone) or a part of
+        # the file HDF5 could not read: the run in hand is never marked done (its status is set
+        # only after its samples are flushed).
+        error = file_failure(
+            exc,
+            f,
+            out,
+            in_hand="the run in hand is not marked complete",
+            next_step="go on with --resume",
+        )
+        if error is None:
             raise
-        # A write that failed (a full disk, a file-size limit, the medium gone): the run in
-        # hand is never marked done (its status is set only after its samples are flushed).
-        # HDF5 may not finish its own bookkeeping either, so the file can be left unreadable:
-        # the message says to check it rather than promise a resume.
-        close_after_failure(f)
         f = None
-        raise UserError(
-            f"{out}: cannot write the results ({write_reason(exc)}); the run in hand is "
-            "not marked complete: make room, check the file with `topdrift summary`, "
-            "then go on with --resume"
-        ) from None
+        raise error from None
     finally:
         if f is not None:  # also after a UserError or an interrupt: release the lock
             f.close()

@@ -3,22 +3,10 @@ or, for a reused run, from the stored one (a run a stop did not reach has no row
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 
 from topdrift.benchmarks.run.stored_runs import REUSE
-from topdrift.benchmarks.store.writer import attr_str, open_reader
-
-
-def stored_result(out: Path, run_id: str) -> tuple[str, dict, str]:
-    """(status, metrics, detail) of a run stored in the file."""
-    with open_reader(out) as f:
-        g = f["runs"][run_id]
-        return (
-            attr_str(g, "status"),
-            json.loads(attr_str(g, "metrics") or "{}"),
-            attr_str(g, "detail", "") or "",
-        )
+from topdrift.benchmarks.store.reader import stored_result
 
 
 def result_rows(plans, actions, results, out: Path, say=None) -> list[dict]:

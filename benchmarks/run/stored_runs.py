@@ -15,7 +15,9 @@ from dataclasses import dataclass
 from pathlib import Path
 
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.store.writer import FINAL_STATUSES, REPLACING, RUNS, existing_status
+from topdrift.benchmarks.run.runner import check_resume
+from topdrift.benchmarks.store.format import FINAL_STATUSES, REPLACING, RUNS
+from topdrift.benchmarks.store.reader import existing_status, open_reader
 
 NEW = "new"  # compute from the start
 RESUME = "resume"  # continue from the checkpoint
@@ -41,6 +43,17 @@ def _waiting_note(out: Path, plan, n: int, total: int) -> str:
     )
 
 
+def _checked(plan, out: Path, action: Action) -> Action:
+    """A resume is checked on the file opened for reading, before anything opens it for
+    writing (runner.check_resume: its checkpoint restores exactly, its stored samples are all
+    there), so that a refused resume leaves the file byte for byte as it was. An ensemble keeps
+    no checkpoint and starts over."""
+    if action.kind == RESUME and "ensemble" not in plan.settings:
+        with open_reader(out) as f:
+            check_resume(plan, f, action.parent)
+    return action
+
+
 def decide_one(plan, out: Path, force: bool, resume: bool) -> Action:
     status, n = existing_status(out, plan.run_id)
     left, left_n = existing_status(out, plan.run_id, REPLACING)
@@ -52,14 +65,14 @@ def decide_one(plan, out: Path, force: bool, resume: bool) -> Action:
     if resume and left is not None:
         # The newest attempt is the replacement: continue it (or start it, if it was killed
         # before its first write: nothing was done, so nothing to continue from).
-        return Action(RESUME if startable and left_n > 0 else NEW, REPLACING)
+        return _checked(plan, out, Action(RESUME if startable and left_n > 0 else NEW, REPLACING))
     if status is None:
         return Action(NEW)
     if status in FINAL_STATUSES:
         note = _waiting_note(out, plan, left_n, plan.samples) if left is not None else ""
         return Action(REUSE, note=note)
     if resume:
-        return Action(RESUME if startable and n > 0 else NEW)
+        return _checked(plan, out, Action(RESUME if startable and n > 0 else NEW))
     raise UserError(
         f"{out}: run {plan.run_id} ({plan.case.name}, {plan.method.name}) is {status} at sample "
         f"{n}/{plan.samples}; pass --resume to continue it or --force to start over"

@@ -1,8 +1,8 @@
-"""What a path names, in words, for the messages that refuse one that is not a regular file.
-
-A directory, a named pipe or a device given where a results file is expected is not "no such
-file": it exists, and the message says what it is. Opening a named pipe would also block until
-some other process writes into it, so every reader and writer asks here first.
+"""What a path names, in words, for the messages that refuse one that is not a regular file
+where a command would write one (a figure, a report): a directory, a named pipe or a device is
+not "no such file", it exists, and the message says what it is. Opening a named pipe would also
+block until some other process opened it too, so these writers ask here first. (Run files have
+the reader's own check, reader.check_path.)
 """
 
 from __future__ import annotations
@@ -38,12 +38,3 @@ def kind(path) -> str | None:
         if test(mode):
             return words
     return "not a regular file"
-
-
-def not_a_file(path, what: str = "a results file") -> str | None:
-    """The message for a path that exists but is no regular file, or None (a regular file, or
-    nothing there)."""
-    k = kind(path)
-    if k is None or k == "missing":
-        return None
-    return f"{path}: is {k}, not {what}"

@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import h5py
 
-from topdrift.benchmarks.store.writer import REPLACING, RUNS
+from topdrift.benchmarks.store.format import REPLACING, RUNS
 
 
 def swap_in(f: h5py.File, run_id: str) -> None:

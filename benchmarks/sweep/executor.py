@@ -31,20 +31,23 @@ from topdrift.benchmarks import stopping
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.in_memory import MemoryRun, copy_run, run_in_memory
 from topdrift.benchmarks.stopping import StopFlag
-from topdrift.benchmarks.store.writer import (
-    FINAL_STATUSES,
-    attr_str,
-    close_after_failure,
-    ensure_room,
-    is_write_failure,
-    open_writer,
-    write_reason,
-)
-from topdrift.benchmarks.sweep.grid import expand
-from topdrift.benchmarks.sweep.jobs import Job, plan_job
+from topdrift.benchmarks.store.failures import ensure_room, file_failure
+from topdrift.benchmarks.store.reader import complete_ids
+from topdrift.benchmarks.store.writer import open_writer
+from topdrift.benchmarks.sweep.grid import expand, expand_grid
+from topdrift.benchmarks.sweep.jobs import SKIP_KINDS, Job, Skip, plan_job
 from topdrift.benchmarks.sweep.spec import SweepSpec
 
-__all__ = ["Job", "SweepOutcome", "expand", "run_job", "run_sweep"]
+__all__ = [
+    "SKIP_KINDS",
+    "Job",
+    "Skip",
+    "SweepOutcome",
+    "expand",
+    "expand_grid",
+    "run_job",
+    "run_sweep",
+]
 
 # How often the client looks at the stop flag while it waits for runs, and how long after a
 # stop it still waits for runs about to come back before it ends the workers.
@@ -77,13 +80,6 @@ def run_job(job: Job, stop: StopFlag | None = None) -> MemoryRun:
     if result.run_id != job.run_id:
         raise RuntimeError(f"run id changed on the worker ({result.run_id} != {job.run_id})")
     return result
-
-
-def _complete_ids(f) -> set[str]:
-    runs = f.get("runs")
-    if runs is None:
-        return set()
-    return {rid for rid, g in runs.items() if attr_str(g, "status") in FINAL_STATUSES}
 
 
 def run_sweep(
@@ -122,17 +118,20 @@ def run_sweep(
     outcome = SweepOutcome(grid, skipped)
     try:
         _write_grid(f, out, grid, skipped, outcome, jobs, client, report, stop)
-    except (OSError, RuntimeError) as exc:
-        if not is_write_failure(exc):
+    except (OSError, RuntimeError, KeyError) as exc:
+        # A full disk or a file-size limit while a run was copied in, or a part of the file
+        # HDF5 could not read.
+        error = file_failure(
+            exc,
+            f,
+            out,
+            in_hand="the runs already copied in are kept",
+            next_step="run the same sweep again (complete runs are not run twice)",
+        )
+        if error is None:
             raise
-        # A full disk or a file-size limit while a run was copied in. HDF5 may not finish its
-        # own bookkeeping, so the file can be left unreadable: the message says to check it.
-        close_after_failure(f)
         f = None
-        raise UserError(
-            f"{out}: cannot write the results ({write_reason(exc)}); make room, check the file "
-            "with `topdrift summary`, then run the same sweep again (complete runs are kept)"
-        ) from None
+        raise error from None
     finally:
         try:
             if f is not None:
@@ -148,7 +147,7 @@ def run_sweep(
 
 def _write_grid(f, out, grid, skipped, outcome, jobs, client, report, stop) -> None:
     """Compute the runs not yet complete in the open file f and copy each in as it arrives."""
-    done = _complete_ids(f)
+    done = complete_ids(f)
     todo = [j for j in grid if j.run_id not in done]
     outcome.reused = [j.run_id for j in grid if j.run_id in done]
     outcome.todo = len(todo)

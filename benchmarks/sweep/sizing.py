@@ -12,9 +12,10 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.run.runner import MAX_STEPS
-from topdrift.benchmarks.store.writer import EXACT_DATASETS, SAMPLE_DATASETS
+from topdrift.benchmarks.run.runner import MAX_STEPS, samples_for_horizon
+from topdrift.benchmarks.store.format import EXACT_DATASETS, SAMPLE_DATASETS
 from topdrift.benchmarks.sweep.settings_ladder import step_ladder
+from topdrift.integrators import UnknownMethod
 from topdrift.integrators import get as get_method
 
 # The most grid points one sweep may hold. Planning them takes about a minute, their jobs a
@@ -27,8 +28,8 @@ MAX_GRID_STEPS = MAX_STEPS
 # run into an in-memory HDF5 image and sends it whole to the process that writes the file.
 MAX_RUN_BYTES = 1 << 30
 # Bytes per sample of a run, every dataset included (the body form's 7-wide state, the exact
-# solution): an upper bound whatever the form and case.
-SAMPLE_BYTES = 8 * (sum(max(1, k) for k in SAMPLE_DATASETS.values()) + 7)
+# solution, Kovalevskaya's integral): an upper bound whatever the form and case.
+SAMPLE_BYTES = 8 * (sum(max(1, k) for k in SAMPLE_DATASETS.values()) + 7 + 1)
 SAMPLE_BYTES += 8 * sum(EXACT_DATASETS.values())
 
 
@@ -37,22 +38,32 @@ class MethodPoints:
     """The grid points one method contributes per case: its forms x its settings."""
 
     name: str
-    control: str  # "step" or "tolerance", as MethodInfo.control
+    control: str | None  # "step" or "tolerance", as MethodInfo.control; None: not registered
     forms: list[str] | None  # None: the method's own first form that fits the case
     ladder: list[float] | str  # the steps or rtols, or "auto"
     ladder_key: str  # the sweep-file key the ladder came from, for messages
 
     def count(self, rungs: int) -> int:
+        if self.control is None:
+            return 0  # an unknown method: one Skip per case, no grid point
         settings = rungs if self.ladder == "auto" else len(self.ladder)
         return (len(self.forms) if self.forms else 1) * settings
 
 
-def method_points(spec, label: str) -> list[MethodPoints]:
+def method_points(spec, label: str, *, keep_unknown: bool = False) -> list[MethodPoints]:
     """Each method's forms and ladder, with the per-method overrides, checked for the kind of
-    ladder the method takes. Raises UserError naming the key; reads no case."""
+    ladder the method takes. Raises UserError naming the key, and UnknownMethod for a name not
+    registered (kept as a method of no points with `keep_unknown`, for the gate); reads no
+    case."""
     out = []
     for name in spec.methods:
-        method = get_method(name)
+        try:
+            method = get_method(name)
+        except UnknownMethod:
+            if not keep_unknown:
+                raise
+            out.append(MethodPoints(name, None, None, [], ""))
+            continue
         own = spec.per_method.get(name, {})
         fixed = method.info.control == "step"
         wrong = "rtols" if fixed else "steps"
@@ -87,14 +98,26 @@ def check_count(spec, label: str, methods: list[MethodPoints]) -> int:
     return total
 
 
+def case_extent(spec, case, label: str) -> tuple[float, int]:
+    """A case's horizon and sample count in the sweep: the sweep's own, else the horizon rule of
+    every command (a sweep's horizon keeps the case's sample interval, runner.samples_for_horizon).
+    A horizon that would need too many samples names the sweep file's key."""
+    horizon = spec.horizon if spec.horizon is not None else case.horizon
+    if spec.samples is not None:
+        return horizon, spec.samples
+    try:
+        return horizon, samples_for_horizon(case, horizon)
+    except UserError as exc:
+        raise UserError(f"{label}: horizon: {case.name}: {exc}") from None
+
+
 def check_work(spec, label: str, methods: list[MethodPoints], cases: list) -> None:
     """Steps and memory, from the loaded cases (their horizons, sample counts and start rates):
     a fixed step that would take more than a run's MAX_STEPS, a grid whose fixed-step runs take
     more than MAX_GRID_STEPS in all, or a run whose samples exceed MAX_RUN_BYTES is refused."""
     total = 0.0
     for case in cases:
-        horizon = spec.horizon if spec.horizon is not None else case.horizon
-        samples = spec.samples if spec.samples is not None else case.samples
+        horizon, samples = case_extent(spec, case, label)
         need = float(samples) * SAMPLE_BYTES
         if need > MAX_RUN_BYTES:
             key = "samples" if spec.samples is not None else f"cases: {case.name}: samples"
@@ -104,7 +127,7 @@ def check_work(spec, label: str, methods: list[MethodPoints], cases: list) -> No
                 f"sweep holds each run in memory until it is written); give fewer samples"
             )
         for m in methods:
-            if m.control != "step":
+            if m.control != "step":  # adaptive (steps unknown before the run), or unknown
                 continue
             n_forms = len(m.forms) if m.forms else 1
             if m.ladder == "auto":

@@ -1,6 +1,6 @@
 """One numba kernel for every embedded explicit Runge-Kutta pair with FSAL and dense output.
 
-The method is the packed coefficient table (`rk_packed.py`); the controller is the standard one,
+The method is the packed coefficient table (packed.py); the controller is the standard one,
 written to take the same decisions as scipy.integrate's RK45 / DOP853 (scipy/integrate/_ivp/rk.py)
 so that step sequences can be compared one for one:
 
@@ -31,6 +31,7 @@ from numba import njit
 
 from topdrift.integrators.base import (
     C_EVALS,
+    C_FORCE_EVALS,
     C_REJECTED,
     C_STEPS,
     ST_DIVERGED,
@@ -68,11 +69,9 @@ TL_EXPONENT = 3  # -1 / (error_order + 1)
 N_TOL = 4
 
 
-# Index arithmetic: numba lets a negative index count from the end, so every access whose index
-# it cannot prove non-negative gets a compare-and-select. Clearing the sign bit proves it to
-# LLVM, which then drops those instructions and addresses the four K loads of a block as one
-# base plus constants. Indices here are never negative, so the mask changes no value. Measured
-# on DOP853, body form: 650 -> 510 ns per step from the masks alone (before the packing went dense).
+# Index arithmetic: clearing the sign bit of an index proves to LLVM that it is not negative,
+# which drops numba's wraparound compare-and-select on every access (measured: see
+# docs/design-notes.md). Indices here are never negative, so the mask changes no value.
 NONNEG = 0x3FFF_FFFF_FFFF_FFFF
 
 
@@ -190,12 +189,14 @@ def first_derivative(form, p, y, f, counters):
     """f = rhs(y) at the start of a run, counted like every other evaluation."""
     rhs(form, y, p, f)
     counters[C_EVALS] += 1
+    counters[C_FORCE_EVALS] += 1
 
 
 @njit(cache=True)
 def initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counters):
-    """Hairer's starting step (Hairer, Norsett and Wanner, Solving ODEs I, sec. II.4), in the
-    variant of scipy's select_initial_step: f must hold rhs(y); costs one evaluation."""
+    """Hairer's starting step (Hairer, Norsett and Wanner, Solving ODEs I, sec. II.4) [from
+    memory], in the variant of scipy's select_initial_step: f must hold rhs(y); costs one
+    evaluation."""
     n = y.shape[0]
     d0 = 0.0
     d1 = 0.0
@@ -214,6 +215,7 @@ def initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counter
         ytmp[k] = y[k] + h0 * f[k]
     rhs(form, ytmp, p, ftmp)
     counters[C_EVALS] += 1
+    counters[C_FORCE_EVALS] += 1
     d2 = 0.0
     for k in range(n):
         sc = atol + abs(y[k]) * rtol
@@ -237,6 +239,7 @@ def _build_dense(form, p, a, d, cfg, y, yold, K, ytmp, dense, ctrl, counters):
         combine(n, i, a, i * rows, h, yold, K, ytmp)
         rhs(form, ytmp, p, K[i * n : (i + 1) * n])
         counters[C_EVALS] += 1
+        counters[C_FORCE_EVALS] += 1
     knew = ns * n
     for k in range(n):
         dy = y[k] - yold[k]
@@ -267,16 +270,20 @@ def eval_dense(theta, yold, dense, n_coef, out):
 
 @njit(cache=True)
 def _advance(form, work):
-    (p, a, e, d, cfg, tol, y, f, K, yold, ynew, ytmp, etmp, dense, ctrl, counters, t_out, y_out) = (
-        work
-    )
     """Step while the internal time is below t_out, then write the state at t_out into y_out
     (dense output, or the state itself when a step ends on t_out). Returns a status code; on
     failure y, f, ctrl keep the last good step and y_out is untouched.
 
     `work` holds the arrays in the order unpacked here (see `advance_kernel`). Called from one
     entry per form (below) with `form` a constant, so that numba compiles it once per form, with
-    the rhs switch folded and the model's function inlined into the stage loop."""
+    the rhs switch folded and the model's function inlined into the stage loop.
+
+    One function on purpose: the trial stages, the error norm and the commit read as parts, but
+    as inline helpers they cost 4-18 % per step in reference counting of their array arguments
+    (docs/design-notes.md)."""
+    (p, a, e, d, cfg, tol, y, f, K, yold, ynew, ytmp, etmp, dense, ctrl, counters, t_out, y_out) = (
+        work
+    )
     n = y.shape[0]
     ns = cfg[CFG_N_STAGES]
     err_kind = cfg[CFG_ERR_KIND]
@@ -315,6 +322,7 @@ def _advance(form, work):
                     break
                 rhs(form, ytmp, p, K[i * n : (i + 1) * n])
             counters[C_EVALS] += ns if fsal_in_err else ns - 1
+            counters[C_FORCE_EVALS] += ns if fsal_in_err else ns - 1
             for k in range(n):
                 ynew[k] = ytmp[k]
             # Error norm.
@@ -369,6 +377,7 @@ def _advance(form, work):
         if not fsal_in_err:
             rhs(form, ynew, p, K[knew : knew + n])
             counters[C_EVALS] += 1
+            counters[C_FORCE_EVALS] += 1
         if singular(form, ynew):
             ctrl[CT_H] = h_abs
             return ST_SINGULAR
@@ -408,11 +417,9 @@ def _advance(form, work):
 
 
 # One small entry per form, so that a run compiles only the form it uses: numba compiles a
-# callee for every branch of its caller, and an entry switching on a run-time form compiled both
-# (measured, dop853 with an empty cache, both cores busy: 24 s for the switching entry, 12 s for
-# one form; the single combination site above took it to 7 s). The arrays travel as one tuple
-# because numba cannot inline a call with *args; _advance is a plain call, paid once per
-# advance, not per step.
+# callee for every branch of its caller (compile times in docs/design-notes.md). The arrays
+# travel as one tuple because numba cannot inline a call with *args; _advance is a plain call,
+# paid once per advance, not per step.
 
 
 @njit(cache=True)
