@@ -16,11 +16,19 @@ Two modes, because stopping is safe at any moment except in the middle of a writ
 
 The first signal counts; later ones while a deferred stop is under way are ignored (SIGKILL
 always ends a process, and the file stays readable up to its last flush).
+
+One place may not be interrupted even while nothing is written: numba compiling (or loading) a
+kernel. LLVM calls back into Python there, and an exception raised in such a callback is
+swallowed and leaves numba half way (measured: "no compiled object yet for <Library ...>", a
+crash). So a signal that lands while numba's or llvmlite's code is on the stack is held, and
+looked at again every RECHECK_S (SIGALRM) until the compiler has returned; then it stops the
+command as any other. A cold compile can take seconds; a cached kernel loads in about 0.1 s.
 """
 
 from __future__ import annotations
 
 import contextlib
+import os
 import signal
 import threading
 from dataclasses import dataclass
@@ -99,19 +107,59 @@ def _handlers(handler):
             signal.signal(s, h)
 
 
-def _raise(signum, _frame):
+# Seconds between two looks at a signal held while the compiler runs.
+RECHECK_S = 0.05
+# Source folders of the code a signal must not interrupt (see the module docstring).
+_COMPILER = (f"{os.sep}numba{os.sep}", f"{os.sep}llvmlite{os.sep}")
+_held = {"signum": 0}
+
+
+def _in_compiler(frame) -> bool:
+    while frame is not None:
+        name = frame.f_code.co_filename
+        if any(part in name for part in _COMPILER):
+            return True
+        frame = frame.f_back
+    return False
+
+
+def _raise(signum, frame):
+    if _in_compiler(frame):
+        _held["signum"] = _held["signum"] or signum
+        signal.setitimer(signal.ITIMER_REAL, RECHECK_S)
+        return
+    _held["signum"] = 0
     raise Interrupted(signum)
 
 
+def _recheck(_signum, frame):
+    if _held["signum"]:
+        _raise(_held["signum"], frame)
+
+
+@contextlib.contextmanager
 def raising():
     """Context manager: SIGINT and SIGTERM raise Interrupted (see the module docstring)."""
-    return _handlers(_raise)
+    if not _in_main_thread():
+        yield
+        return
+    old_alarm = signal.signal(signal.SIGALRM, _recheck)
+    try:
+        with _handlers(_raise):
+            yield
+    finally:
+        signal.setitimer(signal.ITIMER_REAL, 0)
+        signal.signal(signal.SIGALRM, old_alarm)
+        _held["signum"] = 0
 
 
 @contextlib.contextmanager
 def deferred(stop: StopFlag | None = None):
     """Context manager yielding a StopFlag that SIGINT and SIGTERM set instead of raising."""
     stop = stop if stop is not None else StopFlag()
+    if _held["signum"]:  # a signal held while the compiler ran: it asks this loop to stop
+        stop.signum = _held["signum"]
+        _held["signum"] = 0
 
     def on_signal(signum, _frame):
         if not stop.requested:

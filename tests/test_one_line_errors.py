@@ -76,7 +76,9 @@ def test_a_baseline_with_numbers_out_of_range_is_one_line(tmp_path, capsys, sect
     path = _baseline_with(tmp_path, section, key, value)
     assert main(["gate", "--baseline", str(path)]) == 2
     line = one_line(capsys)
-    assert str(path) in line and key in line, line
+    # The reader refuses a literal no double holds as it parses (before any key is known), and
+    # names the key of a value out of its range.
+    assert str(path) in line and (value in line if value == "1e400" else key in line), line
 
 
 def test_paths_that_are_not_files_are_named_for_what_they_are(tmp_path, capsys):
