@@ -113,8 +113,8 @@ def _perturbed_s4(monkeypatch, delta: float) -> None:
     moved = (g[0] + delta, g[1] + delta, g[2] - 4 * delta, g[3] + delta, g[4] + delta)
     bad = dataclasses.replace(m.table, coefficients=moved)
     kick, drift = bad.sequence()
-    monkeypatch.setattr(m, "_kick", kick)
-    monkeypatch.setattr(m, "_drift", drift)
+    monkeypatch.setattr(m, "kick_table", kick)
+    monkeypatch.setattr(m, "drift_table", drift)
 
 
 def _energy_order(h: float) -> float:
