@@ -94,10 +94,15 @@ class TopdriftCheck:
         for key, bound in bounds.items():
             metric, what = BOUNDS[key]
             value = m.get(metric)
-            if value is None:
+            if value is None and key == "drift" and m.get("energy_drift_unknown"):
                 broken.append(
-                    f"{key}: {metric} not measured in this run (no exact solution, or the form "
-                    f"has no such quantity), bound {bound:.3g}"
+                    f"{key}: no drift law for this run ({m['energy_drift_unknown']}), bound "
+                    f"{bound:.3g}"
+                )
+            elif value is None:
+                broken.append(
+                    f"{key}: {metric} not measured in this run (no exact solution, the form has "
+                    f"no such quantity, or it is no invariant of this body), bound {bound:.3g}"
                 )
             elif not value <= bound:
                 over = f"{value / bound:.3g} x the bound" if bound > 0 else "bound is 0"

@@ -5,6 +5,7 @@ the models' kernels; knows nothing of cases or files."""
 
 from .base import (
     C_EVALS,
+    C_FORCE_EVALS,
     C_REJECTED,
     C_STEPS,
     GRID_RTOL,
@@ -24,11 +25,20 @@ from .base import (
     whole_steps,
 )
 from .fixed_step import FixedStepMethod, FixedStepStepper
-from .registry import ENTRY_POINT_GROUP, UnknownMethod, all_methods, get, register, unregister
+from .registry import (
+    ENTRY_POINT_GROUP,
+    UnknownMethod,
+    all_methods,
+    get,
+    origin,
+    register,
+    unregister,
+)
 from .validation import Setting, SnapshotRefused
 
 __all__ = [
     "C_EVALS",
+    "C_FORCE_EVALS",
     "C_REJECTED",
     "C_STEPS",
     "N_COUNTERS",
@@ -54,6 +64,7 @@ __all__ = [
     "UnknownMethod",
     "all_methods",
     "get",
+    "origin",
     "register",
     "unregister",
 ]

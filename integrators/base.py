@@ -36,7 +36,11 @@ from topdrift.models.dynamics import singular
 C_STEPS = 0  # accepted steps
 C_REJECTED = 1  # rejected steps (adaptive methods)
 C_EVALS = 2  # right-hand-side evaluations, or sub-flow evaluations for splittings
-N_COUNTERS = 3
+# Force (torque) evaluations: what molecular-dynamics and force-field codes count as cost. Every
+# right-hand-side evaluation of a Runge-Kutta or Gauss-Legendre method evaluates the torque; of
+# a splitting's sub-flows only the kicks do, not the free flows (C_EVALS - C_FORCE_EVALS).
+C_FORCE_EVALS = 3
+N_COUNTERS = 4
 
 # Status codes returned by kernels and steppers.
 ST_OK = 0
@@ -49,6 +53,18 @@ STATUS_NAMES = ("ok", "diverged", "singular", "step-underflow", "no-convergence"
 
 FAMILIES = ("explicit-rk", "adaptive-rk", "splitting", "gauss-legendre", "reference", "external")
 KEEPS = ("energy", "p_phi", "p_psi", "norm")
+
+# What a method keeps, one rule for every family. A claim holds on every body for which the
+# quantity is an invariant (p_psi: I1 = I2 with the centre of mass on axis 3; the others always),
+# after any number of steps, at any step:
+# - "to the bit" (`keeps`, `to_the_bit`): the computed value never changes, not by one ulp;
+# - "to round-off" (`keeps_roundoff`, `to_roundoff`): the method keeps it in exact arithmetic,
+#   and only rounding moves it, by a few units in the last place per step at most (the tests
+#   bound the change by 4 eps per step, relative to |E0|, |L0| or 1).
+# `keeps` and `keeps_roundoff` hold in every form a method runs in; `keeps_by_form` says it per
+# form, where a method may keep more (Gauss-Legendre keeps the energy in the body form only).
+# In the Euler form the norm of the quaternion is 1 by construction (there is no quaternion in
+# the state), so every method keeps it there to the bit.
 
 
 # The step grid. A fixed-step stepper asked for t_end takes k steps of h when (t_end - t) / h is
@@ -114,6 +130,9 @@ class MethodInfo:
     compensated: bool
     description: str
     source: str = ""  # where the coefficients come from
+    keeps_roundoff: tuple[str, ...] = ()  # kept to a few ulps per step in every form (see KEEPS)
+    # form -> (to the bit, to round-off); None: `keeps` and `keeps_roundoff` in every form
+    keeps_by_form: dict | None = None
 
     def __post_init__(self) -> None:
         if self.control not in ("step", "tolerance"):
@@ -121,9 +140,41 @@ class MethodInfo:
         for f in self.forms:
             if f not in FORM_NAMES:
                 raise ValueError(f"{self.name}: unknown form {f!r}")
-        for k in self.keeps:
-            if k not in KEEPS:
-                raise ValueError(f"{self.name}: unknown invariant {k!r} in keeps")
+        for field_name in ("keeps", "keeps_roundoff"):
+            for k in getattr(self, field_name):
+                if k not in KEEPS:
+                    raise ValueError(f"{self.name}: unknown invariant {k!r} in {field_name}")
+        if set(self.keeps) & set(self.keeps_roundoff):
+            raise ValueError(f"{self.name}: an invariant is in both keeps and keeps_roundoff")
+        given = self.keeps_by_form
+        if given is None:
+            given = {f: (self.keeps, self.keeps_roundoff) for f in self.forms}
+        by_form = {}
+        for f in self.forms:
+            if f not in given:
+                raise ValueError(f"{self.name}: keeps_by_form has no entry for form {f!r}")
+            bits, rounded = (tuple(x) for x in given[f])
+            for k in bits + rounded:
+                if k not in KEEPS:
+                    raise ValueError(f"{self.name}: unknown invariant {k!r} in keeps_by_form")
+            # What every form keeps must be what `keeps` and `keeps_roundoff` say, no more and
+            # no less: the contract is one set of claims seen two ways.
+            by_form[f] = (bits, rounded)
+        every_bit = set.intersection(*(set(b) for b, _ in by_form.values())) if by_form else set()
+        every_kept = (
+            set.intersection(*(set(b) | set(r) for b, r in by_form.values())) if by_form else set()
+        )
+        if set(self.keeps) != every_bit or set(self.keeps_roundoff) != every_kept - every_bit:
+            raise ValueError(
+                f"{self.name}: keeps {self.keeps} and keeps_roundoff {self.keeps_roundoff} must be "
+                f"what every form keeps to the bit, and to round-off beyond that, in keeps_by_form"
+            )
+        object.__setattr__(self, "keeps_by_form", by_form)
+
+    def kept_in(self, form: str) -> tuple[str, ...]:
+        """What the method keeps by construction in this form, to the bit or to round-off."""
+        bits, rounded = self.keeps_by_form.get(form, ((), ()))
+        return bits + rounded
 
     def as_json(self) -> dict:
         """The entry of `topdrift methods --json` (every field but `source`)."""
@@ -135,6 +186,11 @@ class MethodInfo:
             "forms": list(self.forms),
             "control": self.control,
             "keeps": list(self.keeps),
+            "keeps_roundoff": list(self.keeps_roundoff),
+            "keeps_by_form": {
+                f: {"to_the_bit": list(b), "to_roundoff": list(r)}
+                for f, (b, r) in self.keeps_by_form.items()
+            },
             "compensated": self.compensated,
             "description": self.description,
         }
@@ -143,7 +199,8 @@ class MethodInfo:
 @dataclass
 class Stepper(ABC):
     """A run in progress: the state `y` at time `t` in form `form` (a FORM_* code), the body's
-    parameter array `params`, the counters (int64, indexed by C_STEPS, C_REJECTED, C_EVALS,
+    parameter array `params`, the counters (int64, indexed by C_STEPS, C_REJECTED, C_EVALS and
+    C_FORCE_EVALS,
     counted by the method's own code, never estimated), and `status`: ST_OK while it runs, else
     the ST_* code of the failure, with `t_fail` the time of the last good state (NaN while ok).
 

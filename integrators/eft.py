@@ -1,7 +1,7 @@
 """Error-free transformations of floating-point sums and products, for kernels that must carry
 the exact rounding error of an operation (T. J. Dekker, "A floating-point technique for
 extending the available precision", Numer. Math. 18 (1971) 224-242; D. E. Knuth, The Art of
-Computer Programming vol. 2, sec. 4.2.2; common practice).
+Computer Programming vol. 2, sec. 4.2.2 [from memory]; common practice).
 
 `fma` is LLVM's fused multiply-add intrinsic: one rounding of a * b + c. It compiles to the
 hardware instruction where there is one and to a correctly rounded library routine where there

@@ -28,6 +28,7 @@ import numpy as np
 
 from topdrift.integrators.base import (
     C_EVALS,
+    C_FORCE_EVALS,
     C_STEPS,
     N_COUNTERS,
     ST_DIVERGED,
@@ -51,7 +52,8 @@ class FixedStepStepper(Stepper):
     """A run of a FixedStepMethod: steps of `h` on the grid t0 + n h, forward only.
 
     Counters: C_STEPS counts the steps that ended in a good state; C_EVALS every call of the
-    right-hand side the step function made, the failed step's included."""
+    right-hand side the step function made, the failed step's included, and C_FORCE_EVALS the
+    same (every call evaluates the torque)."""
 
     def __init__(self, method: FixedStepMethod, form: int, params, t0: float, y0, settings):
         super().__init__(form=form, params=params, t=t0, y=y0)
@@ -73,6 +75,7 @@ class FixedStepStepper(Stepper):
             if y.shape != (size,):
                 raise ValueError(f"f: a state of this form has {size} entries, got {y.shape}")
             counters[C_EVALS] += 1
+            counters[C_FORCE_EVALS] += 1  # the whole right-hand side: the torque too
             dy = np.empty(size)
             rhs(form, y, p, dy)
             return dy

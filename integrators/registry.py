@@ -24,6 +24,10 @@ _BUILTIN_MODULES = (
 )
 
 _methods: dict[str, Method] = {}
+_builtin: set[str] = set()
+# Where each plug-in method came from: (distribution name, version), taken from its entry point
+# when it was loaded from one. Looked up lazily for methods passed to register() by hand.
+_origins: dict[str, tuple[str | None, str | None]] = {}
 _loaded = False
 
 
@@ -61,8 +65,11 @@ def _load_plugins() -> None:
             if callable(obj) and not isinstance(obj, Method):
                 obj = obj()
             items = [obj] if isinstance(obj, Method) else list(obj)
+            dist = getattr(ep, "dist", None)
             for m in items:
                 register(m)
+                if dist is not None:
+                    _origins[m.info.name] = (dist.name, dist.version)
         except Exception as exc:  # a broken plug-in must not take the built-in methods down
             print(
                 f"topdrift: warning: plug-in {ep.name!r} ({ep.value}) not loaded: {exc}",
@@ -78,7 +85,33 @@ def _ensure_loaded() -> None:
     for modname in _BUILTIN_MODULES:
         for m in importlib.import_module(modname).METHODS:
             register(m)
+            _builtin.add(m.info.name)
     _load_plugins()
+
+
+def origin(name: str) -> dict | None:
+    """None for a built-in method; for a plug-in, {"package": distribution name, "version"}
+    (either may be None when no installed distribution owns the method's module). A method
+    that replaced a built-in one under its name counts as a plug-in."""
+    m = get(name)
+    if name in _builtin and type(m).__module__.startswith("topdrift."):
+        return None
+    if name not in _origins:
+        _origins[name] = _owner(type(m).__module__)
+    package, version = _origins[name]
+    return {"package": package, "version": version}
+
+
+def _owner(module: str) -> tuple[str | None, str | None]:
+    from importlib.metadata import PackageNotFoundError, packages_distributions, version
+
+    names = packages_distributions().get(module.split(".")[0]) or []
+    for dist in names:
+        try:
+            return dist, version(dist)
+        except PackageNotFoundError:
+            continue
+    return None, None
 
 
 def all_methods() -> list[Method]:

@@ -1,9 +1,11 @@
-"""Run every built-in compiled method a few steps in both forms (used by test_numba_cache)."""
+"""Run every built-in compiled method a few steps in both forms, and the exact solution's kernels
+(used by test_numba_cache)."""
 
 import numpy as np
 
 from topdrift.integrators import all_methods
-from topdrift.models import RigidBody, body_state, euler_state, form_code
+from topdrift.models import RigidBody, body_state, double_double, euler_state, form_code
+from topdrift.models.exact import LagrangeTop
 from topdrift.models.invariants import N_INVARIANTS, invariants
 
 top = RigidBody(1.0, (0.05, 0.05, 0.02), com=(0.0, 0.0, 0.1))
@@ -22,4 +24,10 @@ for m in all_methods():
         stepper = m.start(code, p, 0.0, y0, settings)
         stepper.advance_to(0.01)
         invariants(code, stepper.y, p, out)
+# the exact solution: a nutating top (phase and angle kernels), a sleeping one (steady kernel)
+times = np.linspace(0.0, 1.0, 5)
+LagrangeTop.from_state(top, "euler", euler_state(top, *start)).sample(times).angles.unfolded()
+sleeping = np.array([1.0, 0.0, 0.0, 0.0, 0.0, 0.0, 2.0])
+LagrangeTop.from_state(top, "body", sleeping).sample(times)
+double_double.remainder((1.0, 0.0, 0.0), (0.0, 0.0), (3.0, 0.0, 0.0), times, 0.0 * times)
 print("workload done")

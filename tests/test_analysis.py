@@ -113,8 +113,8 @@ def test_drift_law_thresholds(p, law):
 
 def test_drift_laws_of_known_growths():
     # Through the runner's own exponent fit: a bounded oscillation, a random walk (its running
-    # maximum grows like sqrt(n), Feller, An Introduction to Probability Theory, vol. 1, ch. III)
-    # and a linear drift must land in their classes.
+    # maximum grows like sqrt(n), Feller, An Introduction to Probability Theory, vol. 1, ch. III,
+    # from memory) and a linear drift must land in their classes.
     t = np.linspace(0.0, 1e4, 20001)
     rng = np.random.default_rng(3)
     walk = np.abs(np.concatenate(([0.0], np.cumsum(rng.standard_normal(t.size - 1)))))

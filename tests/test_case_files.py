@@ -102,8 +102,8 @@ def test_library_bodies_are_the_kinds_they_claim():
 
 
 def _threshold_ratio(case):
-    # Sleeping-top criterion p_psi^2 > 4 I1 M g l (Goldstein, Classical Mechanics, sec. 5.7;
-    # Landau and Lifshitz, Mechanics, sec. 35, problem; from memory).
+    # Sleeping-top criterion p_psi^2 > 4 I1 M g l (Goldstein, Classical Mechanics, sec. 5.7 [from
+    # memory]; Landau and Lifshitz, Mechanics, sec. 35, problem; from memory).
     i1 = case.body.inertia[0]
     p_psi = case.state("body")[6]
     return p_psi**2 / (4 * i1 * case.body.mgl)
@@ -158,14 +158,16 @@ def test_pole_case_passes_within_two_degrees_of_the_vertical():
     _, theta, _, _ = _scipy_motion(case, 0.3)
     theta_min = math.degrees(theta.min())
     assert theta_min < 2.0  # measured: 1.0033 deg
-    # The Euler-angle roots of the cubic f(u) (Goldstein sec. 5.7) give the same turning point.
+    # The Euler-angle roots of the cubic f(u) (Goldstein sec. 5.7) [from memory] give the same
+    # turning point.
     u2 = _cubic_roots(case)[1]
     assert math.degrees(math.acos(u2)) == pytest.approx(theta_min, abs=1e-3)
 
 
 def _cubic_roots(case):
     """Roots of f(u) = (alpha - beta u)(1 - u^2) - (b - a u)^2 (Goldstein, Classical Mechanics,
-    sec. 5.7), from the start's energy and momenta computed here from the Euler rates."""
+    sec. 5.7) [from memory], from the start's energy and momenta computed here from the Euler
+    rates."""
     s = case.start
     i1, _, i3 = case.body.inertia
     mgl = case.body.mgl
@@ -180,7 +182,8 @@ def _cubic_roots(case):
 
 
 def test_looping_case_loops_and_cusped_case_has_cusps():
-    # Looping: phidot = (b - a u) / (1 - u^2) changes sign inside [u1, u2] (Goldstein sec. 5.7).
+    # Looping: phidot = (b - a u) / (1 - u^2) changes sign inside [u1, u2] (Goldstein sec. 5.7)
+    # [from memory].
     loop = load_case("looping-nutation")
     u1, u2, _ = _cubic_roots(loop)
     i1, _, i3 = loop.body.inertia

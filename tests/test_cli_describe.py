@@ -51,7 +51,8 @@ def test_describe_by_name_and_by_path_agree(capsys):
 def test_invariants_match_the_lagrange_formulas(capsys, name):
     # H = I1/2 (thetadot^2 + phidot^2 sin^2) + I3/2 (psidot + phidot cos)^2 + M g l cos theta,
     # p_psi = I3 (psidot + phidot cos theta), p_phi = I1 phidot sin^2 theta + p_psi cos theta
-    # (Goldstein, Classical Mechanics, sec. 5.7), evaluated here from the case's Euler rates.
+    # (Goldstein, Classical Mechanics, sec. 5.7) [from memory], evaluated here from the case's
+    # Euler rates.
     info = _json(capsys, ["describe", name, "--json"])
     i1, _, i3 = info["body"]["inertia"]
     mgl = info["body"]["mass"] * info["body"]["gravity"] * info["body"]["com"][2]
@@ -81,8 +82,8 @@ def test_non_lagrange_case_has_no_exact_motion(capsys):
 
 def _cubic(info):
     """Turning points and nutation period from f(u) = (alpha - beta u)(1 - u^2) - (b - a u)^2
-    (Goldstein, Classical Mechanics, sec. 5.7): roots by numpy, period 2 int du / sqrt(f) by
-    scipy quadrature with the endpoint singularities as weights."""
+    (Goldstein, Classical Mechanics, sec. 5.7) [from memory]: roots by numpy, period 2 int du /
+    sqrt(f) by scipy quadrature with the endpoint singularities as weights."""
     from scipy.integrate import quad
 
     i1, _, i3 = info["body"]["inertia"]

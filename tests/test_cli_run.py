@@ -299,7 +299,7 @@ def test_out_that_is_a_directory_or_not_hdf5_exits_2(tmp_path, capsys):
     case = write_case(tmp_path, "top.toml", TOP_TOML)
     junk = tmp_path / "junk.h5"
     junk.write_text("not hdf5\n")
-    for out, message in ((tmp_path, "is a directory"), (junk, "not a readable HDF5 file")):
+    for out, message in ((tmp_path, "is a directory"), (junk, "not an HDF5 file")):
         rc = cli.main(
             ["run", str(case), "--method", "leapfrog", "--step", "0.01", "--out", str(out)]
         )

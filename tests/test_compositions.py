@@ -3,9 +3,9 @@
 Two independent checks: the closed-form conditions of symmetric compositions of a symmetric
 second-order method (sum gamma = 1 and sum gamma^(2k+1) = 0 for every odd power below the
 order: the coefficients of the generators h^3 X3, h^5 X5, ... of the composed method; Hairer,
-Lubich and Wanner, Geometric Numerical Integration, Sec. V.3.2), and a direct test of all order
-conditions at once: the table run on exp(tA), exp(tB) of random matrices in 40-digit arithmetic
-(mpmath) has local error C h^(p+1) against exp(h(A + B)). Random matrices satisfy no Lie
+Lubich and Wanner, Geometric Numerical Integration, Sec. V.3.2) [from memory], and a direct test of
+all order conditions at once: the table run on exp(tA), exp(tB) of random matrices in 40-digit
+arithmetic (mpmath) has local error C h^(p+1) against exp(h(A + B)). Random matrices satisfy no Lie
 identities of low degree, so a wrong digit in any coefficient leaves a lower power of h.
 """
 
@@ -46,7 +46,7 @@ def test_odd_power_sums_vanish(table):
 
 def test_triple_jump_closed_form():
     # gamma_1 = 1/(2 - 2^(1/3)) = 1.3512071919596578..., gamma_0 = 1 - 2 gamma_1 (from memory,
-    # Yoshida 1990 eq. (5.7)); checked here against the closed form in 40 digits.
+    # Yoshida 1990 eq. (5.7) [from memory]); checked here against the closed form in 40 digits.
     g = triple_jump(4)
     c = mpmath.cbrt(2)
     assert abs(g[0] - float(1 / (2 - c))) < 1e-16

@@ -237,7 +237,7 @@ def test_run_statuses_are_the_documented_ones():
     from pathlib import Path
 
     from topdrift.benchmarks.run.loop import RUN_STATUS, STOPPED, stepper_outcome
-    from topdrift.benchmarks.store.writer import STATUSES
+    from topdrift.benchmarks.store.format import STATUSES
     from topdrift.integrators import ST_FAILED, ST_NO_CONVERGENCE, ST_STEP_UNDERFLOW, STATUS_NAMES
 
     doc = Path(__file__).resolve().parents[1] / "docs" / "run-files.md"

@@ -3,8 +3,9 @@
 - mpmath at 30 digits (mp.dps = 30): roots of the cubic f(u) with mpmath.polyroots, and every
   time and angle by tanh-sinh quadrature of dt = du / sqrt(f(u)), phidot dt and psidot dt over
   u = u1 + (u2 - u1) sin^2(chi), which makes the integrands smooth (Goldstein, Classical
-  Mechanics, sec. 5.7, for f(u) and the rates). It shares no code and no elliptic-function
-  library with the module under test (which uses scipy's Carlson forms and Jacobi functions).
+  Mechanics, sec. 5.7 [from memory], for f(u) and the rates). It shares no code and no
+  elliptic-function library with the module under test (which uses scipy's Carlson forms and Jacobi
+  functions).
 - scipy's DOP853 (solve_ivp, rtol = atol = 1e-13) on the canonical equations of
   topdrift.models.dynamics.rhs, and on the body form where the axis passes the vertical.
 """
@@ -56,14 +57,16 @@ class MpTop:
         beta = 2 * mgl / i1
         a, b = ppsi / i1, pphi / i1
         self.a, self.b, self.i1, self.i3, self.beta, self.ppsi = a, b, i1, i3, beta, ppsi
-        # f(u) = beta u^3 - (alpha + a^2) u^2 + (2 a b - beta) u + (alpha - b^2)
+        # f(u) = beta u^3 - (alpha + a^2) u^2 + (2 a b - beta) u + (alpha - b^2), coefficients
+        # in ascending order (mpmath >= 1.4 deprecates the descending one)
         if beta != 0:
             r = sorted(
                 mp.re(x)
                 for x in mp.polyroots(
-                    [beta, -(alpha + a**2), 2 * a * b - beta, alpha - b**2],
+                    [alpha - b**2, 2 * a * b - beta, -(alpha + a**2), beta],
                     extraprec=200,
                     maxsteps=200,
+                    asc=True,
                 )
             )
             self.u1, self.u2, self.u3 = (r[0], r[1], r[2]) if beta > 0 else (r[1], r[2], r[0])
@@ -71,7 +74,9 @@ class MpTop:
         else:
             r = sorted(
                 mp.re(x)
-                for x in mp.polyroots([-(alpha + a**2), 2 * a * b, alpha - b**2], extraprec=200)
+                for x in mp.polyroots(
+                    [alpha - b**2, 2 * a * b, -(alpha + a**2)], extraprec=200, asc=True
+                )
             )
             self.u1, self.u2 = r
             lead = alpha + a**2

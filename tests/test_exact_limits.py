@@ -30,7 +30,7 @@ def on_vertical(spin, m1=0.0, m2=0.0, up=True):
 
 def steady_rate(theta, w3, slow=True):
     # Steady precession: M g l = phidot (I3 w3 - I1 phidot cos(theta)) (Goldstein, Classical
-    # Mechanics, sec. 5.7), the slow and the fast root.
+    # Mechanics, sec. 5.7) [from memory], the slow and the fast root.
     c = math.cos(theta)
     disc = math.sqrt((I3 * w3) ** 2 - 4.0 * I1 * c * MGL)
     return (I3 * w3 - disc) / (2.0 * I1 * c) if slow else (I3 * w3 + disc) / (2.0 * I1 * c)
@@ -38,8 +38,8 @@ def steady_rate(theta, w3, slow=True):
 
 # --------------------------------------------------------------------------- fast top
 def test_fast_top_limits_and_their_rate():
-    """Released from rest with spin w3 (Goldstein sec. 5.7, the fast top): mean precession
-    -> M g l / (I3 w3), nutation frequency -> I3 w3 / I1, nutation amplitude in u ->
+    """Released from rest with spin w3 (Goldstein sec. 5.7 [from memory], the fast top): mean
+    precession -> M g l / (I3 w3), nutation frequency -> I3 w3 / I1, nutation amplitude in u ->
     beta sin^2(theta0) / a^2 (beta = 2 M g l / I1, a = I3 w3 / I1).
 
     The relative errors are series in eps = beta / a^2. Their leading terms, worked out here
@@ -76,8 +76,8 @@ def test_fast_top_limits_and_their_rate():
 
 # --------------------------------------------------------------------------- sleeping top
 def test_sleeping_threshold():
-    """A top spinning on the vertical is stable when p_psi^2 > 4 I1 M g l (Goldstein sec. 5.7,
-    the sleeping top: w3^2 > 4 I1 M g l / I3^2)."""
+    """A top spinning on the vertical is stable when p_psi^2 > 4 I1 M g l (Goldstein sec. 5.7 [from
+    memory], the sleeping top: w3^2 > 4 I1 M g l / I3^2)."""
     w_crit = math.sqrt(4.0 * I1 * MGL) / I3
     fast = LagrangeTop.from_state(TOP, FORM_BODY, on_vertical(1.1 * w_crit))
     slow = LagrangeTop.from_state(TOP, FORM_BODY, on_vertical(0.9 * w_crit))
@@ -132,7 +132,7 @@ def test_classification_of_built_starts():
     theta, w3 = 0.9, 60.0
     rate = steady_rate(theta, w3)
     # Released with spin and no precession: cusps at the upper turning point (Goldstein
-    # sec. 5.7, the usual way a top is started).
+    # sec. 5.7 [from memory], the usual way a top is started).
     cusps = exact(TOP, 0.0, theta, 0.0, 0.0, 0.0, w3)
     assert cusps.motion == "cusps" and cusps.theta_min == pytest.approx(theta, abs=1e-15)
     # Started against the mean precession: phidot changes sign, loops.
@@ -167,7 +167,7 @@ def test_cusp_points_have_zero_precession_rate():
 
 def test_free_top_cone_rate():
     """Free symmetric top: the figure axis turns about L at |L| / I1 (Landau and Lifshitz,
-    Mechanics, sec. 33), so theta oscillates with period 2 pi I1 / |L|."""
+    Mechanics, sec. 33) [from memory], so theta oscillates with period 2 pi I1 / |L|."""
     yb = body_state(FREE, 0.3, 0.9, -0.2, 3.0, 1.5, 60.0)
     top = LagrangeTop.from_state(FREE, FORM_BODY, yb)
     big_l = float(np.linalg.norm(yb[4:]))

@@ -38,7 +38,9 @@ def matrix(phi, theta, psi):
 
 
 def quat_matrix(q):
-    # Standard rotation matrix of a unit quaternion (common practice; e.g. Shuster 1993, eq. 159).
+    # Body-to-space rotation matrix of a unit quaternion, scalar first (common practice): the
+    # transpose of the attitude matrix A(q) of Shuster 1993, A Survey of Attitude
+    # Representations, eq. 159, which maps space to body with the scalar last (both from memory).
     q0, q1, q2, q3 = q
     return np.array(
         [
@@ -96,9 +98,9 @@ def test_round_trips(a, r):
 @settings(max_examples=200, deadline=None)
 @given(angles, rates)
 def test_hamiltonian_equals_kinetic_plus_potential(a, r):
-    # Lagrangian of the symmetric heavy top (Goldstein, Classical Mechanics, eq. 5.63 and sec. 5.7):
-    # T = I1/2 (thetadot^2 + phidot^2 sin^2 theta) + I3/2 (psidot + phidot cos theta)^2,
-    # V = M g l cos theta.
+    # Lagrangian of the symmetric heavy top (Goldstein, Classical Mechanics, eq. 5.63 and sec. 5.7)
+    # [from memory]: T = I1/2 (thetadot^2 + phidot^2 sin^2 theta) + I3/2 (psidot + phidot cos
+    # theta)^2, V = M g l cos theta.
     phi, theta, psi = a
     phidot, thetadot, psidot = r
     i1, _, i3 = TOP.inertia
@@ -111,7 +113,8 @@ def test_hamiltonian_equals_kinetic_plus_potential(a, r):
     p = TOP.params()
     assert invariants_of(FORM_EULER, ye, p)["energy"] == pytest.approx(e, rel=1e-12, abs=1e-12)
     assert invariants_of(FORM_BODY, yb, p)["energy"] == pytest.approx(e, rel=1e-12, abs=1e-12)
-    # p_phi = I1 phidot sin^2 theta + p_psi cos theta, p_psi = I3 w3 (Goldstein eq. 5.64-5.65).
+    # p_phi = I1 phidot sin^2 theta + p_psi cos theta, p_psi = I3 w3 (Goldstein eq. 5.64-5.65)
+    # [from memory].
     p_psi = i3 * (psidot + phidot * math.cos(theta))
     p_phi = i1 * phidot * math.sin(theta) ** 2 + p_psi * math.cos(theta)
     inv = invariants_of(FORM_BODY, yb, p)

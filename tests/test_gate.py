@@ -44,9 +44,11 @@ WIDE = ["--time-band", "100"]
 
 
 def _shrink_timings(mp: pytest.MonkeyPatch) -> None:
+    # 5 rounds: the fewest for which a 95 % interval of a timing change exists is 4 and 4.
     mp.setattr(grid_measure, "TIMING_TARGET_S", 0.003)
-    mp.setattr(grid_measure, "TIMING_REPEATS", 2)
-    mp.setattr(grid_measure, "ITERATIONS", 20_000)
+    mp.setattr(grid_measure, "TIMING_ROUNDS", 5)
+    mp.setattr(grid_measure, "SCALAR_STEPS", 20_000)
+    mp.setattr(grid_measure, "STAGES_STEPS", 20_000)
 
 
 @pytest.fixture(autouse=True)
@@ -70,7 +72,7 @@ def recorded(tmp_path_factory):
 def test_baseline_file_holds_the_contract(recorded):
     path, _ = recorded
     data = read_baseline(path)
-    assert data["format"] == "topdrift-baseline" and data["format_version"] == 1
+    assert data["format"] == "topdrift-baseline" and data["format_version"] == 2
     assert set(data["runs"]) == {
         S4_KEY,
         RK45_KEY,
@@ -106,7 +108,7 @@ def _perturbed_s4(monkeypatch, delta: float) -> None:
     """Move the outer four weights of leapfrog-s4's composition by delta and the middle one by
     -4 delta: still symmetric and consistent (weights sum to 1), so still order 2, but the
     order-4 condition sum(gamma^3) = 0 no longer holds (Yoshida, Phys. Lett. A 150 (1990) 262;
-    Hairer, Lubich and Wanner, Geometric Numerical Integration, Sec. II.4)."""
+    Hairer, Lubich and Wanner, Geometric Numerical Integration, Sec. II.4) [from memory]."""
     m = get("leapfrog-s4")
     g = m.table.coefficients
     assert len(g) == 5
@@ -251,8 +253,8 @@ def _edited(recorded, tmp_path, edit) -> str:
     [
         (lambda d: d.update(extra=1), "unknown key 'extra'"),
         (lambda d: d["runs"][S4_KEY].update(colour="red"), "unknown key 'colour'"),
-        (lambda d: d.update(format_version=2), "format_version"),
-        (lambda d: d.pop("calibration"), "calibration: missing"),
+        (lambda d: d.update(format_version=3), "format_version"),
+        (lambda d: d.pop("reference"), "reference: missing"),
         (lambda d: d["runs"][S4_KEY].update(steps="many"), "steps: unexpected value"),
         (lambda d: d["timings"]["rk45 body"].update(run="nowhere"), "'nowhere' is not in runs"),
     ],
@@ -324,8 +326,17 @@ def test_status_and_counts(pair):
     assert k == {(RK45_KEY, "status"): "regression"}  # compared no further
 
 
+def _tight_rounds(*records) -> None:
+    """Rounds spread by +-1 %: a timing the band can judge, whatever the machine did while the
+    fixture was recorded (the spread rule has its own test, test_gate_timing.py)."""
+    for r in records:
+        r["per_round"] = [0.99, 1.0, 1.01, 0.995, 1.005]
+        r["rounds"] = 5
+
+
 def test_timing_band(pair):
     base, now = pair
+    _tight_rounds(base["timings"]["rk45 body"], now["timings"]["rk45 body"])
     x = base["timings"]["rk45 body"]["ns_per_step_norm"]
     now["timings"]["rk45 body"]["ns_per_step_norm"] = x * 1.3
     assert _kinds(compare(base, now, Thresholds(time_band=0.35))) == {}
@@ -373,3 +384,48 @@ def test_changed_sweep_and_run_id_are_noted_not_failed(pair):
     assert not r.failed
     assert _kinds(r) == {(S4_KEY, "run_id"): "note"}
     assert any("changed since the baseline was recorded" in n for n in r.notes)
+
+
+KOV_SWEEP = """
+name = "kov"
+description = "a Kovalevskaya top through the gate: its integral is measured and gated"
+cases = ["kovalevskaya"]
+methods = ["leapfrog-s4"]
+horizon = 1.0
+samples = 11
+steps = [0.005]
+"""
+
+
+def test_the_kovalevskaya_integral_and_force_evaluations_are_gated(tmp_path, command_line):
+    sweep = tmp_path / "kov.toml"
+    sweep.write_text(KOV_SWEEP, encoding="utf-8")
+    out = tmp_path / "baseline.json"
+    assert main(["baseline", "--out", str(out), "--sweep", str(sweep)]) == 0
+    data = json.loads(out.read_text())
+    (key,) = data["runs"]
+    rec = data["runs"][key]
+    assert rec["kovalevskaya_rel_max"] > 0 and rec["p_psi_rel_max"] is None
+    assert rec["force_evals"] == 5 * 200 + 10  # 5 kicks a step, one closing kick per sample
+    rc, text, _ = command_line("gate", "--baseline", out, *WIDE)
+    assert rc == 0, text
+    # A baseline whose integral was 100 times smaller, and one that counted fewer kicks: both
+    # are regressions of this run, named by metric.
+    for name, value in (
+        ("kovalevskaya_rel_max", rec["kovalevskaya_rel_max"] / 100),
+        ("force_evals", rec["force_evals"] // 2),
+    ):
+        tampered = copy.deepcopy(data)
+        tampered["runs"][key][name] = value
+        path = tmp_path / f"{name}.json"
+        path.write_text(json.dumps(tampered), encoding="utf-8")
+        rc, text, _ = command_line("gate", "--baseline", path, *WIDE)
+        assert rc == 1 and key in text and name in text, text
+    # A baseline from before these keys is still read, and compared without them.
+    older = copy.deepcopy(data)
+    for name in ("kovalevskaya_rel_max", "force_evals"):
+        del older["runs"][key][name]
+    path = tmp_path / "older.json"
+    path.write_text(json.dumps(older), encoding="utf-8")
+    rc, text, _ = command_line("gate", "--baseline", path, *WIDE)
+    assert rc == 0, text

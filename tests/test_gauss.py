@@ -8,6 +8,7 @@ import mpmath
 import numpy as np
 import pytest
 from demo_bodies import CASE_IDS, CASES, GENERAL, LAGRANGE, state
+from independent_references import attitude_error, exact_attitude, taylor_states
 from run_files import through_hdf5
 from scipy_reference import dop853
 
@@ -26,6 +27,7 @@ from topdrift.integrators.gauss.tableau import GAUSS2, GAUSS3, Tableau
 from topdrift.models import FORM_BODY, FORM_EULER, body_state
 from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 from topdrift.models.dynamics import rhs
+from topdrift.models.exact import LagrangeTop
 from topdrift.models.invariants import invariants_of
 
 
@@ -53,7 +55,7 @@ def test_tableau_is_gauss_legendre_collocation(table):
     np.testing.assert_allclose(tab.c, (x + 1.0) / 2.0, rtol=0, atol=1e-15)
     np.testing.assert_allclose(tab.b, w / 2.0, rtol=0, atol=1e-15)
     # Collocation conditions C(s): sum_j a_ij c_j^(k-1) = c_i^k / k, k = 1..s, which define A
-    # (Hairer and Wanner, Solving ODEs II, sec. IV.5).
+    # (Hairer and Wanner, Solving ODEs II, sec. IV.5) [from memory].
     c = (x + 1.0) / 2.0
     k = np.arange(1, s + 1)
     m = c[:, None] ** (k[None, :] - 1)
@@ -66,10 +68,10 @@ def test_tableau_is_gauss_legendre_collocation(table):
 @pytest.mark.parametrize("table", [GAUSS2, GAUSS3], ids=["2 stages", "3 stages"])
 def test_float_tableau_is_exactly_symplectic(table):
     # The condition b_i a_ij + b_j a_ji = b_i b_j (Sanz-Serna 1988; Hairer, Lubich, Wanner, GNI
-    # Theorem VI.4.3) must hold for the doubles themselves, checked in rational arithmetic: a
-    # defect of 1e-17 (what correctly rounded tables have) is a systematic energy change every
-    # step (Hairer, McLachlan, Razakarivony, BIT 48 (2008) 231-243, from memory). The doubles
-    # must still be the table's values to a few units in the last place (mpmath, 40 digits).
+    # Theorem VI.4.3) [from memory] must hold for the doubles themselves, checked in rational
+    # arithmetic: a defect of 1e-17 (what correctly rounded tables have) is a systematic energy
+    # change every step (Hairer, McLachlan, Razakarivony, BIT 48 (2008) 231-243, from memory). The
+    # doubles must still be the table's values to a few units in the last place (mpmath, 40 digits).
     # The ulp bounds are this construction's own (integrators/gauss_tableau.py), not published.
     import mpmath as mp
 
@@ -115,7 +117,7 @@ def test_extrapolation_matrix_reproduces_the_collocation_polynomial(table):
 # (1/sin^3 theta) have modest higher derivatives, so that steps of 0.2 s are already asymptotic.
 ORDER_START = (0.0, 1.0, 0.0, 0.3, 0.5, 5.0)
 # Step counts over one decade for 2 s, every one a multiple of the 5 sample times; errors run
-# from about 1e-3 to 1e-12, above the reference's own error (about 1e-13).
+# from about 1e-3 to 1e-12, above the references' own errors (a few ulps).
 ORDER_STEPS = np.array([10, 20, 30, 50, 70, 100])
 ORDER_TIMES = np.linspace(0.4, 2.0, 5)
 
@@ -123,17 +125,29 @@ ORDER_TIMES = np.linspace(0.4, 2.0, 5)
 @pytest.mark.parametrize("form,body", CASES, ids=CASE_IDS)
 @pytest.mark.parametrize("name,order", [("gauss4", 4), ("gauss6", 6)])
 def test_measured_order(name, order, form, body):
-    # Global error: the largest component error over the sample times, against scipy.
+    # Global error: the largest error over the sample times against a reference of no method
+    # family (tests/independent_references.py): the exact solution of the Lagrange top in the
+    # Euler form (compared in the angles), a 34-digit Taylor series for the general body.
     y0 = state(form, body, ORDER_START)
-    ref = scipy_reference(form, body, y0, ORDER_TIMES)
+    if body.lagrange_top:
+        angles = exact_attitude(LagrangeTop.from_state(body, form, y0), ORDER_TIMES)
+
+        def error(y, k):
+            return attitude_error(form, y, angles[k])
+    else:
+        ref = taylor_states(body, y0, ORDER_TIMES)
+
+        def error(y, k):
+            return float(np.max(np.abs(y - ref[k])))
+
     t_end = ORDER_TIMES[-1]
     errors = []
     for n in ORDER_STEPS:
         st = get(name).start(form, body.params(), 0.0, y0, {"step": t_end / n})
         worst = 0.0
-        for t, r in zip(ORDER_TIMES, ref, strict=True):
+        for k, t in enumerate(ORDER_TIMES):
             assert st.advance_to(t) == ST_OK
-            worst = max(worst, np.max(np.abs(st.y - r)))
+            worst = max(worst, error(st.y, k))
         assert st.counters[C_STEPS] == n
         errors.append(worst)
     slope = np.polyfit(np.log(t_end / ORDER_STEPS), np.log(errors), 1)[0]
@@ -196,8 +210,8 @@ def test_body_form_keeps_p_psi_of_a_symmetric_top():
 
 def test_euler_form_energy_error_stays_bounded():
     # Energy is not polynomial in theta and is not kept, but a symplectic method's energy error
-    # stays bounded over long times (Hairer, Lubich, Wanner, GNI ch. IX): the last tenth of 10^5
-    # steps is no worse than twice the first tenth.
+    # stays bounded over long times (Hairer, Lubich, Wanner, GNI ch. IX) [from memory]: the last
+    # tenth of 10^5 steps is no worse than twice the first tenth.
     p = LAGRANGE.params()
     y0 = state(FORM_EULER, LAGRANGE)
     e0 = invariants_of(FORM_EULER, y0, p)["energy"]
@@ -217,8 +231,8 @@ def test_euler_form_energy_error_stays_bounded():
 @pytest.mark.parametrize("form,body", CASES, ids=CASE_IDS)
 @pytest.mark.parametrize("name", ["gauss4", "gauss6"])
 def test_time_reversible(name, form, body):
-    # Gauss methods are symmetric (Hairer, Lubich, Wanner, GNI sec. V.2): N steps forward and N
-    # back return to the start up to the round-off of the stage solves.
+    # Gauss methods are symmetric (Hairer, Lubich, Wanner, GNI sec. V.2) [from memory]: N steps
+    # forward and N back return to the start up to the round-off of the stage solves.
     y0 = state(form, body)
     st = get(name).start(form, body.params(), 0.0, y0, {"step": 0.01})
     assert st.advance_to(10.0) == ST_OK
@@ -266,8 +280,8 @@ def _one_step_jacobian(a, b, c, h, y0, p, delta=1e-5):
     return jac
 
 
-# Radau IIA with two stages (Hairer and Wanner, Solving ODEs II, Table IV.5.5): a collocation
-# method too, but not symplectic. It shows that the check below can fail.
+# Radau IIA with two stages (Hairer and Wanner, Solving ODEs II, Table IV.5.5) [from memory]: a
+# collocation method too, but not symplectic. It shows that the check below can fail.
 RADAU2 = (
     np.array([5.0 / 12.0, -1.0 / 12.0, 3.0 / 4.0, 1.0 / 4.0]),
     np.array([3.0 / 4.0, 1.0 / 4.0]),
@@ -285,8 +299,9 @@ def _symplecticity_defect(a, b, c):
 
 @pytest.mark.parametrize("table", [GAUSS2, GAUSS3], ids=["2 stages", "3 stages"])
 def test_symplectic_in_canonical_variables(table):
-    # M^T J M = J for the Jacobian M of one step (Hairer, Lubich, Wanner, GNI sec. VI.4): the
-    # canonical variables (phi, theta, psi; p_phi, p_theta, p_psi) make J the standard one.
+    # M^T J M = J for the Jacobian M of one step (Hairer, Lubich, Wanner, GNI sec. VI.4) [from
+    # memory]: the canonical variables (phi, theta, psi; p_phi, p_theta, p_psi) make J the standard
+    # one.
     tab = Tableau(table)
     assert _symplecticity_defect(tab.a, tab.b, tab.c) < 1e-7
     assert _symplecticity_defect(*RADAU2) > 1e-5
@@ -299,8 +314,9 @@ def test_symplectic_in_canonical_variables(table):
 def test_compensated_summation_slows_round_off_growth(name):
     # Body form: energy is a quadratic first integral, so at a tiny step its error is pure
     # round-off. Adding the small update with Kahan's compensated summation removes the rounding
-    # of y_n + increment that dominates it (Hairer, Lubich, Wanner, GNI sec. VIII.5). Six starts,
-    # 10^5 steps each; the RMS energy error must be at least ten times smaller for most of them.
+    # of y_n + increment that dominates it (Hairer, Lubich, Wanner, GNI sec. VIII.5) [from memory].
+    # Six starts, 10^5 steps each; the RMS energy error must be at least ten times smaller for most
+    # of them.
     p = GENERAL.params()
     ratios = []
     for k in range(6):
@@ -416,7 +432,10 @@ def test_registry_metadata():
         assert info.compensated == comp
         assert info.control == "step"
         assert set(info.forms) == {"euler", "body"}
-        assert info.keeps == ("p_psi", "norm")
+        assert info.keeps == ()
+        assert info.keeps_roundoff == ("p_psi", "norm")
+        assert info.kept_in("body") == ("energy", "norm", "p_psi")
+        assert info.kept_in("euler") == ("p_phi", "p_psi", "norm")
 
 
 @pytest.mark.parametrize("form,body", CASES, ids=CASE_IDS)

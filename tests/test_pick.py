@@ -28,8 +28,9 @@ def cases(tmp_path):
 
 
 def rotation(q):
-    """Body-to-space rotation matrix of a unit quaternion, scalar first (common practice; e.g.
-    Shuster 1993, A Survey of Attitude Representations, eq. 159, transposed for body to space)."""
+    """Body-to-space rotation matrix of a unit quaternion, scalar first (common practice): the
+    transpose of the attitude matrix A(q) of Shuster 1993, A Survey of Attitude Representations,
+    eq. 159, which maps space to body with the scalar last (both from memory)."""
     q0, q1, q2, q3 = q
     a, b, c, d = q0 * q0, q1 * q1, q2 * q2, q3 * q3
     return np.array(
@@ -44,7 +45,7 @@ def rotation(q):
 def scipy_axes(case_path, horizon, samples):
     """The figure axis R e3 at the sample times, from scipy's DOP853 at rtol 1e-12 on the
     Euler-Poisson equations with a quaternion (Goldstein, Classical Mechanics, sec. 5.6 and 4.9
-    for the equations; the quaternion rate q' = q (0, w) / 2 is common practice)."""
+    [from memory] for the equations; the quaternion rate q' = q (0, w) / 2 is common practice)."""
     case = parse_case(case_path.read_text(), case_path.name)
     body = case.body
     inertia = np.array(body.inertia)
@@ -176,6 +177,7 @@ def test_text_output_names_the_winner(command_line, cases):
         "setting",
         "wall",
         "s",
+        "forces",
         "evals",
         "achieved",
         "margin",

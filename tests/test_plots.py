@@ -19,7 +19,7 @@ from topdrift.benchmarks.choose import plots
 from topdrift.benchmarks.cli.entry import main
 from topdrift.benchmarks.store.reader import load_records
 
-PNG_MAGIC = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), section 5.2
+PNG_MAGIC = b"\x89PNG\r\n\x1a\n"  # PNG specification (ISO/IEC 15948), section 5.2 [from memory]
 
 
 def digest(path):
@@ -120,7 +120,7 @@ def test_real_short_runs_plot_and_report(tmp_path, capsys):
     md = (out / "report.md").read_text()
     # A symplectic method keeps the energy error bounded, a non-symplectic Runge-Kutta method
     # drifts linearly (Hairer, Lubich and Wanner, Geometric Numerical Integration, 2nd ed.,
-    # ch. I.1 and IX.8).
+    # ch. I.1 and IX.8 [from memory]).
     assert re.search(r"\| leapfrog \| h=0\.002 \| ok \|.*\| bounded", md)
     assert len(re.findall(r"\| rk4 \| h=0\.00\d+ \| ok \|.*\| linear \|", md)) == 2
     assert "Cheapest method per target error" in md
@@ -219,7 +219,7 @@ def bad_files(tmp_path):
     [
         ("missing", ["--kind", "drift"], "does not exist"),
         ("text", ["--kind", "drift"], "not an HDF5 file"),
-        ("other", ["--kind", "drift"], "not a topdrift runs file"),
+        ("other", ["--kind", "drift"], "not a topdrift run store"),
         ("newer", ["--kind", "drift"], "format_version 99"),
         ("empty", ["--kind", "drift"], "holds no runs"),
         ("store", ["--kind", "drift"], "several cases"),

@@ -12,8 +12,8 @@ from run_files import topdrift_cmd
 from topdrift.integrators import Method, MethodInfo, Stepper, all_methods, get, register
 
 # A tiny outside method: the explicit midpoint rule (second order; a standard textbook method,
-# e.g. Hairer, Norsett and Wanner, Solving ODEs I, sec. II.1), written in plain Python on the
-# models' right-hand side, as a third party would.
+# e.g. Hairer, Norsett and Wanner, Solving ODEs I, sec. II.1) [from memory], written in plain
+# Python on the models' right-hand side, as a third party would.
 PLUGIN = textwrap.dedent("""
     import numpy as np
     from dataclasses import dataclass

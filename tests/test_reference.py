@@ -58,6 +58,7 @@ def test_registry_metadata():
         assert info.control == "tolerance"
         assert set(info.forms) == {"euler", "body"}
         assert not info.symplectic and info.keeps == ()
+        assert info.keeps_roundoff == ("p_psi",)
 
 
 @pytest.mark.parametrize("form,body", CASES, ids=CASE_IDS)

@@ -77,10 +77,10 @@ def test_dop853_table_matches_scipy():
 
 @pytest.mark.parametrize("tab", [DP5, DOP853], ids=lambda t: t.name)
 def test_order_conditions(tab):
-    # Independent of any library: row sums of A equal c (HNW I, sec. II.1, eq. (1.9)); the
-    # "bushy tree" conditions sum b_i c_i^(k-1) = 1/k for k = 1..order and sum b_i a_ij c_j
-    # = 1/6 (HNW I, sec. II.2, Table 2.2); both error estimates weigh stages summing to 0, so
-    # that they vanish on constant right-hand sides.
+    # Independent of any library: row sums of A equal c (HNW I, sec. II.1, eq. (1.9) [from
+    # memory]); the "bushy tree" conditions sum b_i c_i^(k-1) = 1/k for k = 1..order and sum b_i
+    # a_ij c_j = 1/6 (HNW I, sec. II.2, Table 2.2) [from memory]; both error estimates weigh stages
+    # summing to 0, so that they vanish on constant right-hand sides.
     rows = tab.a.shape[0]
     np.testing.assert_allclose(tab.a.sum(axis=1), tab.c[:rows], rtol=0, atol=1e-14)
     ns = tab.n_stages
@@ -101,7 +101,11 @@ def test_metadata():
         assert info.forms == ("body", "euler")
         assert info.control == "tolerance"
         assert not info.symplectic and not info.compensated
-        assert info.keeps == ()
+        assert info.keeps == () and info.keeps_roundoff == ("p_psi",)
+        assert info.keeps_by_form == {
+            "euler": (("p_phi", "p_psi", "norm"), ()),
+            "body": ((), ("p_psi",)),
+        }
         assert "Dormand" in info.source
 
 
@@ -182,7 +186,7 @@ def test_default_first_step_and_dense_output_match_scipy(name, cls):
 
 @pytest.mark.parametrize("name", ["rk45", "dop853"])
 def test_error_falls_in_proportion_to_tolerance(name):
-    # Tolerance proportionality of local-extrapolation codes (HNW I, sec. II.4, common
+    # Tolerance proportionality of local-extrapolation codes (HNW I, sec. II.4 [from memory], common
     # practice): over four decades of rtol the global error falls at every step, and the
     # fitted log-log slope is close to 1.
     t_end = 2.0
@@ -263,9 +267,9 @@ def test_snapshot_restore_continues_to_identical_bits(name):
 @pytest.mark.parametrize("name", ["rk45", "dop853"])
 def test_energy_drifts_secularly(name):
     # Explicit RK is not symplectic: over a long run the energy error is a trend, not a bounded
-    # oscillation (HNW I, sec. II.16 and Hairer, Lubich and Wanner, Geometric Numerical
-    # Integration, ch. I; common practice). The fitted drift over the run is many times the
-    # scatter about the fitted line.
+    # oscillation (HNW I, sec. II.16 [from memory] and Hairer, Lubich and Wanner, Geometric
+    # Numerical Integration, ch. I [from memory]; common practice). The fitted drift over the run
+    # is many times the scatter about the fitted line.
     settings = {"rtol": 1e-6, "atol": 1e-9}
     ts = np.linspace(0.0, 100.0, 201)[1:]
     drift, scatter, last = fast_top_energy_trend(name, settings, ts)
@@ -275,11 +279,12 @@ def test_energy_drifts_secularly(name):
 
 @pytest.mark.parametrize("name", ["rk45", "dop853"])
 def test_linear_invariants_in_the_euler_form_only(name):
-    # Why `keeps` is empty. In the Euler form p_phi and p_psi have an identically zero
-    # derivative, so every stage adds exactly 0.0 and they never change. In the body form the
-    # spin momentum m3 of the same symmetric top has the derivative m1 w2 - m2 w1, which rounds
-    # to nonzero (checked below on a tumbling start, where m1, m2 are as large as m3), so m3 is
-    # kept only to round-off that accumulates, not by construction.
+    # Why p_psi is kept to the bit in the Euler form and only to round-off in the body form
+    # (`keeps_by_form`). In the Euler form p_phi and p_psi have an identically zero derivative,
+    # so every stage adds exactly 0.0 and they never change. In the body form the spin momentum
+    # m3 of the same symmetric top has the derivative m1 w2 - m2 w1, which rounds to nonzero
+    # (checked below on a tumbling start, where m1, m2 are as large as m3), so m3 moves by
+    # round-off, not by truncation error.
     settings = {"rtol": 1e-6, "atol": 1e-9}
     y0 = y_start(FORM_EULER)
     st = get(name).start(FORM_EULER, P, 0.0, y0, settings)
@@ -296,14 +301,16 @@ def test_counters_are_the_kernels():
     # rk45 evaluates 6 new stages per attempt (FSAL), plus 2 to start (f0 and the starting step).
     st = get("rk45").start(FORM_BODY, P, 0.0, y_start(FORM_BODY), {"rtol": 1e-6, "atol": 1e-9})
     st.advance_to(1.0)
-    steps, rejected, evals = (int(v) for v in st.counters)
+    steps, rejected, evals, forces = (int(v) for v in st.counters)
     assert evals == 2 + 6 * (steps + rejected) + 0  # the end fell on a step or dense output
+    assert forces == evals  # every stage evaluates the torque
     # dop853 evaluates its FSAL stage after acceptance (11 + 1 per accepted step, 11 per
     # rejected) and its 3 dense stages once per step that serves an output.
     st = get("dop853").start(FORM_BODY, P, 0.0, y_start(FORM_BODY), {"rtol": 1e-6, "atol": 1e-9})
     st.advance_to(1.0)
-    steps, rejected, evals = (int(v) for v in st.counters)
+    steps, rejected, evals, forces = (int(v) for v in st.counters)
     assert evals == 2 + 12 * steps + 11 * rejected + 3
+    assert forces == evals
 
 
 # ---------------------------------------------------------------------------------------------

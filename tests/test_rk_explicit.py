@@ -9,6 +9,7 @@ import pytest
 from demo_bodies import FAST_TOP, fast_top_energy_trend
 from demo_bodies import fast_top_reference as reference
 from demo_bodies import fast_top_start as y_start
+from independent_references import attitude_error, exact_attitude
 
 from topdrift.integrators import (
     C_EVALS,
@@ -21,6 +22,7 @@ from topdrift.integrators import (
 )
 from topdrift.integrators.rk.tableaux import RK4
 from topdrift.models import FORM_BODY, FORM_EULER, euler_state
+from topdrift.models.exact import LagrangeTop
 
 TOP = FAST_TOP  # see demo_bodies.py
 P = TOP.params()
@@ -28,7 +30,8 @@ METHODS = ["rk4", "rk4-kahan"]
 
 
 def test_table_is_the_classical_method():
-    # Kutta (1901); HNW I, sec. II.1, Table 1.2: c = (0, 1/2, 1/2, 1), b = (1, 2, 2, 1)/6.
+    # Kutta (1901); HNW I, sec. II.1, Table 1.2 [from memory]: c = (0, 1/2, 1/2, 1), b = (1, 2, 2,
+    # 1)/6.
     assert np.array_equal(RK4.c, [0.0, 0.5, 0.5, 1.0])
     assert np.array_equal(RK4.b * 6.0, [1.0, 2.0, 2.0, 1.0])
     assert RK4.a[1, 0] == 0.5 and RK4.a[2, 1] == 0.5 and RK4.a[3, 2] == 1.0
@@ -43,17 +46,20 @@ def test_metadata():
         assert info.forms == ("body", "euler")
         assert info.compensated is comp
         assert not info.symplectic
-        assert info.keeps == ()
+        assert info.keeps == () and info.keeps_roundoff == ("p_psi",)
 
 
 @pytest.mark.parametrize("name", METHODS)
 @pytest.mark.parametrize("form", [FORM_BODY, FORM_EULER], ids=["body", "euler"])
 def test_measured_order_is_four(name, form):
-    # Global error at t = 1 against the reference, over a decade of steps; the log-log slope is
-    # the order, 4 for the classical method (HNW I, sec. II.3, Thm. 3.6). The Euler form is
-    # smoother here (the fast spin is a nearly linear psi), so its decade sits at larger steps.
+    # Global error at t = 1 against the exact solution (tests/independent_references.py; no
+    # Runge-Kutta method involved), in the attitude, over a decade of steps; the log-log slope is
+    # the order, 4 for the classical method (HNW I, sec. II.3, Thm. 3.6, from memory). The Euler
+    # form is smoother here (the fast spin is a nearly linear psi), so its decade sits at larger
+    # steps.
     t_end = 1.0
-    y_ref = reference(form, t_end)
+    top = LagrangeTop.from_state(TOP, form, y_start(form))
+    angles = exact_attitude(top, [t_end])[0]
     per_unit = (
         [1000, 1600, 2500, 4000, 6300, 10000]
         if form == FORM_BODY
@@ -64,10 +70,10 @@ def test_measured_order_is_four(name, form):
     for h in steps:
         st = get(name).start(form, P, 0.0, y_start(form), {"step": float(h)})
         assert st.advance_to(t_end) == ST_OK
-        errs.append(np.abs(st.y - y_ref).max())
+        errs.append(attitude_error(form, st.y, angles))
     slope = np.polyfit(np.log(steps), np.log(errs), 1)[0]
     assert abs(slope - 4.0) < 0.2, (slope, errs)
-    assert errs[-1] > 1e3 * 1e-12  # still far above the reference's own error
+    assert errs[-1] > 1e3 * 1e-14  # still far above the exact solution's own error
 
 
 def test_kahan_changes_only_the_rounding():
@@ -84,7 +90,8 @@ def test_kahan_reduces_round_off():
     # Round-off from adding small increments to a large state grows with the number of steps;
     # compensated summation (Kahan 1965) removes most of it. At h = 2e-6 the truncation error
     # of RK4 (~1e-18 here) is below round-off, so the error against the reference is round-off.
-    # Higham, Accuracy and Stability of Numerical Algorithms, sec. 4.3 (common practice).
+    # Higham, Accuracy and Stability of Numerical Algorithms, sec. 4.3 [from memory] (common
+    # practice).
     t_end = 0.5
     y_ref = reference(FORM_EULER, t_end)
     errs = {}
@@ -143,8 +150,8 @@ def test_snapshot_restore_continues_to_identical_bits(name):
 @pytest.mark.parametrize("name", METHODS)
 def test_energy_drifts_secularly(name):
     # RK4 is not symplectic: the energy error is a trend over the run, not a bounded
-    # oscillation (Hairer, Lubich and Wanner, Geometric Numerical Integration, ch. I; common
-    # practice). The fitted drift is many times the scatter about the fitted line.
+    # oscillation (Hairer, Lubich and Wanner, Geometric Numerical Integration, ch. I [from memory];
+    # common practice). The fitted drift is many times the scatter about the fitted line.
     settings = {"step": 2e-3}
     ts = 0.5 * np.arange(1, 201)
     drift, scatter, last = fast_top_energy_trend(name, settings, ts)

@@ -13,6 +13,7 @@ from topdrift.benchmarks.cases.schema import parse_case
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.metrics import axis_angle, drift_exponent, wrapped
 from topdrift.benchmarks.run.runner import StopFlag, execute, make_run_id, plan_run
+from topdrift.benchmarks.store import reader
 from topdrift.benchmarks.store import writer as store
 from topdrift.integrators import MethodRefused
 
@@ -71,7 +72,8 @@ def _run(plan, path, **kw):
 
 def _euler_poisson(body):
     """Body-form equations written out again here in numpy, independent of the kernels:
-    m' = m x w + M g (Gamma x chi), q' = q (0, w)/2 (Euler-Poisson; Goldstein sec. 5.6)."""
+    m' = m x w + M g (Gamma x chi), q' = q (0, w)/2 (Euler-Poisson; Goldstein sec. 5.6) [from
+    memory]."""
     inertia = np.array(body.inertia)
     mg_chi = body.weight * np.array(body.com)
 
@@ -100,7 +102,7 @@ def test_samples_step_rounding_and_trajectory_against_scipy(top, tmp_path):
     r = _run(plan, tmp_path / "r.h5", flush_every=0.0)
     assert r.status == "ok"
     assert r.metrics["steps"] == per * 10
-    with store.open_reader(tmp_path / "r.h5") as f:
+    with reader.open_reader(tmp_path / "r.h5") as f:
         g = f["runs"][plan.run_id]
         t = g["t"][()]
         quat = g["quaternion"][()]
@@ -137,7 +139,7 @@ def test_adaptive_run_uses_dense_output_at_samples(top, tmp_path):
     r = _run(plan, tmp_path / "r.h5")
     assert r.status == "ok"
     assert r.metrics["rejected"] >= 0 and r.metrics["rhs_evals"] > r.metrics["steps"]
-    with store.open_reader(tmp_path / "r.h5") as f:
+    with reader.open_reader(tmp_path / "r.h5") as f:
         g = f["runs"][plan.run_id]
         quat, mom, t = g["quaternion"][()], g["momentum"][()], g["t"][()]
     ref = solve_ivp(
@@ -159,7 +161,7 @@ def test_interrupt_then_resume_gives_the_same_bits(top, tmp_path):
 
     part = _run(plan, tmp_path / "part.h5", stop=StopAfter(15))
     assert part.status == "interrupted"
-    with store.open_reader(tmp_path / "part.h5") as f:
+    with reader.open_reader(tmp_path / "part.h5") as f:
         g = f["runs"][plan.run_id]
         assert g.attrs["status"] == "interrupted"
         assert 0 < g["t"].shape[0] < 41
@@ -168,8 +170,8 @@ def test_interrupt_then_resume_gives_the_same_bits(top, tmp_path):
     for k in ("energy_rel_max", "p_phi_rel_max", "steps", "rhs_evals", "energy_drift_exponent"):
         assert done.metrics[k] == whole.metrics[k]
     with (
-        store.open_reader(tmp_path / "whole.h5") as fa,
-        store.open_reader(tmp_path / "part.h5") as fb,
+        reader.open_reader(tmp_path / "whole.h5") as fa,
+        reader.open_reader(tmp_path / "part.h5") as fb,
     ):
         ga, gb = fa["runs"][plan.run_id], fb["runs"][plan.run_id]
         names = []
@@ -230,7 +232,7 @@ def test_drift_exponent_of_bounded_zero_and_random_walk():
     # Kept to the bit: bounded, 0.
     assert drift_exponent(t, np.zeros_like(t)) == 0.0
     # A random walk's running max grows like sqrt(t) (reflection principle; Feller vol. 1,
-    # ch. III); with a fixed seed the fitted slope lands near 0.5.
+    # ch. III) [from memory]; with a fixed seed the fitted slope lands near 0.5.
     rng = np.random.default_rng(7)
     walk = np.abs(np.cumsum(rng.standard_normal(t.size)))
     assert drift_exponent(t, walk) == pytest.approx(0.5, abs=0.2)
@@ -243,20 +245,18 @@ def test_a_failing_reference_ends_the_run_as_failed_without_nan(top, tmp_path):
     good = plan.exact
 
     class BreaksLate:
-        """The exact solution, raising past t = 0.2 as a broken reference would."""
+        """The exact solution, raising past t = 0.2 as a broken reference would (the runner
+        asks it for the folded angles)."""
 
-        def euler(self, t):
+        def folded(self, t):
             if np.max(t) > 0.2:
                 raise ValueError("cannot convert float NaN to integer")
-            return good.euler(t)
-
-        def axis(self, t):
-            return good.axis(t)
+            return good.folded(t)
 
     plan.exact = BreaksLate()
     r = _run(plan, tmp_path / "r.h5", flush_every=0.0)
     assert r.status == "failed" and "exact solution failed" in r.detail
-    with store.open_reader(tmp_path / "r.h5") as f:
+    with reader.open_reader(tmp_path / "r.h5") as f:
         g = f["runs"][plan.run_id]
         assert g.attrs["status"] == "failed"
         n = g["t"].shape[0]
@@ -277,7 +277,7 @@ def test_long_intervals_in_pieces_resume_to_the_same_bits(top, tmp_path, monkeyp
     assert whole.status == "ok" and whole.metrics["steps"] == 500
     part = _run(plan, tmp_path / "part.h5", stop=StopAfter(stop_after))
     assert part.status == "interrupted"
-    with store.open_reader(tmp_path / "part.h5") as f:
+    with reader.open_reader(tmp_path / "part.h5") as f:
         g = f["runs"][plan.run_id]
         k = g["checkpoint/run"].attrs["sample"]
         assert g["t"].shape[0] == k
@@ -286,8 +286,8 @@ def test_long_intervals_in_pieces_resume_to_the_same_bits(top, tmp_path, monkeyp
     done = _run(plan, tmp_path / "part.h5", resume=True)
     assert done.status == "ok" and done.metrics["steps"] == 500
     with (
-        store.open_reader(tmp_path / "whole.h5") as fa,
-        store.open_reader(tmp_path / "part.h5") as fb,
+        reader.open_reader(tmp_path / "whole.h5") as fa,
+        reader.open_reader(tmp_path / "part.h5") as fb,
     ):
         ga, gb = fa["runs"][plan.run_id], fb["runs"][plan.run_id]
         for n in ("t", "state", "euler", "quaternion", "momentum", "invariants/energy"):

@@ -12,7 +12,8 @@ from tiny_cases import top_toml
 
 from topdrift.benchmarks.cli import entry as cli
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.store.writer import existing_status, open_reader, open_writer
+from topdrift.benchmarks.store.reader import existing_status, open_reader
+from topdrift.benchmarks.store.writer import open_writer
 
 TOP_TOML = top_toml(
     "store-top",
@@ -35,13 +36,19 @@ METRIC_KEYS = {
     "theta_abs_max",
     "phi_abs_max",
     "psi_abs_max",
+    "kovalevskaya_rel_max",
     "steps",
     "rhs_evals",
+    "force_evals",
     "rejected",
     "wall_s",
     "cpu_s",
     "ns_per_step",
     "energy_drift_exponent",
+    "energy_drift_window",
+    "energy_drift_unknown",
+    "fastest_period",
+    "slowest_period",
     "t_fail",
 }
 
@@ -107,8 +114,9 @@ def test_layout_as_documented(stored):
         assert np.allclose(np.linalg.norm(q, axis=1), 1.0, atol=1e-12)
         assert np.array_equal(g["state"][:, :4], q)
         assert np.array_equal(g["state"][:, 4:], g["momentum"][()])
-        # Figure axis R e3 from a unit quaternion: third column of the rotation matrix
-        # (common practice; e.g. Shuster 1993, eq. 159).
+        # Figure axis R e3 from a unit quaternion: third column of the body-to-space rotation
+        # matrix (common practice), the third row of Shuster's space-to-body attitude matrix
+        # (Shuster 1993, A Survey of Attitude Representations, eq. 159, scalar last; from memory).
         q0, q1, q2, q3 = q.T
         axis = np.column_stack(
             [2 * (q1 * q3 + q0 * q2), 2 * (q2 * q3 - q0 * q1), q0**2 - q1**2 - q2**2 + q3**2]
@@ -156,7 +164,7 @@ def test_foreign_file_is_refused_and_left_alone(tmp_path):
         open_writer(path)
     with pytest.raises(UserError, match="not a topdrift run store"):
         existing_status(path, "0" * 16)
-    with pytest.raises(UserError, match="no such file"):
+    with pytest.raises(UserError, match="does not exist"):
         open_reader(tmp_path / "missing.h5")
     assert path.read_bytes() == before
 

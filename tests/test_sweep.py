@@ -284,7 +284,7 @@ def test_auto_ladders_follow_the_documented_rule(tmp_path):
     8 / order decades; rungs over max_steps are skipped with the reason. Worked by hand for the
     grid's symmetric top: body rates w1 = -phidot sin(theta) = -0.5, w2 = 0,
     w3 = psidot + phidot cos(theta) = 20 pi + cos(30 deg) rad/s (the rates of the Euler angles,
-    Goldstein sec. 4.9); gravity's rate sqrt(M g l / I3) = 7.0 rad/s is slower."""
+    Goldstein sec. 4.9) [from memory]; gravity's rate sqrt(M g l / I3) = 7.0 rad/s is slower."""
     write_grid(tmp_path)
     (tmp_path / "auto.toml").write_text(
         'name = "auto"\ncases = ["sym.toml"]\nmethods = ["leapfrog", "dop853"]\n'

@@ -24,8 +24,8 @@ M, R, L = 1.7, 0.23, 0.61  # arbitrary test values
 
 
 # Reference values: the table "Moments of inertia of various bodies" found in standard physics
-# texts (e.g. Halliday, Resnick and Walker, Fundamentals of Physics, table 10-2) and engineering
-# handbooks (Marks' Standard Handbook for Mechanical Engineers, sec. 3); from memory.
+# texts (e.g. Halliday, Resnick and Walker, Fundamentals of Physics, table 10-2) [from memory] and
+# engineering handbooks (Marks' Standard Handbook for Mechanical Engineers, sec. 3); from memory.
 def test_hoop_about_axis_and_diameter():
     axial, diam = hoop_moments(M, R)
     assert axial == pytest.approx(M * R**2, rel=1e-15)  # table: hoop about central axis, M R^2

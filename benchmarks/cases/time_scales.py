@@ -8,15 +8,40 @@ axis, below 2 pi for every method here: common practice), and any method needs a
 per turn to resolve it. The ladder takes the largest body axis component of w (the documented
 rule of "auto" ladders, README), the budget the whole |w|: the two differ by at most sqrt(3),
 and each fixes numbers that users already have (the steps of auto ladders, hence run ids).
+
+The periods of the motion, `timescales(case)`: the fastest and the slowest time scales of a
+case's motion, from its body and start. Two verdicts depend on them. Samples further apart than
+half the fastest period cannot show that motion: any figure drawn from them aliases it (the
+sampling theorem, common practice), and the run says so. And a growth law of the energy error
+means something only over a horizon that holds many periods of the slowest motion the error can
+follow: a bounded error reaches its plateau only after about one such period, so before that any
+error grows, whatever the method.
+
+- fastest: the shortest of 2 pi / |w| (the body's angular velocity at the start), the pendulum
+  period of gravity 2 pi sqrt(I_min / (M g |chi|)) and, for a Lagrange top, its nutation period.
+- slowest, by body:
+  * a Lagrange top: the nutation period of its exact solution. phi and psi are cyclic, and every
+    method here commutes with turns about the vertical and about the figure axis (up to an
+    adaptive controller's component-wise norm), so the energy error is a function of the
+    nutation phase alone; the precession does not enter it.
+  * a free body (no torque): the period of its body angular momentum (models/free_body.py),
+    which carries every error of a torque-free motion for the same reason (turns about L).
+  * any other body (heavy and not a Lagrange top: chaotic, or integrable without a closed form
+    here, such as the Kovalevskaya top): no period exists to compute; the estimate is the
+    longest of 2 pi / |w|, the pendulum period and 2 pi |L| / (M g |chi|), the time in which the
+    largest torque gravity can exert would turn L through a full turn. It is an estimate, and
+    the drift law of such a case says so.
 """
 
 from __future__ import annotations
 
 import math
+from dataclasses import dataclass
 
 import numpy as np
 
 from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from topdrift.models.free_body import free_body_period
 
 
 def body_rates(case) -> np.ndarray:
@@ -45,3 +70,62 @@ def fastest_period(case) -> float:
     if not rate > 0.0:
         return case.horizon
     return 2.0 * math.pi / rate
+
+
+@dataclass(frozen=True)
+class Timescales:
+    fastest: float  # s
+    fastest_what: str
+    slowest: float  # s; inf when the slowest motion never repeats (a separatrix)
+    slowest_what: str  # "nutation", "free motion", or the estimate's description
+    slowest_exact: bool  # False when `slowest` is an estimate (no period exists)
+
+
+def _start_rates(case) -> tuple[float, float, float]:
+    """(|w|, the pendulum rate sqrt(M g |chi| / I_min), |L|) at the start."""
+    spin = float(np.sqrt(np.sum(body_rates(case) ** 2)))
+    m = np.asarray(case.body_state(), dtype=np.float64)[4:7]
+    return spin, gravity_rate(case), float(np.linalg.norm(m))
+
+
+def _period(rate: float) -> float:
+    return 2.0 * math.pi / rate if rate > 0.0 else math.inf
+
+
+def _nutation_period(case) -> float | None:
+    if not case.body.lagrange_top:
+        return None
+    from topdrift.models.exact import ExactUnavailable, LagrangeTop
+
+    try:
+        top = LagrangeTop.from_state(case.body, "body", case.body_state())
+    except (ExactUnavailable, ArithmeticError, ValueError):
+        return None
+    period = float(getattr(top, "nutation_period", math.nan))
+    return period if math.isfinite(period) and period > 0.0 else None
+
+
+def timescales(case) -> Timescales:
+    spin, swing, l_norm = _start_rates(case)
+    candidates = [(_period(spin), "rotation 2 pi / |w|"), (_period(swing), "pendulum of gravity")]
+    nutation = _nutation_period(case)
+    if nutation is not None:
+        candidates.append((nutation, "nutation"))
+    fastest, fastest_what = min(candidates, key=lambda c: c[0])
+    body = case.body
+    torque = body.mass * body.gravity * float(np.linalg.norm(np.asarray(body.com, dtype=float)))
+    if nutation is not None:
+        return Timescales(fastest, fastest_what, nutation, "nutation", True)
+    if torque == 0.0:
+        y = np.asarray(case.body_state(), dtype=np.float64)
+        period = free_body_period(body.inertia, y[4:7])
+        return Timescales(fastest, fastest_what, period, "free motion", True)
+    turn = 2.0 * math.pi * l_norm / torque
+    slowest = max(_period(spin), _period(swing), turn)
+    return Timescales(
+        fastest,
+        fastest_what,
+        slowest,
+        "slowest time scale (an estimate: this motion has no period)",
+        False,
+    )

@@ -16,7 +16,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from topdrift.benchmarks.store.reader import STATUS_OK, load_records  # noqa: F401  (the loader lives with the reader)
+from topdrift.benchmarks.store.format import STATUS_OK
 
 # Settings that a sweep turns (and what follows from them: the runner rounds the requested step
 # to a whole number of steps per sample interval); every other setting names the series.
@@ -27,11 +27,17 @@ ERRORS = {
     "axis": ("axis_angle_max", "max figure-axis angle from exact", "rad"),
     "energy": ("energy_rel_max", "max |E - E0| / |E0|", "1"),
 }
+# The invariant an error metric measures, where it measures one: a method that keeps it by
+# construction in a form has an error of round-off there, and a ranking by it says nothing.
+ERROR_INVARIANT = {"energy": "energy"}
 # Cost metrics: key -> (metric name, axis label, unit).
 COSTS = {
     "wall": ("wall_s", "wall time", "s"),
     "cpu": ("cpu_s", "CPU time", "s"),  # steadier than wall time on a shared machine
     "evals": ("rhs_evals", "evaluations (right-hand sides or sub-flows)", "count"),
+    # What molecular-dynamics and force-field codes count: the torque evaluations (a
+    # splitting's kicks, every right-hand side of the other methods), not the free flows.
+    "force": ("force_evals", "force (torque) evaluations", "count"),
 }
 
 # Drift law from the exponent p of the energy error's growth, |dE| ~ t^p. The ideal values are
@@ -210,8 +216,14 @@ def cost_to_reach(front: list[Point], target: float) -> tuple[float, str] | None
 
 def default_targets(fr: Frontiers) -> list[float]:
     """Whole decades of error from the worst to the best point of the overall front, each one
-    that at least one series reaches. Errors within one decade give that single worst error."""
-    errs = [p.error for p in fr.overall if p.error > 0.0]
+    that at least one series reaches. Errors within one decade give that single worst error.
+    Series that keep the error's quantity by construction (kept_series) are left out: their
+    round-off would set targets no ranked method is meant to reach."""
+    inv = ERROR_INVARIANT.get(fr.error)
+    overall = fr.overall
+    if inv is not None:
+        overall = pareto([p for k, v in fr.points.items() if not series_keeps(k, inv) for p in v])
+    errs = [p.error for p in overall if p.error > 0.0]
     if not errs:
         return []
     hi, lo = max(errs), min(errs)
@@ -220,14 +232,46 @@ def default_targets(fr: Frontiers) -> list[float]:
     return targets or [hi]
 
 
+def kept_by_construction(method: str, form) -> tuple[str, ...]:
+    """What a registered method keeps by construction in a form, to the bit or to round-off
+    (MethodInfo.kept_in); () for a method not installed here or a form not given."""
+    if not method or not form:
+        return ()
+    from topdrift.integrators import UnknownMethod, get
+
+    try:
+        return get(method).info.kept_in(str(form))
+    except UnknownMethod:
+        return ()
+
+
+def series_keeps(key: tuple, invariant: str) -> bool:
+    """Whether a series' method keeps `invariant` by construction in the series' form."""
+    form = dict(key[1]).get("form")
+    return invariant in kept_by_construction(key[0], form)
+
+
+def kept_series(fr: Frontiers) -> list[str]:
+    """Labels of the series whose method keeps the frontier's error quantity by construction in
+    its form (see ERROR_INVARIANT), sorted: they are not ranked by that error."""
+    inv = ERROR_INVARIANT.get(fr.error)
+    if inv is None:
+        return []
+    return sorted(fr.labels.get(k, k[0]) for k in fr.per_series if series_keeps(k, inv))
+
+
 def cheapest(fr: Frontiers, targets: list[float]) -> list[dict]:
     """For each target error: the series that reaches it at least cost, its cost and how that
     cost was found (see cost_to_reach), and every series that reaches it, cheapest first.
-    A target no series reaches gets series None."""
+    A target no series reaches gets series None. Series whose method keeps the error's quantity
+    by construction in their form (kept_series) are not ranked: their error is round-off."""
     out = []
+    inv = ERROR_INVARIANT.get(fr.error)
     for target in targets:
         reach = []
         for key, front in fr.per_series.items():
+            if inv is not None and series_keeps(key, inv):
+                continue
             got = cost_to_reach(front, target)
             if got is not None:
                 reach.append((got[0], fr.labels.get(key, key[0]), got[1], key))
@@ -249,7 +293,8 @@ def cheapest(fr: Frontiers, targets: list[float]) -> list[dict]:
 
 def drift_law(exponent) -> str:
     """The class of an energy drift exponent (see the thresholds above); 'unknown' when the
-    exponent is missing, which the runner reports when too few samples were usable for a fit."""
+    exponent is missing, which the runner reports, with the reason (the metric
+    energy_drift_unknown), when the horizon holds too few slow periods or samples for a fit."""
     p = _finite(exponent)
     if p is None:
         return LAW_UNKNOWN

@@ -124,7 +124,7 @@ def work_precision(
     case: str,
     out,
     error: str = "axis",
-    costs: tuple[str, ...] = ("wall", "evals"),
+    costs: tuple[str, ...] = ("wall", "force"),
 ) -> Path:
     """Error against cost on log-log axes, one panel per cost measure. Per series: the Pareto
     front as line + filled markers, dominated runs as hollow markers; under them, in grey, the
@@ -163,6 +163,9 @@ def work_precision(
                 lw=1.3,
                 zorder=3,
             )
+            inv = analysis.ERROR_INVARIANT.get(error)
+            if inv is not None and analysis.series_keeps(key, inv):
+                lab = f"{lab} (keeps the {inv} by construction: its error is rounding)"
             handles.setdefault(lab, h)
             if off:
                 ax.plot(
@@ -232,24 +235,79 @@ def _after_start(t: np.ndarray, y: np.ndarray):
 
 def invariant_errors(s: dict) -> dict[str, np.ndarray]:
     """|E - E0|/|E0|, |p_phi - p_phi0|/|L0|, |p_psi - p_psi0|/|L0| of one run's samples,
-    with L0 the norm of the start's angular momentum (the metrics' scales). A zero E0 or L0
-    falls back to 1 so that nothing divides by zero."""
+    with L0 the norm of the start's angular momentum (the metrics' scales), and |K - K0|/|K0| of
+    Kovalevskaya's integral where the run has it. p_psi is left out where it is no invariant of
+    the run's body (its metric is null). A zero E0, L0 or K0 falls back to 1 so that nothing
+    divides by zero."""
     e0 = s["energy"][0]
     l0 = float(np.linalg.norm(s["momentum"][0]))
     es = abs(e0) if e0 != 0.0 else 1.0
     ls = l0 if l0 > 0.0 else 1.0
-    return {
+    out = {
         "energy": np.abs(s["energy"] - e0) / es,
         "p_phi": np.abs(s["p_phi"] - s["p_phi"][0]) / ls,
-        "p_psi": np.abs(s["p_psi"] - s["p_psi"][0]) / ls,
     }
+    if is_invariant(s, "p_psi"):
+        out["p_psi"] = np.abs(s["p_psi"] - s["p_psi"][0]) / ls
+    k = s.get("kovalevskaya")
+    if k is not None and len(k):
+        ks = abs(k[0]) if k[0] != 0.0 else 1.0
+        out["kovalevskaya"] = np.abs(k - k[0]) / ks
+    return out
+
+
+def is_invariant(s: dict, name: str) -> bool:
+    """Whether a quantity is an invariant of the run's body, as its metrics say (a metric that
+    is no invariant of the body is null; files from before that rule have a number)."""
+    metrics = (s.get("record") or {}).get("metrics") or {}
+    key = {"p_psi": "p_psi_rel_max", "kovalevskaya": "kovalevskaya_rel_max"}[name]
+    if name == "kovalevskaya":
+        return s.get("kovalevskaya") is not None
+    return key not in metrics or metrics[key] is not None
 
 
 _INVARIANT_AXES = (
     ("energy", "|E - E0| / |E0| (1)"),
     ("p_phi", "|p_phi - p_phi0| / |L0| (1)"),
     ("p_psi", "|p_psi - p_psi0| / |L0| (1)"),
+    ("kovalevskaya", "|K - K0| / |K0| (1)"),
 )
+
+
+def aliasing_warning(runs: list[dict]) -> str:
+    """A warning when the samples of a run shown are further apart than half the fastest period
+    of its case (the sampling theorem, common practice): that motion is aliased in the figure
+    (a 3.3 s nutation sampled every 100 s draws a clean, false slow wave). "" otherwise."""
+    for r in runs:
+        fastest = ((r.get("record") or {}).get("metrics") or {}).get("fastest_period")
+        t = r["t"]
+        if not isinstance(fastest, (int, float)) or fastest <= 0.0 or t.size < 2:
+            continue
+        dt = float(t[1] - t[0])
+        if dt > 0.5 * fastest:
+            return (
+                f"WARNING: samples every {dt:.3g} s, more than half the fastest period of the "
+                f"motion ({fastest:.3g} s): it is aliased here; what looks like a slow wave may "
+                "not be one (run with more --samples)"
+            )
+    return ""
+
+
+def _warn(fig, text: str) -> None:
+    if text:
+        # Above everything, in red: a misleading figure must say so where it is seen first.
+        import textwrap
+
+        fig.text(
+            0.5,
+            1.0,
+            "\n".join(textwrap.wrap(text, 90)),
+            ha="center",
+            va="bottom",
+            color="#b00000",
+            fontsize="small",
+            fontweight="bold",
+        )
 
 
 def drift(runs: list[dict], case: str, out) -> Path:
@@ -258,13 +316,24 @@ def drift(runs: list[dict], case: str, out) -> Path:
     panel says so instead."""
     sty = run_styles(runs)
     runs = sorted(runs, key=lambda r: (r.get("series", r["label"]), r.get("rank", 0.0)))
-    fig, axes = plt.subplots(3, 1, figsize=(7.0, 8.0), sharex=True)
+    errors = {r["label"]: invariant_errors(r) for r in runs}
+    panels = [(k, lab) for k, lab in _INVARIANT_AXES if k != "kovalevskaya"]
+    if any("kovalevskaya" in e for e in errors.values()):
+        panels.append(_INVARIANT_AXES[-1])
+    fig, axes = plt.subplots(
+        len(panels), 1, figsize=(7.0, 2.67 * len(panels)), sharex=True, squeeze=False
+    )
+    axes = axes[:, 0]
     handles = {}
-    for ax, (key, ylabel) in zip(axes, _INVARIANT_AXES, strict=True):
+    for ax, (key, ylabel) in zip(axes, panels, strict=True):
         exact_kept = []
+        missing = []
         for r in runs:
             color, _ = sty[r["label"]]
-            got = _after_start(r["t"], invariant_errors(r)[key])
+            if key not in errors[r["label"]]:
+                missing.append(r["label"])
+                continue
+            got = _after_start(r["t"], errors[r["label"]][key])
             if got is None:
                 exact_kept.append(r["label"])
                 continue
@@ -274,7 +343,18 @@ def drift(runs: list[dict], case: str, out) -> Path:
         ax.set_yscale("log")
         ax.set_ylabel(ylabel)
         ax.grid(True, which="major", alpha=0.3)
-        if len(exact_kept) == len(runs):
+        if missing and len(missing) == len(runs):
+            ax.set_yscale("linear")
+            ax.set_yticks([])
+            ax.text(
+                0.5,
+                0.5,
+                f"{key} is no invariant of this body: no error to draw (metric: -)",
+                transform=ax.transAxes,
+                ha="center",
+                va="center",
+            )
+        elif len(exact_kept) == len(runs):
             ax.set_yscale("linear")  # no data: no log decades to pretend
             ax.set_yticks([])
             ax.text(
@@ -296,6 +376,7 @@ def drift(runs: list[dict], case: str, out) -> Path:
             )
     axes[-1].set_xlabel(_time_label(runs))
     fig.suptitle(f"{case}: invariant errors" + (f", {runs[0]['label']}" if len(runs) == 1 else ""))
+    _warn(fig, aliasing_warning(runs))
     if handles and len(runs) > 1:
         _legend_right(fig, list(handles.values()), list(handles.keys()))
     return _save(fig, out)
@@ -361,6 +442,7 @@ def theta(runs: list[dict], case: str, out) -> Path:
         f"{case}: tilt theta against the exact solution"
         + (f", {runs[0]['label']}" if single else "")
     )
+    _warn(fig, aliasing_warning(runs))
     _legend_right(fig, list(handles.values()), list(handles.keys()))
     return _save(fig, out)
 
@@ -397,12 +479,43 @@ def axis_from_euler(e: np.ndarray) -> np.ndarray:
     return np.stack((np.sin(th) * np.sin(phi), -np.sin(th) * np.cos(phi), np.cos(th)), axis=1)
 
 
+# A path that winds round the vertical more often than this fills the disc: the whole path says
+# nothing about the error, so the figure shows the error path instead (axis_path).
+LONG_PATH_TURNS = 2.0
+ERROR_PATH_SHADES = 12  # the error path is drawn light to dark, start to end
+
+
+def path_turns(a: np.ndarray) -> np.ndarray:
+    """Turns round the vertical so far, per sample, from the unwrapped azimuth of the path."""
+    az = np.unwrap(np.arctan2(a[:, 1], a[:, 0]))
+    return np.abs(az - az[0]) / (2.0 * math.pi)
+
+
+def error_path(a: np.ndarray, ref: np.ndarray) -> np.ndarray:
+    """The axis a seen from the reference axis ref (rows of unit vectors): the components of
+    a - ref along the precession (e_h, horizontal, the direction of growing azimuth) and along
+    the tilt away from the vertical (e_h x ref), in rad for small errors. (n, 2)."""
+    ez = np.array([0.0, 0.0, 1.0])
+    h = np.cross(np.broadcast_to(ez, ref.shape), ref)
+    norm = np.linalg.norm(h, axis=1)
+    upright = norm == 0.0
+    h[upright] = (1.0, 0.0, 0.0)  # on the vertical: any horizontal direction will do
+    norm[upright] = 1.0
+    h /= norm[:, None]
+    tilt = np.cross(h, ref)
+    d = a - ref
+    return np.stack((np.einsum("ij,ij->i", d, h), np.einsum("ij,ij->i", d, tilt)), axis=1)
+
+
 def axis_path(runs: list[dict], case: str, out) -> Path:
     """The figure axis R e3 projected on the horizontal plane, seen from above, inside the unit
     circle (the horizon: the axis lying flat); the exact path dashed where there is one.
 
     Whole paths of different runs usually lie on top of each other, so a second panel zooms on
-    the end of the paths, where the error has grown most: there the runs separate."""
+    the end of the paths, where the error has grown most: there the runs separate. A long run
+    (the path winds round the vertical more than LONG_PATH_TURNS times) fills the disc: then the
+    first panel shows the first turn only, and the second the error path, each run's axis seen
+    from the exact one (or from the first run's where there is no exact solution)."""
     sty = run_styles(runs)
     runs = sorted(runs, key=lambda r: (r.get("series", r["label"]), r.get("rank", 0.0)))
     fig, (ax, az) = plt.subplots(1, 2, figsize=(11.5, 5.6))
@@ -417,10 +530,22 @@ def axis_path(runs: list[dict], case: str, out) -> Path:
     exact = next((r for r in runs if r["exact_euler"] is not None), None)
     if exact is not None:
         paths.append(("exact", axis_from_euler(exact["exact_euler"]), "black", (0, (4, 3))))
+    ref = paths[-1] if exact is not None else (paths[0] if paths else None)
+    turns = float(path_turns(ref[1])[-1]) if ref is not None and len(ref[1]) > 1 else 0.0
+    long_run = turns > LONG_PATH_TURNS
+    first = slice(None)
+    if long_run:
+        n_first = int(np.searchsorted(path_turns(ref[1]), 1.0)) + 1
+        first = slice(0, n_first)
     for label, a, color, ls in paths:
         lw = 1.0 if label == "exact" else 0.9
         (h,) = ax.plot(
-            a[:, 0], a[:, 1], color=color, lw=lw, ls=ls, zorder=5 if label == "exact" else 2
+            a[first, 0],
+            a[first, 1],
+            color=color,
+            lw=lw,
+            ls=ls,
+            zorder=5 if label == "exact" else 2,
         )
         handles.setdefault(label, h)
     if paths:
@@ -435,13 +560,65 @@ def axis_path(runs: list[dict], case: str, out) -> Path:
     ax.set_xlabel("x component of figure axis R e3 (1)")
     ax.set_ylabel("y component of figure axis R e3 (1)")
     ax.grid(True, alpha=0.3)
-    ax.set_title(f"whole path; unit circle: axis horizontal\n{_sampling(runs)}", fontsize="medium")
-    _zoom_on_ends(az, paths)
+    if long_run:
+        ax.set_title(
+            f"first turn of {turns:.0f} round the vertical (the whole path fills the disc)\n"
+            f"{_sampling(runs)}",
+            fontsize="medium",
+        )
+        _error_paths(az, paths, ref)
+    else:
+        ax.set_title(
+            f"whole path; unit circle: axis horizontal\n{_sampling(runs)}", fontsize="medium"
+        )
+        _zoom_on_ends(az, paths)
     fig.suptitle(
         f"{case}: figure axis seen from above" + (f", {runs[0]['label']}" if len(runs) == 1 else "")
     )
+    _warn(fig, aliasing_warning(runs))
     _legend_right(fig, list(handles.values()), list(handles.keys()))
     return _save(fig, out)
+
+
+def _error_paths(az, paths, ref) -> None:
+    """Every run's axis seen from the reference axis over the whole run: the error path, which a
+    whole-path drawing of a long run hides in a filled disc."""
+    ref_label, ref_axis = ref[0], ref[1]
+    drawn = 0
+    for label, a, color, ls in paths:
+        if label == ref_label:
+            continue
+        n = min(len(a), len(ref_axis))
+        d = error_path(a[:n], ref_axis[:n])
+        # Light early, full colour late: the error grows, and where it grows to shows.
+        rgb = np.array(matplotlib.colors.to_rgb(color))
+        cuts = np.linspace(0, n - 1, ERROR_PATH_SHADES + 1).astype(int)
+        for k in range(ERROR_PATH_SHADES):
+            w = 0.8 * (1.0 - k / (ERROR_PATH_SHADES - 1))
+            seg = d[cuts[k] : cuts[k + 1] + 1]
+            az.plot(seg[:, 0], seg[:, 1], color=tuple((1 - w) * rgb + w), lw=0.6, ls=ls, zorder=2)
+        az.plot([d[-1, 0]], [d[-1, 1]], marker="s", color=color, ms=5, ls="none", zorder=6)
+        drawn += 1
+    az.plot([0.0], [0.0], marker="+", color="black", ms=12, zorder=7)
+    name = "the exact axis" if ref_label == "exact" else f"the axis of {ref_label}"
+    if not drawn:
+        az.text(
+            0.5,
+            0.5,
+            "no exact solution and a single run:\nno reference to measure the path against",
+            ha="center",
+            va="center",
+            transform=az.transAxes,
+        )
+    az.set_aspect("equal", adjustable="datalim")
+    az.ticklabel_format(style="sci", scilimits=(-3, 3))
+    az.set_xlabel("error along the precession (rad)")
+    az.set_ylabel("error in tilt, away from the vertical (rad)")
+    az.grid(True, alpha=0.3)
+    az.set_title(
+        f"error path, seen from {name} (+)\nlight to dark: start to end; squares: the end",
+        fontsize="medium",
+    )
 
 
 def _zoom_on_ends(az, paths) -> None:

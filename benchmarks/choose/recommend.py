@@ -18,7 +18,7 @@ import numpy as np
 from topdrift.benchmarks.cases.time_scales import fastest_period
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.in_memory import run_in_memory
-from topdrift.benchmarks.run.runner import plan_run, steps_per_interval
+from topdrift.benchmarks.run.runner import plan_run, samples_for_horizon, steps_per_interval
 from topdrift.integrators import MethodRefused
 from topdrift.integrators import get as get_method
 from topdrift.models.quaternion import figure_axis
@@ -51,6 +51,7 @@ class Trial:
     rhs_evals: int
     status: str
     settings: dict
+    force_evals: int = 0  # torque evaluations (a splitting's kicks; every rhs otherwise)
 
 
 @dataclass
@@ -179,6 +180,7 @@ class Picker:
             int(m.get("rhs_evals") or 0),
             run.status,
             dict(plan.settings),
+            int(m.get("force_evals") or 0),
         )
 
     def search(self, method: str, form: str | None) -> Choice:
@@ -192,6 +194,15 @@ class Picker:
             )
         except MethodRefused as exc:
             return Choice(method, form or "?", reason=str(exc))
+        if self.metric == "energy" and "energy" in m.info.kept_in(form):
+            # Its energy error is rounding at any setting: the cheapest setting "meeting" an
+            # energy target would say nothing about the method. Ranked by --metric axis.
+            return Choice(
+                method,
+                form,
+                reason=f"keeps the energy by construction in the {form} form (its error is "
+                "round-off at any setting): not ranked by energy; rank it with --metric axis",
+            )
         choice = Choice(method, form)
         step = m.info.control == "step"
         interval = self.horizon / (self.samples - 1)
@@ -289,15 +300,13 @@ def pick(
     form: str | None = None,
     report: Callable[[str], None] = lambda s: None,
 ) -> dict:
-    if samples is None:
-        # A shorter (or longer) horizon keeps the case's sample interval, not its sample count:
-        # a fixed step can be no longer than the interval, so squeezing the case's samples into
-        # a short horizon would cap every step far below what the target allows.
-        samples = case.samples
-        if horizon is not None:
-            interval = case.horizon / (case.samples - 1)
-            samples = max(2, round(horizon / interval) + 1)
     horizon = case.horizon if horizon is None else horizon
+    if samples is None:
+        # The horizon rule of every command (runner.samples_at_interval): a shorter or longer
+        # horizon keeps the case's sample interval; a fixed step can be no longer than the
+        # interval, so squeezing the case's samples into a short horizon would cap every step
+        # far below what the target allows.
+        samples = samples_for_horizon(case, horizon)
     methods = list(methods or DEFAULT_CANDIDATES)
     for name in methods:
         get_method(name)  # unknown names fail before any work
@@ -351,6 +360,7 @@ def pick(
                 "settings": settings,
                 "wall_s": v.wall_s,
                 "rhs_evals": v.rhs_evals,
+                "force_evals": v.force_evals,
                 "achieved": v.achieved,
                 "margin": target / v.achieved if v.achieved > 0 else None,
                 "trials": len(c.tried),

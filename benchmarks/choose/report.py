@@ -10,7 +10,15 @@ from pathlib import Path
 from topdrift.benchmarks.choose import analysis, plots
 from topdrift.benchmarks.choose.selection import load_labelled, slug
 
-_COST_WORDS = {"wall": "wall time", "evals": "evaluations"}
+_COST_WORDS = {"wall": "wall time", "evals": "evaluations", "force": "force evaluations"}
+# Metrics of invariants, beside the invariant each measures: a cell of a quantity the run's
+# method keeps by construction in its form is marked (KEPT_MARK), as its number is rounding.
+_INVARIANT_METRICS = {
+    "energy_rel_max": "energy",
+    "p_phi_rel_max": "p_phi",
+    "p_psi_rel_max": "p_psi",
+}
+KEPT_MARK = " (kept)"
 
 
 def _num(v, fmt: str = ".2e") -> str:
@@ -30,19 +38,27 @@ def _cell(text) -> str:
 
 
 def _cost(v: float, cost: str) -> str:
-    return f"{v:.3g}" if cost == "evals" else f"{v:.3g} s"
+    return f"{v:.3g}" if cost in ("evals", "force") else f"{v:.3g} s"
 
 
-def _law_text(exponent, energy_err) -> str:
+def _law_text(exponent, energy_err, why=None) -> str:
     law = analysis.drift_law(exponent)
     if law != analysis.LAW_UNKNOWN and analysis.at_roundoff(energy_err):
         return f"{law}, at round-off"
+    if law == analysis.LAW_UNKNOWN and why:
+        return f"unknown: {_cell(why)}"
     return law
+
+
+def _kept_cell(metrics: dict, name: str, kept: tuple[str, ...]) -> str:
+    text = _num(metrics.get(name))
+    return text + KEPT_MARK if text != "-" and _INVARIANT_METRICS[name] in kept else text
 
 
 def runs_table(records: list[dict], case: str) -> list[str]:
     recs = analysis.case_records(records, case)
     labels = analysis.series_labels(recs)
+    kov = any((r.get("metrics") or {}).get("kovalevskaya_rel_max") is not None for r in recs)
     head = (
         "method",
         "setting",
@@ -51,8 +67,10 @@ def runs_table(records: list[dict], case: str) -> list[str]:
         "energy err",
         "p_phi err",
         "p_psi err",
+        *(("Kovalevskaya err",) if kov else ()),
         "steps",
         "evals",
+        "force evals",
         "wall (s)",
         "ns/step",
         "drift exp.",
@@ -68,45 +86,60 @@ def runs_table(records: list[dict], case: str) -> list[str]:
     for r in sorted(recs, key=order):
         m = r.get("metrics") or {}
         exp = m.get("energy_drift_exponent")
+        kept = analysis.kept_by_construction(r.get("method"), (r.get("settings") or {}).get("form"))
+
         row = (
             _cell(labels[analysis.series_key(r)]),
             _cell(analysis.knob_text(r.get("settings") or {})),
             _cell(r.get("status")) if r.get("status") == "ok" else f"**{_cell(r.get('status'))}**",
             _num(m.get("axis_angle_max")),
-            _num(m.get("energy_rel_max")),
-            _num(m.get("p_phi_rel_max")),
-            _num(m.get("p_psi_rel_max")),
+            _kept_cell(m, "energy_rel_max", kept),
+            _kept_cell(m, "p_phi_rel_max", kept),
+            _kept_cell(m, "p_psi_rel_max", kept),
+            *((_num(m.get("kovalevskaya_rel_max")),) if kov else ()),
             _num(m.get("steps")),
             _num(m.get("rhs_evals")),
+            _num(m.get("force_evals")),
             _num(m.get("wall_s"), ".3g"),
             _num(m.get("ns_per_step"), ".3g"),
             _num(exp, ".2f"),
-            _law_text(exp, m.get("energy_rel_max")),
+            _law_text(exp, m.get("energy_rel_max"), m.get("energy_drift_unknown")),
         )
         lines.append("| " + " | ".join(row) + " |")
     return lines
 
 
 def cheapest_table(records: list[dict], case: str, error: str) -> list[str]:
-    frs = {c: analysis.frontiers(records, case, error, c) for c in ("wall", "evals")}
+    frs = {c: analysis.frontiers(records, case, error, c) for c in ("wall", "force")}
     targets = sorted(
-        set(analysis.default_targets(frs["wall"])) | set(analysis.default_targets(frs["evals"])),
+        set(analysis.default_targets(frs["wall"])) | set(analysis.default_targets(frs["force"])),
         reverse=True,
     )
+    kept = analysis.kept_series(frs["wall"])
+    note = []
+    if kept:
+        inv = analysis.ERROR_INVARIANT[error]
+        note = [
+            "",
+            f"Not ranked by this error: {', '.join(_cell(k) for k in kept)}, which keep the "
+            f"{inv} by construction in that form (to the bit or to round-off): their error is "
+            "rounding, and a ranking by it would say nothing about them; they are ranked by "
+            "the other errors.",
+        ]
     if not targets:
-        return ["No ok run has this error; nothing to rank."]
+        return ["No ok run has this error; nothing to rank."] + note
     picks = {
         c: {row["target"]: row for row in analysis.cheapest(fr, targets)} for c, fr in frs.items()
     }
     _, qty, unit = analysis.ERRORS[error]
     lines = [
-        f"| target {_cell(qty)} ({unit}) | cheapest by wall time | cheapest by evaluations | "
-        "runner-up by wall time |",
+        f"| target {_cell(qty)} ({unit}) | cheapest by wall time | cheapest by force "
+        "evaluations | runner-up by wall time |",
         "|---|---|---|---|",
     ]
     for t in targets:
         cells = [f"{t:.3g}"]
-        for c in ("wall", "evals"):
+        for c in ("wall", "force"):
             row = picks[c][t]
             if row["label"] is None:
                 cells.append("none reaches it")
@@ -115,7 +148,7 @@ def cheapest_table(records: list[dict], case: str, error: str) -> list[str]:
         rank = picks["wall"][t]["ranking"]
         cells.append(f"{_cell(rank[1][0])}: {_cost(rank[1][1], 'wall')}" if len(rank) > 1 else "-")
         lines.append("| " + " | ".join(cells) + " |")
-    return lines
+    return lines + note
 
 
 def _series(path: str, records: list[dict], points: list) -> list[dict]:
@@ -135,10 +168,17 @@ def case_section(path: str, records: list[dict], case: str, out_dir: Path) -> li
         "",
         "Errors are maxima over the run: axis err is the angle of the figure axis from "
         "the exact solution's; energy err is |E - E0| / |E0|; the momentum errors are "
-        "relative to |L0|. The drift law classifies the exponent p of the energy error's "
+        "relative to |L0|, Kovalevskaya's integral to its start value. '-': the quantity is "
+        "no invariant of this body (p_psi where the body is not a Lagrange top) or has no "
+        f"reference. '{KEPT_MARK.strip()}': the method keeps that quantity by construction "
+        "in that form (to the bit or to round-off), so its number measures rounding, not the "
+        "method. Force evals count the torque evaluations (a splitting's kicks, every "
+        "right-hand side of the other methods); evals add a splitting's free flows. The "
+        "drift law classifies the exponent p of the energy error's "
         f"growth ~ t^p: bounded below {analysis.BOUNDED_BELOW}, random walk below "
         f"{analysis.RANDOM_WALK_BELOW}, linear below {analysis.LINEAR_BELOW}, faster "
-        'than linear above; unknown where too few samples allowed a fit. "At round-off": '
+        "than linear above; unknown, with the reason, where the horizon holds too few periods "
+        'of the slowest motion or too few samples for a fit. "At round-off": '
         f"the energy error stays below {analysis.ROUNDOFF_LEVEL:.1e} (100 machine epsilons), "
         "where the law describes accumulated rounding, not the method's truncation "
         "error.",

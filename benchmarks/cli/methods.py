@@ -18,7 +18,9 @@ def run(args) -> int:
     if args.json:
         print(json.dumps({"methods": [m.info.as_json() for m in methods]}, indent=2))
         return 0
-    rows = [("name", "family", "order", "sympl.", "forms", "control", "keeps", "comp.")]
+    rows = [
+        ("name", "family", "order", "sympl.", "forms", "control", "keeps", "~round-off", "comp.")
+    ]
     for m in methods:
         i = m.info
         rows.append(
@@ -30,6 +32,7 @@ def run(args) -> int:
                 ",".join(i.forms),
                 i.control,
                 ",".join(i.keeps) or "-",
+                ",".join(i.keeps_roundoff) or "-",
                 "yes" if i.compensated else "no",
             )
         )

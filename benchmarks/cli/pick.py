@@ -80,7 +80,8 @@ def run(args) -> int:
     )
     if result["reference"]:
         print(f"note: {result['reference']}")
-    rows = [("rank", "method", "form", "setting", "wall s", "evals", "achieved", "margin")]
+    head = ("rank", "method", "form", "setting", "wall s", "forces", "evals", "achieved", "margin")
+    rows = [head]
     for i, r in enumerate(result["ranking"], 1):
         margin = "-" if r["margin"] is None else f"{r['margin']:.2f}x"
         rows.append(
@@ -90,6 +91,7 @@ def run(args) -> int:
                 r["form"],
                 _setting(r["settings"]),
                 f"{r['wall_s']:.3g}",
+                str(r["force_evals"]),
                 str(r["rhs_evals"]),
                 f"{r['achieved']:.3g}",
                 margin,

@@ -31,10 +31,11 @@ def add_parser(sub) -> None:
     )
     p.add_argument(
         "--cost",
-        choices=("wall", "cpu", "evals", "both"),
+        choices=("wall", "cpu", "evals", "force", "both"),
         default="both",
-        help="work-precision cost: wall time, CPU time, evaluations, or both wall time and "
-        "evaluations side by side (default)",
+        help="work-precision cost: wall time, CPU time, evaluations (right-hand sides or "
+        "sub-flows), force (torque) evaluations, or both wall time and force evaluations side "
+        "by side (default)",
     )
     p.add_argument(
         "--out", metavar="PNG", help="figure file (default: CASE-KIND.png in the current directory)"
@@ -64,7 +65,8 @@ def run(args) -> int:
         slug,
     )
     from topdrift.benchmarks.errors import UserError
-    from topdrift.benchmarks.store.reader import STATUS_INCOMPLETE, load_records
+    from topdrift.benchmarks.store.format import STATUS_INCOMPLETE
+    from topdrift.benchmarks.store.reader import load_records
 
     everything = load_records(args.file)
     records = [r for r in everything if r["status"] != STATUS_INCOMPLETE]
@@ -73,7 +75,7 @@ def run(args) -> int:
             raise UserError("--run: a work-precision diagram shows every run of a case; use --case")
         case = pick_case(records, args.case, args.file)
         error = pick_error(records, case, args.error)
-        costs = ("wall", "evals") if args.cost == "both" else (args.cost,)
+        costs = ("wall", "force") if args.cost == "both" else (args.cost,)
         if not any(analysis.work_points(records, case, error, c) for c in costs):
             what = " or ".join(analysis.COSTS[c][1] for c in costs)
             raise UserError(f"case '{case}' has no ok run with both a {error} error and a {what}")

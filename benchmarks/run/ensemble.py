@@ -35,9 +35,11 @@ from topdrift.benchmarks.run.runner import (
     make_run_id,
     run_attrs,
 )
-from topdrift.benchmarks.run.sampling import S_ENERGY, S_P_PHI, S_P_PSI, SampleBuffers
-from topdrift.benchmarks.store.writer import FAILED, OK, RunGroup, ensure_room
-from topdrift.integrators import C_EVALS, C_STEPS, ST_OK, ST_SINGULAR
+from topdrift.benchmarks.run.sampling import S_ENERGY, S_KOV, S_P_PHI, S_P_PSI, SampleBuffers
+from topdrift.benchmarks.store.failures import ensure_room
+from topdrift.benchmarks.store.format import FAILED, OK
+from topdrift.benchmarks.store.writer import RunGroup
+from topdrift.integrators import C_EVALS, C_FORCE_EVALS, C_STEPS, ST_OK, ST_SINGULAR
 from topdrift.integrators.ensemble import EnsembleStepper
 
 MAX_MEMBERS = 100_000
@@ -141,7 +143,13 @@ class _EnsembleRun(SampledRun):
         self.pending: list[dict] = []
         self.first: dict[str, np.ndarray] = {}
         self.scale: dict[str, np.ndarray] = {}
-        self.worst = dict.fromkeys(_FOLLOWED, 0.0)
+        body = plan.case.body
+        self.p_psi = body.lagrange_top  # p_psi is an invariant of the body
+        self.kovalevskaya = body.kovalevskaya  # and Kovalevskaya's integral is
+        self.followed = dict(_FOLLOWED)
+        if self.kovalevskaya:
+            self.followed["kovalevskaya"] = S_KOV
+        self.worst = dict.fromkeys(self.followed, 0.0)
         self.spreads: list[float] = []
         self.alive = np.ones(ep.members, dtype=bool)
 
@@ -192,7 +200,7 @@ class _EnsembleRun(SampledRun):
         m, buf = self.members, self.buf
         for j in range(m):
             buf.record(self.form, self.ens.y[j], self.params, j)
-        now = {name: buf.scal[:m, col].copy() for name, col in _FOLLOWED.items()}
+        now = {name: buf.scal[:m, col].copy() for name, col in self.followed.items()}
         axes = buf.axis[:m].copy()
         if start:
             self.first = {name: v.copy() for name, v in now.items()}
@@ -200,13 +208,17 @@ class _EnsembleRun(SampledRun):
             l0[l0 == 0.0] = 1.0
             e0 = self.first["energy"]
             self.scale = {"energy": np.where(e0 == 0.0, 1.0, np.abs(e0)), "p_phi": l0, "p_psi": l0}
+            if self.kovalevskaya:
+                k0 = self.first["kovalevskaya"]
+                self.scale["kovalevskaya"] = np.where(k0 == 0.0, 1.0, np.abs(k0))
         self.alive = self.ens.status == ST_OK
-        for name in _FOLLOWED:
+        for name in self.followed:
             dev = np.abs(now[name] - self.first[name]) / self.scale[name]
             self.worst[name] = max(self.worst[name], float(np.max(np.where(self.alive, dev, 0.0))))
         spread = _axis_spread(axes[self.alive]) if self.alive.any() else math.nan
         self.spreads.append(spread)
-        own = {k: v.copy() for k, v in buf.rows_of(0).items()}  # member 0: the run's datasets
+        # member 0: the run's datasets
+        own = {k: v.copy() for k, v in buf.rows_of(0, kovalevskaya=self.kovalevskaya).items()}
         self.pending.append(
             {
                 "t": np.array([tk]),
@@ -225,7 +237,9 @@ class _EnsembleRun(SampledRun):
         return {
             "energy_rel_max": self.worst["energy"],
             "p_phi_rel_max": self.worst["p_phi"],
-            "p_psi_rel_max": self.worst["p_psi"],
+            # only invariants of the body are metrics (run/metrics.py)
+            "p_psi_rel_max": self.worst["p_psi"] if self.p_psi else None,
+            "kovalevskaya_rel_max": self.worst.get("kovalevskaya"),
             "axis_spread_final": self.spreads[-1],
             "axis_spread_max": float(np.nanmax(self.spreads)),
             "members": self.members,
@@ -233,6 +247,7 @@ class _EnsembleRun(SampledRun):
             "steps": self.steps(),
             "member_steps": member_steps,
             "rhs_evals": int(counters[:, C_EVALS].sum()),
+            "force_evals": int(counters[:, C_FORCE_EVALS].sum()),
             "rejected": 0,
             "wall_s": self.wall,
             "ns_per_step": self.wall / member_steps * 1e9 if member_steps else None,
@@ -255,7 +270,15 @@ def execute_ensemble(
     attrs = run_attrs(plan)
     attrs.update(ensemble_members=ep.members, ensemble_spread=ep.spread, ensemble_seed=ep.seed)
     run = _EnsembleRun(ep)  # compiles the kernel before the group exists and any clock starts
-    group = RunGroup.create(f, ep.run_id, attrs, ep.starts.shape[1], False, plan.samples)
+    group = RunGroup.create(
+        f,
+        ep.run_id,
+        attrs,
+        ep.starts.shape[1],
+        False,
+        plan.samples,
+        kovalevskaya=run.kovalevskaya,
+    )
     group.add_datasets(_ensemble_rows(ep.members), max(1, min(BATCH, plan.samples)))
     run.group = group
     end = sample_loop(run, progress=progress, stop=stop, flush_every=flush_every) or Outcome(OK)

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import h5py
 
 from topdrift.benchmarks.run.runner import RunPlan, execute
-from topdrift.benchmarks.store.writer import FORMAT, FORMAT_VERSION, attr_str
+from topdrift.benchmarks.store.format import FORMAT, FORMAT_VERSION, attr_str
 
 
 @dataclass

@@ -7,7 +7,7 @@ between the kinds (how they advance, what a sample holds, what a write adds: a c
 exact solution) is the kind's; the order of advancing, recording, writing and stopping is here,
 once.
 
-The run's status is one of the store's labels (store.writer.STATUSES); a stepper's status code
+The run's status is one of the store's labels (store.format.STATUSES); a stepper's status code
 (integrators.ST_*) maps to one by `stepper_outcome`.
 """
 
@@ -18,7 +18,8 @@ import time
 from abc import ABC, abstractmethod
 from dataclasses import dataclass
 
-from topdrift.benchmarks.store.writer import DIVERGED, FAILED, INTERRUPTED, SINGULAR, RunGroup
+from topdrift.benchmarks.store.format import DIVERGED, FAILED, INTERRUPTED, SINGULAR
+from topdrift.benchmarks.store.writer import RunGroup
 from topdrift.integrators import (
     ST_DIVERGED,
     ST_NO_CONVERGENCE,

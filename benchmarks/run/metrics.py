@@ -5,9 +5,15 @@ holds them and a resumed run ends with the same numbers as an uninterrupted one.
 
 Scales: energy errors are relative to |E0|; the momentum errors p_phi and p_psi are relative to
 |L0|, the norm of the start's angular momentum, since p_phi = L.e_z and p_psi = L.e3 are
-projections of L and either may start at zero. A start with E0 = 0 (or L0 = 0) falls back to a
-scale built from the start's kinetic and potential energy magnitudes (or to 1 kg m^2/s), so that
-no metric is a division by zero.
+projections of L and either may start at zero; Kovalevskaya's integral relative to its start
+value K0. A start with E0 = 0 (or L0 = 0, K0 = 0) falls back to a scale built from the start's
+kinetic and potential energy magnitudes (or to 1 kg m^2/s, or to (|w|^2 + M g |chi| / I3)^2), so
+that no metric is a division by zero.
+
+Only invariants of the body are metrics: energy and p_phi always (gravity is along e_z), p_psi
+only for a Lagrange top (I1 = I2, centre of mass on axis 3; for any other body L.e3 changes as
+the physics says, and its "error" would be a number that means nothing), Kovalevskaya's integral
+only for a Kovalevskaya top. A metric that is no invariant of the body is null.
 """
 
 from __future__ import annotations
@@ -16,7 +22,7 @@ import math
 
 import numpy as np
 
-from topdrift.benchmarks.run.sampling import S_ENERGY, S_NORM, S_P_PHI, S_P_PSI
+from topdrift.benchmarks.run.sampling import S_ENERGY, S_KOV, S_NORM, S_P_PHI, S_P_PSI
 
 # Running maxima, in this order, in the accumulator's array.
 MAX_NAMES = (
@@ -28,26 +34,40 @@ MAX_NAMES = (
     "theta_abs_max",
     "phi_abs_max",
     "psi_abs_max",
+    "kovalevskaya_rel_max",
 )
 _EXACT_NAMES = ("axis_angle_max", "theta_abs_max", "phi_abs_max", "psi_abs_max")
 
 METRIC_NAMES = MAX_NAMES + (
     "steps",
     "rhs_evals",
+    "force_evals",
     "rejected",
     "wall_s",
     "cpu_s",
     "ns_per_step",
     "energy_drift_exponent",
+    "energy_drift_window",
+    "energy_drift_unknown",
+    "fastest_period",
+    "slowest_period",
     "t_fail",
 )
 
 # The drift law is fitted over the last DRIFT_DECADES decades of sample times, on
 # DRIFT_POINTS log-spaced times, so that each decade weighs the same (uniform samples would
-# otherwise put nine tenths of the weight in the last decade).
+# otherwise put nine tenths of the weight in the last decade). The window starts no earlier than
+# DRIFT_SKIP_PERIODS of the slowest motion the error can follow (benchmarks/cases/timescales.py):
+# a bounded error reaches its plateau only after about one such period, and before that every
+# error grows, whatever the method. A window shorter than DRIFT_MIN_DECADES, or holding fewer
+# than DRIFT_MIN_SAMPLES distinct samples, gives no law ("unknown", with the reason): so a law
+# needs a horizon of at least 20 slowest periods.
 DRIFT_DECADES = 2.0
+DRIFT_MIN_DECADES = 1.0
+DRIFT_SKIP_PERIODS = 2.0
 DRIFT_POINTS = 24
 DRIFT_MIN_POINTS = 3
+DRIFT_MIN_SAMPLES = 8
 
 
 def wrapped(d: np.ndarray) -> np.ndarray:
@@ -76,6 +96,9 @@ class Accumulator:
         l_scale: float,
         has_exact: bool,
         has_norm: bool,
+        has_p_psi: bool = True,
+        kov0: float = math.nan,
+        kov_scale: float = math.nan,
     ):
         self.e0 = float(e0)
         self.e_scale = float(e_scale)
@@ -84,7 +107,14 @@ class Accumulator:
         self.l_scale = float(l_scale)
         self.has_exact = bool(has_exact)
         self.has_norm = bool(has_norm)
+        self.has_p_psi = bool(has_p_psi)  # p_psi is an invariant of the body (a Lagrange top)
+        self.kov0 = float(kov0)  # NaN unless the body is a Kovalevskaya top
+        self.kov_scale = float(kov_scale)
         self.maxima = np.zeros(len(MAX_NAMES))
+
+    @property
+    def has_kovalevskaya(self) -> bool:
+        return math.isfinite(self.kov0)
 
     @classmethod
     def at_start(
@@ -94,8 +124,11 @@ class Accumulator:
         params: np.ndarray,
         has_exact: bool,
         has_norm: bool,
+        has_p_psi: bool = True,
+        has_kovalevskaya: bool = False,
     ) -> Accumulator:
-        """scal0: the start sample's scalar row; mom0: its body angular momentum."""
+        """scal0: the start sample's scalar row; mom0: its body angular momentum. has_p_psi and
+        has_kovalevskaya say which of those are invariants of the body."""
         from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 
         e0 = float(scal0[S_ENERGY])
@@ -110,6 +143,14 @@ class Accumulator:
             e_scale = kin + math.hypot(params[P_MGX], params[P_MGY], params[P_MGZ])
             if e_scale == 0.0:
                 e_scale = 1.0
+        kov0 = kov_scale = math.nan
+        if has_kovalevskaya:
+            kov0 = float(scal0[S_KOV])
+            kov_scale = abs(kov0)
+            if not kov_scale > 0.0:
+                w2 = float(np.sum((mom0 * params[[P_INV1, P_INV2, P_INV3]]) ** 2))
+                c = math.hypot(params[P_MGX], params[P_MGY]) * params[P_INV3]
+                kov_scale = (w2 + c) ** 2 or 1.0
         return cls(
             e0,
             e_scale,
@@ -118,6 +159,9 @@ class Accumulator:
             l0 if l0 > 0.0 else 1.0,
             has_exact,
             has_norm,
+            has_p_psi,
+            kov0,
+            kov_scale,
         )
 
     def update(
@@ -136,6 +180,8 @@ class Accumulator:
         m[1] = max(m[1], float(np.max(np.abs(scal[:, S_P_PHI] - self.p_phi0))) / self.l_scale)
         m[2] = max(m[2], float(np.max(np.abs(scal[:, S_P_PSI] - self.p_psi0))) / self.l_scale)
         m[3] = max(m[3], float(np.max(np.abs(scal[:, S_NORM] - 1.0))))
+        if self.has_kovalevskaya:
+            m[8] = max(m[8], float(np.max(np.abs(scal[:, S_KOV] - self.kov0))) / self.kov_scale)
         if self.has_exact and exact_euler is not None and exact_axis is not None:
             m[4] = max(m[4], float(np.max(axis_angle(axis, exact_axis))))
             m[5] = max(m[5], float(np.max(np.abs(euler[:, 1] - exact_euler[:, 1]))))
@@ -154,6 +200,9 @@ class Accumulator:
             "l_scale": self.l_scale,
             "has_exact": int(self.has_exact),
             "has_norm": int(self.has_norm),
+            "has_p_psi": int(self.has_p_psi),
+            "kov0": self.kov0,
+            "kov_scale": self.kov_scale,
             "maxima": self.maxima.copy(),
         }
 
@@ -167,6 +216,9 @@ class Accumulator:
             s["l_scale"],
             bool(s["has_exact"]),
             bool(s["has_norm"]),
+            bool(s["has_p_psi"]),
+            float(s["kov0"]),
+            float(s["kov_scale"]),
         )
         acc.maxima[:] = np.asarray(s["maxima"], dtype=np.float64)
         return acc
@@ -178,40 +230,89 @@ class Accumulator:
                 out[name] = None
             elif name == "norm_abs_max" and not self.has_norm:
                 out[name] = None  # the Euler form carries no quaternion to drift
+            elif name == "p_psi_rel_max" and not self.has_p_psi:
+                out[name] = None  # L.e3 is no invariant of this body
+            elif name == "kovalevskaya_rel_max" and not self.has_kovalevskaya:
+                out[name] = None
             else:
                 out[name] = float(v)
         return out
 
 
-def drift_exponent(t: np.ndarray, e_rel: np.ndarray) -> float | None:
-    """Slope of log(running max of e_rel) against log(t) over the last two decades of samples.
+def drift_fit(
+    t: np.ndarray, e_rel: np.ndarray, slowest: float | None = None, slowest_what: str = ""
+) -> tuple[float | None, list[float] | None, str | None]:
+    """(exponent, [t_lo, t_end], reason): the slope of log(running max of e_rel) against log(t)
+    over the window, or None and the reason when the window cannot carry a law.
 
-    About 0 for a bounded error, 0.5 for a random walk (round-off), 1 for linear drift.
-    The fit is least squares on DRIFT_POINTS log-spaced times in [t_end / 100, t_end], each
-    taking the running maximum at the last sample not after it. A running maximum that is zero
-    throughout the window (the invariant kept to the bit) counts as bounded: 0. Zeros at the start
-    of the window are dropped (their log is undefined); fewer than three usable points: None.
-    """
+    About 0 for a bounded error, 0.5 for a random walk (round-off), 1 for linear drift. The window
+    is the last DRIFT_DECADES decades of the samples, starting no earlier than the first sample
+    after t = 0 and no earlier than DRIFT_SKIP_PERIODS slowest periods (`slowest`, s; None or
+    inf when unknown: not used); it must span DRIFT_MIN_DECADES and hold DRIFT_MIN_SAMPLES
+    distinct samples. The fit is least squares on DRIFT_POINTS log-spaced times in the window,
+    each taking the running maximum at the last sample not after it. A running maximum that is
+    zero throughout the window (the invariant kept to the bit) counts as bounded: 0. Zeros at the
+    start of the window are dropped (their log is undefined)."""
     t = np.asarray(t, dtype=np.float64)
     e = np.asarray(e_rel, dtype=np.float64)
+    run = np.maximum.accumulate(e) if e.size else e
     keep = t > 0.0
-    t, e = t[keep], e[keep]
+    t, run = t[keep], run[keep]
     if t.size < DRIFT_MIN_POINTS:
-        return None
-    run = np.maximum.accumulate(e)
+        return None, None, f"{t.size} sample(s) after t = 0: too few for a fit"
     t_end = float(t[-1])
     t_lo = max(float(t[0]), t_end * 10.0 ** (-DRIFT_DECADES))
+    skip = 0.0
+    if slowest is not None and slowest > 0.0:
+        if not math.isfinite(slowest):
+            return None, None, f"the {slowest_what or 'slowest motion'} never repeats"
+        skip = DRIFT_SKIP_PERIODS * slowest
+    if t_end < max(t_lo, skip) * 10.0**DRIFT_MIN_DECADES:
+        if skip > t_lo:
+            what = slowest_what or "slowest motion"
+            need = DRIFT_SKIP_PERIODS * 10.0**DRIFT_MIN_DECADES
+            return (
+                None,
+                None,
+                f"the horizon {t_end:.3g} s holds {t_end / slowest:.3g} periods of the "
+                f"{what} ({slowest:.3g} s); a growth law needs at least {need:g}",
+            )
+        return (
+            None,
+            None,
+            f"the samples after t = 0 span {math.log10(t_end / t_lo):.2g} decades; a growth law "
+            f"needs {DRIFT_MIN_DECADES:g}",
+        )
+    t_lo = max(t_lo, skip)
     targets = np.geomspace(t_lo, t_end, DRIFT_POINTS)
     idx = np.unique(np.clip(np.searchsorted(t, targets, side="right") - 1, 0, t.size - 1))
+    idx = idx[t[idx] >= t_lo * (1.0 - 1e-12)]  # the sample at or before t_lo may lie before it
+    window = [t_lo, t_end]
+    if idx.size < DRIFT_MIN_SAMPLES:
+        return (
+            None,
+            None,
+            f"{idx.size} distinct samples between {t_lo:.3g} s and {t_end:.3g} s: too coarse a "
+            f"sampling for a fit (at least {DRIFT_MIN_SAMPLES})",
+        )
     tw, mw = t[idx], run[idx]
     if not np.any(mw > 0.0):
-        return 0.0
+        return 0.0, window, None
     pos = mw > 0.0
     tw, mw = tw[pos], mw[pos]
     if tw.size < DRIFT_MIN_POINTS or tw[0] == tw[-1]:
-        return None
+        return None, None, "the error is zero in all but a few samples of the window"
     slope = np.polyfit(np.log(tw), np.log(mw), 1)[0]
-    return float(slope)
+    return float(slope), window, None
+
+
+def drift_exponent(t: np.ndarray, e_rel: np.ndarray, slowest: float | None = None) -> float | None:
+    """The exponent of drift_fit alone (None when no law can be fitted)."""
+    return drift_fit(t, e_rel, slowest)[0]
+
+
+def _finite_or_none(v) -> float | None:
+    return float(v) if v is not None and math.isfinite(v) else None
 
 
 def finish(
@@ -222,18 +323,28 @@ def finish(
     t: np.ndarray,
     energy: np.ndarray,
     t_fail: float | None,
+    scales=None,
 ) -> dict:
-    """The metrics of a run from its accumulator, counters, timing and energy samples."""
-    from topdrift.integrators import C_EVALS, C_REJECTED, C_STEPS
+    """The metrics of a run from its accumulator, counters, timing and energy samples; scales
+    (cases/timescales.Timescales, or None) bounds the drift fit's window and is recorded."""
+    from topdrift.integrators import C_EVALS, C_FORCE_EVALS, C_REJECTED, C_STEPS
 
     steps = int(counters[C_STEPS])
     out = acc.maxima_dict()
     out["steps"] = steps
     out["rhs_evals"] = int(counters[C_EVALS])
+    out["force_evals"] = int(counters[C_FORCE_EVALS])
     out["rejected"] = int(counters[C_REJECTED])
     out["wall_s"] = float(wall_s)
     out["cpu_s"] = float(cpu_s)
     out["ns_per_step"] = float(wall_s * 1e9 / steps) if steps > 0 else None
-    out["energy_drift_exponent"] = drift_exponent(t, acc.energy_rel(energy)) if len(t) else None
+    slowest = None if scales is None else scales.slowest
+    what = "" if scales is None else scales.slowest_what
+    exponent, window, reason = drift_fit(t, acc.energy_rel(energy), slowest, what)
+    out["energy_drift_exponent"] = exponent
+    out["energy_drift_window"] = window
+    out["energy_drift_unknown"] = reason
+    out["fastest_period"] = None if scales is None else _finite_or_none(scales.fastest)
+    out["slowest_period"] = None if scales is None else _finite_or_none(scales.slowest)
     out["t_fail"] = None if t_fail is None or math.isnan(t_fail) else float(t_fail)
     return out

@@ -20,7 +20,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from topdrift.benchmarks.cases.schema import LARGEST, MAX_SAMPLES, SMALLEST
-from topdrift.benchmarks.cases.time_scales import fastest_rate
+from topdrift.benchmarks.cases.time_scales import Timescales, fastest_rate, timescales
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.loop import (
     STOPPED,
@@ -32,20 +32,34 @@ from topdrift.benchmarks.run.loop import (
     stepper_outcome,
 )
 from topdrift.benchmarks.run.metrics import Accumulator, finish
-from topdrift.benchmarks.run.sampling import S_ENERGY, SampleBuffers
-from topdrift.benchmarks.store.writer import (
+from topdrift.benchmarks.run.sampling import N_SCALARS, S_ENERGY, SampleBuffers
+from topdrift.benchmarks.store.failures import NoRoom, damage_is_an_error, ensure_room
+from topdrift.benchmarks.store.format import (
     CHUNK_ROWS,
     DIVERGED,
+    EXACT_DATASETS,
     FAILED,
     INTERRUPTED,
     OK,
     RUNNING,
-    NoRoom,
+    SAMPLE_DATASETS,
+    STATE_DATASET,
+    first_line,
+)
+from topdrift.benchmarks.store.reader import check_run_samples
+from topdrift.benchmarks.store.writer import (
     RunGroup,
-    ensure_room,
     utc_now,
 )
-from topdrift.integrators import C_STEPS, ST_OK, Method, MethodRefused, Stepper, whole_steps
+from topdrift.integrators import (
+    C_STEPS,
+    N_COUNTERS,
+    ST_OK,
+    Method,
+    MethodRefused,
+    Stepper,
+    whole_steps,
+)
 from topdrift.integrators import get as get_method
 from topdrift.models import FORM_EULER, FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
 
@@ -82,6 +96,7 @@ class RunPlan:
     run_id: str
     notes: list[str] = field(default_factory=list)
     start_singular: str = ""  # why the start has no state in this form (the pole)
+    scales: Timescales | None = None  # the case's fastest and slowest periods
 
     @property
     def form_code(self) -> int:
@@ -105,6 +120,13 @@ class RunResult:
     detail: str = ""
 
 
+class StartFailed(MethodRefused):
+    """The method's kernel raised (a division by zero, an overflow) in the first steps of a run:
+    refused like any run that cannot start, so `topdrift run` says why in one line and exits 2,
+    but told apart from a refusal by the method's own checks. A sweep skips it like a refusal;
+    the regression gate calls a cell that ran before and now ends here "failed", not "refused"."""
+
+
 def _positive(name: str, v) -> float:
     try:
         v = float(v)
@@ -118,6 +140,32 @@ def _positive(name: str, v) -> float:
             f"({SMALLEST:g} to {LARGEST:g} in SI units)"
         )
     return v
+
+
+def samples_at_interval(horizon: float, interval: float) -> int:
+    """The horizon rule, one for every command: a horizon other than the case's keeps the
+    sample interval, not the sample count, so that a fixed step that filled the case's interval
+    fills the new one too (squeezing the case's samples into a shorter horizon would round every
+    step down). The count is the nearest whole number of intervals, at least one; a horizon that
+    is not a whole number of intervals gets a slightly different interval, and the step rounding
+    then says so in the run's notes. An explicit sample count always wins over this rule."""
+    if not (math.isfinite(horizon) and horizon > 0.0):
+        raise UserError(f"--horizon: must be a positive finite number, got {horizon!r}")
+    n = max(2, round(horizon / interval) + 1)
+    if n > MAX_SAMPLES:
+        raise UserError(
+            f"--horizon {horizon:g} at a sample every {interval:g} s is {n:.3g} samples, more "
+            f"than {MAX_SAMPLES}; give --samples"
+        )
+    return n
+
+
+def samples_for_horizon(case, horizon: float) -> int:
+    """The case's sample count over its own horizon, else the horizon rule (samples_at_interval)
+    at the case's sample interval."""
+    if horizon == case.horizon:
+        return case.samples
+    return samples_at_interval(horizon, case.horizon / (case.samples - 1))
 
 
 def steps_per_interval(interval: float, step: float) -> int:
@@ -182,7 +230,7 @@ def plan_run(
     method = get_method(method_name)
     body = case.body
     horizon = _positive("--horizon", case.horizon if horizon is None else horizon)
-    n = case.samples if samples is None else samples
+    n = samples_for_horizon(case, horizon) if samples is None else samples
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 2:
         raise UserError(f"--samples: need a whole number of at least 2 (t = 0 and T), got {n!r}")
     if n > MAX_SAMPLES:  # the case files' own limit
@@ -237,6 +285,10 @@ def plan_run(
         probe = np.append(horizon * k / (n - 1), horizon)
         exact = _exact_solution(body, form, y0, notes, probe)
     run_id = make_run_id(case.toml_text, method.name, form, settings, horizon, n)
+    scales = timescales(case)
+    alias = aliasing_note(interval, scales)
+    if alias:
+        notes.append(alias)
     plan = RunPlan(
         case,
         method,
@@ -251,17 +303,30 @@ def plan_run(
         run_id,
         notes,
         start_singular,
+        scales,
     )
     try:
         warm_up(plan)  # compiles, and lets start() refuse before any file exists
     except ArithmeticError as exc:
         # A kernel's own division by zero or overflow on this start (numba raises these): a
         # refusal naming it, not a traceback.
-        raise MethodRefused(
+        raise StartFailed(
             f"{method.name}: cannot start on {case.name}: {type(exc).__name__} in the first steps "
             f"({exc})"
         ) from None
     return plan
+
+
+def aliasing_note(interval: float, scales: Timescales) -> str:
+    """The note for samples too far apart to show the fastest motion (more than half its period:
+    the sampling theorem, common practice), or "" when they are not."""
+    if not interval > 0.5 * scales.fastest:
+        return ""
+    return (
+        f"samples every {interval:.3g} s are more than half the fastest period "
+        f"({scales.fastest:.3g} s, {scales.fastest_what}): that motion is aliased in every "
+        "figure drawn from the samples; more --samples show it"
+    )
 
 
 # The most steps one run may take: about 10 hours at 35 ns a step (the fastest kernels, see
@@ -335,10 +400,12 @@ def warm_up(plan: RunPlan) -> None:
 
 
 def _exact_rows(top, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Exact (phi, theta, psi), folded like the computed ones, and the exact figure axis."""
+    """Exact (phi, theta, psi), folded like the computed ones, and the exact figure axis (both
+    from the exact solution's folded angles: no bit is lost to the unfolded ones)."""
     try:
-        e = np.array(top.euler(t), dtype=np.float64).reshape(-1, 3)
-        a = np.array(top.axis(t), dtype=np.float64).reshape(-1, 3)
+        ang = top.folded(t)
+        e = np.column_stack((ang.phi, ang.theta, ang.psi))
+        a = ang.axis()
     except Exception as exc:  # a reference that breaks must end the run loudly, not crash it
         raise ExactFailed(
             f"the exact solution failed for t in [{t[0]:.6g}, {t[-1]:.6g}]: "
@@ -347,8 +414,6 @@ def _exact_rows(top, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     if not (np.all(np.isfinite(e)) and np.all(np.isfinite(a))):
         bad = t[~(np.all(np.isfinite(e), axis=1) & np.all(np.isfinite(a), axis=1))]
         raise ExactFailed(f"the exact solution is not finite at t = {bad[0]:.17g}")
-    e[:, 0] = np.arctan2(np.sin(e[:, 0]), np.cos(e[:, 0]))
-    e[:, 2] = np.arctan2(np.sin(e[:, 2]), np.cos(e[:, 2]))
     return e, a
 
 
@@ -443,12 +508,45 @@ class _Run(SampledRun):
             }
         )
 
-    def restore(self) -> None:
-        cp = self.group.read_checkpoint()
-        if cp is None or "run" not in cp:
-            raise UserError(f"run {self.plan.run_id}: no checkpoint to resume from; use --force")
+    def restore(self, truncate: bool = True) -> None:
+        """Everything a resume reads, read and checked before anything is written: the
+        checkpoint, the stored samples up to it (read through, so that a damaged chunk refuses
+        the resume while the file is as it was), and only then the rows past it dropped
+        (unless truncate is False: check_resume on a file open for reading)."""
         p = self.plan
+        where = f"{self.group.f.filename}: run {p.run_id}"
+        with damage_is_an_error(self.group.f.filename):
+            cp = self.group.read_checkpoint()
+        if cp is None or "run" not in cp:
+            raise UserError(f"{where}: no checkpoint to resume from; use --force")
+        try:
+            self._restore_from(cp)
+        except (KeyError, ValueError, TypeError, IndexError) as exc:
+            # What a checkpoint of another method or layout, or a damaged one, gives.
+            raise UserError(
+                f"{where}: the checkpoint cannot be restored ({type(exc).__name__}: "
+                f"{first_line(exc)}); use --force to run it again"
+            ) from None
+        self._check_rows()
+        check_run_samples(self.group.f, p.run_id)
+        if truncate:
+            self.group.truncate(self.k)
+
+    def _restore_from(self, cp: dict) -> None:
+        p = self.plan
+        counters = np.asarray(cp["run"].get("counters", ()))
+        if counters.shape != (N_COUNTERS,):
+            # Checkpoints of topdrift before the force-evaluation counter hold 3 counters. The
+            # missing count cannot be made up afterwards (for a splitting it is not a fixed
+            # share of the evaluations), so such a run is not continued with a wrong one.
+            raise UserError(
+                f"run {p.run_id}: its checkpoint holds {counters.size} counters, this topdrift "
+                f"keeps {N_COUNTERS} (force evaluations were added): it was written by an older "
+                "version and cannot be resumed; run it again with --force"
+            )
         self.k = int(cp["run"]["sample"])
+        if not 1 <= self.k <= p.samples:
+            raise ValueError(f"sample {self.k} is not between 1 and {p.samples}")
         self.wall = float(cp["run"]["wall_s"])
         self.cpu = float(cp["run"].get("cpu_s", 0.0))
         self.stepper = self.fresh_stepper()
@@ -457,8 +555,22 @@ class _Run(SampledRun):
         if not (
             self.stepper.t == cp["run"]["t"] and np.array_equal(self.stepper.y, cp["run"]["y"])
         ):
-            raise UserError(f"run {p.run_id}: the stepper did not restore its checkpoint exactly")
+            raise ValueError("the stepper did not restore its checkpoint exactly")
         self.acc = Accumulator.from_state(cp["metrics"])
+
+    def _check_rows(self) -> None:
+        p = self.plan
+        where = f"{self.group.f.filename}: run {p.run_id}"
+        present = self.group.datasets()
+        needed = [*SAMPLE_DATASETS, STATE_DATASET, *(EXACT_DATASETS if p.exact is not None else ())]
+        missing = [name for name in needed if name not in present]
+        if p.exact is None and any(name in present for name in EXACT_DATASETS):
+            raise UserError(f"{where}: holds exact-solution datasets its case does not have")
+        if missing:
+            raise UserError(
+                f"{where}: dataset '{missing[0]}' is missing; the file lost samples: use --force "
+                "to run it again"
+            )
         # Rows past the checkpoint are dropped; rows missing before it (a file damaged after
         # its last flush) would leave a gap that appending cannot mend.
         short = {
@@ -467,10 +579,9 @@ class _Run(SampledRun):
         if short:
             name, rows = next(iter(short.items()))
             raise UserError(
-                f"run {p.run_id}: the checkpoint is at sample {self.k} but dataset '{name}' holds "
+                f"{where}: the checkpoint is at sample {self.k} but dataset '{name}' holds "
                 f"{rows} rows; the file lost samples: use --force to run it again"
             )
-        self.group.truncate(self.k)
 
     # The loop's side of a single run (see loop.SampledRun).
 
@@ -487,8 +598,15 @@ class _Run(SampledRun):
         buf.t[0] = 0.0
         if not buf.record(form, s.y, self.plan.params, 0):
             raise UserError(f"{self.plan.case.name}: the start state is not finite")
+        body = self.plan.case.body
         self.acc = Accumulator.at_start(
-            buf.scal[0], buf.mom[0], self.plan.params, self.has_exact, form != FORM_EULER
+            buf.scal[0],
+            buf.mom[0],
+            self.plan.params,
+            self.has_exact,
+            form != FORM_EULER,
+            has_p_psi=body.lagrange_top,
+            has_kovalevskaya=body.kovalevskaya,
         )
         self.k = 1
         return 1
@@ -523,12 +641,12 @@ class _Run(SampledRun):
         # and rewrites the last, partly filled chunk of every dataset (compressed, perhaps at a
         # new place in the file), plus the checkpoint: rows + one chunk of rows, uncompressed,
         # bound it.
-        row_bytes = 8 * (buf.state.shape[1] + 3 + 4 + 3 + 4 + (6 if self.has_exact else 0))
+        row_bytes = 8 * (buf.state.shape[1] + 3 + 4 + 3 + N_SCALARS + (6 if self.has_exact else 0))
         rows = j + min(CHUNK_ROWS, self.samples)
         ensure_room(self.group.f, rows * row_bytes + 64 * 1024, f"the samples up to {self.k}")
         if j:
             tb = buf.t[:j].copy()
-            batch = {"t": tb, **buf.rows_of(0, j)}
+            batch = {"t": tb, **buf.rows_of(0, j, kovalevskaya=self.acc.has_kovalevskaya)}
             ee = ea = None
             if self.has_exact:
                 try:
@@ -593,7 +711,16 @@ class _Run(SampledRun):
         g = self.group.g
         t = g["t"][()]
         energy = g["invariants/energy"][()]
-        return finish(self.acc, self.stepper.counters, self.wall, self.cpu, t, energy, t_fail)
+        acc, counters = self.acc, self.stepper.counters
+        return finish(acc, counters, self.wall, self.cpu, t, energy, t_fail, self.plan.scales)
+
+
+def check_resume(plan: RunPlan, f) -> None:
+    """Every check a resume of plan makes (its checkpoint restores exactly, the stored samples
+    up to it are all there and readable), on a file open for reading. The command line calls
+    this before it opens the file for writing, so that a refused resume leaves the file byte
+    for byte as it was (HDF5 may write into a file it only opens for writing)."""
+    _Run(plan, RunGroup(f, plan.run_id), StopFlag(), None).restore(truncate=False)
 
 
 def execute(
@@ -616,7 +743,15 @@ def execute(
         group.flush()
     else:
         has_exact = plan.exact is not None
-        group = RunGroup.create(f, plan.run_id, run_attrs(plan), width, has_exact, plan.samples)
+        group = RunGroup.create(
+            f,
+            plan.run_id,
+            run_attrs(plan),
+            width,
+            has_exact,
+            plan.samples,
+            kovalevskaya=plan.case.body.kovalevskaya,
+        )
         run = _Run(plan, group, stop, progress)
         run.stepper = run.fresh_stepper()
     try:

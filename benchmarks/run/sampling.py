@@ -16,6 +16,7 @@ from numba import njit
 from topdrift.models.forms import FORM_BODY, FORM_EULER, FORM_SIZE, body_to_euler, euler_to_body
 from topdrift.models.invariants import (
     INV_ENERGY,
+    INV_KOV,
     INV_NORM,
     INV_P_PHI,
     INV_P_PSI,
@@ -29,7 +30,9 @@ S_ENERGY = 0
 S_P_PHI = 1
 S_P_PSI = 2
 S_NORM = 3
-N_SCALARS = 4
+S_KOV = 4  # Kovalevskaya's integral (NaN unless the body has chi off axis 3; stored only for
+# Kovalevskaya tops, where it is an invariant)
+N_SCALARS = 5
 
 
 @njit(cache=True)
@@ -89,6 +92,7 @@ def record_sample(form, y, p, j, state, euler, quat, mom, axis, scal, ye, yb, in
     scal[j, S_P_PHI] = inv[INV_P_PHI]
     scal[j, S_P_PSI] = inv[INV_P_PSI]
     scal[j, S_NORM] = inv[INV_NORM]
+    scal[j, S_KOV] = inv[INV_KOV]
     return math.isfinite(inv[INV_ENERGY])
 
 
@@ -127,11 +131,14 @@ class SampleBuffers:
             self.inv,
         )
 
-    def rows_of(self, j: int, stop: int | None = None) -> dict[str, np.ndarray]:
+    def rows_of(
+        self, j: int, stop: int | None = None, kovalevskaya: bool = False
+    ) -> dict[str, np.ndarray]:
         """Rows [j, stop) as the run group's sample datasets (state, angles, quaternion,
-        momentum and invariants; the time is the caller's), views into the buffers."""
+        momentum and invariants, Kovalevskaya's integral where asked for; the time is the
+        caller's), views into the buffers."""
         stop = j + 1 if stop is None else stop
-        return {
+        rows = {
             "state": self.state[j:stop],
             "euler": self.euler[j:stop],
             "quaternion": self.quat[j:stop],
@@ -141,3 +148,6 @@ class SampleBuffers:
             "invariants/p_psi": self.scal[j:stop, S_P_PSI],
             "invariants/norm": self.scal[j:stop, S_NORM],
         }
+        if kovalevskaya:  # only for a Kovalevskaya top, where it is an invariant
+            rows["invariants/kovalevskaya"] = self.scal[j:stop, S_KOV]
+        return rows

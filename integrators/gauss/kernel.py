@@ -25,6 +25,7 @@ from numba import njit
 
 from topdrift.integrators.base import (
     C_EVALS,
+    C_FORCE_EVALS,
     C_STEPS,
     ST_DIVERGED,
     ST_NO_CONVERGENCE,
@@ -117,6 +118,7 @@ def gauss_steps(
         else:
             rhs(form, y, p, dy)
             counters[C_EVALS] += 1
+            counters[C_FORCE_EVALS] += 1
             for i in range(s):
                 for k in range(n):
                     zz[i * n + k] = c[i] * h * dy[k]
@@ -143,6 +145,7 @@ def gauss_steps(
                 for k in range(n):
                     f[i * n + k] = dy[k]
             counters[C_EVALS] += s
+            counters[C_FORCE_EVALS] += s
             sweeps += 1
             delta = 0.0
             zmax = 0.0
@@ -222,6 +225,7 @@ def gauss_steps(
                     f[i * n + k] = dy[k]
                 evals += 1
         counters[C_EVALS] += evals
+        counters[C_FORCE_EVALS] += evals
         iters[I_ROUNDING] += evals
         # Update, with the derivatives at the rounded stages.
         finite = True

@@ -2,8 +2,9 @@
 
 Source: J. C. Butcher, "Implicit Runge-Kutta processes", Math. Comp. 18 (1964) 50-64; the same
 tables are printed in E. Hairer, G. Wanner, Solving Ordinary Differential Equations II, sec. IV.5
-(Tables 5.1 and 5.2), and in E. Hairer, C. Lubich, G. Wanner, Geometric Numerical Integration,
-sec. II.1.3. The nodes c_i are the zeros of the shifted Legendre polynomial of degree s on [0, 1].
+[from memory] (Tables 5.1 and 5.2), and in E. Hairer, C. Lubich, G. Wanner, Geometric Numerical
+Integration, sec. II.1.3 [from memory]. The nodes c_i are the zeros of the shifted Legendre
+polynomial of degree s on [0, 1].
 
 Every entry is r + s * sqrt(d) with rationals r, s and one radicand d per table (3 for two stages,
 15 for three), evaluated once in 40-digit decimal arithmetic. The nodes c are rounded to the

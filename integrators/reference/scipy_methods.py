@@ -11,7 +11,8 @@ step sequence.
 Counters. steps: accepted steps (one per OdeSolver.step). evals: every call of the wrapped
 right-hand side, counted by the wrapper itself; this equals scipy's nfev for RK45, DOP853 and
 LSODA, and exceeds it for Radau, whose finite-difference Jacobian calls the function without
-counting it in nfev. DOP853's dense output costs 3 more calls per step that is sampled. rejected:
+counting it in nfev. Every call evaluates the torque: force evaluations are the same count.
+DOP853's dense output costs 3 more calls per step that is sampled. rejected:
 exact for RK45 and DOP853 (every attempt costs n_stages calls, so attempts = calls / n_stages);
 scipy exposes no count for Radau and LSODA, and the counter holds REJECTED_UNKNOWN (-1) there.
 
@@ -30,6 +31,7 @@ import numpy as np
 
 from topdrift.integrators.base import (
     C_EVALS,
+    C_FORCE_EVALS,
     C_REJECTED,
     C_STEPS,
     ST_DIVERGED,
@@ -46,6 +48,13 @@ from topdrift.models import FORM_NAMES, FORM_SIZE
 from topdrift.models.dynamics import rhs, singular
 
 REJECTED_UNKNOWN = -1
+
+# What scipy's solvers keep (the rule: integrators/base.py): Runge-Kutta and linear multistep
+# methods keep linear invariants in exact arithmetic (common practice), so as for our own
+# Runge-Kutta methods (rk/adaptive.py): p_phi and p_psi to the bit in the Euler form (their rate
+# is exactly 0.0 and every update, Newton correction and interpolant of it is 0.0), p_psi to
+# round-off in the body form. Measured, 6 random starts each, tests/test_keeps.py.
+KEEPS_BY_FORM = {"euler": (("p_phi", "p_psi", "norm"), ()), "body": ((), ("p_psi",))}
 
 _FUNCTION_TYPES = (types.FunctionType, types.MethodType, types.BuiltinFunctionType)
 
@@ -118,7 +127,7 @@ class ReferenceStepper(Stepper):
         return int(self.solver.nfev)
 
     def _fail(self, status: int, t_good: float, y_good: np.ndarray, message: str) -> int:
-        self.counters[C_EVALS] = self.calls[0]
+        self.counters[C_EVALS] = self.counters[C_FORCE_EVALS] = self.calls[0]
         self.status = status
         self.t_fail = float(t_good)
         self.t = float(t_good)
@@ -147,7 +156,7 @@ class ReferenceStepper(Stepper):
                     msg = sol.step()
                 except Exception as exc:  # a library failure is a result, not a crash
                     return self._fail(ST_FAILED, t_before, y_before, f"{type(exc).__name__}: {exc}")
-                self.counters[C_EVALS] = self.calls[0]
+                self.counters[C_EVALS] = self.counters[C_FORCE_EVALS] = self.calls[0]
                 if sol.status == "failed":
                     text = str(msg or "")
                     for w in caught:
@@ -168,7 +177,7 @@ class ReferenceStepper(Stepper):
             else:
                 if self.dense is None:
                     self.dense = sol.dense_output()
-                    self.counters[C_EVALS] = self.calls[0]
+                    self.counters[C_EVALS] = self.counters[C_FORCE_EVALS] = self.calls[0]
                 self.y = np.array(self.dense(t_end), dtype=np.float64)
         self.t = t_end
         return ST_OK
@@ -234,6 +243,8 @@ class ReferenceMethod(Method):
             forms=("euler", "body"),
             control="tolerance",
             keeps=(),
+            keeps_roundoff=("p_psi",),
+            keeps_by_form=KEEPS_BY_FORM,
             compensated=False,
             description=f"scipy.integrate.{class_name}: {what}, stepped one step at a "
             f"time with a plain Python right-hand side",

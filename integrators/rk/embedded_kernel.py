@@ -31,6 +31,7 @@ from numba import njit
 
 from topdrift.integrators.base import (
     C_EVALS,
+    C_FORCE_EVALS,
     C_REJECTED,
     C_STEPS,
     ST_DIVERGED,
@@ -188,12 +189,14 @@ def first_derivative(form, p, y, f, counters):
     """f = rhs(y) at the start of a run, counted like every other evaluation."""
     rhs(form, y, p, f)
     counters[C_EVALS] += 1
+    counters[C_FORCE_EVALS] += 1
 
 
 @njit(cache=True)
 def initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counters):
-    """Hairer's starting step (Hairer, Norsett and Wanner, Solving ODEs I, sec. II.4), in the
-    variant of scipy's select_initial_step: f must hold rhs(y); costs one evaluation."""
+    """Hairer's starting step (Hairer, Norsett and Wanner, Solving ODEs I, sec. II.4) [from
+    memory], in the variant of scipy's select_initial_step: f must hold rhs(y); costs one
+    evaluation."""
     n = y.shape[0]
     d0 = 0.0
     d1 = 0.0
@@ -212,6 +215,7 @@ def initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counter
         ytmp[k] = y[k] + h0 * f[k]
     rhs(form, ytmp, p, ftmp)
     counters[C_EVALS] += 1
+    counters[C_FORCE_EVALS] += 1
     d2 = 0.0
     for k in range(n):
         sc = atol + abs(y[k]) * rtol
@@ -235,6 +239,7 @@ def _build_dense(form, p, a, d, cfg, y, yold, K, ytmp, dense, ctrl, counters):
         combine(n, i, a, i * rows, h, yold, K, ytmp)
         rhs(form, ytmp, p, K[i * n : (i + 1) * n])
         counters[C_EVALS] += 1
+        counters[C_FORCE_EVALS] += 1
     knew = ns * n
     for k in range(n):
         dy = y[k] - yold[k]
@@ -317,6 +322,7 @@ def _advance(form, work):
                     break
                 rhs(form, ytmp, p, K[i * n : (i + 1) * n])
             counters[C_EVALS] += ns if fsal_in_err else ns - 1
+            counters[C_FORCE_EVALS] += ns if fsal_in_err else ns - 1
             for k in range(n):
                 ynew[k] = ytmp[k]
             # Error norm.
@@ -371,6 +377,7 @@ def _advance(form, work):
         if not fsal_in_err:
             rhs(form, ynew, p, K[knew : knew + n])
             counters[C_EVALS] += 1
+            counters[C_FORCE_EVALS] += 1
         if singular(form, ynew):
             ctrl[CT_H] = h_abs
             return ST_SINGULAR

@@ -20,15 +20,15 @@ from topdrift.integrators.base import (
     Stepper,
     grid_steps,
 )
+
+# What explicit Runge-Kutta keeps (the rule: integrators/base.py; the reasons beside the table in
+# rk/adaptive.py): p_phi and p_psi to the bit in the Euler form, p_psi to round-off in the body.
+from topdrift.integrators.rk.adaptive import KEEPS_BY_FORM
 from topdrift.integrators.rk.fixed_kernel import explicit_kernel
 from topdrift.integrators.rk.packed import pack
 from topdrift.integrators.rk.tableaux import RK4, Tableau
 from topdrift.integrators.validation import check_snapshot, snapshot_identity, stepper_fields
 from topdrift.models import FORM_SIZE
-
-# Explicit RK keeps p_phi and p_psi exactly in the Euler form only (their rhs is exactly 0.0);
-# in the body form it keeps nothing to round-off, and `keeps` must hold in every form.
-_KEEPS: tuple[str, ...] = ()
 
 
 class FixedStepRK(Method):
@@ -47,7 +47,9 @@ class FixedStepRK(Method):
             symplectic=False,
             forms=("body", "euler"),
             control="step",
-            keeps=_KEEPS,
+            keeps=(),
+            keeps_roundoff=("p_psi",),
+            keeps_by_form=KEEPS_BY_FORM,
             compensated=kahan,
             description=description,
             source=tab.source

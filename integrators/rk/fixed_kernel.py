@@ -13,7 +13,14 @@ import math
 
 from numba import njit
 
-from topdrift.integrators.base import C_EVALS, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGULAR
+from topdrift.integrators.base import (
+    C_EVALS,
+    C_FORCE_EVALS,
+    C_STEPS,
+    ST_DIVERGED,
+    ST_OK,
+    ST_SINGULAR,
+)
 from topdrift.integrators.rk.embedded_kernel import (  # rhs: the inlined switch, see there
     combine,
     rhs,
@@ -36,6 +43,7 @@ def _explicit(form, work):
             combine(n, i, a, i * rows, h, y, K, ytmp)
             rhs(form, ytmp, p, K[i * n : (i + 1) * n])
         counters[C_EVALS] += ns
+        counters[C_FORCE_EVALS] += ns  # every stage evaluates the torque
         finite = True
         combine(n, ns, a, ns * rows, 1.0, None, K, binc)
         for k in range(n):

@@ -57,7 +57,8 @@ def _lower(rows: int, entries: dict[tuple[int, int], object]) -> np.ndarray:
 
 # ---------------------------------------------------------------------------------------------
 # Classical Runge-Kutta method of order 4 (Kutta 1901), as tabulated in Hairer, Norsett and
-# Wanner, Solving Ordinary Differential Equations I, sec. II.1, Table 1.2 ("the" RK method).
+# Wanner, Solving Ordinary Differential Equations I, sec. II.1, Table 1.2 [from memory] ("the" RK
+# method).
 
 RK4 = Tableau(
     name="rk4",
@@ -67,15 +68,18 @@ RK4 = Tableau(
     a=_lower(5, {(1, 0): Fr(1, 2), (2, 1): Fr(1, 2), (3, 2): 1, (4, 0): Fr(1, 6),
                  (4, 1): Fr(1, 3), (4, 2): Fr(1, 3), (4, 3): Fr(1, 6)}),
     b=np.array([_f(Fr(1, 6)), _f(Fr(1, 3)), _f(Fr(1, 3)), _f(Fr(1, 6))]),
-    source="Kutta (1901); Hairer, Norsett and Wanner, Solving ODEs I, sec. II.1, Table 1.2",
+    source=(
+        "Kutta (1901); Hairer, Norsett and Wanner, Solving ODEs I, sec. II.1, Table 1.2 "
+        "[from memory]"
+    ),
 )  # fmt: skip
 
 
 # ---------------------------------------------------------------------------------------------
 # Dormand and Prince (1980), "A family of embedded Runge-Kutta formulae", J. Comput. Appl. Math.
-# 6, 19-26: the 5(4) pair, as in Hairer, Norsett and Wanner, Solving ODEs I, sec. II.5, Table 5.2,
-# and in Hairer's code DOPRI5 (subroutine CDOPRI), whose names a21.., e1.., d1.. are kept below.
-# The dense output is Shampine's (1986, Math. Comp. 46, 135-150) fourth-order continuous
+# 6, 19-26: the 5(4) pair, as in Hairer, Norsett and Wanner, Solving ODEs I, sec. II.5, Table 5.2
+# [from memory], and in Hairer's code DOPRI5 (subroutine CDOPRI), whose names a21.., e1.., d1.. are
+# kept below. The dense output is Shampine's (1986, Math. Comp. 46, 135-150) fourth-order continuous
 # extension, with the d coefficients of DOPRI5.
 
 _DP5_A = {
@@ -105,7 +109,8 @@ DP5 = Tableau(
     b=np.array([_f(_DP5_A.get((6, j), 0)) for j in range(6)]),
     source=(
         "Dormand and Prince (1980), J. Comput. Appl. Math. 6, 19-26; Hairer, Norsett and "
-        "Wanner, Solving ODEs I, sec. II.5, Table 5.2 and Hairer's code DOPRI5; dense output "
+        "Wanner, Solving ODEs I, sec. II.5, Table 5.2 [from memory] and Hairer's code DOPRI5; "
+        "dense output "
         "of Shampine (1986), Math. Comp. 46, 135-150"
     ),
     fsal=True,
@@ -118,9 +123,9 @@ DP5 = Tableau(
 
 # ---------------------------------------------------------------------------------------------
 # DOP853: the 8(5,3) pair of Dormand and Prince as constructed and coded by Hairer (Hairer,
-# Norsett and Wanner, Solving ODEs I, sec. II.10, and the Fortran code DOP853, version of
-# October 11, 2009, subroutine DP86CO), with its seventh-order dense output (three extra stages
-# 14..16 and the rows d4*..d7*). Digits as printed in that code; 1-based names as there.
+# Norsett and Wanner, Solving ODEs I, sec. II.10 [from memory], and the Fortran code DOP853,
+# version of October 11, 2009, subroutine DP86CO), with its seventh-order dense output (three extra
+# stages 14..16 and the rows d4*..d7*). Digits as printed in that code; 1-based names as there.
 
 _DOP853_C = {
     2: "0.526001519587677318785587544488e-01",
@@ -299,7 +304,8 @@ def _dop853() -> Tableau:
         b=b,
         source=(
             "Dormand and Prince 8(5,3) as coded by Hairer: Hairer, Norsett and Wanner, Solving "
-            "ODEs I, sec. II.10 (2nd ed. 1993), and the Fortran code DOP853 (version of "
+            "ODEs I, sec. II.10 [from memory] (2nd ed. 1993), and the Fortran code DOP853 "
+            "(version of "
             "October 11, 2009), with its seventh-order dense output"
         ),
         fsal=True,

@@ -25,7 +25,7 @@ import numpy as np
 
 _HLW = (
     "reprinted in Hairer, Lubich and Wanner, Geometric Numerical Integration, 2nd ed. (2006), "
-    "Sec. V.3.2"
+    "Sec. V.3.2 [from memory]"
 )
 
 

@@ -10,7 +10,8 @@ change the step sequence, so a run sampled often gives the same bits as a run sa
 fresh = 1 means w is a closed state (no step taken yet): the first kick is b_0 h, not the merge.
 
 Kernels call the model kernels by name (flow_a, flow_b, increment_a, increment_b, singular),
-allocate nothing inside the step loop, and count their own steps and sub-flow evaluations.
+allocate nothing inside the step loop, and count their own steps, sub-flow evaluations and, of
+these, the kicks (force evaluations).
 """
 
 from __future__ import annotations
@@ -19,7 +20,14 @@ import math
 
 from numba import njit
 
-from topdrift.integrators.base import C_EVALS, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGULAR
+from topdrift.integrators.base import (
+    C_EVALS,
+    C_FORCE_EVALS,
+    C_STEPS,
+    ST_DIVERGED,
+    ST_OK,
+    ST_SINGULAR,
+)
 from topdrift.models.dynamics import singular
 from topdrift.models.flows import flow_a, flow_b, increment_a, increment_b
 from topdrift.models.forms import FORM_BODY, FORM_EULER
@@ -52,6 +60,7 @@ def _plain_steps(form, p, kick, drift, nsteps, w, first, counters):
     attempted = done + (1 if status != ST_OK else 0)
     counters[C_STEPS] += done
     counters[C_EVALS] += 2 * s * attempted
+    counters[C_FORCE_EVALS] += s * attempted  # the kicks; the other s are free flows
     return status, done
 
 
@@ -114,6 +123,7 @@ def _compensated_steps(form, p, kick, drift, nsteps, w, e, d, first, counters):
     attempted = done + (1 if status != ST_OK else 0)
     counters[C_STEPS] += done
     counters[C_EVALS] += 2 * s * attempted
+    counters[C_FORCE_EVALS] += s * attempted  # the kicks; the other s are free flows
     return status, done
 
 
@@ -139,6 +149,7 @@ def close_plain(form, p, kick, w, fresh, out, counters):
     if fresh[0] == 0:
         flow_b(form, kick[kick.shape[0] - 1], out, p)
         counters[C_EVALS] += 1
+        counters[C_FORCE_EVALS] += 1
 
 
 @njit(cache=True)
@@ -148,6 +159,7 @@ def close_compensated(form, p, kick, w, e, d, fresh, out, counters):
     if fresh[0] == 0:
         increment_b(form, kick[kick.shape[0] - 1], w, p, d)
         counters[C_EVALS] += 1
+        counters[C_FORCE_EVALS] += 1
     else:
         for i in range(n):
             d[i] = 0.0

@@ -44,13 +44,14 @@ from topdrift.integrators.validation import check_snapshot, snapshot_identity, s
 from topdrift.models import FORM_BODY, FORM_SIZE, RigidBody, form_code
 from topdrift.models.body import P_I1, P_I2
 
-# What every splitting here keeps to round-off by construction, in both forms: euler: p_phi
-# and p_psi are never written (the same bits after any number of steps), |q| is 1 trivially;
-# body: both pieces keep L.e_z in exact arithmetic (in the plain variant round-off moves it by
-# about 3e-13 relative over 10^6 steps, tests/test_splitting.py), m3 is never written when the
-# body is symmetric with chi on axis 3 (the only case in which p_psi is an invariant), and
-# the free flow renormalises q every step. Energy is not kept by any splitting, only bounded.
-KEEPS = ("p_phi", "p_psi", "norm")
+# What every splitting here keeps by construction (the rule: integrators/base.py). euler: p_phi
+# and p_psi are never written (the same bits after any number of steps), |q| is 1 trivially.
+# body: m3 is never written when the body is symmetric with chi on axis 3 (the only case in
+# which p_psi is an invariant): to the bit; both pieces keep L.e_z in exact arithmetic and round-
+# off moves it (about 3e-13 relative over 10^6 steps of the plain variant, tests/
+# test_splitting.py), and the free flow renormalises q every step: to round-off. Energy is
+# kept by no splitting, only bounded.
+KEEPS_BY_FORM = {"euler": (("p_phi", "p_psi", "norm"), ()), "body": (("p_psi",), ("p_phi", "norm"))}
 
 
 @dataclass
@@ -223,7 +224,9 @@ class SplittingMethod(Method):
             symplectic=True,
             forms=("euler", "body"),
             control="step",
-            keeps=KEEPS,
+            keeps=("p_psi",),
+            keeps_roundoff=("p_phi", "norm"),
+            keeps_by_form=KEEPS_BY_FORM,
             compensated=compensated,
             description=(
                 f"{table.title}; euler: drift H_a / kick H_b on the Euler angles, body: exact "
