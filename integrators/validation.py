@@ -48,8 +48,9 @@ class Setting:
     """One setting a method takes.
 
     kind: REAL (a finite float) or COUNT (an int). positive: a REAL must be > 0. minimum: the
-    smallest value allowed (inclusive), with `why` saying in a few words why. required: refused
-    when missing; otherwise `default` is filled in (None: the method decides later)."""
+    smallest value allowed (inclusive); floor names it in words ("100 machine epsilons") and
+    `why` says in a few words why. required: refused when missing; otherwise `default` is filled
+    in (None: the method decides later)."""
 
     key: str
     kind: str = REAL
@@ -57,6 +58,7 @@ class Setting:
     default: object = None
     positive: bool = True
     minimum: float | None = None
+    floor: str = ""
     why: str = ""
 
     def __post_init__(self) -> None:
@@ -84,9 +86,9 @@ def _real(name: str, s: Setting, v) -> float:
     if s.positive and not v > 0.0:
         raise MethodRefused(f"{name}: setting {s.key!r} must be positive, got {v!r}")
     if s.minimum is not None and v < s.minimum:
+        floor = f"{s.floor} ({s.minimum:.3g})" if s.floor else f"{s.minimum:.3g}"
         raise MethodRefused(
-            f"{name}: setting {s.key!r} = {v!r} is below {s.minimum:.3g}"
-            + (f" ({s.why})" if s.why else "")
+            f"{name}: setting {s.key!r} = {v!r} is below {floor}" + (f", {s.why}" if s.why else "")
         )
     return v
 
@@ -100,7 +102,7 @@ def _count(name: str, s: Setting, v) -> int:
     if s.minimum is not None and v < s.minimum:
         raise MethodRefused(
             f"{name}: setting {s.key!r} must be at least {int(s.minimum)}, got {v}"
-            + (f" ({s.why})" if s.why else "")
+            + (f": {s.why}" if s.why else "")
         )
     return v
 

@@ -73,7 +73,10 @@ from topdrift.models import FORM_SIZE
 # clamps it to that floor instead, with a warning).
 SETTINGS = (
     Setting(
-        "rtol", minimum=100 * EPS, why="100 machine epsilons, where the error estimate is round-off"
+        "rtol",
+        minimum=100 * EPS,
+        floor="100 machine epsilons",
+        why="where the error estimate is round-off",
     ),
     Setting("atol"),
     Setting("first_step", required=False),
