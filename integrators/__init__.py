@@ -17,6 +17,8 @@ from .base import (
     MethodInfo,
     MethodRefused,
     Stepper,
+    name_key,
+    snapshot_kinds,
 )
 from .registry import ENTRY_POINT_GROUP, UnknownMethod, all_methods, get, register
 
@@ -36,6 +38,8 @@ __all__ = [
     "MethodInfo",
     "MethodRefused",
     "Stepper",
+    "name_key",
+    "snapshot_kinds",
     "ENTRY_POINT_GROUP",
     "UnknownMethod",
     "all_methods",

@@ -7,13 +7,18 @@ fixed-step methods need the output times to fall on the step grid (the runner ar
 adaptive methods reach them by dense output while the controller goes its own way.
 
 Everything a stepper holds is a value: `snapshot()` returns plain numbers and arrays and
-`restore()` takes them back, so a resumed run repeats the same bits.
+`restore()` takes them back, so a resumed run repeats the same bits. A snapshot may come back from
+a file someone else wrote, so `restore()` trusts nothing in it: `check_snapshot()` refuses one
+whose names, kinds, dtypes or shapes are not those this stepper writes, or whose numbers are not
+finite, before anything is taken back.
 """
 
 from __future__ import annotations
 
+import hashlib
 from abc import ABC, abstractmethod
 from dataclasses import dataclass, field
+from typing import ClassVar
 
 import numpy as np
 
@@ -41,6 +46,45 @@ KEEPS = ("energy", "p_phi", "p_psi", "norm")
 
 class MethodRefused(ValueError):
     """The method cannot run this case, form or setting; the message says why."""
+
+
+def name_key(name: str) -> int:
+    """A method's name as one int64 (the first 8 bytes of its SHA-256), for snapshots, which hold
+    numbers only: restore() compares it to refuse a snapshot of another method."""
+    return int.from_bytes(hashlib.sha256(name.encode()).digest()[:8], "little", signed=True)
+
+
+def _kind(value) -> str:
+    """'float', 'int', 'float64[...]', 'int64[...]', or '' for anything a snapshot may not hold."""
+    if isinstance(value, np.ndarray):
+        if value.dtype == np.float64 or value.dtype == np.int64:
+            return f"{value.dtype}{list(value.shape)}"
+        return ""
+    if isinstance(value, (bool, np.bool_)):
+        return ""
+    if isinstance(value, (float, np.floating)):
+        return "float" if np.dtype(type(value)) == np.float64 else ""
+    if isinstance(value, (int, np.integer)):
+        if isinstance(value, np.integer) and np.dtype(type(value)) != np.int64:
+            return ""
+        return "int" if -(2**63) <= int(value) < 2**63 else ""
+    return ""
+
+
+def snapshot_kinds(snap: dict) -> dict[str, str]:
+    """Each entry's kind (see _kind); raises TypeError naming an entry a snapshot may not hold (a
+    string, a bool, an object, an array of another dtype): snapshots are numbers only."""
+    out = {}
+    for key, value in snap.items():
+        kind = _kind(value)
+        if not isinstance(key, str) or not kind:
+            raise TypeError(
+                f"snapshot entry {key!r} is a {type(value).__name__}"
+                f"{' of ' + str(value.dtype) if isinstance(value, np.ndarray) else ''}; a "
+                "snapshot holds float64 and int64 numbers and arrays only"
+            )
+        out[key] = kind
+    return out
 
 
 @dataclass(frozen=True)
@@ -104,7 +148,39 @@ class Stepper(ABC):
 
     @abstractmethod
     def restore(self, snap: dict) -> None:
-        """Take back a snapshot made by the same method and settings."""
+        """Take back a snapshot made by the same method and settings (after check_snapshot)."""
+
+    # Snapshot entries that may hold NaN or inf (t_fail is NaN while a run is ok).
+    nonfinite_fields: ClassVar[tuple[str, ...]] = ("t_fail",)
+
+    def check_snapshot(self, snap: dict) -> None:
+        """Refuse (MethodRefused, naming the entry) a snapshot that this stepper could not have
+        written: other names, kinds, dtypes or shapes than its own snapshot() has, or a float
+        that is not finite outside nonfinite_fields. Values are checked against nothing else:
+        restore() checks that the settings are this stepper's."""
+        if not isinstance(snap, dict):
+            raise MethodRefused(f"snapshot is a {type(snap).__name__}, not a dict of entries")
+        own = snapshot_kinds(self.snapshot())
+        missing = [k for k in own if k not in snap]
+        if missing:
+            raise MethodRefused(f"snapshot lacks the entry {missing[0]!r}")
+        extra = [k for k in snap if k not in own]
+        if extra:
+            raise MethodRefused(f"snapshot holds {extra[0]!r}, which this method does not write")
+        for key, want in own.items():
+            value = snap[key]
+            got = _kind(value)
+            if got != want:
+                shown = got or type(value).__name__
+                if isinstance(value, np.ndarray) and not got:
+                    shown = f"{value.dtype}{list(value.shape)}"
+                raise MethodRefused(f"snapshot entry {key!r} is {shown}, expected {want}")
+            if key in self.nonfinite_fields:
+                continue
+            if (got == "float" or got.startswith("float64")) and not np.all(np.isfinite(value)):
+                raise MethodRefused(f"snapshot entry {key!r} is not finite")
+        if own.get("status") == "int" and not 0 <= snap["status"] < len(STATUS_NAMES):
+            raise MethodRefused(f"snapshot entry 'status' is {snap['status']}, not a status code")
 
 
 class Method(ABC):
@@ -161,6 +237,11 @@ class Method(ABC):
                 f"{self.name}: the start state is singular in the {FORM_NAMES[form]} form"
             )
         return y
+
+    def resume_refusal(self) -> str:
+        """Why a snapshot of this method cannot be taken back in this installation ("" when it
+        can): the runner then runs an interrupted run again from its start, saying so."""
+        return ""
 
     @abstractmethod
     def start(

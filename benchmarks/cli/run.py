@@ -127,7 +127,11 @@ def _decide(plans, out: Path, force: bool, resume: bool) -> list[str]:
             actions.append("reuse")
         elif resume:
             # Killed before its first write: nothing was done, so nothing to continue from.
-            actions.append("resume" if p.y0 is not None and n > 0 else "new")
+            can = p.y0 is not None and n > 0
+            why = p.method.resume_refusal() if can else ""
+            if why:  # said on stderr with the other notes, and kept with the new run
+                p.notes.append(f"not resumed: {why}; running it again from the start")
+            actions.append("resume" if can and not why else "new")
         else:
             raise UserError(
                 f"{out}: run {p.run_id} ({p.case.name}, {p.method.name}) is {status} at sample "

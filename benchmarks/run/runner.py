@@ -30,6 +30,7 @@ from topdrift.benchmarks.run.sampling import (
     S_P_PSI,
     record_sample,
 )
+from topdrift.benchmarks.store.checkpoint import CheckpointRefused
 from topdrift.benchmarks.store.writer import CHUNK_ROWS, NoRoom, RunGroup, ensure_room, utc_now
 from topdrift.integrators import (
     ST_DIVERGED,
@@ -41,9 +42,11 @@ from topdrift.integrators import (
     Method,
     MethodRefused,
     Stepper,
+    snapshot_kinds,
 )
 from topdrift.integrators import get as get_method
 from topdrift.models import FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
+from topdrift.models.dynamics import singular
 
 FLUSH_EVERY_S = 2.0
 BATCH_ROWS = 4096
@@ -375,7 +378,10 @@ def warm_up(plan: RunPlan) -> None:
         w.advance_to(2.0 * h)
     else:
         w.advance_to(interval * 1e-6)
-    w.snapshot()
+    try:
+        snapshot_kinds(w.snapshot())  # numbers only: a checkpoint can hold nothing else
+    except TypeError as exc:
+        raise MethodRefused(f"{plan.method.name}: {exc}") from None
     b = _Buffers(1, plan.y0.shape[0])
     b.record(plan.form_code, plan.y0, plan.params, 0)
 
@@ -458,52 +464,96 @@ class _Run:
         self.acc: Accumulator | None = None
 
     def checkpoint(self) -> None:
-        s = self.stepper
         self.group.write_checkpoint(
-            {
-                "run": {
-                    "sample": self.k,
-                    "wall_s": self.wall,
-                    "cpu_s": self.cpu,
-                    "t": float(s.t),
-                    "y": np.array(s.y, dtype=np.float64),
-                    "counters": np.array(s.counters, dtype=np.int64),
-                },
-                "stepper": s.snapshot(),
-                "metrics": self.acc.state(),
-            }
+            checkpoint_parts(self.k, self.wall, self.cpu, self.stepper, self.acc)
         )
 
     def restore(self) -> None:
-        cp = self.group.read_checkpoint()
-        if cp is None or "run" not in cp:
-            raise UserError(f"run {self.plan.run_id}: no checkpoint to resume from; use --force")
+        """Continue from the checkpoint, trusting nothing in it: it is read as this run would
+        write it now (names, dtypes, shapes; store/checkpoint.py), the stepper checks its own
+        snapshot (integrators/base.py, check_snapshot), and what ties it to this run is checked
+        here: the sample it stopped at, its time, and the start sample's reference values.
+        Nothing is written before every check has passed, so a refused resume leaves the file
+        as it was."""
         p = self.plan
-        self.k = int(cp["run"]["sample"])
-        self.wall = float(cp["run"]["wall_s"])
-        self.cpu = float(cp["run"].get("cpu_s", 0.0))
-        self.stepper = p.method.start(
+        fresh = p.method.start(
             p.form_code, p.params.copy(), 0.0, p.y0.copy(), dict(p.stepper_settings)
         )
-        self.stepper.restore(cp["stepper"])
-        self.stepper.counters[:] = cp["run"]["counters"]
-        if not (
-            self.stepper.t == cp["run"]["t"] and np.array_equal(self.stepper.y, cp["run"]["y"])
-        ):
+        acc0 = start_accumulator(p)
+        cp = self.group.read_checkpoint(checkpoint_parts(1, 0.0, 0.0, fresh, acc0))
+        if cp is None:
+            raise UserError(f"run {p.run_id}: no checkpoint to resume from; use --force")
+
+        def refuse(what: str):
+            raise CheckpointRefused(
+                f"run {p.run_id}: checkpoint {what}; it cannot be resumed (--force runs it again)"
+            )
+
+        run = cp["run"]
+        k = run["sample"]
+        if not 1 <= k <= p.samples:
+            refuse(f"run/sample is {k}, not a sample of this run (1 to {p.samples})")
+        if run["t"] != p.sample_time(k - 1):
+            refuse(f"run/t is {run['t']!r}, not the time of sample {k - 1}")
+        for key in ("wall_s", "cpu_s"):
+            if not (math.isfinite(run[key]) and run[key] >= 0.0):
+                refuse(f"run/{key} is {run[key]!r}, not a time spent")
+        if not np.all(np.isfinite(run["y"])) or singular(p.form_code, run["y"]):
+            refuse("run/y is not a finite state of this form")
+        try:
+            fresh.check_snapshot(cp["stepper"])  # for plug-ins whose restore does not
+            fresh.restore(cp["stepper"])
+        except (ValueError, TypeError, KeyError, IndexError, ArithmeticError) as exc:
+            refuse(f"stepper/: {exc}")  # MethodRefused is a ValueError
+        fresh.counters[:] = run["counters"]
+        if not (fresh.t == run["t"] and np.array_equal(fresh.y, run["y"])):
             raise UserError(f"run {p.run_id}: the stepper did not restore its checkpoint exactly")
-        self.acc = Accumulator.from_state(cp["metrics"])
+        try:
+            acc = Accumulator.from_state(cp["metrics"])
+        except ValueError as exc:
+            refuse(f"metrics/: {exc}")
+        if acc.reference() != acc0.reference():
+            refuse("metrics/ holds the reference values of another start, case or form")
         # Rows past the checkpoint are dropped; rows missing before it (a file damaged after
         # its last flush) would leave a gap that appending cannot mend.
-        short = {
-            name: ds.shape[0] for name, ds in self.group.datasets().items() if ds.shape[0] < self.k
-        }
+        short = {name: ds.shape[0] for name, ds in self.group.datasets().items() if ds.shape[0] < k}
         if short:
             name, rows = next(iter(short.items()))
             raise UserError(
-                f"run {p.run_id}: the checkpoint is at sample {self.k} but dataset '{name}' holds "
+                f"run {p.run_id}: the checkpoint is at sample {k} but dataset '{name}' holds "
                 f"{rows} rows; the file lost samples: use --force to run it again"
             )
+        self.k = k
+        self.wall = run["wall_s"]
+        self.cpu = run["cpu_s"]
+        self.stepper = fresh
+        self.acc = acc
         self.group.truncate(self.k)
+
+
+def checkpoint_parts(k: int, wall: float, cpu: float, stepper: Stepper, acc: Accumulator) -> dict:
+    """What a checkpoint holds, by part (the writer's input and, from a fresh stepper, the
+    reader's template)."""
+    return {
+        "run": {
+            "sample": int(k),
+            "wall_s": float(wall),
+            "cpu_s": float(cpu),
+            "t": float(stepper.t),
+            "y": np.array(stepper.y, dtype=np.float64),
+            "counters": np.array(stepper.counters, dtype=np.int64),
+        },
+        "stepper": stepper.snapshot(),
+        "metrics": acc.state(),
+    }
+
+
+def start_accumulator(plan: RunPlan) -> Accumulator:
+    """The reference values a run takes from its start sample (as _loop does at k = 0)."""
+    b = _Buffers(1, FORM_SIZE[plan.form_code])
+    b.record(plan.form_code, plan.y0, plan.params, 0)
+    has_exact = plan.exact is not None
+    return Accumulator.at_start(b.scal[0], b.mom[0], plan.params, has_exact, plan.form_code != 0)
 
 
 def execute(
@@ -615,6 +665,10 @@ def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
             st = _advance(plan, run, tk, stop, progress)
         except MethodRefused as exc:
             status, detail, t_fail = "failed", str(exc), float(run.stepper.t)
+            break
+        except ArithmeticError as exc:  # a kernel's own division by zero or overflow
+            status, t_fail = "failed", float(run.stepper.t)
+            detail = f"{type(exc).__name__} in the integrator after t = {t_fail:.17g} ({exc})"
             break
         s = run.stepper  # a stop inside a long interval rolls the stepper back to t_(k-1)
         if st is None:

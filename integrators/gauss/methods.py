@@ -25,7 +25,14 @@ import math
 
 import numpy as np
 
-from topdrift.integrators.base import ST_OK, Method, MethodInfo, MethodRefused, Stepper
+from topdrift.integrators.base import (
+    ST_OK,
+    Method,
+    MethodInfo,
+    MethodRefused,
+    Stepper,
+    name_key,
+)
 from topdrift.integrators.gauss.kernel import N_ITERS, N_MEMO, gauss_steps, work_size
 from topdrift.integrators.gauss.tableau import GAUSS2, GAUSS3, Tableau
 from topdrift.models import FORM_NAMES
@@ -108,9 +115,12 @@ class GaussStepper(Stepper):
         """Fixed-point sweeps so far (each costs one rhs evaluation per stage)."""
         return int(self.iters[0])
 
+    # memo holds NaN while no stages of a previous step are kept (see gauss/kernel.py).
+    nonfinite_fields = ("t_fail", "memo")
+
     def snapshot(self) -> dict:
         return {
-            "method": self.method_name,
+            "method_key": name_key(self.method_name),
             "step": self.h,
             "max_iterations": self.max_iter,
             "t": self.t,
@@ -125,10 +135,16 @@ class GaussStepper(Stepper):
         }
 
     def restore(self, snap: dict) -> None:
-        if snap.get("method") != self.method_name or snap.get("step") != self.h:
+        self.check_snapshot(snap)
+        if (
+            snap["method_key"] != name_key(self.method_name)
+            or snap["step"] != self.h
+            or snap["max_iterations"] != self.max_iter
+        ):
             raise MethodRefused(
-                f"{self.method_name}: snapshot is of {snap.get('method')!r} with step "
-                f"{snap.get('step')!r}, not of this run (step {self.h!r})"
+                f"{self.method_name}: snapshot is of another method or of step "
+                f"{snap['step']!r}, max_iterations {snap['max_iterations']!r}, not of this run "
+                f"(step {self.h!r}, max_iterations {self.max_iter!r})"
             )
         for key, dest in (
             ("y", self.y),

@@ -272,7 +272,11 @@ class EmbeddedStepper(Stepper):
         )
         return snap
 
+    # tol holds the horizon, +inf without one; restore() compares it with this stepper's own.
+    nonfinite_fields = ("t_fail", "tol")
+
     def restore(self, snap: dict) -> None:
+        self.check_snapshot(snap)
         name = self.method.name
         if int(snap.get("order", -1)) != self.method.info.order or int(snap.get("form", -1)) != int(
             self.form
@@ -283,6 +287,17 @@ class EmbeddedStepper(Stepper):
             )
         if not np.array_equal(np.asarray(snap["tol"]), self.tol):
             raise MethodRefused(f"{name}: snapshot was made with other tolerances or horizon")
+        ctrl = snap["ctrl"]
+        # What advance_to relies on (the kernel divides by the last step for dense output): the
+        # internal time at or past the output time, the last step ending there, a step to try.
+        if not (
+            ctrl[CT_T_OLD] <= snap["t"] <= ctrl[CT_T]
+            and ctrl[CT_H] > 0.0
+            and ctrl[CT_H_PREV] >= 0.0
+            and (ctrl[CT_H_PREV] > 0.0 or ctrl[CT_T] == snap["t"])
+            and ctrl[CT_DENSE_OK] in (0.0, 1.0)
+        ):
+            raise MethodRefused(f"{name}: snapshot entry 'ctrl' is not a controller state")
         for k in self._ARRAYS:
             src = np.asarray(snap[k])
             dst = getattr(self, k)

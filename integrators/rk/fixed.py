@@ -164,6 +164,7 @@ class FixedStepper(Stepper):
         return snap
 
     def restore(self, snap: dict) -> None:
+        self.check_snapshot(snap)
         name = self.method.name
         if int(snap.get("kahan", -1)) != int(self.method.kahan) or int(snap.get("form", -1)) != int(
             self.form

@@ -22,7 +22,14 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from topdrift.integrators.base import ST_OK, Method, MethodInfo, MethodRefused, Stepper
+from topdrift.integrators.base import (
+    ST_OK,
+    Method,
+    MethodInfo,
+    MethodRefused,
+    Stepper,
+    name_key,
+)
 from topdrift.integrators.splitting.compositions import TABLES, SplittingTable
 from topdrift.integrators.splitting.kernels import (
     close_compensated,
@@ -57,6 +64,9 @@ class SplittingStepper(Stepper):
     e: np.ndarray = field(default_factory=lambda: np.zeros(0))  # compensation terms
     fresh: np.ndarray = field(default_factory=lambda: np.ones(1, dtype=np.int64))
     scratch: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    # name_key of the method: every table has the same arrays, so only this tells their
+    # snapshots apart.
+    method_key: int = 0
 
     def _close(self) -> None:
         out = np.empty_like(self.w)
@@ -134,6 +144,7 @@ class SplittingStepper(Stepper):
 
     def snapshot(self) -> dict:
         return {
+            "method_key": self.method_key,
             "t": self.t,
             "t0": self.t0,
             "n": self.n,
@@ -148,8 +159,11 @@ class SplittingStepper(Stepper):
         }
 
     def restore(self, snap: dict) -> None:
-        if float(snap["step"]) != self.step or len(snap["w"]) != len(self.w):
-            raise MethodRefused("snapshot: made with another step or state form")
+        self.check_snapshot(snap)
+        if snap["method_key"] != self.method_key:
+            raise MethodRefused("snapshot: made by another splitting method")
+        if snap["step"] != self.step:
+            raise MethodRefused(f"snapshot: made with step {snap['step']!r}, not {self.step!r}")
         self.t = float(snap["t"])
         self.t0 = float(snap["t0"])
         self.n = int(snap["n"])
@@ -238,6 +252,7 @@ class SplittingMethod(Method):
             e=np.zeros(n),
             fresh=np.ones(1, dtype=np.int64),
             scratch=np.zeros(n),
+            method_key=name_key(self.name),
         )
 
 
