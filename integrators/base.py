@@ -144,7 +144,8 @@ class Stepper(ABC):
 
     @abstractmethod
     def snapshot(self) -> dict:
-        """Everything needed to continue bit for bit: names to floats, ints or arrays."""
+        """Everything needed to continue bit for bit: names to float64 and int64 numbers and
+        arrays, of the same kinds and shapes fresh as after any number of steps."""
 
     @abstractmethod
     def restore(self, snap: dict) -> None:
