@@ -113,31 +113,31 @@ class TopdriftCheck:
     def _name_of(self, method) -> str:
         if isinstance(method, str):
             return method
-        from topdrift.integrators import Method, register
-        from topdrift.integrators import registry as reg
+        from topdrift.integrators import Method, UnknownMethod, get, register
 
         if not isinstance(method, Method):
             raise TypeError(
                 f"topdrift_check: expected a method name or a topdrift Method, got {method!r}"
             )
         name = method.info.name
-        # Load the built-in and plug-in methods first, so that none of them can take the name
-        # back later. The registry has no unregister: remember what the name held and put it
-        # back at teardown, so that the method lives for this one test.
-        reg.all_methods()
-        previous = reg._methods.get(name)
+        # `get` loads the built-in and plug-in methods first, so that none of them can take the
+        # name back later. Remember what the name held and put it back at teardown, so that the
+        # method lives for this one test.
+        try:
+            previous = get(name)
+        except UnknownMethod:
+            previous = None
         if previous is not method:
             register(method, replace=True)
             self._registered.append((name, previous))
         return name
 
     def _restore(self) -> None:
-        from topdrift.integrators import register
-        from topdrift.integrators import registry as reg
+        from topdrift.integrators import register, unregister
 
         for name, previous in reversed(self._registered):
             if previous is None:
-                reg._methods.pop(name, None)
+                unregister(name)
             else:
                 register(previous, replace=True)
         self._registered.clear()

@@ -1,10 +1,13 @@
-"""The numerics of topdrift: a registry of pluggable methods, each a coefficient table plus a
-small numba kernel family. Imports the models' kernels; knows nothing of cases or files."""
+"""The numerics of topdrift: the method contract (base.py, validation.py), the registry of
+built-in and plug-in methods (registry.py), a base for fixed-step plug-ins (fixed_step.py), and
+one sub-package per family, each a coefficient table plus a small numba kernel family. Imports
+the models' kernels; knows nothing of cases or files."""
 
 from .base import (
     C_EVALS,
     C_REJECTED,
     C_STEPS,
+    GRID_RTOL,
     N_COUNTERS,
     ST_DIVERGED,
     ST_FAILED,
@@ -17,10 +20,20 @@ from .base import (
     MethodInfo,
     MethodRefused,
     Stepper,
-    name_key,
-    snapshot_kinds,
+    grid_steps,
+    whole_steps,
 )
-from .registry import ENTRY_POINT_GROUP, UnknownMethod, all_methods, get, register
+from .fixed_step import FixedStepMethod, FixedStepStepper
+from .registry import (
+    ENTRY_POINT_GROUP,
+    UnknownMethod,
+    all_methods,
+    get,
+    origin,
+    register,
+    unregister,
+)
+from .validation import Setting, SnapshotRefused
 
 __all__ = [
     "C_EVALS",
@@ -33,16 +46,23 @@ __all__ = [
     "ST_OK",
     "ST_SINGULAR",
     "ST_STEP_UNDERFLOW",
+    "GRID_RTOL",
     "STATUS_NAMES",
     "Method",
     "MethodInfo",
     "MethodRefused",
     "Stepper",
-    "name_key",
-    "snapshot_kinds",
+    "grid_steps",
+    "whole_steps",
+    "FixedStepMethod",
+    "FixedStepStepper",
+    "Setting",
+    "SnapshotRefused",
     "ENTRY_POINT_GROUP",
     "UnknownMethod",
     "all_methods",
     "get",
+    "origin",
     "register",
+    "unregister",
 ]

@@ -1,27 +1,34 @@
-"""The contract every integrator meets.
+"""The contract every integrator meets: `MethodInfo` (what a method is), `Method` (how to start
+one), `Stepper` (a run in progress), the counters and status codes they share, and the one rule
+for the step grid of fixed-step methods (`GRID_RTOL`, `whole_steps`, `grid_steps`).
 
-A `Method` is metadata plus a way to start a `Stepper`. A `Stepper` is a run in progress: it owns
-the current state, the controller's state (adaptive methods) and the counters the kernels keep,
-and it advances to a requested time. Asking for an output time never changes the step sequence:
-fixed-step methods need the output times to fall on the step grid (the runner arranges that),
-adaptive methods reach them by dense output while the controller goes its own way.
+A `Stepper` owns the current state, the controller's state (adaptive methods) and the counters
+the kernels keep, and it advances to a requested time. Asking for an output time never changes
+the step sequence: fixed-step methods need the output times to fall on the step grid (the runner
+arranges that), adaptive methods reach them by dense output while the controller goes its own
+way. Everything a stepper holds is a value: `snapshot()` returns plain numbers, strings and
+arrays and `restore()` takes them back, so a resumed run repeats the same bits.
 
-Everything a stepper holds is a value: `snapshot()` returns plain numbers and arrays and
-`restore()` takes them back, so a resumed run repeats the same bits. A snapshot may come back from
-a file someone else wrote, so `restore()` trusts nothing in it: `check_snapshot()` refuses one
-whose names, kinds, dtypes or shapes are not those this stepper writes, or whose numbers are not
-finite, before anything is taken back.
+Settings and snapshots are checked by integrators/validation.py, the same way for every family.
+A plug-in with a fixed step can leave the grid, the counters and the snapshots to
+integrators/fixed_step.py and write one step.
 """
 
 from __future__ import annotations
 
-import hashlib
+import math
 from abc import ABC, abstractmethod
 from dataclasses import dataclass, field
-from typing import ClassVar
 
 import numpy as np
 
+# MethodRefused is defined beside the checks that raise it and is part of this contract.
+from topdrift.integrators.validation import (
+    CONTROL_SETTINGS,
+    MethodRefused,
+    Setting,
+    check_settings,
+)
 from topdrift.models import FORM_NAMES, FORM_SIZE, RigidBody
 from topdrift.models.dynamics import singular
 
@@ -37,58 +44,66 @@ ST_DIVERGED = 1  # a non-finite state
 ST_SINGULAR = 2  # the state left the domain of its form (Euler angles at the pole)
 ST_STEP_UNDERFLOW = 3  # an adaptive step fell below round-off of t
 ST_NO_CONVERGENCE = 4  # an implicit solve did not converge
-ST_FAILED = 5  # any other failure reported by a library (scipy references)
+ST_FAILED = 5  # any other failure: a library's (scipy references), a plug-in step's exception
 STATUS_NAMES = ("ok", "diverged", "singular", "step-underflow", "no-convergence", "failed")
 
 FAMILIES = ("explicit-rk", "adaptive-rk", "splitting", "gauss-legendre", "reference", "external")
 KEEPS = ("energy", "p_phi", "p_psi", "norm")
 
 
-class MethodRefused(ValueError):
-    """The method cannot run this case, form or setting; the message says why."""
+# The step grid. A fixed-step stepper asked for t_end takes k steps of h when (t_end - t) / h is
+# within GRID_RTOL * max(1, |k|) of the whole number k. Output times computed as t0 + k dt round
+# at about 1e-16 relative, and a long run's interval ratio at about 1e-16 times the number of
+# intervals: 1e-9 leaves room for that and still refuses a grid that is off by any meaningful
+# fraction of a step. One rule for every fixed-step family, the ensembles and the runner.
+GRID_RTOL = 1e-9
 
 
-def name_key(name: str) -> int:
-    """A method's name as one int64 (the first 8 bytes of its SHA-256), for snapshots, which hold
-    numbers only: restore() compares it to refuse a snapshot of another method."""
-    return int.from_bytes(hashlib.sha256(name.encode()).digest()[:8], "little", signed=True)
+def whole_steps(span: float, step: float) -> int | None:
+    """The signed number of steps of `step` that make `span`, or None when span / step is not a
+    whole number to GRID_RTOL * max(1, |k|) (or not finite)."""
+    x = span / step
+    if not math.isfinite(x):
+        return None
+    k = round(x)
+    if abs(x - k) <= GRID_RTOL * max(1.0, abs(k)):
+        return int(k)
+    return None
 
 
-def _kind(value) -> str:
-    """'float', 'int', 'float64[...]', 'int64[...]', or '' for anything a snapshot may not hold."""
-    if isinstance(value, np.ndarray):
-        if value.dtype == np.float64 or value.dtype == np.int64:
-            return f"{value.dtype}{list(value.shape)}"
-        return ""
-    if isinstance(value, (bool, np.bool_)):
-        return ""
-    if isinstance(value, (float, np.floating)):
-        return "float" if np.dtype(type(value)) == np.float64 else ""
-    if isinstance(value, (int, np.integer)):
-        if isinstance(value, np.integer) and np.dtype(type(value)) != np.int64:
-            return ""
-        return "int" if -(2**63) <= int(value) < 2**63 else ""
-    return ""
-
-
-def snapshot_kinds(snap: dict) -> dict[str, str]:
-    """Each entry's kind (see _kind); raises TypeError naming an entry a snapshot may not hold (a
-    string, a bool, an object, an array of another dtype): snapshots are numbers only."""
-    out = {}
-    for key, value in snap.items():
-        kind = _kind(value)
-        if not isinstance(key, str) or not kind:
-            raise TypeError(
-                f"snapshot entry {key!r} is a {type(value).__name__}"
-                f"{' of ' + str(value.dtype) if isinstance(value, np.ndarray) else ''}; a "
-                "snapshot holds float64 and int64 numbers and arrays only"
-            )
-        out[key] = kind
-    return out
+def grid_steps(name: str, t: float, t_end: float, step: float) -> int:
+    """whole_steps(t_end - t, step), or MethodRefused naming `name` when t_end is off the grid.
+    The sign says the direction; a family that runs forward only refuses k < 0 itself."""
+    span = float(t_end) - float(t)
+    k = whole_steps(span, step)
+    if k is None:
+        raise MethodRefused(
+            f"{name}: t = {t_end!r} is not on the step grid: the interval from t = {t!r} is "
+            f"{span / step:.12g} steps of {step!r}, not a whole number of steps"
+        )
+    return k
 
 
 @dataclass(frozen=True)
 class MethodInfo:
+    """What a method is, as `topdrift methods` lists it and the suite relies on it.
+
+    Fields (all required but `source`):
+      name         the short name commands take (`--method NAME`); unique in the registry.
+      family       one of FAMILIES; plug-ins use "external" unless they join a family.
+      order        the classical order of convergence, as the tests measure it.
+      symplectic   True when the map is symplectic (or Poisson) in every form it runs in.
+      forms        the state forms it integrates, among FORM_NAMES ("euler", "body"), in order
+                   of preference: `default_form` takes the first that fits the body.
+      control      "step" (fixed step, setting "step") or "tolerance" (settings "rtol",
+                   "atol"); the runner builds the settings from it.
+      keeps        invariants kept to round-off by construction in every form, among KEEPS;
+                   every claim must hold, the tests check the built-in ones.
+      compensated  True when the state increments are added with compensated summation.
+      description  one line for `topdrift methods`.
+      source       where the coefficients or the method come from (a paper, a library).
+    Refuses (ValueError) an unknown control, form or invariant when it is made."""
+
     name: str
     family: str
     order: int
@@ -111,6 +126,7 @@ class MethodInfo:
                 raise ValueError(f"{self.name}: unknown invariant {k!r} in keeps")
 
     def as_json(self) -> dict:
+        """The entry of `topdrift methods --json` (every field but `source`)."""
         return {
             "name": self.name,
             "family": self.family,
@@ -126,7 +142,13 @@ class MethodInfo:
 
 @dataclass
 class Stepper(ABC):
-    """A run in progress. Subclasses fill in `advance_to`, `snapshot` and `restore`."""
+    """A run in progress: the state `y` at time `t` in form `form` (a FORM_* code), the body's
+    parameter array `params`, the counters (int64, indexed by C_STEPS, C_REJECTED, C_EVALS,
+    counted by the method's own code, never estimated), and `status`: ST_OK while it runs, else
+    the ST_* code of the failure, with `t_fail` the time of the last good state (NaN while ok).
+
+    Subclasses fill in `advance_to`, `snapshot` and `restore`; a fixed-step method can inherit
+    all three from integrators/fixed_step.FixedStepStepper instead."""
 
     form: int
     params: np.ndarray
@@ -140,56 +162,48 @@ class Stepper(ABC):
     @abstractmethod
     def advance_to(self, t_end: float) -> int:
         """Advance to t_end; afterwards self.t == t_end and self.y is the state there, or
-        self.status is not ST_OK and self.t_fail says when. Returns self.status."""
+        self.status is not ST_OK, self.t == self.t_fail and self.y is the last good state.
+        Returns self.status; once failed, stays failed and does nothing. Refuses
+        (MethodRefused) a time it cannot reach: off the step grid, or in a direction the method
+        does not go. The step sequence never depends on the times asked for."""
 
     @abstractmethod
     def snapshot(self) -> dict:
-        """Everything needed to continue bit for bit: names to float64 and int64 numbers and
-        arrays, of the same kinds and shapes fresh as after any number of steps."""
+        """Everything needed to continue bit for bit, as names to floats, ints, strings or
+        numeric arrays (no objects: a checkpoint stores it in HDF5), including the identity
+        from validation.snapshot_identity (method, form, settings)."""
 
     @abstractmethod
     def restore(self, snap: dict) -> None:
-        """Take back a snapshot made by the same method and settings (after check_snapshot)."""
-
-    # Snapshot entries that may hold NaN or inf (t_fail is NaN while a run is ok).
-    nonfinite_fields: ClassVar[tuple[str, ...]] = ("t_fail",)
-
-    def check_snapshot(self, snap: dict) -> None:
-        """Refuse (MethodRefused, naming the entry) a snapshot that this stepper could not have
-        written: other names, kinds, dtypes or shapes than its own snapshot() has, or a float
-        that is not finite outside nonfinite_fields. Values are checked against nothing else:
-        restore() checks that the settings are this stepper's."""
-        if not isinstance(snap, dict):
-            raise MethodRefused(f"snapshot is a {type(snap).__name__}, not a dict of entries")
-        own = snapshot_kinds(self.snapshot())
-        missing = [k for k in own if k not in snap]
-        if missing:
-            raise MethodRefused(f"snapshot lacks the entry {missing[0]!r}")
-        extra = [k for k in snap if k not in own]
-        if extra:
-            raise MethodRefused(f"snapshot holds {extra[0]!r}, which this method does not write")
-        for key, want in own.items():
-            value = snap[key]
-            got = _kind(value)
-            if got != want:
-                shown = got or type(value).__name__
-                if isinstance(value, np.ndarray) and not got:
-                    shown = f"{value.dtype}{list(value.shape)}"
-                raise MethodRefused(f"snapshot entry {key!r} is {shown}, expected {want}")
-            if key in self.nonfinite_fields:
-                continue
-            if (got == "float" or got.startswith("float64")) and not np.all(np.isfinite(value)):
-                raise MethodRefused(f"snapshot entry {key!r} is not finite")
-        if own.get("status") == "int" and not 0 <= snap["status"] < len(STATUS_NAMES):
-            raise MethodRefused(f"snapshot entry 'status' is {snap['status']}, not a status code")
+        """Take back a snapshot made by the same method, form and settings, after which the
+        stepper continues to the same bits as the one that made it. Refuses (SnapshotRefused,
+        a MethodRefused) any other snapshot, with validation.check_snapshot, before changing
+        anything."""
 
 
 class Method(ABC):
+    """A method: its `info` (a MethodInfo, set by the subclass) and `start`, which makes a
+    Stepper. Register an instance with registry.register or publish it under the entry-point
+    group ENTRY_POINT_GROUP. A method holds no run state: one instance starts any number of
+    steppers. Its settings are declared in `settings_spec` and checked by `settings`."""
+
     info: MethodInfo
 
     @property
     def name(self) -> str:
+        """info.name."""
         return self.info.name
+
+    @property
+    def settings_spec(self) -> tuple[Setting, ...]:
+        """The settings `start` takes (validation.Setting). Default: what info.control implies,
+        {"step"} or {"rtol", "atol"}, each a positive finite float; override to add keys."""
+        return CONTROL_SETTINGS[self.info.control]
+
+    def settings(self, settings) -> dict:
+        """settings checked against settings_spec and completed with defaults; refuses
+        (MethodRefused, one line naming the key) anything else."""
+        return check_settings(self.name, settings, self.settings_spec)
 
     def default_form(self, body: RigidBody) -> str:
         """The first of the method's forms that can describe this body."""
@@ -202,7 +216,8 @@ class Method(ABC):
         )
 
     def check(self, body: RigidBody, form: str, settings: dict) -> None:
-        """Refuse up front, with the reason, what this method cannot run."""
+        """Refuse up front, with the reason, what this method cannot run: a form it lacks, the
+        Euler form for a body it cannot describe, settings that `settings` refuses."""
         if form not in self.info.forms:
             raise MethodRefused(
                 f"{self.name}: has no {form!r} form (it runs in {', '.join(self.info.forms)})"
@@ -212,15 +227,7 @@ class Method(ABC):
                 f"{self.name}: the Euler-angle form needs a symmetric body (I1 = I2) with its "
                 f"centre of mass on axis 3; use the body form"
             )
-        if self.info.control == "step":
-            h = settings.get("step")
-            if not isinstance(h, float) or not h > 0.0 or h == float("inf"):
-                raise MethodRefused(f"{self.name}: needs a positive finite step, got {h!r}")
-        else:
-            for key in ("rtol", "atol"):
-                v = settings.get(key)
-                if not isinstance(v, float) or not v > 0.0 or v == float("inf"):
-                    raise MethodRefused(f"{self.name}: needs a positive finite {key}, got {v!r}")
+        self.settings(settings)
 
     def start_state(self, form: int, y0) -> np.ndarray:
         """y0 as a fresh float64 state of the given form, refused (MethodRefused) when it has the
@@ -241,12 +248,16 @@ class Method(ABC):
 
     def resume_refusal(self) -> str:
         """Why a snapshot of this method cannot be taken back in this installation ("" when it
-        can): the runner then runs an interrupted run again from its start, saying so."""
+        can): `run --resume` then runs an interrupted run again from its start, saying so. For a
+        state that cannot be handed back safely (a library's compiled internals that index its
+        own arrays) or completely (a library that holds state the method does not store)."""
         return ""
 
     @abstractmethod
     def start(
         self, form: int, params: np.ndarray, t0: float, y0: np.ndarray, settings: dict
     ) -> Stepper:
-        """A stepper at (t0, y0). settings: {"step": h} or {"rtol": r, "atol": a}, plus any
-        method-specific keys the method documents."""
+        """A stepper at (t0, y0): form is a FORM_* code, params the body's parameter array
+        (RigidBody.params()), settings as settings_spec declares ({"step": h} or
+        {"rtol": r, "atol": a}, plus any keys the method documents). Refuses (MethodRefused)
+        what it cannot run; never changes params or y0."""

@@ -20,10 +20,10 @@ from topdrift.integrators.splitting.kernels import (
     run_compensated,
     run_plain,
 )
-from topdrift.integrators.splitting.methods import GRID_RTOL, SplittingMethod
+from topdrift.integrators.splitting.methods import SplittingMethod
 from topdrift.models import FORM_SIZE
 
-from .base import N_COUNTERS, ST_OK, MethodRefused
+from .base import N_COUNTERS, ST_OK, MethodRefused, grid_steps
 
 
 @njit(cache=True, parallel=True)
@@ -134,11 +134,11 @@ class EnsembleStepper:
         return None
 
     def advance_to(self, t_end: float) -> np.ndarray:
-        x = (float(t_end) - self.t) / self.step
-        k = round(x)
-        if not abs(x - k) <= GRID_RTOL * max(1.0, abs(k)) or k < 0:
+        k = grid_steps(f"ensemble of {self.method.name}", self.t, t_end, self.step)
+        if k < 0:
             raise MethodRefused(
-                f"ensemble: t = {t_end!r} is not on the step grid ahead of t = {self.t!r}"
+                f"ensemble of {self.method.name}: t = {t_end!r} is before the current time "
+                f"{self.t!r}; ensembles run forward only"
             )
         if k == 0:
             return self.status

@@ -6,36 +6,22 @@ from __future__ import annotations
 import hashlib
 import json
 import re
-import sys
 from pathlib import Path
 
 import h5py
+from tiny_cases import ASYMMETRIC, top_toml
 
-SYM_TOML = """
-name = "grid-top"
-description = "a heavy symmetric top for the sweep tests"
-horizon = 1.0
-samples = 11
-
-[body]
-mass = 1.0
-inertia = [0.02, 0.02, 0.01]
-com = [0.0, 0.0, 0.05]
-
-[start]
-theta = "30 deg"
-phi = 0.0
-psi = 0.0
-theta_rate = 0.0
-phi_rate = 1.0
-psi_rate = "600 rpm"
-"""
+SYM_TOML = top_toml(
+    "grid-top", "a heavy symmetric top for the sweep tests", horizon=1.0, samples=11
+)
 
 # Three different moments and the centre of mass on axis 3: no Euler form, no exact solution.
-ASYM_TOML = (
-    SYM_TOML.replace("grid-top", "grid-asym")
-    .replace("a heavy symmetric top", "an asymmetric heavy top")
-    .replace("[0.02, 0.02, 0.01]", "[0.02, 0.03, 0.015]")
+ASYM_TOML = top_toml(
+    "grid-asym",
+    "an asymmetric heavy top for the sweep tests",
+    horizon=1.0,
+    samples=11,
+    inertia=ASYMMETRIC,
 )
 
 # 2 cases x 3 methods x 2 settings; leapfrog asked for in both forms, so that its Euler-form
@@ -104,10 +90,6 @@ def same_datasets(a: dict, b: dict) -> None:
     for rid in a:
         assert a[rid]["datasets"] == b[rid]["datasets"], rid
         assert a[rid]["status"] == b[rid]["status"], rid
-
-
-def topdrift_cmd(*args: str) -> list[str]:
-    return [sys.executable, "-m", "topdrift.benchmarks.cli.entry", *args]
 
 
 PROGRESS = re.compile(r"^\[(\d+)/(\d+)\] ")

@@ -5,10 +5,10 @@ from __future__ import annotations
 
 import math
 import subprocess
-import sys
 
 import numpy as np
 import pytest
+from run_files import topdrift_cmd
 
 from topdrift.benchmarks.cases.library import find_case, library_cases, library_paths, load_case
 from topdrift.benchmarks.cases.schema import parse_case, read_case
@@ -344,7 +344,7 @@ def test_installed_command_prints_no_traceback(tmp_path):
     path = tmp_path / "case.toml"
     path.write_text(_case_text(start_extra={"theta_rate": '"3 furlong/s"'}), encoding="utf-8")
     proc = subprocess.run(
-        [sys.executable, "-m", "topdrift.benchmarks.cli.entry", "describe", str(path)],
+        topdrift_cmd("describe", str(path)),
         capture_output=True,
         text=True,
         cwd=tmp_path,
@@ -359,12 +359,12 @@ def test_installed_command_prints_no_traceback(tmp_path):
 
 
 def test_readme_example_case_parses():
-    # The full example in the README's "Case files" section is part of the contract.
+    # The full example in docs/case-files.md is part of the contract.
     import re
     from pathlib import Path
 
-    readme = Path(__file__).resolve().parents[1] / "README.md"
-    section = readme.read_text(encoding="utf-8").split("## Case files", 1)[1]
+    page = Path(__file__).resolve().parents[1] / "docs" / "case-files.md"
+    section = page.read_text(encoding="utf-8").split("# Case files", 1)[1]
     example = re.search(r"```toml\n(.*?)```", section, re.S).group(1)
     case = parse_case(example, "README example")
     assert case.name == "brass-top"

@@ -1,83 +1,23 @@
 """`topdrift run` end to end: exit statuses, refusals, singular and diverged runs, bad input that
 leaves no file, and a run killed mid-way that resumes to the same bytes as one never stopped."""
 
-import hashlib
-import json
 import math
 import os
 import signal
-import subprocess
-import sys
 
 import h5py
 import pytest
+from run_files import dataset_hashes, topdrift_process
+from tiny_cases import ASYM_TOML, TOP_TOML, write_case
 
 from topdrift.benchmarks.cli import entry as cli
 
-TOP_TOML = """
-name = "cli-top"
-description = "a heavy symmetric top for the command-line tests"
-horizon = 0.5
-samples = 11
 
-[body]
-mass = 1.0
-inertia = [0.02, 0.02, 0.01]
-com = [0.0, 0.0, 0.05]
-
-[start]
-theta = "{theta}"
-phi = 0.0
-psi = 0.0
-theta_rate = 0.0
-phi_rate = 1.0
-psi_rate = "{spin}"
-"""
-
-ASYM_TOML = TOP_TOML.replace("[0.02, 0.02, 0.01]", "[0.02, 0.03, 0.015]")
-
-
-def write(tmp_path, name, text, theta="30 deg", spin="600 rpm"):
-    p = tmp_path / name
-    p.write_text(text.format(theta=theta, spin=spin))
-    return p
-
-
-def topdrift(*args, **kw):
-    """The installed command in a fresh process."""
-    return subprocess.Popen(
-        [sys.executable, "-m", "topdrift.benchmarks.cli.entry", *args],
-        stdout=subprocess.PIPE,
-        stderr=subprocess.PIPE,
-        text=True,
-        **kw,
-    )
-
-
-def dataset_hashes(path, run_id):
-    out = {}
-    with h5py.File(path, "r") as f:
-        g = f["runs"][run_id]
-
-        def visit(name, obj):
-            if isinstance(obj, h5py.Dataset) and not name.startswith("checkpoint"):
-                out[name] = hashlib.sha256(obj[()].tobytes()).hexdigest()
-
-        g.visititems(visit)
-    return out
-
-
-def run_json(capsys, args):
-    capsys.readouterr()
-    rc = cli.main(["run", *args, "--json"])
-    return rc, json.loads(capsys.readouterr().out)
-
-
-def test_ok_run_json_and_exit_0(tmp_path, capsys):
-    case = write(tmp_path, "top.toml", TOP_TOML)
+def test_ok_run_json_and_exit_0(command_json, tmp_path):
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     out = tmp_path / "r.h5"
-    rc, doc = run_json(
-        capsys, [str(case), "--method", "leapfrog", "--step", "0.001", "--out", str(out)]
+    rc, doc, _ = command_json(
+        "run", str(case), "--method", "leapfrog", "--step", "0.001", "--out", str(out)
     )
     assert rc == 0
     (r,) = doc["runs"]
@@ -92,7 +32,7 @@ def test_ok_run_json_and_exit_0(tmp_path, capsys):
 
 
 def test_refusal_exits_2_and_leaves_no_file(tmp_path, capsys):
-    case = write(tmp_path, "asym.toml", ASYM_TOML)
+    case = write_case(tmp_path, "asym.toml", ASYM_TOML)
     out = tmp_path / "results" / "r.h5"
     rc = cli.main(
         [
@@ -128,7 +68,7 @@ def test_refusal_exits_2_and_leaves_no_file(tmp_path, capsys):
     ],
 )
 def test_bad_input_exits_2_and_leaves_no_file(tmp_path, capsys, extra, message):
-    case = write(tmp_path, "top.toml", TOP_TOML)
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     out = tmp_path / "r.h5"
     try:
         rc = cli.main(["run", str(case), "--out", str(out), *extra])
@@ -140,7 +80,7 @@ def test_bad_input_exits_2_and_leaves_no_file(tmp_path, capsys, extra, message):
 
 
 def test_bad_input_never_touches_an_existing_file(tmp_path, capsys):
-    case = write(tmp_path, "top.toml", TOP_TOML)
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     out = tmp_path / "r.h5"
     assert (
         cli.main(["run", str(case), "--method", "leapfrog", "--step", "0.01", "--out", str(out)])
@@ -157,10 +97,10 @@ def test_bad_input_never_touches_an_existing_file(tmp_path, capsys):
     capsys.readouterr()
 
 
-def test_singular_through_the_pole_and_at_the_start(tmp_path, capsys):
+def test_singular_through_the_pole_and_at_the_start(command_json, tmp_path, capsys):
     # No spin and no precession (p_phi = p_psi = 0): a planar swing from 3 deg that passes
     # through the downward vertical, theta = pi, where the canonical Euler form is singular.
-    case = write(
+    case = write_case(
         tmp_path,
         "pole.toml",
         TOP_TOML.replace("phi_rate = 1.0", "phi_rate = 0.0"),
@@ -168,28 +108,26 @@ def test_singular_through_the_pole_and_at_the_start(tmp_path, capsys):
         spin="0 rpm",
     )
     out = tmp_path / "r.h5"
-    rc, doc = run_json(
-        capsys,
-        [
-            str(case),
-            "--method",
-            "leapfrog",
-            "--step",
-            "0.01",
-            "--samples",
-            "3",
-            "--horizon",
-            "2",
-            "--out",
-            str(out),
-        ],
+    rc, doc, _ = command_json(
+        "run",
+        str(case),
+        "--method",
+        "leapfrog",
+        "--step",
+        "0.01",
+        "--samples",
+        "3",
+        "--horizon",
+        "2",
+        "--out",
+        str(out),
     )
     (r,) = doc["runs"]
     assert rc == 1 and r["status"] == "singular"
     assert 0.0 < r["metrics"]["t_fail"] < 2.0
     # A start on the vertical has no Euler-form state: refused up front, nothing stored (the
     # refusal's wording is checked in test_faults.py).
-    up = write(tmp_path, "up.toml", TOP_TOML, theta="0 deg")
+    up = write_case(tmp_path, "up.toml", TOP_TOML, theta="0 deg")
     before = out.read_bytes()
     rc = cli.main(
         [
@@ -208,9 +146,17 @@ def test_singular_through_the_pole_and_at_the_start(tmp_path, capsys):
     assert rc == 2 and "the body form" in capsys.readouterr().err
     assert out.read_bytes() == before
     # The body form runs the same start.
-    rc, doc = run_json(
-        capsys,
-        [str(up), "--method", "leapfrog", "--step", "0.01", "--form", "body", "--out", str(out)],
+    rc, doc, _ = command_json(
+        "run",
+        str(up),
+        "--method",
+        "leapfrog",
+        "--step",
+        "0.01",
+        "--form",
+        "body",
+        "--out",
+        str(out),
     )
     assert rc == 0 and doc["runs"][0]["status"] == "ok"
     with h5py.File(out, "r") as f:
@@ -221,27 +167,25 @@ def test_singular_through_the_pole_and_at_the_start(tmp_path, capsys):
                 assert not any(math.isnan(v) for v in g[name][()].ravel())
 
 
-def test_diverged_with_a_step_far_too_large(tmp_path, capsys):
-    case = write(tmp_path, "top.toml", TOP_TOML)
+def test_diverged_with_a_step_far_too_large(command_json, tmp_path):
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     out = tmp_path / "r.h5"
     # RK4 at a step of 0.25 s against a spin period of 0.1 s: far outside its stability region.
-    rc, doc = run_json(
-        capsys,
-        [
-            str(case),
-            "--method",
-            "rk4",
-            "--step",
-            "0.25",
-            "--samples",
-            "5",
-            "--horizon",
-            "10",
-            "--form",
-            "body",
-            "--out",
-            str(out),
-        ],
+    rc, doc, _ = command_json(
+        "run",
+        str(case),
+        "--method",
+        "rk4",
+        "--step",
+        "0.25",
+        "--samples",
+        "5",
+        "--horizon",
+        "10",
+        "--form",
+        "body",
+        "--out",
+        str(out),
     )
     (r,) = doc["runs"]
     assert rc == 1 and r["status"] == "diverged"
@@ -265,15 +209,15 @@ def _wait_for_flush(proc):
 LONG = ["--method", "gauss4", "--step", "0.0002", "--horizon", "200", "--samples", "201"]
 
 
-def test_sigkill_then_resume_gives_the_same_bytes(tmp_path, capsys):
-    case = write(tmp_path, "top.toml", TOP_TOML)
+def test_sigkill_then_resume_gives_the_same_bytes(command_json, tmp_path, capsys):
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     whole = tmp_path / "whole.h5"
     part = tmp_path / "part.h5"
-    rc, doc = run_json(capsys, [str(case), *LONG, "--out", str(whole)])
+    rc, doc, _ = command_json("run", str(case), *LONG, "--out", str(whole))
     assert rc == 0
     run_id = doc["runs"][0]["run_id"]
 
-    proc = topdrift("run", str(case), *LONG, "--out", str(part), "--flush-every", "0")
+    proc = topdrift_process("run", str(case), *LONG, "--out", str(part), "--flush-every", "0")
     _wait_for_flush(proc)
     proc.send_signal(signal.SIGKILL)
     proc.wait()
@@ -288,7 +232,7 @@ def test_sigkill_then_resume_gives_the_same_bytes(tmp_path, capsys):
     # Without --resume the unfinished run is not silently redone.
     assert cli.main(["run", str(case), *LONG, "--out", str(part)]) == 2
     assert "--resume" in capsys.readouterr().err
-    rc, doc = run_json(capsys, [str(case), *LONG, "--out", str(part), "--resume"])
+    rc, doc, _ = command_json("run", str(case), *LONG, "--out", str(part), "--resume")
     assert rc == 0 and doc["runs"][0]["status"] == "ok"
     a, b = dataset_hashes(whole, run_id), dataset_hashes(part, run_id)
     assert set(a) >= {"t", "euler", "quaternion", "momentum", "invariants/energy", "exact/euler"}
@@ -296,9 +240,9 @@ def test_sigkill_then_resume_gives_the_same_bytes(tmp_path, capsys):
 
 
 def test_sigterm_flushes_and_marks_interrupted(tmp_path):
-    case = write(tmp_path, "top.toml", TOP_TOML)
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     out = tmp_path / "r.h5"
-    proc = topdrift(
+    proc = topdrift_process(
         "run", str(case), *LONG, "--out", str(out), "--flush-every", "0", env=dict(os.environ)
     )
     _wait_for_flush(proc)
@@ -316,12 +260,12 @@ def test_sigterm_flushes_and_marks_interrupted(tmp_path):
 def test_a_second_writer_is_refused(tmp_path):
     from topdrift.benchmarks.store.writer import open_writer
 
-    case = write(tmp_path, "top.toml", TOP_TOML)
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     out = tmp_path / "r.h5"
     f = open_writer(out)  # this process holds the file for writing
     try:
         before = out.stat().st_size
-        proc = topdrift(
+        proc = topdrift_process(
             "run", str(case), "--method", "leapfrog", "--step", "0.01", "--out", str(out)
         )
         _, err = proc.communicate(timeout=60)
@@ -331,12 +275,12 @@ def test_a_second_writer_is_refused(tmp_path):
         f.close()
 
 
-def test_resume_of_a_run_killed_before_its_first_write_starts_it(tmp_path, capsys):
+def test_resume_of_a_run_killed_before_its_first_write_starts_it(command_json, tmp_path, capsys):
     from topdrift.benchmarks.cases.schema import read_case
     from topdrift.benchmarks.run.runner import plan_run, run_attrs
     from topdrift.benchmarks.store.writer import RunGroup, open_writer
 
-    case = write(tmp_path, "top.toml", TOP_TOML)
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     out = tmp_path / "r.h5"
     plan = plan_run(read_case(case), "leapfrog", step=0.01)
     f = open_writer(out)
@@ -345,17 +289,17 @@ def test_resume_of_a_run_killed_before_its_first_write_starts_it(tmp_path, capsy
     args = [str(case), "--method", "leapfrog", "--step", "0.01", "--out", str(out)]
     assert cli.main(["run", *args]) == 2
     assert "is running at sample 0/11" in capsys.readouterr().err
-    rc, doc = run_json(capsys, [*args, "--resume"])
+    rc, doc, _ = command_json("run", *args, "--resume")
     assert rc == 0 and doc["runs"][0]["status"] == "ok"
     with h5py.File(out, "r") as f:
         assert f["runs"][plan.run_id]["t"].shape == (11,)
 
 
 def test_out_that_is_a_directory_or_not_hdf5_exits_2(tmp_path, capsys):
-    case = write(tmp_path, "top.toml", TOP_TOML)
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     junk = tmp_path / "junk.h5"
     junk.write_text("not hdf5\n")
-    for out, message in ((tmp_path, "is a directory"), (junk, "not a readable HDF5 file")):
+    for out, message in ((tmp_path, "is a directory"), (junk, "not an HDF5 file")):
         rc = cli.main(
             ["run", str(case), "--method", "leapfrog", "--step", "0.01", "--out", str(out)]
         )

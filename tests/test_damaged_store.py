@@ -12,7 +12,7 @@ import textwrap
 
 import h5py
 import pytest
-from test_cli_run import TOP_TOML, write
+from tiny_cases import TOP_TOML, write_case
 
 from topdrift.benchmarks.cli import entry as cli
 
@@ -20,7 +20,7 @@ from topdrift.benchmarks.cli import entry as cli
 @pytest.fixture(scope="module")
 def good(tmp_path_factory):
     d = tmp_path_factory.mktemp("good")
-    case = write(d, "top.toml", TOP_TOML)
+    case = write_case(d, "top.toml", TOP_TOML)
     path = d / "runs.h5"
     for method, opt in (("leapfrog", ["--step", "0.01"]), ("rk45", ["--rtol", "1e-8"])):
         assert cli.main(["run", str(case), "--method", method, *opt, "--out", str(path)]) == 0

@@ -11,12 +11,12 @@ from __future__ import annotations
 import resource
 import signal
 import subprocess
-import sys
 import textwrap
 
 import h5py
 import pytest
-from test_cli_run import TOP_TOML, write
+from run_files import dataset_hashes, topdrift_cmd
+from tiny_cases import TOP_TOML, write_case
 
 from topdrift.benchmarks.cli import entry as cli
 
@@ -30,7 +30,7 @@ def limited(limit: int, *args):
         resource.setrlimit(resource.RLIMIT_FSIZE, (limit, limit))
 
     return subprocess.run(
-        [sys.executable, "-m", "topdrift.benchmarks.cli.entry", *args],
+        topdrift_cmd(*args),
         preexec_fn=pre,
         capture_output=True,
         text=True,
@@ -64,24 +64,10 @@ def one_error_line(stderr: str, path) -> str:
     return errors[0]
 
 
-def datasets(path, run_id) -> dict:
-    with h5py.File(path, "r") as f:
-        g = f["runs"][run_id]
-        out = {}
-        g.visititems(
-            lambda n, o: (
-                out.__setitem__(n, o[()].tobytes())
-                if isinstance(o, h5py.Dataset) and not n.startswith("checkpoint")
-                else None
-            )
-        )
-    return out
-
-
 @pytest.fixture(scope="module")
 def whole(tmp_path_factory):
     d = tmp_path_factory.mktemp("whole")
-    case = write(d, "top.toml", TOP_TOML)
+    case = write_case(d, "top.toml", TOP_TOML)
     out = d / "whole.h5"
     assert cli.main(["run", str(case), *LONG, "--out", str(out)]) == 0
     with h5py.File(out, "r") as f:
@@ -115,12 +101,12 @@ def test_run_on_a_full_disk_stops_interrupted_and_resumes(whole, tmp_path, capsy
     # Room made (no limit): the run goes on to the bytes of one that never stopped.
     capsys.readouterr()
     assert cli.main(["run", str(case), *LONG, "--out", str(out), "--resume"]) == 0
-    assert datasets(out, run_id) == datasets(ref, run_id)
+    assert dataset_hashes(out, run_id) == dataset_hashes(ref, run_id)
     COUNTS["resumes_compared"] += 1
 
 
 def test_a_complete_run_stays_complete_when_a_later_one_runs_out_of_room(tmp_path, capsys):
-    case = write(tmp_path, "top.toml", TOP_TOML)
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     out = tmp_path / "r.h5"
     short = ["--method", "leapfrog", "--step", "0.01"]
     assert cli.main(["run", str(case), *short, "--out", str(out)]) == 0
@@ -136,7 +122,7 @@ def test_a_complete_run_stays_complete_when_a_later_one_runs_out_of_room(tmp_pat
 
 
 def test_sweep_on_a_full_disk_keeps_its_complete_runs(tmp_path, capsys):
-    case = write(tmp_path, "top.toml", TOP_TOML)
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     spec = tmp_path / "s.toml"
     spec.write_text(
         textwrap.dedent(
@@ -175,7 +161,7 @@ def test_full_disk_counts():
 
 
 def test_results_folder_that_cannot_be_made_is_one_line_and_no_file(tmp_path, capsys):
-    case = write(tmp_path, "top.toml", TOP_TOML)
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     blocker = tmp_path / "results"
     blocker.write_text("a file where the folder should be\n")
     for out in (blocker / "r.h5", blocker / "deeper" / "r.h5"):

@@ -166,3 +166,89 @@ def test_ensemble_refused_for_an_adaptive_method(tmp_path, capsys):
     )
     assert "fixed-step" in capsys.readouterr().err
     assert not out.exists()
+
+
+def _ensemble(tmp_path, text, members, method="leapfrog", step=0.01, **run):
+    """plan_run + plan_ensemble on a tiny case file, with an open writer for execute_ensemble."""
+    from tiny_cases import write_case
+
+    from topdrift.benchmarks.cases.schema import read_case
+    from topdrift.benchmarks.run.ensemble import plan_ensemble
+    from topdrift.benchmarks.run.runner import plan_run
+    from topdrift.benchmarks.store.writer import open_writer
+
+    path = write_case(tmp_path, "top.toml", text, **run.pop("fmt", {}))
+    plan = plan_run(read_case(path), method, step=step, **run)
+    return plan_ensemble(plan, members, 1e-6), open_writer(tmp_path / "e.h5")
+
+
+def test_an_ensemble_that_reaches_the_pole_ends_singular_with_its_last_sample(tmp_path):
+    # The planar swing of test_cli_run.py (no spin, no precession, from 3 deg): every member
+    # falls through the downward vertical, where the Euler form is singular, within 2 s.
+    import h5py
+    from tiny_cases import TOP_TOML
+
+    from topdrift.benchmarks.run.ensemble import execute_ensemble
+
+    swing = TOP_TOML.replace("phi_rate = 1.0", "phi_rate = 0.0")
+    ep, f = _ensemble(
+        tmp_path, swing, 4, horizon=2.0, samples=21, fmt={"theta": "3 deg", "spin": "0 rpm"}
+    )
+    try:
+        r = execute_ensemble(ep, f)
+    finally:
+        f.close()
+    assert r.status == "singular"
+    t_fail = r.metrics["t_fail"]
+    assert 0.0 < t_fail < 2.0 and f"by t = {t_fail:.17g}" in r.detail
+    assert r.detail.split(" of ")[1].startswith("4 members stopped")
+    with h5py.File(tmp_path / "e.h5", "r") as g5:
+        g = g5["runs"][r.run_id]
+        assert g.attrs["status"] == "singular" and g.attrs["detail"] == r.detail
+        t = g["t"][()]
+        # The sample at which the members stopped is stored, and nothing after it.
+        assert t[-1] == t_fail and len(t) == round(t_fail / 0.1) + 1
+        assert g["ensemble/energy"].shape == (len(t), 4)
+
+
+def test_a_stopped_ensemble_is_interrupted_with_every_sample_it_took(tmp_path, stop_at):
+    import h5py
+    from tiny_cases import TOP_TOML
+
+    from topdrift.benchmarks.run.ensemble import execute_ensemble
+
+    ep, f = _ensemble(tmp_path, TOP_TOML, 3, step=0.001)
+    stop, progress = stop_at(4)
+    try:
+        r = execute_ensemble(ep, f, stop=stop, progress=progress, flush_every=3600.0)
+    finally:
+        f.close()
+    assert r.status == "interrupted" and r.detail == "" and r.metrics["t_fail"] is None
+    with h5py.File(tmp_path / "e.h5", "r") as g5:
+        g = g5["runs"][r.run_id]
+        assert g.attrs["status"] == "interrupted"
+        assert g["t"].shape == (4,) and g["ensemble/axis"].shape == (4, 3, 3)
+        assert g["state"].shape == (4, 6)  # member 0's samples, the Euler form of a Lagrange top
+
+
+def test_run_statuses_are_the_documented_ones():
+    # The run-file contract (docs/run-files.md, "status") against the labels the store writes
+    # and the sample loop ends runs with.
+    from pathlib import Path
+
+    from topdrift.benchmarks.run.loop import RUN_STATUS, STOPPED, stepper_outcome
+    from topdrift.benchmarks.store.format import STATUSES
+    from topdrift.integrators import ST_FAILED, ST_NO_CONVERGENCE, ST_STEP_UNDERFLOW, STATUS_NAMES
+
+    doc = Path(__file__).resolve().parents[1] / "docs" / "run-files.md"
+    line = next(ln for ln in doc.read_text().splitlines() if ln.strip().startswith("status "))
+    assert tuple(w for w in line.split()[1:] if w != "|") == STATUSES
+    assert STOPPED.status in STATUSES and set(RUN_STATUS.values()) <= set(STATUSES)
+    for code in range(len(STATUS_NAMES)):
+        if code == 0:
+            continue
+        end = stepper_outcome(code, 1.5)
+        assert end.status in STATUSES and end.t_fail == 1.5
+        assert end.detail.startswith(f"{STATUS_NAMES[code]} at t = 1.5")
+    for code in (ST_FAILED, ST_NO_CONVERGENCE, ST_STEP_UNDERFLOW):
+        assert stepper_outcome(code, 0.0).status == "failed"

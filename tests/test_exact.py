@@ -17,6 +17,7 @@ import mpmath as mp
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
+from scipy_reference import dop853  # scipy's DOP853 at rtol = atol = 1e-13
 
 from topdrift.models import FORM_BODY, FORM_EULER, RigidBody, body_state, euler_state
 from topdrift.models.dynamics import rhs
@@ -191,21 +192,6 @@ def test_near_separatrix_against_mpmath_and_refused_on_it():
 
 
 # --------------------------------------------------------------------------- scipy DOP853
-def dop853(form, body, y0, t):
-    p = body.params()
-    n = len(y0)
-
-    def f(_, y):
-        d = np.empty(n)
-        rhs(form, y, p, d)
-        return d
-
-    # scipy's DOP853 at tight tolerance: a general-purpose reference integrator.
-    sol = solve_ivp(f, (0.0, t[-1]), y0, method="DOP853", rtol=1e-13, atol=1e-13, t_eval=t)
-    assert sol.success
-    return sol.y.T
-
-
 def dop853_reduced(body, ye, period, periods, per_period=20):
     """DOP853 over whole nutation periods, restarting each period with phi and psi folded
     into (-pi, pi] and the whole turns kept aside. The equations do not depend on phi and psi,

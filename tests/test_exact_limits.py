@@ -6,10 +6,9 @@ import math
 
 import numpy as np
 import pytest
-from scipy.integrate import solve_ivp
+from scipy_reference import dop853  # scipy's DOP853 at rtol = atol = 1e-13
 
 from topdrift.models import FORM_BODY, FORM_EULER, RigidBody, body_state, euler_state
-from topdrift.models.dynamics import rhs
 from topdrift.models.exact import MOTIONS, ExactUnavailable, LagrangeTop
 
 I1, I3 = 2.0e-3, 1.2e-3
@@ -35,21 +34,6 @@ def steady_rate(theta, w3, slow=True):
     c = math.cos(theta)
     disc = math.sqrt((I3 * w3) ** 2 - 4.0 * I1 * c * MGL)
     return (I3 * w3 - disc) / (2.0 * I1 * c) if slow else (I3 * w3 + disc) / (2.0 * I1 * c)
-
-
-def dop853(form, body, y0, t):
-    p = body.params()
-    n = len(y0)
-
-    def f(_, y):
-        d = np.empty(n)
-        rhs(form, y, p, d)
-        return d
-
-    # scipy's DOP853 at tight tolerance: a general-purpose reference integrator.
-    sol = solve_ivp(f, (0.0, t[-1]), y0, method="DOP853", rtol=1e-13, atol=1e-13, t_eval=t)
-    assert sol.success
-    return sol.y.T
 
 
 # --------------------------------------------------------------------------- fast top

@@ -16,14 +16,14 @@ import signal
 import h5py
 import numpy as np
 import pytest
-from test_cli_run import TOP_TOML, dataset_hashes, run_json, topdrift, write
+from run_files import dataset_hashes, topdrift_process
+from tiny_cases import ASYM_TOML, TOP_TOML, write_case
 
 from topdrift.benchmarks.cases.schema import parse_case
 from topdrift.benchmarks.cli import entry as cli
-from topdrift.benchmarks.run import runner as runner_mod
 from topdrift.benchmarks.run.runner import execute, plan_run
 from topdrift.benchmarks.store.writer import open_writer
-from topdrift.integrators import ST_STEP_UNDERFLOW
+from topdrift.integrators import ST_STEP_UNDERFLOW, Method
 
 # Long enough that the signal lands mid-run (a few seconds), short enough for CI.
 SETTINGS = {
@@ -98,7 +98,7 @@ def _wait_for_samples(proc, at_least: int) -> None:
 def whole(tmp_path_factory):
     """Each method's run, never stopped: the bytes a resumed run must reproduce."""
     d = tmp_path_factory.mktemp("whole")
-    case = write(d, "top.toml", TOP_TOML)
+    case = write_case(d, "top.toml", TOP_TOML)
     out = {}
     for method, opts in SETTINGS.items():
         path = d / f"{method}.h5"
@@ -110,13 +110,15 @@ def whole(tmp_path_factory):
 
 
 @pytest.mark.parametrize(("method", "sig"), FAULTS, ids=[f"{m}-{s.name}" for m, s in FAULTS])
-def test_signal_mid_run_then_resume_gives_the_same_bytes(tmp_path, capsys, whole, method, sig):
+def test_signal_mid_run_then_resume_gives_the_same_bytes(
+    command_json, tmp_path, capsys, whole, method, sig
+):
     case, runs = whole
     ref_path, run_id = runs[method]
     part = tmp_path / "part.h5"
     opts = SETTINGS[method]
     capsys.readouterr()
-    proc = topdrift("run", str(case), *opts, "--out", str(part), "--flush-every", "0")
+    proc = topdrift_process("run", str(case), *opts, "--out", str(part), "--flush-every", "0")
     _wait_for_samples(proc, 3)
     proc.send_signal(sig)
     COUNTS["faults"] += 1
@@ -136,7 +138,7 @@ def test_signal_mid_run_then_resume_gives_the_same_bytes(tmp_path, capsys, whole
         if sig != signal.SIGKILL:  # flushed up to the stop: every sample has its checkpoint
             assert g["checkpoint/run"].attrs["sample"] == n
             assert np.all(np.isfinite(g["euler"][()]))
-    rc, doc = run_json(capsys, [str(case), *opts, "--out", str(part), "--resume"])
+    rc, doc, _ = command_json("run", str(case), *opts, "--out", str(part), "--resume")
     assert rc == 0 and doc["runs"][0]["status"] == "ok"
     a, b = dataset_hashes(ref_path, run_id), dataset_hashes(part, run_id)
     assert {"t", "euler", "state", "invariants/energy", "exact/axis"} <= set(a)
@@ -163,7 +165,7 @@ def test_fault_counts():
 
 def test_euler_start_on_the_pole_is_refused_up_front(tmp_path, capsys):
     for theta in ("0 deg", "180 deg"):
-        case = write(tmp_path, "up.toml", TOP_TOML, theta=theta)
+        case = write_case(tmp_path, "up.toml", TOP_TOML, theta=theta)
         out = tmp_path / "r.h5"
         for extra in (["--form", "euler"], []):  # leapfrog's own default form is euler
             rc = cli.main(
@@ -183,13 +185,13 @@ def test_euler_start_on_the_pole_is_refused_up_front(tmp_path, capsys):
     capsys.readouterr()
 
 
-def test_a_step_far_too_large_ends_as_diverged_with_the_time(tmp_path, capsys):
+def test_a_step_far_too_large_ends_as_diverged_with_the_time(command_json, tmp_path):
     # The diverged status itself is covered in test_cli_run.py; here: its detail names the time,
     # equal to the stored t_fail, and no non-finite sample is stored.
-    case = write(tmp_path, "top.toml", TOP_TOML)
+    case = write_case(tmp_path, "top.toml", TOP_TOML)
     out = tmp_path / "r.h5"
     opts = ["--method", "rk4", "--step", "0.25", "--samples", "5", "--horizon", "10"]
-    rc, doc = run_json(capsys, [str(case), *opts, "--form", "body", "--out", str(out)])
+    rc, doc, _ = command_json("run", str(case), *opts, "--form", "body", "--out", str(out))
     (r,) = doc["runs"]
     assert rc == 1 and r["status"] == "diverged"
     t_fail = r["metrics"]["t_fail"]
@@ -199,13 +201,14 @@ def test_a_step_far_too_large_ends_as_diverged_with_the_time(tmp_path, capsys):
         assert np.all(np.isfinite(g["state"][()])) and g["t"][-1] < t_fail
 
 
-def test_no_exact_solution_says_why_and_stores_no_axis_error(tmp_path, capsys):
+def test_no_exact_solution_says_why_and_stores_no_axis_error(command_json, tmp_path):
     # An asymmetric body (I1 != I2) has no Lagrange-top solution: the run's notes say so, the
     # axis error is null (JSON null, never NaN), and no exact datasets exist.
-    asym = TOP_TOML.replace("[0.02, 0.02, 0.01]", "[0.02, 0.03, 0.015]")
-    case = write(tmp_path, "asym.toml", asym)
+    case = write_case(tmp_path, "asym.toml", ASYM_TOML)
     out = tmp_path / "r.h5"
-    rc, doc = run_json(capsys, [str(case), "--method", "rk45", "--rtol", "1e-8", "--out", str(out)])
+    rc, doc, _ = command_json(
+        "run", str(case), "--method", "rk45", "--rtol", "1e-8", "--out", str(out)
+    )
     (r,) = doc["runs"]
     assert rc == 0 and r["status"] == "ok"
     assert r["metrics"]["axis_angle_max"] is None
@@ -224,17 +227,25 @@ DEGENERATE = {
 
 
 @pytest.mark.parametrize("label", list(DEGENERATE))
-def test_degenerate_exact_solution_is_compared_or_noted_never_nan(tmp_path, capsys, label):
+def test_degenerate_exact_solution_is_compared_or_noted_never_nan(command_json, tmp_path, label):
     # Either the exact module has a branch for the case (then the comparison is finite and as
     # small as dop853 at rtol 1e-10 makes it), or it refuses (then the notes say why and the axis
     # error is null). A NaN anywhere is the failure this guards against.
     theta, phi_rate, spin = DEGENERATE[label]
     text = TOP_TOML.replace("phi_rate = 1.0", f"phi_rate = {phi_rate}")
-    case = write(tmp_path, "d.toml", text, theta=theta, spin=spin)
+    case = write_case(tmp_path, "d.toml", text, theta=theta, spin=spin)
     out = tmp_path / "r.h5"
-    rc, doc = run_json(
-        capsys,
-        [str(case), "--method", "dop853", "--rtol", "1e-10", "--form", "body", "--out", str(out)],
+    rc, doc, _ = command_json(
+        "run",
+        str(case),
+        "--method",
+        "dop853",
+        "--rtol",
+        "1e-10",
+        "--form",
+        "body",
+        "--out",
+        str(out),
     )
     (r,) = doc["runs"]
     assert rc == 0 and r["status"] == "ok"
@@ -250,25 +261,37 @@ def test_degenerate_exact_solution_is_compared_or_noted_never_nan(tmp_path, caps
             assert np.all(np.isfinite(g["exact/axis"][()]))
 
 
-def test_step_underflow_is_a_failed_run_that_says_so(tmp_path, monkeypatch):
+class _UnderflowAtFourthSample(Method):
+    """The same method, whose stepper reports ST_STEP_UNDERFLOW when asked for its fourth
+    sample (the runner asks once per sample interval for an adaptive method)."""
+
+    def __init__(self, inner: Method):
+        self.inner = inner
+        self.info = inner.info
+
+    def start(self, form, params, t0, y0, settings):
+        s = self.inner.start(form, params, t0, y0, settings)
+        real, calls = s.advance_to, []
+
+        def advance_to(t_end):
+            calls.append(t_end)
+            if len(calls) < 4:
+                return real(t_end)
+            s.status, s.t_fail = ST_STEP_UNDERFLOW, float(s.t)
+            return ST_STEP_UNDERFLOW
+
+        s.advance_to = advance_to
+        return s
+
+
+def test_step_underflow_is_a_failed_run_that_says_so(tmp_path):
     # The kernels stop with ST_STEP_UNDERFLOW when the step falls below 10 ulp of t (see
     # integrators/rk_embedded_kernel.py). A real trigger needs a singular right-hand side the
     # body form does not have, so the stepper is made to report it after a few samples; what is
     # checked is the runner's side: status, time and a detail a user can act on.
-    case = parse_case(write(tmp_path, "top.toml", TOP_TOML).read_text(), "top.toml")
+    case = parse_case(write_case(tmp_path, "top.toml", TOP_TOML).read_text(), "top.toml")
     plan = plan_run(case, "rk45", rtol=1e-8, form="body")
-    real_advance = runner_mod._advance
-    calls = {"n": 0}
-
-    def advance(plan, run, tk, stop, progress):
-        calls["n"] += 1
-        if calls["n"] < 4:
-            return real_advance(plan, run, tk, stop, progress)
-        s = run.stepper
-        s.status, s.t_fail = ST_STEP_UNDERFLOW, float(s.t)
-        return ST_STEP_UNDERFLOW
-
-    monkeypatch.setattr(runner_mod, "_advance", advance)
+    plan.method = _UnderflowAtFourthSample(plan.method)
     f = open_writer(tmp_path / "r.h5")
     try:
         result = execute(plan, f)
@@ -284,37 +307,15 @@ def test_step_underflow_is_a_failed_run_that_says_so(tmp_path, monkeypatch):
         assert g.attrs["status"] == "failed" and g["t"].shape == (4,)
 
 
-class _StopAt:
-    """A progress sink that asks the run to stop once it has taken `k` samples."""
-
-    def __init__(self, stop, k):
-        self.stop, self.k = stop, k
-
-    def begin(self, *_):
-        pass
-
-    def flushed(self, *_):
-        pass
-
-    def end(self, *_):
-        pass
-
-    def update(self, k, _steps):
-        if k >= self.k:
-            self.stop.signum = signal.SIGINT
-
-
-def test_resume_refuses_a_file_that_lost_samples_before_its_checkpoint(tmp_path, capsys):
-    from topdrift.benchmarks.run.runner import StopFlag
-
-    path = write(tmp_path, "top.toml", TOP_TOML)
+def test_resume_refuses_a_file_that_lost_samples_before_its_checkpoint(tmp_path, capsys, stop_at):
+    path = write_case(tmp_path, "top.toml", TOP_TOML)
     case = parse_case(path.read_text(), str(path))
     plan = plan_run(case, "leapfrog", step=0.01)
     out = tmp_path / "r.h5"
-    stop = StopFlag()
+    stop, progress = stop_at(5)
     f = open_writer(out)
     try:
-        r = execute(plan, f, stop=stop, progress=_StopAt(stop, 5), flush_every=0.0)
+        r = execute(plan, f, stop=stop, progress=progress, flush_every=0.0)
     finally:
         f.close()
     assert r.status == "interrupted"

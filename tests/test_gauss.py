@@ -4,11 +4,12 @@ time reversibility, symplecticity, compensated summation, and the stepper contra
 import math
 from fractions import Fraction
 
-import h5py
 import mpmath
 import numpy as np
 import pytest
-from scipy.integrate import solve_ivp
+from demo_bodies import CASE_IDS, CASES, GENERAL, LAGRANGE, state
+from run_files import through_hdf5
+from scipy_reference import dop853
 
 from topdrift.integrators import (
     C_EVALS,
@@ -22,23 +23,10 @@ from topdrift.integrators import (
 )
 from topdrift.integrators.gauss.kernel import I_ROUNDING, N_ITERS, N_MEMO, gauss_steps, work_size
 from topdrift.integrators.gauss.tableau import GAUSS2, GAUSS3, Tableau
-from topdrift.models import FORM_BODY, FORM_EULER, RigidBody, body_state, euler_state
+from topdrift.models import FORM_BODY, FORM_EULER, body_state
 from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 from topdrift.models.dynamics import rhs
 from topdrift.models.invariants import invariants_of
-
-# Demo bodies of our own: a symmetric heavy top, and a body with three different moments and its
-# centre of mass off the axis (body form only).
-LAGRANGE = RigidBody(mass=1.0, inertia=(1.0, 1.0, 0.6), com=(0.0, 0.0, 0.1))
-GENERAL = RigidBody(mass=1.0, inertia=(1.0, 0.8, 0.6), com=(0.02, -0.01, 0.1))
-START = (0.0, 0.6, 0.0, 0.3, 0.5, 5.0)  # phi, theta, psi and their rates
-
-CASES = [(FORM_EULER, LAGRANGE), (FORM_BODY, GENERAL)]
-CASE_IDS = ["euler", "body"]
-
-
-def state(form, body, start=START):
-    return euler_state(body, *start) if form == FORM_EULER else body_state(body, *start)
 
 
 def run(name, form, body, h, t_end, y0=None, **extra):
@@ -50,15 +38,7 @@ def run(name, form, body, h, t_end, y0=None, **extra):
 
 def scipy_reference(form, body, y0, times):
     """A tight DOP853 solution from scipy (rtol 1e-13), independent of the kernels under test."""
-    p = body.params()
-
-    def f(t, y):
-        dy = np.empty(y.shape[0])
-        rhs(form, np.ascontiguousarray(y), p, dy)
-        return dy
-
-    sol = solve_ivp(f, (0.0, times[-1]), y0, method="DOP853", rtol=1e-13, atol=1e-15, t_eval=times)
-    return sol.y.T
+    return dop853(form, body, y0, times, rtol=1e-13, atol=1e-15)
 
 
 # --- the tables ------------------------------------------------------------------------------
@@ -452,22 +432,6 @@ def test_counts_every_evaluation(form, body):
     assert 2 <= st.sweeps / steps <= 15
 
 
-def _through_hdf5(snap: dict) -> dict:
-    """Store a snapshot as datasets and attributes of an in-memory HDF5 file and read it back:
-    a snapshot must be plain numbers, strings and arrays."""
-    with h5py.File("snapshot.h5", "w", driver="core", backing_store=False) as f:
-        g = f.create_group("snap")
-        for k, v in snap.items():
-            if isinstance(v, np.ndarray):
-                g.create_dataset(k, data=v)
-            else:
-                g.attrs[k] = v
-        out = {k: ds[()] for k, ds in g.items()}
-        for k, v in g.attrs.items():
-            out[k] = v.decode() if isinstance(v, bytes) else v
-    return out
-
-
 @pytest.mark.parametrize("name", ["gauss4", "gauss6-kahan"])
 def test_output_times_and_resume_do_not_change_the_bits(name):
     form, body = FORM_BODY, GENERAL
@@ -475,7 +439,7 @@ def test_output_times_and_resume_do_not_change_the_bits(name):
     st = get(name).start(form, body.params(), 0.0, state(form, body), {"step": 0.01})
     for k in range(1, 16):
         assert st.advance_to(0.1 * k) == ST_OK
-    snap = _through_hdf5(st.snapshot())
+    snap = through_hdf5(st.snapshot())
     for k in range(16, 31):
         assert st.advance_to(0.1 * k) == ST_OK
     np.testing.assert_array_equal(st.y, once.y)

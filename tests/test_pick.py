@@ -3,8 +3,6 @@ target, checked here against a trajectory of our own (scipy's DOP853 on the Eule
 equations); the JSON has its documented keys; a case without an exact solution says what the axis
 is measured against; an impossible target ranks nothing and exits 1; bad input exits 2."""
 
-import json
-
 import h5py
 import numpy as np
 import pytest
@@ -12,7 +10,6 @@ from scipy.integrate import solve_ivp
 from sweep_grid import ASYM_TOML, SYM_TOML
 
 from topdrift.benchmarks.cases.schema import parse_case
-from topdrift.benchmarks.cli import entry as cli
 
 HORIZON = "1.0"
 SAMPLES = "11"
@@ -28,23 +25,6 @@ def cases(tmp_path):
     asym = tmp_path / "my-asym.toml"
     asym.write_text(ASYM_TOML)
     return sym, asym
-
-
-def cli_json(capsys, args):
-    capsys.readouterr()
-    rc = cli.main([*args, "--json"])
-    cap = capsys.readouterr()
-    return rc, json.loads(cap.out), cap.err
-
-
-def cli_text(capsys, args):
-    capsys.readouterr()
-    try:
-        rc = cli.main(args)
-    except SystemExit as exc:  # refused by the argument parser (one line, exit 2)
-        rc = exc.code
-    cap = capsys.readouterr()
-    return rc, cap.out, cap.err
 
 
 def rotation(q):
@@ -99,7 +79,7 @@ def max_angle(a, b):
     return float(np.max(np.arctan2(s, c)))
 
 
-def rerun(capsys, case_path, entry, tmp_path):
+def rerun(command_json, case_path, entry, tmp_path):
     """The ranked setting through `topdrift run`; returns (metrics, axes from the quaternions)."""
     s = entry["settings"]
     setting = (
@@ -108,23 +88,20 @@ def rerun(capsys, case_path, entry, tmp_path):
         else ["--rtol", repr(s["rtol"]), "--atol", repr(s["atol"])]
     )
     out = tmp_path / f"rerun-{entry['method']}.h5"
-    rc, doc, err = cli_json(
-        capsys,
-        [
-            "run",
-            str(case_path),
-            "--method",
-            entry["method"],
-            "--form",
-            entry["form"],
-            *setting,
-            "--horizon",
-            HORIZON,
-            "--samples",
-            SAMPLES,
-            "--out",
-            str(out),
-        ],
+    rc, doc, err = command_json(
+        "run",
+        str(case_path),
+        "--method",
+        entry["method"],
+        "--form",
+        entry["form"],
+        *setting,
+        "--horizon",
+        HORIZON,
+        "--samples",
+        SAMPLES,
+        "--out",
+        str(out),
     )
     assert rc == 0, err
     (row,) = doc["runs"]
@@ -137,12 +114,19 @@ def rerun(capsys, case_path, entry, tmp_path):
     return row["metrics"], np.array([rotation(x)[:, 2] for x in q])
 
 
-def test_ranked_settings_meet_the_target_when_run_again(cases, capsys, tmp_path):
+def test_ranked_settings_meet_the_target_when_run_again(command_json, cases, tmp_path):
     sym, _ = cases
-    rc, doc, err = cli_json(
-        capsys,
-        ["pick", str(sym), "--target", str(TARGET), "--methods", *METHODS]
-        + ["--horizon", HORIZON, "--samples", SAMPLES],
+    rc, doc, err = command_json(
+        "pick",
+        str(sym),
+        "--target",
+        str(TARGET),
+        "--methods",
+        *METHODS,
+        "--horizon",
+        HORIZON,
+        "--samples",
+        SAMPLES,
     )
     assert rc == 0, err
     # The documented keys (README, "Sweeps and recommendations").
@@ -158,7 +142,7 @@ def test_ranked_settings_meet_the_target_when_run_again(cases, capsys, tmp_path)
         assert set(e["settings"]) in ({"step"}, {"rtol", "atol"})
         assert e["rhs_evals"] > 0 and e["wall_s"] > 0
         assert 0 < e["achieved"] <= TARGET
-        metrics, axes = rerun(capsys, sym, e, tmp_path)
+        metrics, axes = rerun(command_json, sym, e, tmp_path)
         # the same run again: the same error, to the bit
         assert metrics["axis_angle_max"] == e["achieved"]
         # and against our own trajectory the target is met too (scipy's own error is ~1e-10)
@@ -167,12 +151,20 @@ def test_ranked_settings_meet_the_target_when_run_again(cases, capsys, tmp_path)
         assert mine == pytest.approx(e["achieved"], abs=1e-8)
 
 
-def test_text_output_names_the_winner(cases, capsys):
+def test_text_output_names_the_winner(command_line, cases):
     sym, _ = cases
-    rc, out, _ = cli_text(
-        capsys,
-        ["pick", str(sym), "--target", "1e-5", "--methods", "leapfrog", "dop853"]
-        + ["--horizon", HORIZON, "--samples", SAMPLES],
+    rc, out, _ = command_line(
+        "pick",
+        str(sym),
+        "--target",
+        "1e-5",
+        "--methods",
+        "leapfrog",
+        "dop853",
+        "--horizon",
+        HORIZON,
+        "--samples",
+        SAMPLES,
     )
     assert rc == 0
     lines = out.splitlines()
@@ -193,30 +185,32 @@ def test_text_output_names_the_winner(cases, capsys):
     assert lines[-1].startswith(f"recommended: {first[1]} ({first[2]}) at {first[3]}")
 
 
-def test_no_exact_solution_measures_against_a_reference_run(cases, capsys, tmp_path):
+def test_no_exact_solution_measures_against_a_reference_run(
+    command_line, command_json, cases, tmp_path
+):
     _, asym = cases
     args = ["pick", str(asym), "--target", str(TARGET), "--methods", "dop853"]
     args += ["--horizon", HORIZON, "--samples", SAMPLES]
-    rc, out, _ = cli_text(capsys, args)
+    rc, out, _ = command_line(*args)
     assert rc == 0
     assert (
         "note: no exact solution for grid-asym: the axis error is measured against a dop853 "
         "reference run at rtol 1e-13 in the body form" in out
     )
-    rc, doc, _ = cli_json(capsys, args)
+    rc, doc, _ = command_json(*args)
     assert rc == 0 and "reference run" in doc["reference"]
     (e,) = doc["ranking"]
-    _, axes = rerun(capsys, asym, e, tmp_path)
+    _, axes = rerun(command_json, asym, e, tmp_path)
     # Against scipy's trajectory of the same body the achieved error holds up.
     mine = max_angle(axes, scipy_axes(asym, 1.0, 11))
     assert mine <= TARGET and mine == pytest.approx(e["achieved"], abs=1e-8)
 
 
-def test_impossible_target_ranks_nothing_and_exits_1(cases, capsys):
+def test_impossible_target_ranks_nothing_and_exits_1(command_line, command_json, cases):
     sym, _ = cases
     args = ["pick", str(sym), "--target", "1e-20", "--methods", "dop853", "rk45", "leapfrog-s4"]
     args += ["--horizon", "0.5", "--samples", "6"]
-    rc, out, _ = cli_text(capsys, args)
+    rc, out, _ = command_line(*args)
     assert rc == 1
     # adaptive: down to the smallest rtol the method accepts, and why it stops there
     assert "not ranked: dop853 (body): target not reached down to rtol 1e-13" in out
@@ -227,7 +221,7 @@ def test_impossible_target_ranks_nothing_and_exits_1(cases, capsys):
     assert "the error stopped falling with the step (round-off)" in out
     assert out.splitlines()[-1] == "no candidate met the target"
     assert "rank " not in out  # no table over an empty ranking
-    rc, doc, _ = cli_json(capsys, args)
+    rc, doc, _ = command_json(*args)
     assert rc == 1 and doc["ranking"] == []
     assert sorted(u["method"] for u in doc["unreached"]) == ["dop853", "leapfrog-s4", "rk45"]
 
@@ -244,31 +238,33 @@ def test_impossible_target_ranks_nothing_and_exits_1(cases, capsys):
         (["--target", "1e-6", "--horizon", "-2"], "--horizon"),
     ],
 )
-def test_bad_input_exits_2_with_one_line(cases, capsys, extra, needle):
+def test_bad_input_exits_2_with_one_line(command_line, cases, extra, needle):
     sym, _ = cases
-    rc, out, err = cli_text(capsys, ["pick", str(sym), *extra])
+    rc, out, err = command_line("pick", str(sym), *extra)
     assert rc == 2 and out == ""
     lines = err.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("topdrift: error: ") and needle in lines[0]
 
 
-def test_unknown_case_exits_2(capsys):
-    rc, _, err = cli_text(capsys, ["pick", "no-such-top", "--target", "1e-6"])
+def test_unknown_case_exits_2(command_line):
+    rc, _, err = command_line("pick", "no-such-top", "--target", "1e-6")
     assert rc == 2 and "no-such-top" in err and len(err.strip().splitlines()) == 1
 
 
-def test_a_shorter_horizon_keeps_the_sample_interval_and_a_capped_step_says_so(cases, capsys):
+def test_a_shorter_horizon_keeps_the_sample_interval_and_a_capped_step_says_so(
+    command_line, command_json, cases
+):
     """The case samples every 0.1 s (1 s, 11 samples): over 0.5 s that is 6 samples. With a
     sample every 0.01 s a loose target lets leapfrog's step reach the sample interval (the
     longest step the runner takes), where the search stops and says so."""
     sym, _ = cases
     args = ["pick", str(sym), "--target", "1e-2", "--methods", "leapfrog", "--horizon", "0.5"]
-    rc, doc, _ = cli_json(capsys, args)
+    rc, doc, _ = command_json(*args)
     assert rc == 0 and doc["samples"] == 6
     assert not doc["ranking"][0]["capped"]  # h = 0.1 s diverges: the target stops the search
     args += ["--samples", "51"]
-    rc, doc, _ = cli_json(capsys, args)
+    rc, doc, _ = command_json(*args)
     (e,) = doc["ranking"]
     assert e["capped"] and e["settings"]["step"] == 0.5 / 50
-    rc, out, _ = cli_text(capsys, args)
+    rc, out, _ = command_line(*args)
     assert "note: leapfrog stopped at the sample interval (0.01 s), not at the target" in out

@@ -219,7 +219,7 @@ def bad_files(tmp_path):
     [
         ("missing", ["--kind", "drift"], "does not exist"),
         ("text", ["--kind", "drift"], "not an HDF5 file"),
-        ("other", ["--kind", "drift"], "not a topdrift runs file"),
+        ("other", ["--kind", "drift"], "not a topdrift run store"),
         ("newer", ["--kind", "drift"], "format_version 99"),
         ("empty", ["--kind", "drift"], "holds no runs"),
         ("store", ["--kind", "drift"], "several cases"),

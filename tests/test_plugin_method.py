@@ -4,10 +4,10 @@ through the same contract, runner and store as the built-in ones."""
 import json
 import os
 import subprocess
-import sys
 import textwrap
 
 import numpy as np
+from run_files import topdrift_cmd
 
 from topdrift.integrators import Method, MethodInfo, Stepper, all_methods, get, register
 
@@ -75,7 +75,7 @@ def _install_plugin(tmp_path):
 
 def _topdrift(env, *args):
     return subprocess.run(
-        [sys.executable, "-m", "topdrift.benchmarks.cli.entry", *args],
+        topdrift_cmd(*args),
         env=env,
         capture_output=True,
         text=True,

@@ -1,14 +1,17 @@
 """The scipy reference methods through the method contract: the same steps and results as
 scipy's solve_ivp, accuracy against a tight solution, output times that do not move the steps,
-honest counters, bit-exact resume through an HDF5 round trip, and failures as statuses."""
+honest counters, bit-exact resume through an HDF5 round trip (LSODA aside: never resumed), and
+failures as statuses."""
 
 import math
 
-import h5py
 import numpy as np
 import pytest
+from demo_bodies import CASE_IDS, CASES, GENERAL, LAGRANGE, state
+from run_files import through_hdf5
 from scipy.integrate import solve_ivp
 from scipy.integrate._ivp import rk as scipy_rk
+from scipy_reference import scipy_rhs
 
 from topdrift.integrators import (
     C_EVALS,
@@ -23,16 +26,8 @@ from topdrift.integrators import (
     get,
 )
 from topdrift.integrators.reference.scipy_methods import REJECTED_UNKNOWN
-from topdrift.models import FORM_BODY, FORM_EULER, RigidBody, body_state, euler_state
+from topdrift.models import FORM_BODY, FORM_EULER
 from topdrift.models.body import P_MGZ
-from topdrift.models.dynamics import rhs
-
-# Demo bodies of our own (as in test_gauss): a symmetric heavy top and a general body.
-LAGRANGE = RigidBody(mass=1.0, inertia=(1.0, 1.0, 0.6), com=(0.0, 0.0, 0.1))
-GENERAL = RigidBody(mass=1.0, inertia=(1.0, 0.8, 0.6), com=(0.02, -0.01, 0.1))
-START = (0.0, 0.6, 0.0, 0.3, 0.5, 5.0)
-CASES = [(FORM_EULER, LAGRANGE), (FORM_BODY, GENERAL)]
-CASE_IDS = ["euler", "body"]
 
 NAMES = {
     "scipy-rk45": "RK45",
@@ -44,19 +39,8 @@ TOL = {"rtol": 1e-8, "atol": 1e-10}
 TIMES = np.linspace(0.1, 2.0, 20)
 
 
-def state(form, body):
-    return euler_state(body, *START) if form == FORM_EULER else body_state(body, *START)
-
-
 def plain_f(form, body):
-    p = body.params()
-
-    def f(t, y):
-        dy = np.empty(y.shape[0])
-        rhs(form, np.ascontiguousarray(y), p, dy)
-        return dy
-
-    return f
+    return scipy_rhs(form, body.params())
 
 
 def sampled(name, form, body, times, settings=TOL):
@@ -171,21 +155,8 @@ def test_counts_what_scipy_exposes_for_implicit_solvers(name):
         assert st.counters[C_EVALS] == st.nfev
 
 
-def _through_hdf5(snap: dict) -> dict:
-    """Store a snapshot as datasets and attributes of an in-memory HDF5 file and read it back."""
-    with h5py.File("snapshot.h5", "w", driver="core", backing_store=False) as f:
-        g = f.create_group("snap")
-        for k, v in snap.items():
-            if isinstance(v, np.ndarray):
-                g.create_dataset(k, data=v)
-            else:
-                g.attrs[k] = v
-        out = {k: ds[()] for k, ds in g.items()}
-        for k, v in g.attrs.items():
-            out[k] = v.decode() if isinstance(v, bytes) else v
-    return out
-
-
+# The references that resume from their snapshot; LSODA is run again from its start instead
+# (scipy_methods.py says why; tests/test_snapshot_data.py checks the refusal).
 RESUMABLE = ["scipy-rk45", "scipy-dop853", "scipy-radau"]
 
 
@@ -196,7 +167,7 @@ def test_resume_repeats_the_same_bits(name, form, body):
     first = get(name).start(form, body.params(), 0.0, y0, dict(TOL))
     for t in TIMES[:10]:
         assert first.advance_to(float(t)) == ST_OK
-    snap = _through_hdf5(first.snapshot())
+    snap = through_hdf5(first.snapshot())
     for t in TIMES[10:]:
         assert first.advance_to(float(t)) == ST_OK
     resumed = get(name).start(form, body.params(), 0.0, y0, dict(TOL))

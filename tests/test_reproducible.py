@@ -4,14 +4,13 @@ the library versions and the machine's CPU."""
 
 from __future__ import annotations
 
-import hashlib
 import json
 import subprocess
-import sys
 
 import h5py
 import pytest
-from test_cli_run import TOP_TOML, write
+from run_files import dataset_hashes, topdrift_cmd
+from tiny_cases import TOP_TOML, write_case
 
 METHODS = {
     "rk4": ["--method", "rk4", "--step", "0.001", "--form", "body"],
@@ -23,18 +22,6 @@ TIMING_ATTRS = {"created"}
 TIMING_METRICS = {"wall_s", "cpu_s", "ns_per_step", "ns_per_step_cpu"}
 
 
-def every_dataset(path) -> dict[str, str]:
-    out = {}
-    with h5py.File(path, "r") as f:
-
-        def visit(name, obj):
-            if isinstance(obj, h5py.Dataset):
-                out[name] = hashlib.sha256(obj[()].tobytes()).hexdigest()
-
-        f.visititems(visit)
-    return out
-
-
 def attrs_of(path) -> dict:
     with h5py.File(path, "r") as f:
         (g,) = f["runs"].values()
@@ -44,12 +31,12 @@ def attrs_of(path) -> dict:
 @pytest.fixture(scope="module")
 def pairs(tmp_path_factory):
     d = tmp_path_factory.mktemp("twice")
-    case = write(d, "top.toml", TOP_TOML)
+    case = write_case(d, "top.toml", TOP_TOML)
     procs = {}
     for method, opts in METHODS.items():
         for k in (1, 2):
             out = d / f"{method}-{k}.h5"
-            cmd = [sys.executable, "-m", "topdrift.benchmarks.cli.entry", "run", str(case), *opts]
+            cmd = topdrift_cmd("run", str(case), *opts)
             procs[(method, k)] = (
                 subprocess.Popen([*cmd, "--out", str(out)], stderr=subprocess.PIPE),
                 out,
@@ -62,7 +49,7 @@ def pairs(tmp_path_factory):
 
 @pytest.mark.parametrize("method", list(METHODS))
 def test_two_processes_write_the_same_dataset_bytes(pairs, method):
-    a, b = every_dataset(pairs[(method, 1)]), every_dataset(pairs[(method, 2)])
+    a, b = dataset_hashes(pairs[(method, 1)]), dataset_hashes(pairs[(method, 2)])
     (run_id,) = {name.split("/")[1] for name in a}
     names = {n.split(f"runs/{run_id}/", 1)[1] for n in a}
     assert {"t", "state", "euler", "quaternion", "momentum", "invariants/energy"} <= names

@@ -7,36 +7,32 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 from scipy.spatial.transform import Rotation
+from tiny_cases import top_toml
 
 from topdrift.benchmarks.cases.schema import parse_case
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.metrics import axis_angle, drift_exponent, wrapped
 from topdrift.benchmarks.run.runner import StopFlag, execute, make_run_id, plan_run
+from topdrift.benchmarks.store import reader
 from topdrift.benchmarks.store import writer as store
 from topdrift.integrators import MethodRefused
 
-TOP_TOML = """
-name = "runner-top"
-description = "a heavy symmetric top for the runner tests"
-horizon = 0.5
-samples = 11
-
-[body]
-mass = 1.0
-inertia = [0.02, 0.02, 0.01]
-com = [0.0, 0.0, 0.05]
-
-[start]
-theta = "30 deg"
-phi = 0.3
-psi = -0.2
-theta_rate = 0.5
-phi_rate = 1.0
-psi_rate = "300 rpm"
-"""
-
-ASYM_TOML = TOP_TOML.replace("runner-top", "runner-asym").replace(
-    "[0.02, 0.02, 0.01]", "[0.02, 0.025, 0.01]"
+# The runner's top starts off its steady motion: a tilt rate and phases, at 300 rpm.
+RUNNER_START = {"phi": 0.3, "psi": -0.2, "theta_rate": 0.5, "psi_rate": "300 rpm"}
+TOP_TOML = top_toml(
+    "runner-top",
+    "a heavy symmetric top for the runner tests",
+    horizon=0.5,
+    samples=11,
+    **RUNNER_START,
+)
+ASYM_TOML = top_toml(
+    "runner-asym",
+    "a heavy symmetric top for the runner tests",
+    horizon=0.5,
+    samples=11,
+    inertia=(0.02, 0.025, 0.01),
+    **RUNNER_START,
 )
 
 
@@ -105,7 +101,7 @@ def test_samples_step_rounding_and_trajectory_against_scipy(top, tmp_path):
     r = _run(plan, tmp_path / "r.h5", flush_every=0.0)
     assert r.status == "ok"
     assert r.metrics["steps"] == per * 10
-    with store.open_reader(tmp_path / "r.h5") as f:
+    with reader.open_reader(tmp_path / "r.h5") as f:
         g = f["runs"][plan.run_id]
         t = g["t"][()]
         quat = g["quaternion"][()]
@@ -142,7 +138,7 @@ def test_adaptive_run_uses_dense_output_at_samples(top, tmp_path):
     r = _run(plan, tmp_path / "r.h5")
     assert r.status == "ok"
     assert r.metrics["rejected"] >= 0 and r.metrics["rhs_evals"] > r.metrics["steps"]
-    with store.open_reader(tmp_path / "r.h5") as f:
+    with reader.open_reader(tmp_path / "r.h5") as f:
         g = f["runs"][plan.run_id]
         quat, mom, t = g["quaternion"][()], g["momentum"][()], g["t"][()]
     ref = solve_ivp(
@@ -164,7 +160,7 @@ def test_interrupt_then_resume_gives_the_same_bits(top, tmp_path):
 
     part = _run(plan, tmp_path / "part.h5", stop=StopAfter(15))
     assert part.status == "interrupted"
-    with store.open_reader(tmp_path / "part.h5") as f:
+    with reader.open_reader(tmp_path / "part.h5") as f:
         g = f["runs"][plan.run_id]
         assert g.attrs["status"] == "interrupted"
         assert 0 < g["t"].shape[0] < 41
@@ -173,8 +169,8 @@ def test_interrupt_then_resume_gives_the_same_bits(top, tmp_path):
     for k in ("energy_rel_max", "p_phi_rel_max", "steps", "rhs_evals", "energy_drift_exponent"):
         assert done.metrics[k] == whole.metrics[k]
     with (
-        store.open_reader(tmp_path / "whole.h5") as fa,
-        store.open_reader(tmp_path / "part.h5") as fb,
+        reader.open_reader(tmp_path / "whole.h5") as fa,
+        reader.open_reader(tmp_path / "part.h5") as fb,
     ):
         ga, gb = fa["runs"][plan.run_id], fb["runs"][plan.run_id]
         names = []
@@ -261,7 +257,7 @@ def test_a_failing_reference_ends_the_run_as_failed_without_nan(top, tmp_path):
     plan.exact = BreaksLate()
     r = _run(plan, tmp_path / "r.h5", flush_every=0.0)
     assert r.status == "failed" and "exact solution failed" in r.detail
-    with store.open_reader(tmp_path / "r.h5") as f:
+    with reader.open_reader(tmp_path / "r.h5") as f:
         g = f["runs"][plan.run_id]
         assert g.attrs["status"] == "failed"
         n = g["t"].shape[0]
@@ -282,7 +278,7 @@ def test_long_intervals_in_pieces_resume_to_the_same_bits(top, tmp_path, monkeyp
     assert whole.status == "ok" and whole.metrics["steps"] == 500
     part = _run(plan, tmp_path / "part.h5", stop=StopAfter(stop_after))
     assert part.status == "interrupted"
-    with store.open_reader(tmp_path / "part.h5") as f:
+    with reader.open_reader(tmp_path / "part.h5") as f:
         g = f["runs"][plan.run_id]
         k = g["checkpoint/run"].attrs["sample"]
         assert g["t"].shape[0] == k
@@ -291,8 +287,8 @@ def test_long_intervals_in_pieces_resume_to_the_same_bits(top, tmp_path, monkeyp
     done = _run(plan, tmp_path / "part.h5", resume=True)
     assert done.status == "ok" and done.metrics["steps"] == 500
     with (
-        store.open_reader(tmp_path / "whole.h5") as fa,
-        store.open_reader(tmp_path / "part.h5") as fb,
+        reader.open_reader(tmp_path / "whole.h5") as fa,
+        reader.open_reader(tmp_path / "part.h5") as fb,
     ):
         ga, gb = fa["runs"][plan.run_id], fb["runs"][plan.run_id]
         for n in ("t", "state", "euler", "quaternion", "momentum", "invariants/energy"):

@@ -6,11 +6,11 @@ import math
 import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
+from scipy_reference import scipy_rhs
 
 from topdrift.integrators import C_EVALS, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGULAR, MethodRefused
 from topdrift.integrators.splitting.methods import METHODS
 from topdrift.models import RigidBody, body_state, euler_state, invariants_of
-from topdrift.models.dynamics import rhs
 from topdrift.models.forms import FORM_BODY, FORM_EULER
 
 TOP = RigidBody(1.0, (0.05, 0.05, 0.02), com=(0.0, 0.0, 0.1))
@@ -36,14 +36,8 @@ def run(method, body, form, h, n, y0=None):
 
 def reference(body, form, t_end):
     """scipy's DOP853 at rtol = atol = 1e-13: the outside reference for the orders."""
-    p = body.params()
     y0 = start_state(body, form)
-
-    def f(t, y):
-        d = np.empty(len(y))
-        rhs(form, y, p, d)
-        return d
-
+    f = scipy_rhs(form, body.params())
     sol = solve_ivp(f, (0.0, t_end), y0, method="DOP853", rtol=1e-13, atol=1e-13)
     return sol.y[:, -1]
 
@@ -211,9 +205,29 @@ def test_time_reversible(name, form):
     y0 = start_state(TOP, form)
     h, n = 5e-3, 1000
     fwd = run(method, TOP, form, h, n, y0)
-    back = method.start(form, TOP.params(), fwd.t, fwd.y, {"step": -h})
+    back = method.start(form, TOP.params(), fwd.t, fwd.y, {"step": h})  # first step goes back
     assert back.advance_to(0.0) == ST_OK
     assert np.max(np.abs(back.y - y0)) < 1e-12 * max(1.0, np.max(np.abs(y0)))
+
+
+def test_a_backward_run_keeps_its_direction_through_a_snapshot():
+    # Backwards is asked for by time, never by a negative step (refused with every family's
+    # settings, tests/test_validation.py); the direction survives a snapshot.
+    method = BY_NAME["leapfrog-y6-kahan"]
+    y0 = start_state(TOP, FORM_BODY)
+    with pytest.raises(MethodRefused, match="positive"):
+        method.start(FORM_BODY, TOP.params(), 1.0, y0, {"step": -1e-3})
+    a = method.start(FORM_BODY, TOP.params(), 1.0, y0, {"step": 1e-3})
+    assert a.advance_to(0.5) == ST_OK
+    snap = a.snapshot()
+    assert snap["n"] == -500
+    assert a.advance_to(0.25) == ST_OK
+    b = method.start(FORM_BODY, TOP.params(), 1.0, y0, {"step": 1e-3})
+    b.restore(snap)
+    assert b.advance_to(0.25) == ST_OK
+    assert np.array_equal(a.y, b.y) and np.array_equal(a.counters, b.counters)
+    with pytest.raises(MethodRefused, match="turn back"):
+        b.advance_to(0.5)
 
 
 def _one_step(method, y, h):

@@ -1,4 +1,4 @@
-"""The HDF5 run store read with plain h5py, exactly as README "Run store (HDF5)" documents it."""
+"""The HDF5 run store read with plain h5py, exactly as docs/run-files.md documents it."""
 
 import json
 import math
@@ -8,30 +8,24 @@ from datetime import datetime
 import h5py
 import numpy as np
 import pytest
+from tiny_cases import top_toml
 
 from topdrift.benchmarks.cli import entry as cli
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.store.writer import existing_status, open_reader, open_writer
+from topdrift.benchmarks.store.reader import existing_status, open_reader
+from topdrift.benchmarks.store.writer import open_writer
 
-TOP_TOML = """
-name = "store-top"
-description = "a heavy symmetric top for the store tests"
-horizon = 0.4
-samples = 9
+TOP_TOML = top_toml(
+    "store-top",
+    "a heavy symmetric top for the store tests",
+    horizon=0.4,
+    samples=9,
+    theta="40 deg",
+    phi_rate=1.5,
+    psi_rate="400 rpm",
+)
 
-[body]
-mass = 1.0
-inertia = [0.02, 0.02, 0.01]
-com = [0.0, 0.0, 0.05]
-
-[start]
-theta = "40 deg"
-phi = 0.0
-psi = 0.0
-theta_rate = 0.0
-phi_rate = 1.5
-psi_rate = "400 rpm"
-"""
+GAUSS4_BODY = ["--method", "gauss4", "--step", "0.001", "--form", "body"]
 
 METRIC_KEYS = {
     "energy_rel_max",
@@ -58,20 +52,7 @@ def stored(tmp_path):
     case = tmp_path / "store-top.toml"
     case.write_text(TOP_TOML)
     out = tmp_path / "results" / "runs.h5"  # results/ does not exist yet
-    rc = cli.main(
-        [
-            "run",
-            str(case),
-            "--method",
-            "gauss4",
-            "--step",
-            "0.001",
-            "--form",
-            "body",
-            "--out",
-            str(out),
-        ]
-    )
+    rc = cli.main(["run", str(case), *GAUSS4_BODY, "--out", str(out)])
     assert rc == 0
     return case, out
 
@@ -146,18 +127,7 @@ def test_layout_as_documented(stored):
 def test_rerun_reuses_and_force_replaces(stored, capsys):
     case, out = stored
     before = out.read_bytes()
-    args = [
-        "run",
-        str(case),
-        "--method",
-        "gauss4",
-        "--step",
-        "0.001",
-        "--form",
-        "body",
-        "--out",
-        str(out),
-    ]
+    args = ["run", str(case), *GAUSS4_BODY, "--out", str(out)]
     assert cli.main(args) == 0
     assert "already in" in capsys.readouterr().err
     assert out.read_bytes() == before  # not touched
@@ -187,22 +157,22 @@ def test_foreign_file_is_refused_and_left_alone(tmp_path):
         open_writer(path)
     with pytest.raises(UserError, match="not a topdrift run store"):
         existing_status(path, "0" * 16)
-    with pytest.raises(UserError, match="no such file"):
+    with pytest.raises(UserError, match="does not exist"):
         open_reader(tmp_path / "missing.h5")
     assert path.read_bytes() == before
 
 
 def test_readme_example_reads_a_run(stored, monkeypatch, capsys):
-    """The h5py example in README "Run store (HDF5)" runs as printed."""
+    """The h5py example in docs/run-files.md runs as printed."""
     from pathlib import Path
 
     _, out = stored
-    readme = (Path(__file__).resolve().parents[1] / "README.md").read_text()
-    section = readme.split("## Run store (HDF5)", 1)[1]
+    page = (Path(__file__).resolve().parents[1] / "docs" / "run-files.md").read_text()
+    section = page.split("# Run store (HDF5)", 1)[1]
     code = section.split("```python\n", 1)[1].split("```", 1)[0]
     monkeypatch.chdir(out.parent.parent)  # the example reads results/runs.h5
     capsys.readouterr()
-    exec(compile(code, "README.md", "exec"), {})
+    exec(compile(code, "docs/run-files.md", "exec"), {})
     line = capsys.readouterr().out.split()
     assert line[1:4] == ["store-top", "gauss4", "ok"]
     assert 0.0 <= float(line[4]) < 1e-6

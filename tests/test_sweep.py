@@ -16,6 +16,7 @@ from pathlib import Path
 import h5py
 import numpy as np
 import pytest
+from run_files import topdrift_cmd
 from sweep_grid import (
     N_RUNS,
     N_SKIPPED,
@@ -24,7 +25,6 @@ from sweep_grid import (
     reference_sweep,
     run_datasets,
     same_datasets,
-    topdrift_cmd,
     write_grid,
 )
 
@@ -36,13 +36,6 @@ from topdrift.benchmarks.sweep.spec import read_sweep
 
 SAMPLE_SETS = ("t", "euler", "quaternion", "momentum", "state")
 INVARIANTS = ("energy", "p_phi", "p_psi", "norm")
-
-
-def sweep(capsys, *args):
-    capsys.readouterr()
-    rc = cli.main(["sweep", *args])
-    cap = capsys.readouterr()
-    return rc, cap.out, cap.err
 
 
 def file_sha(path: Path) -> str:
@@ -136,11 +129,11 @@ def test_a_sweep_run_is_the_run_topdrift_run_makes(clean, tmp_path, capsys):
     assert single[row["run_id"]]["datasets"] == runs[row["run_id"]]["datasets"]
 
 
-def test_skipped_grid_points_are_reported_not_fatal(clean, tmp_path, capsys):
+def test_skipped_grid_points_are_reported_not_fatal(command_line, clean, tmp_path):
     grid, _, _ = clean
     out = tmp_path / "again.h5"
     shutil.copy(clean[1], out)
-    rc, _, err = sweep(capsys, str(grid), "--out", str(out), "--jobs", "1")
+    rc, _, err = command_line("sweep", str(grid), "--out", str(out), "--jobs", "1")
     assert rc == 0
     skipped = [ln for ln in err.splitlines() if ln.startswith("skipped ")]
     assert len(skipped) == N_SKIPPED
@@ -149,12 +142,12 @@ def test_skipped_grid_points_are_reported_not_fatal(clean, tmp_path, capsys):
         assert "needs a symmetric body" in ln  # the method's own reason
 
 
-def test_second_sweep_runs_nothing_and_leaves_the_file_alone(clean, tmp_path, capsys):
+def test_second_sweep_runs_nothing_and_leaves_the_file_alone(command_line, clean, tmp_path):
     grid, ref, runs = clean
     out = tmp_path / "again.h5"
     shutil.copy(ref, out)
     before = file_sha(out)
-    rc, stdout, err = sweep(capsys, str(grid), "--out", str(out), "--jobs", "2", "--json")
+    rc, stdout, err = command_line("sweep", str(grid), "--out", str(out), "--jobs", "2", "--json")
     assert rc == 0
     assert f"{N_RUNS} run(s) already complete" in err
     assert not [ln for ln in err.splitlines() if PROGRESS.match(ln)]  # nothing ran
@@ -179,12 +172,14 @@ BAD_SWEEPS = [
 
 
 @pytest.mark.parametrize("what,text,needle", BAD_SWEEPS, ids=[b[0] for b in BAD_SWEEPS])
-def test_bad_sweep_file_exits_2_with_one_line_and_no_file(tmp_path, capsys, what, text, needle):
+def test_bad_sweep_file_exits_2_with_one_line_and_no_file(
+    command_line, tmp_path, what, text, needle
+):
     write_grid(tmp_path)
     bad = tmp_path / "bad.toml"
     bad.write_text(text)
     out = tmp_path / "results" / "bad.h5"
-    rc, stdout, err = sweep(capsys, str(bad), "--out", str(out), "--jobs", "1")
+    rc, stdout, err = command_line("sweep", str(bad), "--out", str(out), "--jobs", "1")
     assert rc == 2
     lines = err.strip().splitlines()
     assert len(lines) == 1 and lines[0].startswith("topdrift: error: "), err
@@ -193,20 +188,20 @@ def test_bad_sweep_file_exits_2_with_one_line_and_no_file(tmp_path, capsys, what
     assert not out.exists() and not out.parent.exists()
 
 
-def test_bad_options_exit_2_and_leave_an_existing_file_alone(clean, tmp_path, capsys):
+def test_bad_options_exit_2_and_leave_an_existing_file_alone(command_line, clean, tmp_path):
     grid, ref, _ = clean
     out = tmp_path / "kept.h5"
     shutil.copy(ref, out)
     before = file_sha(out)
-    rc, _, err = sweep(capsys, str(grid), "--out", str(out), "--jobs", "0")
+    rc, _, err = command_line("sweep", str(grid), "--out", str(out), "--jobs", "0")
     assert rc == 2 and "--jobs" in err and len(err.strip().splitlines()) == 1
-    rc, _, err = sweep(capsys, "no-such-sweep", "--out", str(out))
+    rc, _, err = command_line("sweep", "no-such-sweep", "--out", str(out))
     assert rc == 2 and "no-such-sweep" in err and len(err.strip().splitlines()) == 1
     assert file_sha(out) == before
     # a results file that is not a run store is refused, and left as it was
     foreign = tmp_path / "notes.h5"
     foreign.write_bytes(b"not HDF5 at all\n")
-    rc, _, err = sweep(capsys, str(grid), "--out", str(foreign), "--jobs", "1")
+    rc, _, err = command_line("sweep", str(grid), "--out", str(foreign), "--jobs", "1")
     assert rc == 2 and str(foreign) in err and len(err.strip().splitlines()) == 1
     assert foreign.read_bytes() == b"not HDF5 at all\n"
 
@@ -232,7 +227,7 @@ def _live_processes_in_group(pgid: int) -> list[int]:
     return live
 
 
-def test_client_killed_mid_sweep_is_completed_by_the_same_command(clean, tmp_path, capsys):
+def test_client_killed_mid_sweep_is_completed_by_the_same_command(command_line, clean, tmp_path):
     """SIGKILL of `topdrift sweep --jobs 2` after some runs are in the file, then the same
     command again. Every run of the final file was computed by a two-worker pool, so its bytes
     matching the one-job sweep's also show that the numbers do not depend on the worker."""
@@ -273,7 +268,7 @@ def test_client_killed_mid_sweep_is_completed_by_the_same_command(clean, tmp_pat
     assert _live_processes_in_group(proc.pid) == []
 
     # The same command line again (in this process, to spare a second interpreter start-up).
-    rc, _, err = sweep(capsys, *args[1:])
+    rc, _, err = command_line("sweep", *args[1:])
     assert rc == 0, err
     # Only the runs not complete before are run, each once, numbered 1..rest.
     progress = [PROGRESS.match(ln) for ln in err.splitlines() if PROGRESS.match(ln)]
@@ -309,12 +304,12 @@ def test_auto_ladders_follow_the_documented_rule(tmp_path):
     assert [j.rtol for j in jobs if j.method == "dop853"] == [1e-3, 3.16e-8, 1e-12]
 
 
-def test_a_ladder_of_the_wrong_kind_for_a_method_is_refused(tmp_path, capsys):
+def test_a_ladder_of_the_wrong_kind_for_a_method_is_refused(command_line, tmp_path):
     write_grid(tmp_path)
     bad = tmp_path / "wrong.toml"
     bad.write_text(SWEEP_TOML + "\n[method.rk4]\nrtols = [1e-6]\n")
     out = tmp_path / "wrong.h5"
-    rc, _, err = sweep(capsys, str(bad), "--out", str(out), "--jobs", "1")
+    rc, _, err = command_line("sweep", str(bad), "--out", str(out), "--jobs", "1")
     assert rc == 2 and not out.exists()
     assert "method.rk4.rtols: rk4 is a fixed-step method; give steps" in err
 
@@ -357,7 +352,7 @@ def test_steps_that_round_to_the_same_step_run_once(tmp_path):
     ]
 
 
-def test_a_failed_run_is_left_out_and_exits_1(clean, tmp_path, capsys, monkeypatch):
+def test_a_failed_run_is_left_out_and_exits_1(command_line, clean, tmp_path, monkeypatch):
     """A run whose worker raises is reported and left out of the file (so that the next sweep
     computes it); the other runs are written; the exit status is 1."""
     grid, _, runs = clean
@@ -372,12 +367,12 @@ def test_a_failed_run_is_left_out_and_exits_1(clean, tmp_path, capsys, monkeypat
 
     monkeypatch.setattr(sweep_mod, "run_job", flaky)
     out = tmp_path / "flaky.h5"
-    rc, _, err = sweep(capsys, str(grid), "--out", str(out), "--jobs", "1")
+    rc, _, err = command_line("sweep", str(grid), "--out", str(out), "--jobs", "1")
     assert rc == 1
     (rid,) = broken
     assert f"{broken[rid].describe()}: failed: RuntimeError: worker lost its disk" in err
     assert sorted(run_datasets(out)) == sorted(set(runs) - {rid})
     monkeypatch.setattr(sweep_mod, "run_job", real)
-    rc, _, err = sweep(capsys, str(grid), "--out", str(out), "--jobs", "1")
+    rc, _, err = command_line("sweep", str(grid), "--out", str(out), "--jobs", "1")
     assert rc == 0 and f"{N_RUNS - 1} run(s) already complete" in err
     same_datasets(run_datasets(out), runs)

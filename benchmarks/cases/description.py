@@ -1,5 +1,5 @@
-"""What `topdrift describe` reports about a case, as one plain dict (the JSON contract in the
-README, "Case files"); the command renders the same dict as text."""
+"""What `topdrift describe` reports about a case, as one plain dict (the JSON contract in
+docs/case-files.md); the command renders the same dict as text."""
 
 from __future__ import annotations
 

@@ -1,4 +1,4 @@
-"""Case files: the TOML schema (a contract with users, see README "Case files"), read, checked and
+"""Case files: the TOML schema (a contract with users, see docs/case-files.md), read, checked and
 turned into a `Case`. Every problem is one UserError line, `<file>: <key>: <what is wrong>`."""
 
 from __future__ import annotations

@@ -6,7 +6,7 @@ from __future__ import annotations
 import math
 import re
 
-# Factor to SI. Both tables are part of the case-file contract (README, "Case files").
+# Factor to SI. Both tables are part of the case-file contract (docs/case-files.md).
 ANGLE_UNITS = {
     "rad": 1.0,
     "mrad": 1e-3,

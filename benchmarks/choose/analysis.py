@@ -16,7 +16,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 
-from topdrift.benchmarks.store.reader import STATUS_OK, load_records  # noqa: F401  (the loader lives with the reader)
+from topdrift.benchmarks.store.format import STATUS_OK
 
 # Settings that a sweep turns (and what follows from them: the runner rounds the requested step
 # to a whole number of steps per sample interval); every other setting names the series.

@@ -15,10 +15,10 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from topdrift.benchmarks.cases.time_scales import fastest_period
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.in_memory import run_in_memory
-from topdrift.benchmarks.run.runner import plan_run, steps_per_interval
-from topdrift.benchmarks.sweep.settings_ladder import fastest_period
+from topdrift.benchmarks.run.runner import plan_run, samples_for_horizon, steps_per_interval
 from topdrift.integrators import MethodRefused
 from topdrift.integrators import get as get_method
 from topdrift.models.quaternion import figure_axis
@@ -289,15 +289,13 @@ def pick(
     form: str | None = None,
     report: Callable[[str], None] = lambda s: None,
 ) -> dict:
-    if samples is None:
-        # A shorter (or longer) horizon keeps the case's sample interval, not its sample count:
-        # a fixed step can be no longer than the interval, so squeezing the case's samples into
-        # a short horizon would cap every step far below what the target allows.
-        samples = case.samples
-        if horizon is not None:
-            interval = case.horizon / (case.samples - 1)
-            samples = max(2, round(horizon / interval) + 1)
     horizon = case.horizon if horizon is None else horizon
+    if samples is None:
+        # The horizon rule of every command (runner.samples_at_interval): a shorter or longer
+        # horizon keeps the case's sample interval; a fixed step can be no longer than the
+        # interval, so squeezing the case's samples into a short horizon would cap every step
+        # far below what the target allows.
+        samples = samples_for_horizon(case, horizon)
     methods = list(methods or DEFAULT_CANDIDATES)
     for name in methods:
         get_method(name)  # unknown names fail before any work

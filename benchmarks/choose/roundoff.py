@@ -17,35 +17,14 @@ import math
 import numpy as np
 
 from topdrift.benchmarks.errors import UserError
+from topdrift.benchmarks.run.perturbed import perturbed_starts
 from topdrift.integrators import get as get_method
 from topdrift.integrators.ensemble import EnsembleStepper
-from topdrift.models import body_state, euler_state, form_code
+from topdrift.models import form_code
 from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 from topdrift.models.invariants import INV_ENERGY, N_INVARIANTS, invariants
 
 FIT_DECADES = 2.0  # the exponent is fitted over the last two decades of step counts
-
-
-def perturbed_starts(case, form: str, starts: int, spread: float, seed: int) -> np.ndarray:
-    """Member 0 is the case's own start; the others add N(0, spread^2) rad to each angle."""
-    rng = np.random.default_rng(seed)
-    s = case.start
-    make = euler_state if form == "euler" else body_state
-    rows = []
-    for j in range(starts):
-        d = np.zeros(3) if j == 0 else spread * rng.standard_normal(3)
-        rows.append(
-            make(
-                case.body,
-                s.phi + d[0],
-                s.theta + d[1],
-                s.psi + d[2],
-                s.phi_rate,
-                s.theta_rate,
-                s.psi_rate,
-            )
-        )
-    return np.array(rows)
 
 
 def _energies(form: int, Y: np.ndarray, p: np.ndarray) -> np.ndarray:

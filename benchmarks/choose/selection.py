@@ -8,7 +8,7 @@ import re
 
 from topdrift.benchmarks.choose import analysis
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.store.reader import STATUS_INCOMPLETE
+from topdrift.benchmarks.store.format import STATUS_INCOMPLETE, BadRunFile
 
 
 def _listing(names: list[str], limit: int = 8) -> str:
@@ -109,22 +109,23 @@ def load_labelled(
     are missing (a group its writer has only begun), instead of refusing: for 'every run of a
     case', where the user named none of them."""
     from topdrift.benchmarks.choose import plots
-    from topdrift.benchmarks.store.reader import load_series
+    from topdrift.benchmarks.store.reader import open_reader, read_series
 
     cases = {r.get("case") for r in chosen}
     labels = analysis.series_labels([r for r in records if r.get("case") in cases])
     out = []
-    for r in chosen:
-        try:
-            s = load_series(path, r["run_id"])
-        except UserError:
-            if strict:
-                raise
-            continue
-        if len(s["t"]) == 0:
-            continue
-        s["series"] = labels[analysis.series_key(r)]
-        s["label"] = plots.run_label(s["series"], r)
-        s["rank"] = run_rank(r)
-        out.append(s)
+    with open_reader(path) as f:  # once for every run: the file's checks are not repeated
+        for r in chosen:
+            try:
+                s = read_series(f, r["run_id"])
+            except UserError as exc:
+                if strict or isinstance(exc, BadRunFile):
+                    raise
+                continue
+            if len(s["t"]) == 0:
+                continue
+            s["series"] = labels[analysis.series_key(r)]
+            s["label"] = plots.run_label(s["series"], r)
+            s["rank"] = run_rank(r)
+            out.append(s)
     return out

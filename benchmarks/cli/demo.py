@@ -42,13 +42,9 @@ def run(args) -> int:
     from topdrift.benchmarks.cli.describe import render
     from topdrift.benchmarks.cli.summary import print_table
     from topdrift.benchmarks.run.runner import execute, plan_run
-    from topdrift.benchmarks.store.writer import (
-        FINAL_STATUSES,
-        existing_status,
-        list_runs,
-        open_reader,
-        open_writer,
-    )
+    from topdrift.benchmarks.store.format import FINAL_STATUSES
+    from topdrift.benchmarks.store.reader import existing_status, list_runs, open_reader
+    from topdrift.benchmarks.store.writer import open_writer
 
     case = load_case(DEMO_CASE)
     out = Path(args.out) if args.out else DEFAULT_OUT

@@ -1,5 +1,6 @@
 """`topdrift gate [--baseline FILE] [--error-factor F] [--error-floor A] [--steps-tolerance R]
-[--time-band B] [--json]`: rerun a baseline's grid and fail (exit 1) on a regression."""
+[--time-band B] [--accept-missing NAME ...] [--timings-anyway] [--json]`: rerun a baseline's
+grid and fail (exit 1) on a regression."""
 
 from __future__ import annotations
 
@@ -18,10 +19,11 @@ def add_parser(sub) -> None:
     p = sub.add_parser(
         "gate",
         help="rerun the baseline's grid and fail on a regression",
-        description="Rerun the grid a baseline was recorded from and compare: statuses must "
-        "match, errors may not grow past a factor (above a round-off floor), step counts must "
-        "match within a tolerance, normalised timings must stay in a band. Exit 1 on a "
-        "regression, 0 otherwise, 2 on bad input.",
+        description="Rerun the grid a baseline was recorded from and compare: every cell must "
+        "keep its status, errors may not grow past a factor (above a round-off floor), step "
+        "counts must match within a tolerance, and on a machine with the same fingerprint "
+        "each timing's ratio to the reference workload must stay in a band where the rounds "
+        "are tight enough to tell. Exit 0 pass, 1 regression, 2 bad input, 3 internal error.",
     )
     p.add_argument(
         "--baseline", metavar="FILE", help="baseline file (default results/baseline.json)"
@@ -53,7 +55,21 @@ def add_parser(sub) -> None:
         type=float,
         default=DEFAULT_TIME_BAND,
         metavar="B",
-        help=f"normalised timings may be this fraction slower (default {DEFAULT_TIME_BAND:g})",
+        help=f"a timing may change by this fraction either way (default {DEFAULT_TIME_BAND:g})",
+    )
+    p.add_argument(
+        "--accept-missing",
+        action="append",
+        default=[],
+        metavar="NAME",
+        help="accept the baseline's cells of this method, case or run key that the rerun lacks "
+        "(a method removed on purpose); repeatable; the report lists what it accepted",
+    )
+    p.add_argument(
+        "--timings-anyway",
+        action="store_true",
+        help="time and compare the timings even when the machine's fingerprint differs from "
+        "the baseline's",
     )
     p.add_argument("--json", action="store_true", help="print the comparison as JSON")
     p.set_defaults(func=run)
@@ -64,8 +80,9 @@ def run(args) -> int:
 
     from topdrift.benchmarks.gate.baseline_file import DEFAULT_FILE, encode_nonfinite, read_baseline
     from topdrift.benchmarks.gate.compare import Thresholds, compare, format_report
-    from topdrift.benchmarks.gate.record import record
-    from topdrift.benchmarks.sweep.spec import read_sweep
+    from topdrift.benchmarks.gate.machine import differences, fingerprint
+    from topdrift.benchmarks.gate.record import record, sweep_of
+    from topdrift.benchmarks.gate.reference_workload import CLOCK, WORKLOAD, WORKLOAD_VERSION
 
     thresholds = Thresholds(
         args.error_factor, args.error_floor, args.steps_tolerance, args.time_band
@@ -73,21 +90,62 @@ def run(args) -> int:
     thresholds.check()
     path = Path(args.baseline) if args.baseline else DEFAULT_FILE
     baseline = read_baseline(path)
-    spec = read_sweep(baseline["sweep"]["source"])
-    now = record(spec, baseline["sweep"]["source"], timing_from=baseline["timings"])
-    result = compare(baseline, now, thresholds)
+    spec, source = sweep_of(baseline, path)
+    ref = baseline["reference"]
+    unit = (ref["kernel"], ref["version"], ref["clock"])
+    same_unit = unit == (WORKLOAD, WORKLOAD_VERSION, CLOCK)
+    same_machine = not differences(baseline["machine"], fingerprint())
+    # Timings that cannot be compared are not measured: on another machine the gate costs the
+    # deterministic half only.
+    timed = same_unit and (same_machine or args.timings_anyway)
+    rounds = max((t["rounds"] for t in baseline["timings"].values()), default=0) or None
+    now = record(
+        spec,
+        source,
+        path,
+        timing_from=baseline["timings"],
+        reference_from=ref,
+        timings=timed,
+        rounds=rounds,
+    )
+    # None: compare decides by the fingerprints, and says why when it does not compare them.
+    mode = False if not same_unit else (True if args.timings_anyway else None)
+    result = compare(
+        baseline,
+        now.data,
+        thresholds,
+        unstarted=now.unstarted,
+        accept=tuple(args.accept_missing),
+        timings=mode,
+    )
+    if not same_unit:
+        result.notes.append(
+            f"timings not compared: the baseline's reference workload is {unit[0]} version "
+            f"{unit[1]} ({unit[2]}), this topdrift's is {WORKLOAD} version {WORKLOAD_VERSION} "
+            f"({CLOCK}); record the baseline again"
+        )
+    elif args.timings_anyway and not same_machine:
+        result.notes.append(
+            "--timings-anyway: timings compared across machines with different fingerprints"
+        )
     if args.json:
         doc = encode_nonfinite({"baseline": str(path), **result.as_json()})  # inf/nan as strings
         print(json.dumps(doc, indent=2, allow_nan=False))
     else:
         t = thresholds
-        ca, cb = baseline["calibration"], now["calibration"]
+        m = baseline["machine"]
         header = (
             f"gate: {path} (recorded {baseline['created']}, sweep "
-            f"{baseline['sweep']['name']!r}) against a rerun now\n"
+            f"{baseline['sweep']['name']!r}, on {m['cpu']} family {m['family']} model "
+            f"{m['model']}) against a rerun now\n"
             f"limits: errors x{t.error_factor:g} above {t.error_floor:g}, counts "
-            f"{t.steps_tolerance:.0%}, timings +{t.time_band:.0%}; calibration "
-            f"{ca['ns_per_iteration']:.1f} ns per iteration then, {cb['ns_per_iteration']:.1f} now"
+            f"{t.steps_tolerance:.0%}, timings +-{t.time_band:.0%} where measurable"
         )
-        print(format_report(result, header), file=sys.stdout)
+        if timed:
+            r2 = now.data["reference"]
+            header += (
+                f"; reference workload {ref['scalar_ns']:.1f} and {ref['stages_ns']:.1f} ns per "
+                f"step then, {r2['scalar_ns']:.1f} and {r2['stages_ns']:.1f} now"
+            )
+        print(format_report(result, header, thresholds), file=sys.stdout)
     return 1 if result.failed else 0

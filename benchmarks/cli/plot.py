@@ -64,7 +64,8 @@ def run(args) -> int:
         slug,
     )
     from topdrift.benchmarks.errors import UserError
-    from topdrift.benchmarks.store.reader import STATUS_INCOMPLETE, load_records
+    from topdrift.benchmarks.store.format import STATUS_INCOMPLETE
+    from topdrift.benchmarks.store.reader import load_records
 
     everything = load_records(args.file)
     records = [r for r in everything if r["status"] != STATUS_INCOMPLETE]

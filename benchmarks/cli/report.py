@@ -25,7 +25,8 @@ def run(args) -> int:
     from topdrift.benchmarks.choose.report import write_report
     from topdrift.benchmarks.choose.selection import pick_case, require_runs
     from topdrift.benchmarks.errors import UserError
-    from topdrift.benchmarks.store.reader import STATUS_INCOMPLETE, load_records
+    from topdrift.benchmarks.store.format import STATUS_INCOMPLETE
+    from topdrift.benchmarks.store.reader import load_records
 
     out_dir = Path(args.out)
     if out_dir.exists() and not out_dir.is_dir():

@@ -112,7 +112,8 @@ def _decide(plans, out: Path, force: bool, resume: bool) -> list[str]:
     """For each plan: 'new', 'resume' or 'reuse'; refuses (exit 2) an unfinished run without
     --resume or --force. Reads the file only."""
     from topdrift.benchmarks.errors import UserError
-    from topdrift.benchmarks.store.writer import FINAL_STATUSES, existing_status
+    from topdrift.benchmarks.store.format import FINAL_STATUSES
+    from topdrift.benchmarks.store.reader import existing_status
 
     actions = []
     seen = set()
@@ -127,11 +128,14 @@ def _decide(plans, out: Path, force: bool, resume: bool) -> list[str]:
             actions.append("reuse")
         elif resume:
             # Killed before its first write: nothing was done, so nothing to continue from.
-            can = p.y0 is not None and n > 0
-            why = p.method.resume_refusal() if can else ""
-            if why:  # said on stderr with the other notes, and kept with the new run
+            action = "resume" if p.y0 is not None and n > 0 else "new"
+            why = p.method.resume_refusal() if action == "resume" else ""
+            if why and "ensemble" not in p.settings:  # said on stderr and kept with the run
                 p.notes.append(f"not resumed: {why}; running it again from the start")
-            actions.append("resume" if can and not why else "new")
+                action = "new"
+            if action == "resume" and "ensemble" not in p.settings:  # ensembles start over
+                _check_resume(p, out)
+            actions.append(action)
         else:
             raise UserError(
                 f"{out}: run {p.run_id} ({p.case.name}, {p.method.name}) is {status} at sample "
@@ -140,16 +144,18 @@ def _decide(plans, out: Path, force: bool, resume: bool) -> list[str]:
     return actions
 
 
-def _stored(out: Path, run_id: str) -> tuple[str, dict, str]:
-    from topdrift.benchmarks.store.writer import _attr_str, open_reader
+def _check_resume(plan, out: Path) -> None:
+    from topdrift.benchmarks.run.runner import check_resume
+    from topdrift.benchmarks.store.reader import open_reader
 
     with open_reader(out) as f:
-        g = f["runs"][run_id]
-        return (
-            _attr_str(g, "status"),
-            json.loads(_attr_str(g, "metrics") or "{}"),
-            _attr_str(g, "detail", "") or "",
-        )
+        check_resume(plan, f)
+
+
+def _stored(out: Path, run_id: str) -> tuple[str, dict, str]:
+    from topdrift.benchmarks.store.reader import stored_result
+
+    return stored_result(out, run_id)
 
 
 def run(args) -> int:
@@ -158,14 +164,9 @@ def run(args) -> int:
     from topdrift.benchmarks.errors import UserError
     from topdrift.benchmarks.run.progress import Progress
     from topdrift.benchmarks.run.runner import FLUSH_EVERY_S, StopFlag, execute
-    from topdrift.benchmarks.store.writer import (
-        DEFAULT_FILE,
-        NoRoom,
-        close_after_failure,
-        is_write_failure,
-        open_writer,
-        write_reason,
-    )
+    from topdrift.benchmarks.store.failures import NoRoom, file_failure
+    from topdrift.benchmarks.store.format import DEFAULT_FILE
+    from topdrift.benchmarks.store.writer import open_writer
 
     out = Path(args.out) if args.out else DEFAULT_FILE
     if args.flush_every is not None and not args.flush_every >= 0.0:
@@ -208,7 +209,13 @@ def run(args) -> int:
                                 f"topdrift: {p.case.name}: an ensemble run keeps no "
                                 "checkpoint; running it again from the start\n"
                             )
-                        r = execute_ensemble(ensembles[p.run_id], f, progress=progress, stop=stop)
+                        r = execute_ensemble(
+                            ensembles[p.run_id],
+                            f,
+                            progress=progress,
+                            stop=stop,
+                            flush_every=flush_every,
+                        )
                     else:
                         r = execute(
                             p,
@@ -223,20 +230,21 @@ def run(args) -> int:
                         break
             except NoRoom:
                 raise  # nothing failed to write: the run was stopped before it could
-            except (OSError, RuntimeError) as exc:
-                if not is_write_failure(exc):
+            except (OSError, RuntimeError, KeyError) as exc:
+                # A write that failed (a full disk, a file-size limit, the medium gone) or a
+                # part of the file HDF5 could not read: the run in hand is never marked done
+                # (its status is set only after its samples are flushed).
+                error = file_failure(
+                    exc,
+                    f,
+                    out,
+                    in_hand="the run in hand is not marked complete",
+                    next_step="go on with --resume",
+                )
+                if error is None:
                     raise
-                # A write that failed (a full disk, a file-size limit, the medium gone): the run
-                # in hand is never marked done (its status is set only after its samples are
-                # flushed). HDF5 may not finish its own bookkeeping either, so the file can be
-                # left unreadable: the message says to check it rather than promise a resume.
-                close_after_failure(f)
                 f = None
-                raise UserError(
-                    f"{out}: cannot write the results ({write_reason(exc)}); the run in hand is "
-                    "not marked complete: make room, check the file with `topdrift summary`, "
-                    "then go on with --resume"
-                ) from None
+                raise error from None
             finally:
                 if f is not None:  # also after a UserError or an interrupt: release the lock
                     f.close()

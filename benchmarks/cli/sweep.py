@@ -43,7 +43,8 @@ def run(args) -> int:
     from topdrift.benchmarks.cli.summary import print_table
     from topdrift.benchmarks.errors import UserError
     from topdrift.benchmarks.run.runner import StopFlag
-    from topdrift.benchmarks.store.writer import DEFAULT_FILE, list_runs, open_reader
+    from topdrift.benchmarks.store.format import DEFAULT_FILE
+    from topdrift.benchmarks.store.reader import list_runs, open_reader
     from topdrift.benchmarks.sweep.executor import run_sweep
     from topdrift.benchmarks.sweep.spec import read_sweep
 

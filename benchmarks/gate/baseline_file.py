@@ -1,9 +1,17 @@
-"""The regression baseline file (results/baseline.json): a JSON contract, format version 1.
+"""The regression baseline file (results/baseline.json): a JSON contract, format version 2.
 
-Documented in the README section "Regression gate in CI". The reader is strict: a missing or
-unknown key, a wrong type or another format version is a one-line UserError naming the key, so
-that the gate never compares against something it misread. Non-finite numbers, which JSON
-cannot hold, are written as the strings "inf", "-inf" and "nan" and read back as floats.
+Documented in docs/gate.md. The reader is strict: a missing or
+unknown key, a wrong type, a value out of its range or another format version is a one-line
+UserError naming the key, so that the gate never compares against something it misread. In
+particular no number may be NaN (a NaN compares false with everything: a baseline holding one
+is blind to that metric), no number may overflow a double (JSON allows 1e400; Python reads it as
+infinity), and a timing must be a positive finite number (it divides). The one non-finite value
+a baseline holds is an error maximum of "inf" (a run whose error grew without bound), written as
+that string since JSON has no infinity.
+
+Version 2 (from 1): the sweep is named relative to the baseline file; the machine's fingerprint
+and the plug-ins' versions are recorded; the calibration loop is replaced by the reference
+workload, and a timing holds its ratio to it round by round.
 """
 
 from __future__ import annotations
@@ -14,92 +22,207 @@ import os
 from pathlib import Path
 
 from topdrift.benchmarks.errors import UserError
-from topdrift.benchmarks.gate.measure import COUNT_METRICS, ERROR_METRICS, INFO_METRICS
 
 FORMAT = "topdrift-baseline"
-FORMAT_VERSION = 1
+FORMAT_VERSION = 2
 DEFAULT_FILE = Path("results") / "baseline.json"
 
-_NONFINITE = {"inf": math.inf, "-inf": -math.inf, "nan": math.nan}
+# The metrics each run of a baseline holds (formats 1 and 2). The invariant and trajectory
+# errors, all "smaller is better", are spelled out rather than taken from
+# run/metrics.py's MAX_NAMES: a new metric there must not change this format.
+ERROR_METRICS = (
+    "energy_rel_max",
+    "p_phi_rel_max",
+    "p_psi_rel_max",
+    "norm_abs_max",
+    "axis_angle_max",
+    "theta_abs_max",
+    "phi_abs_max",
+    "psi_abs_max",
+)
+COUNT_METRICS = ("steps", "rhs_evals", "rejected")
+INFO_METRICS = ("energy_drift_exponent", "t_fail", "wall_s", "ns_per_step")
+
+INT64_MAX = 2**63 - 1
+# The machine fingerprint's keys (benchmarks/gate/machine.py reads them off the machine).
+MACHINE_KEYS = (
+    "cpu",
+    "vendor",
+    "family",
+    "model",
+    "stepping",
+    "flags",
+    "cores",
+    "llvm_cpu",
+    "numba",
+    "llvmlite",
+    "llvm",
+)
 
 
-def _is_num(v) -> bool:
-    return isinstance(v, (int, float)) and not isinstance(v, bool)
+class _Bad(ValueError):
+    """What a value should have been, for the one-line message."""
 
 
-_num = _is_num
+def _number(v) -> float:
+    if isinstance(v, bool) or not isinstance(v, (int, float)):
+        raise _Bad("expected a number")
+    if isinstance(v, int) and abs(v) > 1e308:
+        raise _Bad("out of the range of a double")
+    v = float(v)
+    if math.isnan(v):
+        raise _Bad("NaN is no value")
+    return v
 
 
-def _num_or_none(v) -> bool:
-    return v is None or _is_num(v)
+def _finite(v) -> float:
+    v = _number(v)
+    if not math.isfinite(v):
+        raise _Bad("expected a finite number")
+    return v
 
 
-def _int(v) -> bool:
-    return isinstance(v, int) and not isinstance(v, bool)
+def _positive(v) -> float:
+    v = _finite(v)
+    if v <= 0.0:
+        raise _Bad("expected a positive number")
+    return v
 
 
-def _int_or_none(v) -> bool:
-    return v is None or _int(v)
+def _nonneg(v) -> float:
+    v = _finite(v)
+    if v < 0.0:
+        raise _Bad("expected a number >= 0")
+    return v
 
 
-def _str(v) -> bool:
-    return isinstance(v, str)
+def _error(v) -> float:
+    """An error maximum: >= 0, finite or "inf" (an error that grew without bound)."""
+    if v == "inf":
+        return math.inf
+    v = _number(v)
+    if v < 0.0:
+        raise _Bad('expected a number >= 0 or "inf"')
+    return v
 
 
-def _str_or_none(v) -> bool:
-    return v is None or isinstance(v, str)
+def _count(v) -> int:
+    if isinstance(v, bool) or not isinstance(v, int) or not 0 <= v <= INT64_MAX:
+        raise _Bad("expected a whole number >= 0")
+    return v
 
 
-def _setting(v) -> bool:
+def _text(v) -> str:
+    if not isinstance(v, str):
+        raise _Bad("expected a string")
+    return v
+
+
+def _name(v) -> str:
+    if not isinstance(v, str) or not v:
+        raise _Bad("expected a non-empty string")
+    return v
+
+
+def _opt(check):
+    def read(v):
+        return None if v is None else check(v)
+
+    return read
+
+
+def _setting(v) -> dict:
     if not isinstance(v, dict):
-        return False
+        raise _Bad("expected an object")
     if set(v) == {"step"}:
-        return _is_num(v["step"])
-    return set(v) == {"rtol", "atol"} and _is_num(v["rtol"]) and _num_or_none(v["atol"])
+        return {"step": _positive(v["step"])}
+    if set(v) == {"rtol", "atol"}:
+        return {"rtol": _positive(v["rtol"]), "atol": _opt(_positive)(v["atol"])}
+    raise _Bad('expected {"step": H} or {"rtol": R, "atol": A or null}')
+
+
+def _ratios(v) -> list:
+    if not isinstance(v, list):
+        raise _Bad("expected a list of positive numbers")
+    return [_positive(x) for x in v]
+
+
+def _kind(v) -> str:
+    if v not in ("scalar", "stages", "mix"):
+        raise _Bad('expected "scalar", "stages" or "mix"')
+    return v
+
+
+def _sweep_kind(v) -> str:
+    if v not in ("shipped", "file"):
+        raise _Bad('expected "shipped" or "file"')
+    return v
+
+
+def _sha(v) -> str:
+    if not isinstance(v, str) or len(v) != 64 or any(c not in "0123456789abcdef" for c in v):
+        raise _Bad("expected 64 hexadecimal digits")
+    return v
+
+
+def _plugin(v) -> dict:
+    if not isinstance(v, dict) or set(v) != {"package", "version"}:
+        raise _Bad('expected {"package": ..., "version": ...}')
+    return {"package": _opt(_text)(v["package"]), "version": _opt(_text)(v["version"])}
 
 
 RUN_KEYS = {
-    "run_id": _str,
-    "case": _str,
-    "method": _str,
-    "form": _str,
+    "run_id": _text,
+    "case": _name,
+    "method": _name,
+    "form": _name,
     "setting": _setting,
-    "status": _str,
-    "detail": _str_or_none,
-    **{k: _int_or_none for k in COUNT_METRICS},
-    **{k: _num_or_none for k in ERROR_METRICS},
-    **{k: _num_or_none for k in INFO_METRICS},
-    "ns_per_step_norm": _num_or_none,
+    "status": _name,
+    "detail": _opt(_text),
+    **{k: _opt(_count) for k in COUNT_METRICS},
+    **{k: _opt(_error) for k in ERROR_METRICS},
+    "energy_drift_exponent": _opt(_finite),
+    "t_fail": _opt(_nonneg),
+    "wall_s": _opt(_nonneg),
+    "ns_per_step": _opt(_nonneg),
+    "ns_per_step_norm": _opt(_nonneg),
 }
 TIMING_KEYS = {
-    "run": _str,
-    "horizon": _num,
-    "status": _str,
-    "detail": _str_or_none,
-    "steps": _int_or_none,
-    "repeats": _int,
-    "seconds": _num_or_none,
-    "ns_per_step": _num_or_none,
-    "ns_per_step_norm": _num_or_none,
-    "spread": _num_or_none,
+    "run": _name,
+    "horizon": _positive,
+    "status": _name,
+    "detail": _opt(_text),
+    "steps": _opt(_count),
+    "reference": _kind,
+    "rounds": _count,
+    "per_round": _ratios,
+    "ns_per_step_norm": _opt(_positive),
+    "ns_per_step": _opt(_positive),
+    "seconds": _opt(_nonneg),
+    "spread": _opt(_nonneg),
 }
-CALIBRATION_KEYS = {
-    "kernel": _str,
-    "clock": _str,
-    "iterations": _int,
-    "repeats": _int,
-    "ns_per_iteration": _num,
-    "spread": _num,
+REFERENCE_KEYS = {
+    "kernel": _name,
+    "version": _count,
+    "clock": _name,
+    "scalar_steps": _count,
+    "stages_steps": _count,
+    "scalar_ns": _positive,
+    "stages_ns": _positive,
+    "passes": _count,
 }
-SWEEP_KEYS = {"source": _str, "name": _str, "sha256": _str}
+SWEEP_KEYS = {"kind": _sweep_kind, "source": _name, "name": _name, "sha256": _sha}
 VERSION_KEYS = ("topdrift", "python", "numpy", "scipy", "numba", "h5py", "cpu")
+MACHINE_CHECKS = {k: _opt(_count) if k == "cores" else _opt(_text) for k in MACHINE_KEYS}
 TOP_KEYS = (
     "format",
     "format_version",
     "created",
     "sweep",
     "versions",
-    "calibration",
+    "machine",
+    "plugins",
+    "reference",
     "runs",
     "timings",
     "skipped",
@@ -107,6 +230,7 @@ TOP_KEYS = (
 
 
 def encode_nonfinite(v):
+    """Infinities and NaN as the strings JSON can hold (for writing, and the gate's --json)."""
     if isinstance(v, float) and not math.isfinite(v):
         return "nan" if math.isnan(v) else ("inf" if v > 0 else "-inf")
     if isinstance(v, dict):
@@ -116,39 +240,41 @@ def encode_nonfinite(v):
     return v
 
 
-def decode_nonfinite(v):
-    if isinstance(v, str) and v in _NONFINITE:
-        return _NONFINITE[v]
-    if isinstance(v, dict):
-        return {k: decode_nonfinite(x) for k, x in v.items()}
-    if isinstance(v, list):
-        return [decode_nonfinite(x) for x in v]
-    return v
-
-
-def _check_table(label: str, table, keys: dict) -> None:
+def _table(label: str, table, keys: dict) -> dict:
+    """The table with every value read by its check; raises UserError on the first bad one."""
     if not isinstance(table, dict):
         raise UserError(f"{label}: expected an object")
     for k in table:
         if k not in keys:
             raise UserError(f"{label}: unknown key {k!r}")
-    for k, ok in keys.items():
+    out = {}
+    for k, read in keys.items():
         if k not in table:
             raise UserError(f"{label}: {k}: missing")
-        if not ok(table[k]):
-            raise UserError(f"{label}: {k}: unexpected value {table[k]!r}")
+        try:
+            out[k] = read(table[k])
+        except _Bad as exc:
+            raise UserError(f"{label}: {k}: unexpected value {_show(table[k])} ({exc})") from None
+    return out
+
+
+def _show(v) -> str:
+    text = repr(v)
+    return text if len(text) <= 60 else text[:57] + "..."
 
 
 def validate(data, label: str) -> dict:
-    """The baseline as read, checked against format version 1 (raises UserError)."""
+    """The baseline as read, checked against format version 2 (raises UserError). Returns the
+    same object, its values read in place ("inf" error maxima as floats)."""
     if not isinstance(data, dict):
         raise UserError(f"{label}: not a baseline file (expected a JSON object)")
     if data.get("format") != FORMAT:
         raise UserError(f"{label}: format: expected {FORMAT!r}, got {data.get('format')!r}")
     if data.get("format_version") != FORMAT_VERSION:
+        hint = "; record it again with 'topdrift baseline --force'" if _older(data) else ""
         raise UserError(
             f"{label}: format_version: this topdrift reads version {FORMAT_VERSION}, "
-            f"got {data.get('format_version')!r}"
+            f"got {data.get('format_version')!r}{hint}"
         )
     for k in data:
         if k not in TOP_KEYS:
@@ -158,22 +284,67 @@ def validate(data, label: str) -> dict:
             raise UserError(f"{label}: {k}: missing")
     if not isinstance(data["created"], str):
         raise UserError(f"{label}: created: expected a string")
-    _check_table(f"{label}: sweep", data["sweep"], SWEEP_KEYS)
-    _check_table(f"{label}: versions", data["versions"], {k: _str_or_none for k in VERSION_KEYS})
-    _check_table(f"{label}: calibration", data["calibration"], CALIBRATION_KEYS)
+    data["sweep"] = _table(f"{label}: sweep", data["sweep"], SWEEP_KEYS)
+    data["versions"] = _table(
+        f"{label}: versions", data["versions"], {k: _opt(_text) for k in VERSION_KEYS}
+    )
+    data["machine"] = _table(f"{label}: machine", data["machine"], MACHINE_CHECKS)
+    plugins = data["plugins"]
+    if not isinstance(plugins, dict):
+        raise UserError(f"{label}: plugins: expected an object keyed by method")
+    for name, rec in plugins.items():
+        try:
+            plugins[name] = _plugin(rec)
+        except _Bad as exc:
+            raise UserError(
+                f"{label}: plugins[{name!r}]: unexpected value {_show(rec)} ({exc})"
+            ) from None
+    data["reference"] = _table(f"{label}: reference", data["reference"], REFERENCE_KEYS)
     for section, keys in (("runs", RUN_KEYS), ("timings", TIMING_KEYS)):
         table = data[section]
         if not isinstance(table, dict):
             raise UserError(f"{label}: {section}: expected an object keyed by run")
         for key, rec in table.items():
-            _check_table(f"{label}: {section}[{key!r}]", rec, keys)
+            table[key] = _table(f"{label}: {section}[{key!r}]", rec, keys)
     for key, rec in data["timings"].items():
         if rec["run"] not in data["runs"]:
             raise UserError(f"{label}: timings[{key!r}]: run {rec['run']!r} is not in runs")
+        if rec["rounds"] != len(rec["per_round"]):
+            raise UserError(
+                f"{label}: timings[{key!r}]: rounds: {rec['rounds']} but per_round holds "
+                f"{len(rec['per_round'])}"
+            )
+        if rec["status"] == "ok" and rec["ns_per_step_norm"] is None:
+            raise UserError(f"{label}: timings[{key!r}]: ns_per_step_norm: null for an ok timing")
     skipped = data["skipped"]
     if not isinstance(skipped, list) or not all(isinstance(s, str) for s in skipped):
         raise UserError(f"{label}: skipped: expected a list of strings")
     return data
+
+
+def _older(data: dict) -> bool:
+    v = data.get("format_version")
+    return isinstance(v, int) and not isinstance(v, bool) and v < FORMAT_VERSION
+
+
+def _refuse_constant(label: str):
+    def parse(name: str):
+        raise UserError(
+            f"{label}: {name} is not a JSON number (a non-finite error maximum is written "
+            'as the string "inf")'
+        )
+
+    return parse
+
+
+def _float_in_range(label: str):
+    def parse(text: str) -> float:
+        v = float(text)
+        if not math.isfinite(v):
+            raise UserError(f"{label}: the number {text} is out of the range of a double")
+        return v
+
+    return parse
 
 
 def read_baseline(path: Path) -> dict:
@@ -184,15 +355,23 @@ def read_baseline(path: Path) -> dict:
         raise UserError(
             f"{label}: no baseline file; record one with 'topdrift baseline --out {label}'"
         ) from None
+    except IsADirectoryError:
+        raise UserError(f"{label}: is a folder, not a baseline file") from None
     except OSError as exc:
         raise UserError(f"{label}: cannot read: {exc.strerror or exc}") from None
     try:
-        data = json.loads(raw.decode("utf-8"))
+        text = raw.decode("utf-8")
     except UnicodeDecodeError as exc:
         raise UserError(f"{label}: not UTF-8 text (offset {exc.start})") from None
+    try:
+        data = json.loads(
+            text, parse_constant=_refuse_constant(label), parse_float=_float_in_range(label)
+        )
     except json.JSONDecodeError as exc:
         raise UserError(f"{label}: not valid JSON: {exc.msg} (line {exc.lineno})") from None
-    return validate(decode_nonfinite(data), label)
+    except RecursionError:
+        raise UserError(f"{label}: not a baseline file (nested too deeply)") from None
+    return validate(data, label)
 
 
 def write_baseline(data: dict, path: Path, *, force: bool = False) -> None:

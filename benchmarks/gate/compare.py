@@ -1,19 +1,28 @@
 """The regression gate: a rerun of a baseline's grid compared with the baseline, rule by rule.
 
-Rules (the README section "Regression gate in CI" states them for users):
+Rules (docs/gate.md states them for users):
 
-- status: must be the same. A run that changed status is compared no further.
+- status is part of the contract: every cell of the baseline must be in the rerun with the same
+  status. A cell that ran ok and now refuses, fails to start, fails, diverges or raises, or is
+  missing from the rerun's grid, is a regression named with its reason ("was ok, now refused:
+  ..."), and is compared no further. Missing cells can be accepted by name (a method or case
+  removed on purpose); the report lists what was accepted.
 - errors (the invariant and trajectory maxima): a regression when now > F * max(baseline, floor).
   The floor stands for round-off: an error of 1e-16 that becomes 3e-16 is the same error. An
   improvement when baseline > floor and now < baseline / F.
 - counts: steps and right-hand-side evaluations must match within a relative tolerance R, either
   way (fewer steps at the same tolerance means a changed error estimate, not a free lunch);
   rejected steps within R times the baseline's steps, since they are a fraction of all steps.
-- timings (the dedicated timing runs, normalised by the calibration loop): a regression when
-  now > (1 + B) * baseline, an improvement when now < baseline / (1 + B).
-- runs or timings in the baseline that the rerun lacks, or new ones, are reported, not failed:
-  the grid is the sweep file's to change. A changed run id (the case file or a setting behind the
-  same key changed) and changed versions are reported next to the differences.
+- timings (each method's time per step over the reference workload's, timed beside it round by
+  round): compared only between machines with the same fingerprint (machine.py), unless asked.
+  The change is the ratio of the medians; its 95 % interval comes from the rounds of both sides
+  (shift_interval.py). A regression when the whole interval lies above 1 + B, an improvement
+  when it lies below 1 / (1 + B), within the band when it lies inside; an interval that reaches
+  past an edge of the band is "not measurable here" (the machine is too noisy to tell) and
+  neither passes nor fails.
+- runs new in the rerun, and methods new since the baseline, are reported, not failed. A changed
+  run id (the case file or a setting behind the same key changed), changed versions, plug-in
+  versions and machine are reported next to the differences.
 """
 
 from __future__ import annotations
@@ -23,17 +32,32 @@ from dataclasses import asdict, dataclass, field
 
 from topdrift.benchmarks.errors import UserError
 
-# grid_measure (and through it the runner and the sweep) is imported where a comparison runs:
-# every `topdrift` command imports this module for the defaults of its parser, and the chain
-# costs about 0.1 s of each process's start-up (measured with -X importtime).
+# The metric names come from the baseline format, which imports nothing of the runner: every
+# `topdrift` command imports this module for the defaults of its parser, and the measuring code
+# (the runner, the sweep) would cost about 0.1 s of each process's start-up (-X importtime).
+from topdrift.benchmarks.gate.baseline_file import ERROR_METRICS
+
 DEFAULT_ERROR_FACTOR = 1.5
 DEFAULT_ERROR_FLOOR = 1e-13
 DEFAULT_STEPS_TOLERANCE = 0.02
-DEFAULT_TIME_BAND = 0.25
+# Between the two timing targets of the gate: a clean rerun within +-10 %, a 1.3x slowdown caught.
+DEFAULT_TIME_BAND = 0.15
+CONFIDENCE = 0.95
 
 REGRESSION = "regression"
 IMPROVEMENT = "improvement"
 NOTE = "note"
+
+# Timing verdicts (not findings: a timing within the band, or one the machine is too noisy to
+# judge, is neither a regression nor an improvement, but every compared timing gets one).
+T_OK = "ok"
+T_SLOWER = "slower"
+T_FASTER = "faster"
+T_UNMEASURABLE = "not measurable"
+
+# The parts of the reference record that define the unit: timings in another unit are not
+# compared.
+UNIT_KEYS = ("kernel", "version", "clock", "scalar_steps", "stages_steps")
 
 
 @dataclass(frozen=True)
@@ -65,13 +89,36 @@ class Finding:
 
 
 @dataclass
+class TimingVerdict:
+    timing: str  # "METHOD FORM"
+    baseline: float  # ns_per_step_norm, the median ratio to the reference
+    now: float
+    change: float  # now / baseline
+    low: float | None  # the 95 % interval of the change, as factors; None: too few rounds
+    high: float | None
+    verdict: str  # T_OK, T_SLOWER, T_FASTER or T_UNMEASURABLE
+    why: str = ""
+
+    def words(self) -> str:
+        span = ""
+        if self.low is not None:
+            span = f" (95 % interval {self.low - 1.0:+.0%} .. {self.high - 1.0:+.0%})"
+        return f"{self.change - 1.0:+.1%}{span}"
+
+
+@dataclass
 class GateResult:
     findings: list[Finding] = field(default_factory=list)
     missing_runs: list[str] = field(default_factory=list)
     new_runs: list[str] = field(default_factory=list)
     missing_timings: list[str] = field(default_factory=list)
     new_timings: list[str] = field(default_factory=list)
+    new_methods: dict[str, int] = field(default_factory=dict)  # method -> runs in the rerun
+    accepted: list[str] = field(default_factory=list)  # missing cells accepted by name
+    accept_names: list[str] = field(default_factory=list)
+    timing_verdicts: list[TimingVerdict] = field(default_factory=list)
     version_changes: list[tuple[str, str | None, str | None]] = field(default_factory=list)
+    machine_changes: list[str] = field(default_factory=list)
     notes: list[str] = field(default_factory=list)
     runs_compared: int = 0
     timings_compared: int = 0
@@ -85,6 +132,10 @@ class GateResult:
         return [f for f in self.findings if f.kind == IMPROVEMENT]
 
     @property
+    def unmeasurable(self) -> list[TimingVerdict]:
+        return [v for v in self.timing_verdicts if v.verdict == T_UNMEASURABLE]
+
+    @property
     def failed(self) -> bool:
         return bool(self.regressions)
 
@@ -95,8 +146,12 @@ class GateResult:
         extra = []
         if self.improvements:
             extra.append(f"{len(self.improvements)} improvement(s)")
+        if self.unmeasurable:
+            extra.append(f"{len(self.unmeasurable)} timing(s) not measurable here")
         if self.missing_runs or self.missing_timings:
             extra.append(f"{len(self.missing_runs) + len(self.missing_timings)} missing")
+        if self.accepted:
+            extra.append(f"{len(self.accepted)} accepted as missing")
         if self.new_runs or self.new_timings:
             extra.append(f"{len(self.new_runs) + len(self.new_timings)} new")
         tail = "; ".join([scope, *extra])
@@ -109,13 +164,17 @@ class GateResult:
             "verdict": "fail" if self.failed else "pass",
             "summary": self.verdict(),
             "findings": [asdict(f) for f in self.findings],
+            "timings": [asdict(v) for v in self.timing_verdicts],
             "missing_runs": self.missing_runs,
             "new_runs": self.new_runs,
             "missing_timings": self.missing_timings,
             "new_timings": self.new_timings,
+            "new_methods": self.new_methods,
+            "accepted_missing": self.accepted,
             "version_changes": [
                 {"name": n, "baseline": a, "now": b} for n, a, b in self.version_changes
             ],
+            "machine_changes": self.machine_changes,
             "notes": self.notes,
             "runs_compared": self.runs_compared,
             "timings_compared": self.timings_compared,
@@ -170,14 +229,50 @@ def _compare_count(run: str, name: str, a, b, allowed: float, t: Thresholds, out
         )
 
 
-def compare_runs(base: dict, now: dict, t: Thresholds, result: GateResult) -> None:
-    from topdrift.benchmarks.gate.measure import ERROR_METRICS
+def _accepts(names, *labels) -> bool:
+    return any(label in names for label in labels)
 
+
+def _status_change(a: str, b: str, detail) -> str:
+    why = f": {detail}" if detail else ""
+    return f"was {a}, now {b}{why}"
+
+
+def _unstarted_for(key: str, rec: dict, unstarted: list[dict]) -> dict | None:
+    """The reason a baseline cell did not start in the rerun: its own refusal, else a refusal
+    of its method on its case before any form was chosen."""
+    for u in unstarted:
+        if u["key"] == key:
+            return u
+    for u in unstarted:
+        if u["key"] is None and u["case"] == rec["case"] and u["method"] == rec["method"]:
+            return u
+    return None
+
+
+def compare_runs(
+    base: dict,
+    now: dict,
+    t: Thresholds,
+    result: GateResult,
+    unstarted: list[dict] | None = None,
+    accept: tuple[str, ...] = (),
+) -> None:
     out = result.findings
+    unstarted = unstarted or []
     for key, a in base.items():
         b = now.get(key)
         if b is None:
-            result.missing_runs.append(key)
+            u = _unstarted_for(key, a, unstarted)
+            if u is not None:
+                change = _status_change(a["status"], u["status"], u["detail"])
+                out.append(Finding(REGRESSION, key, "status", a["status"], u["status"], change))
+            elif _accepts(accept, a["method"], a["case"], key):
+                result.accepted.append(key)
+            else:
+                result.missing_runs.append(key)
+                change = f"was {a['status']}, now missing: not in the rerun's grid"
+                out.append(Finding(REGRESSION, key, "status", a["status"], None, change))
             continue
         result.runs_compared += 1
         if a["run_id"] != b["run_id"]:
@@ -185,10 +280,8 @@ def compare_runs(base: dict, now: dict, t: Thresholds, result: GateResult) -> No
                 Finding(NOTE, key, "run_id", a["run_id"], b["run_id"], "case or setting changed")
             )
         if a["status"] != b["status"]:
-            why = f" ({b['detail']})" if b.get("detail") else ""
-            out.append(
-                Finding(REGRESSION, key, "status", a["status"], b["status"], f"changed{why}")
-            )
+            change = _status_change(a["status"], b["status"], b.get("detail"))
+            out.append(Finding(REGRESSION, key, "status", a["status"], b["status"], change))
             continue
         for name in ERROR_METRICS:
             _compare_error(key, name, a.get(name), b.get(name), t, out)
@@ -198,68 +291,167 @@ def compare_runs(base: dict, now: dict, t: Thresholds, result: GateResult) -> No
         allowed = t.steps_tolerance * (a["steps"] or 0)
         _compare_count(key, "rejected", a["rejected"], b["rejected"], allowed, t, out)
     result.new_runs.extend(k for k in now if k not in base)
+    known = {a["method"] for a in base.values()}
+    for b in now.values():
+        if b["method"] not in known:
+            result.new_methods[b["method"]] = result.new_methods.get(b["method"], 0) + 1
+
+
+def same_unit(base_ref: dict | None, now_ref: dict | None) -> bool:
+    if base_ref is None or now_ref is None:
+        return False
+    return all(base_ref[k] == now_ref[k] for k in UNIT_KEYS)
+
+
+def judge_timing(tk: str, a: dict, b: dict, t: Thresholds) -> TimingVerdict:
+    """One timing's verdict: the change of the median ratio, and whether the rounds of the two
+    sides are tight enough for it to mean anything at this band (see the module note)."""
+    from topdrift.benchmarks.gate.shift_interval import shift_interval
+
+    x, y = a["ns_per_step_norm"], b["ns_per_step_norm"]
+    change = y / x
+    iv = shift_interval(
+        [math.log(r) for r in b["per_round"]], [math.log(r) for r in a["per_round"]], CONFIDENCE
+    )
+    if iv is None:
+        why = (
+            f"too few rounds for a {CONFIDENCE:.0%} interval ({b['rounds']} now, "
+            f"{a['rounds']} in the baseline; 4 each at least)"
+        )
+        return TimingVerdict(tk, x, y, change, None, None, T_UNMEASURABLE, why)
+    _, lo, hi = iv
+    low, high = change * math.exp(lo), change * math.exp(hi)
+    top, bottom = 1.0 + t.time_band, 1.0 / (1.0 + t.time_band)
+    if low > top:
+        return TimingVerdict(tk, x, y, change, low, high, T_SLOWER)
+    if high < bottom:
+        return TimingVerdict(tk, x, y, change, low, high, T_FASTER)
+    if bottom <= low and high <= top:
+        return TimingVerdict(tk, x, y, change, low, high, T_OK)
+    why = f"the interval reaches past the band of +-{t.time_band:.0%}: too noisy to tell"
+    return TimingVerdict(tk, x, y, change, low, high, T_UNMEASURABLE, why)
 
 
 def compare_timings(
-    base: dict, now: dict, base_cal: dict, now_cal: dict, t: Thresholds, result: GateResult
+    base: dict,
+    now: dict,
+    base_ref: dict | None,
+    now_ref: dict | None,
+    t: Thresholds,
+    result: GateResult,
+    accept: tuple[str, ...] = (),
 ) -> None:
     result.new_timings.extend(k for k in now if k not in base)
-    unit = ("kernel", "iterations", "clock")
-    same_unit = all(base_cal[k] == now_cal[k] for k in unit)
-    if not same_unit:
-        was = ", ".join(str(base_cal[k]) for k in unit)
-        now_ = ", ".join(str(now_cal[k]) for k in unit)
-        result.notes.append(f"calibration changed ({was} -> {now_}): timings not compared")
+    if not same_unit(base_ref, now_ref):
+        was = ", ".join(str(base_ref[k]) for k in UNIT_KEYS) if base_ref else "none"
+        now_ = ", ".join(str(now_ref[k]) for k in UNIT_KEYS) if now_ref else "none"
+        result.notes.append(f"reference workload changed ({was} -> {now_}): timings not compared")
+        return
     out = result.findings
     for tk, a in base.items():
         b = now.get(tk)
         label = f"timing {tk}"
         if b is None:
+            if _accepts(accept, tk.split(" ")[0], tk, label):
+                result.accepted.append(label)
+                continue
             result.missing_timings.append(tk)
-            continue
-        if not same_unit:
+            change = f"was {a['status']}, now missing: its run {a['run']!r} did not run ok"
+            out.append(Finding(REGRESSION, label, "status", a["status"], None, change))
             continue
         result.timings_compared += 1
         if a["status"] != b["status"]:
-            why = f" ({b['detail']})" if b.get("detail") else ""
-            out.append(
-                Finding(REGRESSION, label, "status", a["status"], b["status"], f"changed{why}")
-            )
+            change = _status_change(a["status"], b["status"], b.get("detail"))
+            out.append(Finding(REGRESSION, label, "status", a["status"], b["status"], change))
             continue
-        x, y = a["ns_per_step_norm"], b["ns_per_step_norm"]
-        if x is None or y is None:
+        if a["ns_per_step_norm"] is None or b["ns_per_step_norm"] is None:
             continue
         if a["steps"] != b["steps"]:
             result.notes.append(
                 f"{label}: {b['steps']} steps now, {a['steps']} in the baseline: the per-step "
                 "cost is compared, but the work is not the same"
             )
-        ratio = y / x
-        band = 1.0 + t.time_band
-        change = f"{ratio - 1.0:+.0%} (band {t.time_band:.0%})"
-        if ratio > band:
-            out.append(Finding(REGRESSION, label, "ns_per_step_norm", x, y, f"slower {change}"))
-        elif ratio < 1.0 / band:
-            out.append(Finding(IMPROVEMENT, label, "ns_per_step_norm", x, y, f"faster {change}"))
+        v = judge_timing(tk, a, b, t)
+        result.timing_verdicts.append(v)
+        band = f"band {t.time_band:.0%}"
+        x, y = v.baseline, v.now
+        if v.verdict == T_SLOWER:
+            out.append(
+                Finding(REGRESSION, label, "ns_per_step_norm", x, y, f"slower {v.words()}, {band}")
+            )
+        elif v.verdict == T_FASTER:
+            out.append(
+                Finding(IMPROVEMENT, label, "ns_per_step_norm", x, y, f"faster {v.words()}, {band}")
+            )
 
 
-def compare(baseline: dict, now: dict, t: Thresholds) -> GateResult:
+def compare(
+    baseline: dict,
+    now: dict,
+    t: Thresholds,
+    *,
+    unstarted: list[dict] | None = None,
+    accept: tuple[str, ...] = (),
+    timings: bool | None = None,
+) -> GateResult:
+    """`unstarted`: the rerun's cells that did not start (measure.grid_cells). `accept`: names
+    (methods, cases, run keys) whose missing cells are accepted. `timings`: compare the timing
+    half (True), not (False), or only when the machines' fingerprints are the same (None)."""
+    from topdrift.benchmarks.gate.machine import differences
+
     t.check()
-    result = GateResult()
-    compare_runs(baseline["runs"], now["runs"], t, result)
-    compare_timings(
-        baseline["timings"], now["timings"], baseline["calibration"], now["calibration"], t, result
-    )
+    result = GateResult(accept_names=list(accept))
+    compare_runs(baseline["runs"], now["runs"], t, result, unstarted, tuple(accept))
+    result.machine_changes = differences(baseline["machine"], now["machine"])
+    if timings is None:
+        timings = not result.machine_changes
+        if not timings:
+            result.notes.append(
+                "timings not comparable: the machine differs from the baseline's ("
+                + "; ".join(result.machine_changes)
+                + "); only the deterministic half was compared (--timings-anyway compares them)"
+            )
+    if timings:
+        compare_timings(
+            baseline["timings"],
+            now["timings"],
+            baseline["reference"],
+            now["reference"],
+            t,
+            result,
+            tuple(accept),
+        )
     va, vb = baseline["versions"], now["versions"]
     for name in va:
         if va.get(name) != vb.get(name):
             result.version_changes.append((name, va.get(name), vb.get(name)))
+    pa, pb = baseline.get("plugins", {}), now.get("plugins", {})
+    for name in sorted(set(pa) | set(pb)):
+        was, is_ = _plugin_words(pa.get(name)), _plugin_words(pb.get(name))
+        if was != is_ and (
+            name in pa or any(r["method"] == name for r in baseline["runs"].values())
+        ):
+            result.version_changes.append((f"plug-in {name}", was, is_))
+    for name in accept:
+        if not any(_matches(name, k) for k in result.accepted):
+            result.notes.append(f"--accept-missing {name}: no missing cell of that name")
     if baseline["sweep"]["sha256"] != now["sweep"]["sha256"]:
         result.notes.append(
             f"sweep {baseline['sweep']['source']!r} changed since the baseline was recorded: "
             "new and missing runs may come from that"
         )
     return result
+
+
+def _plugin_words(p: dict | None) -> str:
+    if p is None:
+        return "built in"
+    return f"{p['package'] or '(no package)'} {p['version'] or '(no version)'}"
+
+
+def _matches(name: str, accepted_key: str) -> bool:
+    words = accepted_key.removeprefix("timing ").split(" ")
+    return name == accepted_key or name in words[:2] or accepted_key.endswith(name)
 
 
 def version_lines(result: GateResult) -> list[str]:
@@ -269,10 +461,35 @@ def version_lines(result: GateResult) -> list[str]:
             lines.append(f"cpu {a} -> {b}: timing changes may be explained by the other machine")
         else:
             lines.append(f"{name} {a} -> {b}: the change may be explained by a version change")
+    if result.machine_changes:
+        lines.append("machine: " + "; ".join(result.machine_changes))
     return lines
 
 
-def format_report(result: GateResult, header: str) -> str:
+def timing_lines(result: GateResult, t: Thresholds) -> list[str]:
+    if not result.timing_verdicts:
+        return []
+    lines = [
+        f"timings (time per step over the reference workload's, now against the baseline; "
+        f"band +-{t.time_band:.0%}):"
+    ]
+    w = max(len(v.timing) for v in result.timing_verdicts)
+    label = {
+        T_OK: "ok",
+        T_SLOWER: "SLOWER",
+        T_FASTER: "faster",
+        T_UNMEASURABLE: "not measurable here",
+    }
+    for v in result.timing_verdicts:
+        tail = f": {v.why}" if v.why else ""
+        lines.append(
+            f"  {v.timing.ljust(w)}  {v.baseline:.4g} -> {v.now:.4g}  {v.words()}  "
+            f"{label[v.verdict]}{tail}"
+        )
+    return lines
+
+
+def format_report(result: GateResult, header: str, t: Thresholds | None = None) -> str:
     lines = [header, ""]
     rows = [("verdict", "run", "metric", "baseline", "now", "change")]
     label = {REGRESSION: "REGRESSION", IMPROVEMENT: "improved", NOTE: "note"}
@@ -289,6 +506,7 @@ def format_report(result: GateResult, header: str) -> str:
     if result.findings and result.version_changes:
         lines.append("")
     lines.extend(version_lines(result))
+    lines.extend(timing_lines(result, t or Thresholds()))
     for what, keys in (
         ("runs in the baseline, missing from the rerun", result.missing_runs),
         ("runs new in the rerun, not in the baseline", result.new_runs),
@@ -298,6 +516,14 @@ def format_report(result: GateResult, header: str) -> str:
         if keys:
             lines.append(f"{what} ({len(keys)}):")
             lines.extend(f"  {k}" for k in keys)
+    for m, n in result.new_methods.items():
+        lines.append(f"method {m} is new since the baseline: {n} run(s), reported, not gated")
+    if result.accepted:
+        names = " ".join(result.accept_names)
+        lines.append(
+            f"accepted as missing (--accept-missing {names}): {len(result.accepted)} cell(s):"
+        )
+        lines.extend(f"  {k}" for k in result.accepted)
     lines.extend(result.notes)
     lines.append(result.verdict())
     return "\n".join(lines)

@@ -4,21 +4,23 @@ Everything runs in this one process, in memory, in the order `expand` gives (cas
 forms x settings), so that two measurements differ only by what changed in the code or the
 machine. Two kinds of numbers come out:
 
-- per grid run, the deterministic ones: status, steps, right-hand-side evaluations, rejected
+- per grid cell, the deterministic ones: status, steps, right-hand-side evaluations, rejected
   steps and the error metrics of the run's metrics JSON. The same code on the same machine gives
-  the same bits; these are what the gate compares most strictly.
+  the same bits; these are what the gate compares most strictly. A cell the method refuses (or
+  fails to start, or raises on) is kept too, with its reason, so that the gate can say that a
+  cell which ran in the baseline does not any more.
 - per method and form, a timing: the quick grid's runs last well under a millisecond of kernel
   time each, so their nanoseconds per step are mostly the cost of starting and sampling, not of
   the kernel. Each (method, form) therefore gets one dedicated longer run: its grid run with the
   most steps, stretched in horizon until one pass takes about TIMING_TARGET_S of kernel time,
-  advanced from start to end in one call (no samples), best of TIMING_REPEATS in CPU time of
-  this thread (calibration.CLOCK says why). The repeats of all timings and of the calibration
-  loop are interleaved round by round, so that a burst of load on the machine spreads over every
-  entry instead of landing on one. Only these timings are gated; the grid runs' own ns_per_step
-  are recorded for reading, not compared.
-
-Timings are normalised by the calibration loop (calibration.py): `ns_per_step_norm` is the cost of
-one step in iterations of that loop.
+  advanced from start to end in one call (no samples). Over TIMING_ROUNDS rounds every timing
+  run makes one pass, and each pass sits between two passes of the reference workload
+  (reference_workload.py), so the sequence of a round is R m1 R m2 R ... mk R. A pass's ratio is
+  its time per step over the reference's time per step, the two references beside it averaged:
+  what drifts between seconds, days or hosts of one kind drifts in both and cancels. The median
+  ratio is `ns_per_step_norm`; the ratio of every round over that median (`per_round`) is the
+  spread the gate judges a change by. Only these timings are gated; the grid runs' own
+  ns_per_step are recorded for reading.
 """
 
 from __future__ import annotations
@@ -26,38 +28,33 @@ from __future__ import annotations
 import math
 import sys
 from collections.abc import Callable
-from dataclasses import replace
 from pathlib import Path
+from statistics import median
 
 from topdrift.benchmarks.cases.schema import parse_case
+from topdrift.benchmarks.gate.baseline_file import COUNT_METRICS, ERROR_METRICS, INFO_METRICS
 from topdrift.benchmarks.gate.reference_workload import (
     CLOCK,
-    ITERATIONS,
-    KERNEL,
+    SCALAR_STEPS,
+    STAGES_STEPS,
+    WORKLOAD,
+    WORKLOAD_VERSION,
+    ReferenceWorkload,
     clock,
-    turning_unit_vector,
+    reference_kind,
+    unit_ns,
 )
-from topdrift.benchmarks.run.runner import plan_run
-from topdrift.benchmarks.sweep.executor import Job, expand, run_job
+from topdrift.benchmarks.run.runner import plan_run, samples_at_interval
+from topdrift.benchmarks.sweep.executor import Job, Skip, expand_grid, run_job
 from topdrift.integrators import C_STEPS, STATUS_NAMES
+from topdrift.integrators import get as get_method
 
-# The invariant and trajectory errors, all "smaller is better". Spelled out rather than taken
-# from metrics.MAX_NAMES: they are keys of baseline format 1, which a new metric must not change.
-ERROR_METRICS = (
-    "energy_rel_max",
-    "p_phi_rel_max",
-    "p_psi_rel_max",
-    "norm_abs_max",
-    "axis_angle_max",
-    "theta_abs_max",
-    "phi_abs_max",
-    "psi_abs_max",
-)
-COUNT_METRICS = ("steps", "rhs_evals", "rejected")
-INFO_METRICS = ("energy_drift_exponent", "t_fail", "wall_s", "ns_per_step")
-
-TIMING_TARGET_S = 0.1
-TIMING_REPEATS = 5
+# Many short rounds rather than a few long ones: on this 2-core machine under the load of other
+# work, 41 rounds of 10 ms passes gave 95 % intervals of +-1 to 3 % where 9 rounds of 50 ms (the
+# same total time) gave +-6 to 19 % (measured side by side): the noise comes in bursts, and a
+# rank interval shrugs off a burst that lands on a few short passes.
+TIMING_TARGET_S = 0.01
+TIMING_ROUNDS = 41
 MAX_HORIZON_FACTOR = 10_000
 MIN_GRID_WALL_S = 1e-5  # below this a grid run's wall time says nothing about its speed
 
@@ -68,7 +65,7 @@ def setting_of(job: Job) -> dict:
     return {"rtol": job.rtol, "atol": job.atol}
 
 
-def run_key(job: Job) -> str:
+def run_key(job: Job | Skip) -> str:
     """What a run is, in words: case, method, form and the requested setting (10 digits, so
     that ladder rungs stay distinct and the key stays readable)."""
     if job.step is not None:
@@ -84,16 +81,41 @@ def timing_key(method: str, form: str) -> str:
     return f"{method} {form}"
 
 
+# What a skipped grid point is to the gate: a cell with a status, or nothing (the sweep's own
+# choices are the same in the baseline and the rerun and name no cell of the contract).
+_SKIP_STATUS = {"refused": "refused", "failed": "failed", "error": "error"}
+
+
 def grid_jobs(spec) -> tuple[dict[str, Job], list[str]]:
     """The grid's jobs by run key, in run order, and the grid points refused up front."""
-    jobs, skipped = expand(spec)
+    jobs, skipped, _ = grid_cells(spec)
+    return jobs, skipped
+
+
+def grid_cells(spec) -> tuple[dict[str, Job], list[str], list[dict]]:
+    """(jobs by run key, the skipped lines, the cells that did not start): each of the last is
+    {"key": run key or None, "case", "method", "form", "status", "detail"}; the key is None
+    when the method refused the case before any form was chosen."""
+    jobs, skips = expand_grid(spec, keep_errors=True)
     by_key: dict[str, Job] = {}
     for job in jobs:
         key = run_key(job)
         if key in by_key:  # two settings equal to 10 digits: keep the keys honest, not unique-ish
             raise RuntimeError(f"two runs of the grid share the key {key!r}")
         by_key[key] = job
-    return by_key, skipped
+    unstarted = [
+        {
+            "key": run_key(sk) if sk.form is not None else None,
+            "case": sk.case_name,
+            "method": sk.method,
+            "form": sk.form,
+            "status": _SKIP_STATUS[sk.kind],
+            "detail": sk.reason,
+        }
+        for sk in skips
+        if sk.kind in _SKIP_STATUS
+    ]
+    return by_key, [sk.line for sk in skips], unstarted
 
 
 def measure_run(job: Job) -> dict:
@@ -116,8 +138,11 @@ def measure_run(job: Job) -> dict:
     m = result.metrics
     record["status"] = result.status
     record["detail"] = result.detail
-    for name in COUNT_METRICS + ERROR_METRICS + INFO_METRICS:
+    for name in COUNT_METRICS + ERROR_METRICS:
         record[name] = m.get(name)
+    for name in INFO_METRICS:  # for reading only: a NaN there (a fit of nothing) is no value
+        v = m.get(name)
+        record[name] = None if isinstance(v, float) and math.isnan(v) else v
     return record
 
 
@@ -133,14 +158,26 @@ def measure_grid(
 
 
 def timing_plans(runs: dict[str, dict], jobs: dict[str, Job]) -> dict[str, dict]:
-    """Per (method, form): the grid run with the most steps among those that finished ok, and a
-    horizon long enough for about TIMING_TARGET_S of kernel time per pass."""
+    """Per (method, form): among the grid runs that finished ok, the one with the most steps that
+    took no longer than TIMING_TARGET_S (if every one took longer, the shortest), and a horizon
+    long enough for about TIMING_TARGET_S of kernel time per pass: a whole number of the grid
+    run's horizons, so that its sample interval, and with it every fixed step, is the grid
+    run's (the horizon rule, runner.samples_at_interval)."""
     best: dict[str, str] = {}
+
+    def better(key: str, than: str) -> bool:
+        a, b = runs[key], runs[than]
+        fits_a = (a.get("wall_s") or 0.0) <= TIMING_TARGET_S
+        fits_b = (b.get("wall_s") or 0.0) <= TIMING_TARGET_S
+        if fits_a != fits_b:
+            return fits_a
+        return a["steps"] > b["steps"] if fits_a else a["steps"] < b["steps"]
+
     for key, r in runs.items():
         if r["status"] != "ok" or not r.get("steps"):
             continue
         tk = timing_key(r["method"], r["form"])
-        if tk not in best or r["steps"] > runs[best[tk]]["steps"]:
+        if tk not in best or better(key, best[tk]):
             best[tk] = key
     plans = {}
     for tk, key in best.items():
@@ -150,15 +187,15 @@ def timing_plans(runs: dict[str, dict], jobs: dict[str, Job]) -> dict[str, dict]
     return plans
 
 
-def _timing_plan(job: Job, horizon: float):
-    tjob = replace(job, horizon=float(horizon), samples=2)
-    case = parse_case(
-        tjob.case_toml, tjob.case_label, Path(tjob.case_path) if tjob.case_path else None
+def timing_plan(job: Job, horizon: float):
+    case = parse_case(job.case_toml, job.case_label, Path(job.case_path) if job.case_path else None)
+    setting = {"step": job.step} if job.step is not None else {"rtol": job.rtol}
+    if job.atol is not None:
+        setting["atol"] = job.atol
+    samples = samples_at_interval(float(horizon), job.horizon / (job.samples - 1))
+    return plan_run(
+        case, job.method, form=job.form, horizon=float(horizon), samples=samples, **setting
     )
-    setting = {"step": tjob.step} if tjob.step is not None else {"rtol": tjob.rtol}
-    if tjob.atol is not None:
-        setting["atol"] = tjob.atol
-    return plan_run(case, tjob.method, form=tjob.form, horizon=tjob.horizon, samples=2, **setting)
 
 
 def _one_pass(plan) -> tuple[float, int, int]:
@@ -179,28 +216,32 @@ def _settled(job: Job, plan):
     if status != 0 or elapsed >= 0.5 * TIMING_TARGET_S:
         return plan
     factor = min(MAX_HORIZON_FACTOR, math.ceil(TIMING_TARGET_S / max(elapsed, 1e-6)))
-    return _timing_plan(job, plan.horizon * factor)
+    return timing_plan(job, plan.horizon * factor)
 
 
-def _calibration_pass() -> float:
-    t0 = clock()
-    turning_unit_vector(ITERATIONS, 0.0)
-    return clock() - t0
+def reference_unit(reference: dict | None) -> tuple[int, int]:
+    """The reference pass sizes: a baseline's (the gate must time in the same unit), or ours."""
+    if reference is None:
+        return SCALAR_STEPS, STAGES_STEPS
+    return int(reference["scalar_steps"]), int(reference["stages_steps"])
 
 
 def measure_timings(
     plans: dict[str, dict],
     jobs: dict[str, Job],
-    repeats: int | None = None,
+    rounds: int | None = None,
     report: Callable[[str], None] | None = None,
     settle: frozenset[str] = frozenset(),
+    reference: dict | None = None,
 ) -> tuple[dict[str, dict], dict]:
-    """(timings by timing key, calibration). Plans whose grid run is not in `jobs` are left out
-    (the caller reports them missing). Plans named in `settle` get their horizon settled first
-    (see _settled); the others (a baseline's, rerun by the gate) keep theirs."""
+    """(timings by timing key, the reference record). Plans whose grid run is not in `jobs` are
+    left out (the caller reports them missing). Plans named in `settle` get their horizon settled
+    first (see _settled); the others (a baseline's, rerun by the gate) keep theirs. `reference`:
+    a baseline's reference record, whose pass sizes are used."""
     report = report or _stderr
-    repeats = TIMING_REPEATS if repeats is None else repeats
+    rounds = TIMING_ROUNDS if rounds is None else rounds
     planned = {}
+    kinds: dict[str, str] = {}
     out: dict[str, dict] = {}
     plans = {tk: dict(tp) for tk, tp in plans.items()}
     for tk, tp in plans.items():
@@ -208,83 +249,106 @@ def measure_timings(
         if job is None:
             continue
         try:
-            plan = _timing_plan(job, tp["horizon"])
-            if tk in settle and plan.y0 is not None:
+            kinds[tk] = reference_kind(get_method(job.method).info.family)
+            plan = timing_plan(job, tp["horizon"])
+            if tk in settle:
                 plan = _settled(job, plan)
                 tp["horizon"] = plan.horizon
         except Exception as exc:  # noqa: BLE001 - a timing that cannot start is a finding
-            out[tk] = _failed_timing(tp, f"{type(exc).__name__}: {exc}")
-            continue
-        if plan.y0 is None:
-            out[tk] = _failed_timing(tp, plan.start_singular)
+            out[tk] = _failed_timing(tp, f"{type(exc).__name__}: {exc}", kinds.get(tk, "mix"))
             continue
         planned[tk] = plan
-    turning_unit_vector(10, 0.0)  # compile or load before any clock runs
-    calib: list[float] = []
-    times: dict[str, list[float]] = {tk: [] for tk in planned}
+    work = ReferenceWorkload(*reference_unit(reference))  # compiled before any clock runs
+    # One untimed pass of everything first: the first pass of a kernel in a process pays for
+    # cold instruction caches and branch predictors, which no later pass (and no baseline
+    # recorded after a probe pass) sees.
+    work.time_pass()
+    for tk, plan in planned.items():
+        if tk not in settle:  # a settled plan had its probe pass already
+            _one_pass(plan)
+    refs: list[tuple[float, float]] = []
+    ratios: dict[str, list[float]] = {tk: [] for tk in planned}
+    ns: dict[str, list[float]] = {tk: [] for tk in planned}
+    secs: dict[str, list[float]] = {tk: [] for tk in planned}
     steps: dict[str, int] = {}
     status: dict[str, int] = {}
-    for k in range(repeats):
-        calib.append(_calibration_pass())
+    for k in range(rounds):
+        prev = work.time_pass()
+        refs.append(prev)
         for tk, plan in planned.items():
             if status.get(tk, 0) != 0:
                 continue  # a failed pass is not timed again
             el, n, st = _one_pass(plan)
-            times[tk].append(el)
+            nxt = work.time_pass()
+            refs.append(nxt)
             steps[tk], status[tk] = n, st
-        report(f"timing round {k + 1}/{repeats}")
-    calib.append(_calibration_pass())
-    c_best = min(calib)
-    calibration = {
-        "kernel": KERNEL,
+            if st == 0 and n > 0:
+                scalar = 0.5 * (prev[0] + nxt[0]) * 1e9 / work.scalar
+                stages = 0.5 * (prev[1] + nxt[1]) * 1e9 / work.stages
+                ns[tk].append(el * 1e9 / n)
+                secs[tk].append(el)
+                ratios[tk].append(ns[tk][-1] / unit_ns(kinds[tk], scalar, stages))
+            prev = nxt
+        report(f"timing round {k + 1}/{rounds}")
+    reference_record = {
+        "kernel": WORKLOAD,
+        "version": WORKLOAD_VERSION,
         "clock": CLOCK,
-        "iterations": ITERATIONS,
-        "repeats": len(calib),
-        "ns_per_iteration": c_best * 1e9 / ITERATIONS,
-        "spread": max(calib) / c_best - 1.0,
+        "scalar_steps": work.scalar,
+        "stages_steps": work.stages,
+        "scalar_ns": median(r[0] for r in refs) * 1e9 / work.scalar,
+        "stages_ns": median(r[1] for r in refs) * 1e9 / work.stages,
+        "passes": len(refs),
     }
     for tk in planned:
         tp = plans[tk]
-        best = min(times[tk])
-        n = steps[tk]
-        ok = status[tk] == 0 and n > 0
-        ns = best * 1e9 / n if ok else None
+        st = status.get(tk, 0)
+        ok = st == 0 and bool(ratios[tk])
+        mid = median(ratios[tk]) if ok else None
         out[tk] = {
             "run": tp["run"],
             "horizon": float(tp["horizon"]),
-            "status": STATUS_NAMES[status[tk]] if status[tk] < len(STATUS_NAMES) else "failed",
-            "detail": "",
-            "steps": n,
-            "repeats": len(times[tk]),
-            "seconds": best,
-            "ns_per_step": ns,
-            "ns_per_step_norm": ns / calibration["ns_per_iteration"] if ok else None,
-            "spread": max(times[tk]) / best - 1.0,
+            "status": STATUS_NAMES[st] if st < len(STATUS_NAMES) else "failed",
+            "detail": "" if st == 0 else f"the timing pass ended {STATUS_NAMES[st]}",
+            "steps": steps.get(tk),
+            "reference": kinds[tk],
+            "rounds": len(ratios[tk]),
+            "per_round": [round(r / mid, 6) for r in ratios[tk]] if ok else [],
+            "ns_per_step_norm": mid,
+            "ns_per_step": median(ns[tk]) if ok else None,
+            "seconds": median(secs[tk]) if ok else None,
+            "spread": (max(ratios[tk]) - min(ratios[tk])) / mid if ok else None,
         }
-    return dict(sorted(out.items(), key=lambda kv: list(plans).index(kv[0]))), calibration
+    return dict(sorted(out.items(), key=lambda kv: list(plans).index(kv[0]))), reference_record
 
 
-def _failed_timing(tp: dict, detail: str) -> dict:
+def _failed_timing(tp: dict, detail: str, kind: str) -> dict:
     return {
         "run": tp["run"],
         "horizon": float(tp["horizon"]),
         "status": "error",
         "detail": detail,
         "steps": None,
-        "repeats": 0,
-        "seconds": None,
-        "ns_per_step": None,
+        "reference": kind,
+        "rounds": 0,
+        "per_round": [],
         "ns_per_step_norm": None,
+        "ns_per_step": None,
+        "seconds": None,
         "spread": None,
     }
 
 
-def normalise_grid(runs: dict[str, dict], calibration: dict) -> None:
+def normalise_grid(runs: dict[str, dict], reference: dict) -> None:
     """Add ns_per_step_norm to each grid run (for reading; see the module note)."""
-    c = calibration["ns_per_iteration"]
     for r in runs.values():
         ns = r.get("ns_per_step")
-        r["ns_per_step_norm"] = ns / c if isinstance(ns, float) and c > 0 else None
+        try:
+            kind = reference_kind(get_method(r["method"]).info.family)
+        except KeyError:
+            kind = "mix"
+        unit = unit_ns(kind, reference["scalar_ns"], reference["stages_ns"])
+        r["ns_per_step_norm"] = ns / unit if isinstance(ns, float) and unit > 0 else None
 
 
 def _stderr(line: str) -> None:

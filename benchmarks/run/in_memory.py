@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import h5py
 
 from topdrift.benchmarks.run.runner import RunPlan, execute
-from topdrift.benchmarks.store.writer import FORMAT, FORMAT_VERSION, _attr_str
+from topdrift.benchmarks.store.format import FORMAT, FORMAT_VERSION, attr_str
 
 
 @dataclass
@@ -53,7 +53,7 @@ def copy_run(image: bytes, run_id: str, dst: h5py.File) -> None:
     that no reader takes for finished; an unfinished run of the same id is replaced."""
     with h5py.File(io.BytesIO(image), "r") as src:
         g = src["runs"][run_id]
-        final = _attr_str(g, "status")
+        final = attr_str(g, "status")
         runs = dst.require_group("runs")
         if run_id in runs:
             del runs[run_id]
@@ -67,4 +67,4 @@ def copy_run(image: bytes, run_id: str, dst: h5py.File) -> None:
 
 def metrics_of(image: bytes, run_id: str) -> dict:
     with h5py.File(io.BytesIO(image), "r") as src:
-        return json.loads(_attr_str(src["runs"][run_id], "metrics") or "{}")
+        return json.loads(attr_str(src["runs"][run_id], "metrics") or "{}")

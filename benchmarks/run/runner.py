@@ -20,37 +20,46 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from topdrift.benchmarks.cases.schema import LARGEST, MAX_SAMPLES, SMALLEST
+from topdrift.benchmarks.cases.time_scales import fastest_rate
 from topdrift.benchmarks.errors import UserError
+from topdrift.benchmarks.run.loop import (
+    STOPPED,
+    Outcome,
+    SampledRun,
+    close_run,
+    failure_time,
+    sample_loop,
+    stepper_outcome,
+)
 from topdrift.benchmarks.run.metrics import Accumulator, finish
-from topdrift.benchmarks.run.sampling import (
-    N_SCALARS,
-    S_ENERGY,
-    S_NORM,
-    S_P_PHI,
-    S_P_PSI,
-    record_sample,
+from topdrift.benchmarks.run.sampling import S_ENERGY, SampleBuffers
+from topdrift.benchmarks.store.checkpoint import entry_layout
+from topdrift.benchmarks.store.failures import NoRoom, damage_is_an_error, ensure_room
+from topdrift.benchmarks.store.format import (
+    CHUNK_ROWS,
+    DIVERGED,
+    EXACT_DATASETS,
+    FAILED,
+    INTERRUPTED,
+    OK,
+    RUNNING,
+    SAMPLE_DATASETS,
+    STATE_DATASET,
+    first_line,
 )
-from topdrift.benchmarks.store.checkpoint import CheckpointRefused
-from topdrift.benchmarks.store.writer import CHUNK_ROWS, NoRoom, RunGroup, ensure_room, utc_now
-from topdrift.integrators import (
-    ST_DIVERGED,
-    ST_NO_CONVERGENCE,
-    ST_OK,
-    ST_SINGULAR,
-    ST_STEP_UNDERFLOW,
-    STATUS_NAMES,
-    Method,
-    MethodRefused,
-    Stepper,
-    snapshot_kinds,
+from topdrift.benchmarks.store.reader import check_run_samples
+from topdrift.benchmarks.store.writer import (
+    RunGroup,
+    utc_now,
 )
+from topdrift.integrators import C_STEPS, ST_OK, Method, MethodRefused, Stepper, whole_steps
 from topdrift.integrators import get as get_method
-from topdrift.models import FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
+from topdrift.models import FORM_EULER, FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
 from topdrift.models.dynamics import singular
 
 FLUSH_EVERY_S = 2.0
 BATCH_ROWS = 4096
-CHUNK_STEPS = 1 << 20  # steps per call inside a long fixed-step interval (see _advance)
+CHUNK_STEPS = 1 << 20  # steps per call inside a long fixed-step interval (see _Run._advance_to)
 
 
 @dataclass
@@ -104,6 +113,13 @@ class RunResult:
     detail: str = ""
 
 
+class StartFailed(MethodRefused):
+    """The method's kernel raised (a division by zero, an overflow) in the first steps of a run:
+    refused like any run that cannot start, so `topdrift run` says why in one line and exits 2,
+    but told apart from a refusal by the method's own checks. A sweep skips it like a refusal;
+    the regression gate calls a cell that ran before and now ends here "failed", not "refused"."""
+
+
 def _positive(name: str, v) -> float:
     try:
         v = float(v)
@@ -119,15 +135,41 @@ def _positive(name: str, v) -> float:
     return v
 
 
+def samples_at_interval(horizon: float, interval: float) -> int:
+    """The horizon rule, one for every command: a horizon other than the case's keeps the
+    sample interval, not the sample count, so that a fixed step that filled the case's interval
+    fills the new one too (squeezing the case's samples into a shorter horizon would round every
+    step down). The count is the nearest whole number of intervals, at least one; a horizon that
+    is not a whole number of intervals gets a slightly different interval, and the step rounding
+    then says so in the run's notes. An explicit sample count always wins over this rule."""
+    if not (math.isfinite(horizon) and horizon > 0.0):
+        raise UserError(f"--horizon: must be a positive finite number, got {horizon!r}")
+    n = max(2, round(horizon / interval) + 1)
+    if n > MAX_SAMPLES:
+        raise UserError(
+            f"--horizon {horizon:g} at a sample every {interval:g} s is {n:.3g} samples, more "
+            f"than {MAX_SAMPLES}; give --samples"
+        )
+    return n
+
+
+def samples_for_horizon(case, horizon: float) -> int:
+    """The case's sample count over its own horizon, else the horizon rule (samples_at_interval)
+    at the case's sample interval."""
+    if horizon == case.horizon:
+        return case.samples
+    return samples_at_interval(horizon, case.horizon / (case.samples - 1))
+
+
 def steps_per_interval(interval: float, step: float) -> int:
     """How many steps of about `step` fill one sample interval: the ratio rounded up, except that
-    a ratio within 1e-9 of a whole number is that number (200 / 1e4 / 1e-5 is 2000.0000000000002
-    in floating point, and means 2000 steps, not 2001)."""
-    ratio = interval / step
-    k = round(ratio)
-    if k >= 1 and abs(ratio - k) <= 1e-9 * k:
+    a ratio on the step grid by the contract's rule (whole_steps: within GRID_RTOL of a whole
+    number) is that number (200 / 1e4 / 1e-5 is 2000.0000000000002 in floating point, and means
+    2000 steps, not 2001)."""
+    k = whole_steps(interval, step)
+    if k is not None and k >= 1:
         return k
-    return max(1, math.ceil(ratio))
+    return max(1, math.ceil(interval / step))
 
 
 def start_state(case, form: str) -> np.ndarray:
@@ -181,7 +223,7 @@ def plan_run(
     method = get_method(method_name)
     body = case.body
     horizon = _positive("--horizon", case.horizon if horizon is None else horizon)
-    n = case.samples if samples is None else samples
+    n = samples_for_horizon(case, horizon) if samples is None else samples
     if isinstance(n, bool) or not isinstance(n, (int, np.integer)) or n < 2:
         raise UserError(f"--samples: need a whole number of at least 2 (t = 0 and T), got {n!r}")
     if n > MAX_SAMPLES:  # the case files' own limit
@@ -256,7 +298,7 @@ def plan_run(
     except ArithmeticError as exc:
         # A kernel's own division by zero or overflow on this start (numba raises these): a
         # refusal naming it, not a traceback.
-        raise MethodRefused(
+        raise StartFailed(
             f"{method.name}: cannot start on {case.name}: {type(exc).__name__} in the first steps "
             f"({exc})"
         ) from None
@@ -267,21 +309,6 @@ def plan_run(
 # DESIGN.md), days for the others. A horizon that needs more is refused before anything runs,
 # instead of keeping a machine busy for ever.
 MAX_STEPS = 1e12
-
-
-def fastest_rate(case) -> float:
-    """The fastest angular rate of the case at its start (rad/s): the body's angular velocity
-    |w| = |I^-1 m|, or the pendulum rate sqrt(M g |chi| / I_min) of the gravity torque, whichever
-    is larger. An explicit method following a rotation or oscillation at rate w needs h w below
-    a small constant (its stability interval on the imaginary axis, below 2 pi for every method
-    here: common practice), and any method needs about one step per turn to resolve it."""
-    body = case.body
-    y = case.body_state()
-    w = np.asarray(y[4:7], dtype=np.float64) / np.asarray(body.inertia, dtype=np.float64)
-    spin = float(np.sqrt(np.sum(w * w)))
-    lever = float(np.sqrt(np.sum(np.asarray(body.com, dtype=np.float64) ** 2)))
-    swing = math.sqrt(body.mass * body.gravity * lever / min(body.inertia))
-    return max(spin, swing)
 
 
 def _check_budget(case, method, horizon: float, n: int, settings: dict) -> None:
@@ -333,40 +360,6 @@ class ExactFailed(RuntimeError):
     """The exact solution raised or returned non-finite values at some sample times."""
 
 
-class _Buffers:
-    """Preallocated sample rows between flushes, plus the scratch arrays of record_sample."""
-
-    def __init__(self, rows: int, width: int):
-        self.state = np.zeros((rows, width))
-        self.euler = np.zeros((rows, 3))
-        self.quat = np.zeros((rows, 4))
-        self.mom = np.zeros((rows, 3))
-        self.axis = np.zeros((rows, 3))
-        self.scal = np.zeros((rows, N_SCALARS))
-        self.t = np.zeros(rows)
-        self.ye = np.zeros(6)
-        self.yb = np.zeros(7)
-        self.inv = np.zeros(5)
-        self.rows = rows
-
-    def record(self, form: int, y: np.ndarray, p: np.ndarray, j: int) -> bool:
-        return record_sample(
-            form,
-            y,
-            p,
-            j,
-            self.state,
-            self.euler,
-            self.quat,
-            self.mom,
-            self.axis,
-            self.scal,
-            self.ye,
-            self.yb,
-            self.inv,
-        )
-
-
 def warm_up(plan: RunPlan) -> None:
     """Compile every kernel the run calls, on throwaway copies, before any clock starts."""
     interval = plan.horizon / (plan.samples - 1)
@@ -378,12 +371,12 @@ def warm_up(plan: RunPlan) -> None:
         w.advance_to(2.0 * h)
     else:
         w.advance_to(interval * 1e-6)
-    try:
-        snapshot_kinds(w.snapshot())  # numbers only: a checkpoint can hold nothing else
-    except TypeError as exc:
-        raise MethodRefused(f"{plan.method.name}: {exc}") from None
-    b = _Buffers(1, plan.y0.shape[0])
-    b.record(plan.form_code, plan.y0, plan.params, 0)
+    for key, value in w.snapshot().items():  # a checkpoint holds numbers and text only
+        try:
+            entry_layout(value)
+        except TypeError as exc:
+            raise MethodRefused(f"{plan.method.name}: snapshot entry {key!r}: {exc}") from None
+    SampleBuffers(1, plan.y0.shape[0]).record(plan.form_code, plan.y0, plan.params, 0)
 
 
 def _exact_rows(top, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -451,84 +444,243 @@ def run_attrs(plan: RunPlan) -> dict:
     }
 
 
-class _Run:
-    """The mutable part of a run in progress; its state() is the checkpoint."""
+class _Run(SampledRun):
+    """A single run in progress, as the sample loop drives it; its state() is the checkpoint.
 
-    def __init__(self, plan: RunPlan, group: RunGroup):
+    A batch holds BATCH_ROWS samples; each write appends them with the exact solution at their
+    times, folds them into the metric accumulator and replaces the checkpoint."""
+
+    def __init__(self, plan: RunPlan, group: RunGroup, stop: StopFlag, progress):
         self.plan = plan
         self.group = group
+        self.stop = stop
+        self.progress = progress
+        self.samples = plan.samples
+        self.has_exact = plan.exact is not None
         self.k = 0  # next sample to take
         self.wall = 0.0
         self.cpu = 0.0  # CPU time of the same calls: on a shared machine, the steadier number
         self.stepper: Stepper | None = None
         self.acc: Accumulator | None = None
+        self.rows = min(BATCH_ROWS, plan.samples)
+        self.buf = SampleBuffers(self.rows, FORM_SIZE[plan.form_code])
+
+    def fresh_stepper(self) -> Stepper:
+        p = self.plan
+        return p.method.start(
+            p.form_code, p.params.copy(), 0.0, p.y0.copy(), dict(p.stepper_settings)
+        )
 
     def checkpoint(self) -> None:
         self.group.write_checkpoint(
             checkpoint_parts(self.k, self.wall, self.cpu, self.stepper, self.acc)
         )
 
-    def restore(self) -> None:
-        """Continue from the checkpoint, trusting nothing in it: it is read as this run would
-        write it now (names, dtypes, shapes; store/checkpoint.py), the stepper checks its own
-        snapshot (integrators/base.py, check_snapshot), and what ties it to this run is checked
-        here: the sample it stopped at, its time, and the start sample's reference values.
-        Nothing is written before every check has passed, so a refused resume leaves the file
-        as it was."""
+    def restore(self, truncate: bool = True) -> None:
+        """Everything a resume reads, read and checked before anything is written: the
+        checkpoint, the stored samples up to it (read through, so that a damaged chunk refuses
+        the resume while the file is as it was), and only then the rows past it dropped
+        (unless truncate is False: check_resume on a file open for reading)."""
         p = self.plan
-        fresh = p.method.start(
-            p.form_code, p.params.copy(), 0.0, p.y0.copy(), dict(p.stepper_settings)
-        )
-        acc0 = start_accumulator(p)
-        cp = self.group.read_checkpoint(checkpoint_parts(1, 0.0, 0.0, fresh, acc0))
+        where = f"{self.group.f.filename}: run {p.run_id}"
+        # Read as this run would write it now (names, dtypes, shapes; store/checkpoint.py):
+        # nothing in the file decides what is read.
+        template = checkpoint_parts(1, 0.0, 0.0, self.fresh_stepper(), start_accumulator(p))
+        with damage_is_an_error(self.group.f.filename):
+            cp = self.group.read_checkpoint(template)
         if cp is None:
-            raise UserError(f"run {p.run_id}: no checkpoint to resume from; use --force")
+            raise UserError(f"{where}: no checkpoint to resume from; use --force")
+        try:
+            self._restore_from(cp)
+        except (KeyError, ValueError, TypeError, IndexError) as exc:
+            # What a checkpoint of another method or layout, or a damaged one, gives.
+            raise UserError(
+                f"{where}: the checkpoint cannot be restored ({type(exc).__name__}: "
+                f"{first_line(exc)}); use --force to run it again"
+            ) from None
+        self._check_rows()
+        check_run_samples(self.group.f, p.run_id)
+        if truncate:
+            self.group.truncate(self.k)
 
-        def refuse(what: str):
-            raise CheckpointRefused(
-                f"run {p.run_id}: checkpoint {what}; it cannot be resumed (--force runs it again)"
-            )
-
+    def _restore_from(self, cp: dict) -> None:
+        """Take the checkpoint back, trusting nothing in it: the stepper checks its own
+        snapshot (validation.check_snapshot), and what ties it to this run is checked here: the
+        sample it stopped at, that sample's time, a state of this form, and the reference values
+        of this run's start (bit for bit). Raises ValueError naming what is wrong."""
+        p = self.plan
         run = cp["run"]
         k = run["sample"]
         if not 1 <= k <= p.samples:
-            refuse(f"run/sample is {k}, not a sample of this run (1 to {p.samples})")
+            raise ValueError(f"run/sample is {k}, not a sample of this run (1 to {p.samples})")
         if run["t"] != p.sample_time(k - 1):
-            refuse(f"run/t is {run['t']!r}, not the time of sample {k - 1}")
+            raise ValueError(f"run/t is {run['t']!r}, not the time of sample {k - 1}")
         for key in ("wall_s", "cpu_s"):
             if not (math.isfinite(run[key]) and run[key] >= 0.0):
-                refuse(f"run/{key} is {run[key]!r}, not a time spent")
+                raise ValueError(f"run/{key} is {run[key]!r}, not a time spent")
         if not np.all(np.isfinite(run["y"])) or singular(p.form_code, run["y"]):
-            refuse("run/y is not a finite state of this form")
-        try:
-            fresh.check_snapshot(cp["stepper"])  # for plug-ins whose restore does not
-            fresh.restore(cp["stepper"])
-        except (ValueError, TypeError, KeyError, IndexError, ArithmeticError) as exc:
-            refuse(f"stepper/: {exc}")  # MethodRefused is a ValueError
-        fresh.counters[:] = run["counters"]
-        if not (fresh.t == run["t"] and np.array_equal(fresh.y, run["y"])):
-            raise UserError(f"run {p.run_id}: the stepper did not restore its checkpoint exactly")
-        try:
-            acc = Accumulator.from_state(cp["metrics"])
-        except ValueError as exc:
-            refuse(f"metrics/: {exc}")
-        if acc.reference() != acc0.reference():
-            refuse("metrics/ holds the reference values of another start, case or form")
+            raise ValueError("run/y is not a finite state of this form")
+        stepper = self.fresh_stepper()
+        stepper.restore(cp["stepper"])  # SnapshotRefused (a ValueError) names the field
+        stepper.counters[:] = run["counters"]
+        if not (stepper.t == run["t"] and np.array_equal(stepper.y, run["y"])):
+            raise ValueError("the stepper did not restore its checkpoint exactly")
+        acc = Accumulator.from_state(cp["metrics"])
+        if acc.reference() != start_accumulator(p).reference():
+            raise ValueError("metrics/ holds the reference values of another start, case or form")
+        self.k, self.wall, self.cpu = k, run["wall_s"], run["cpu_s"]
+        self.stepper, self.acc = stepper, acc
+
+    def _check_rows(self) -> None:
+        p = self.plan
+        where = f"{self.group.f.filename}: run {p.run_id}"
+        present = self.group.datasets()
+        needed = [*SAMPLE_DATASETS, STATE_DATASET, *(EXACT_DATASETS if p.exact is not None else ())]
+        missing = [name for name in needed if name not in present]
+        if p.exact is None and any(name in present for name in EXACT_DATASETS):
+            raise UserError(f"{where}: holds exact-solution datasets its case does not have")
+        if missing:
+            raise UserError(
+                f"{where}: dataset '{missing[0]}' is missing; the file lost samples: use --force "
+                "to run it again"
+            )
         # Rows past the checkpoint are dropped; rows missing before it (a file damaged after
         # its last flush) would leave a gap that appending cannot mend.
-        short = {name: ds.shape[0] for name, ds in self.group.datasets().items() if ds.shape[0] < k}
+        short = {
+            name: ds.shape[0] for name, ds in self.group.datasets().items() if ds.shape[0] < self.k
+        }
         if short:
             name, rows = next(iter(short.items()))
             raise UserError(
-                f"run {p.run_id}: the checkpoint is at sample {k} but dataset '{name}' holds "
+                f"{where}: the checkpoint is at sample {self.k} but dataset '{name}' holds "
                 f"{rows} rows; the file lost samples: use --force to run it again"
             )
-        self.k = k
-        self.wall = run["wall_s"]
-        self.cpu = run["cpu_s"]
-        self.stepper = fresh
-        self.acc = acc
-        self.group.truncate(self.k)
+
+    # The loop's side of a single run (see loop.SampledRun).
+
+    def sample_time(self, k: int) -> float:
+        return self.plan.sample_time(k)
+
+    def steps(self) -> int:
+        return int(self.stepper.counters[C_STEPS])
+
+    def take_start(self) -> int:
+        if self.k > 0:
+            return 0
+        form, s, buf = self.plan.form_code, self.stepper, self.buf
+        buf.t[0] = 0.0
+        if not buf.record(form, s.y, self.plan.params, 0):
+            raise UserError(f"{self.plan.case.name}: the start state is not finite")
+        self.acc = Accumulator.at_start(
+            buf.scal[0], buf.mom[0], self.plan.params, self.has_exact, form != FORM_EULER
+        )
+        self.k = 1
+        return 1
+
+    def advance(self, tk: float) -> Outcome | None:
+        try:
+            st = self._advance_to(tk)
+        except MethodRefused as exc:
+            return Outcome(FAILED, str(exc), float(self.stepper.t))
+        except ArithmeticError as exc:  # a kernel's own division by zero or overflow
+            t = float(self.stepper.t)
+            return Outcome(FAILED, f"{type(exc).__name__} in the integrator after t = {t:.17g}", t)
+        if st is None:
+            return STOPPED
+        if st != ST_OK:
+            s = self.stepper
+            return stepper_outcome(st, failure_time(s.t_fail, s.t))
+        return None
+
+    def record(self, j: int, tk: float) -> Outcome | None:
+        self.buf.t[j] = tk
+        if not self.buf.record(self.plan.form_code, self.stepper.y, self.plan.params, j):
+            return Outcome(DIVERGED, f"non-finite state at t = {tk:.17g}", tk)
+        return None
+
+    def check(self, j: int, tk: float) -> Outcome | None:
+        e_rel = abs(self.buf.scal[j, S_ENERGY] - self.acc.e0) / self.acc.e_scale
+        if not e_rel <= 1.0:
+            return Outcome(DIVERGED, f"relative energy error {e_rel:.3g} > 1 at t = {tk:.17g}", tk)
+        return None
+
+    def write(self, j: int) -> Outcome | None:
+        buf = self.buf
+        # Checked before anything is written (see store.NoRoom). A write appends the new rows
+        # and rewrites the last, partly filled chunk of every dataset (compressed, perhaps at a
+        # new place in the file), plus the checkpoint: rows + one chunk of rows, uncompressed,
+        # bound it.
+        row_bytes = 8 * (buf.state.shape[1] + 3 + 4 + 3 + 4 + (6 if self.has_exact else 0))
+        rows = j + min(CHUNK_ROWS, self.samples)
+        ensure_room(self.group.f, rows * row_bytes + 64 * 1024, f"the samples up to {self.k}")
+        if j:
+            tb = buf.t[:j].copy()
+            batch = {"t": tb, **buf.rows_of(0, j)}
+            ee = ea = None
+            if self.has_exact:
+                try:
+                    ee, ea = _exact_rows(self.plan.exact, tb)
+                except ExactFailed as exc:
+                    # The batch is dropped whole: every stored row has its exact counterpart.
+                    return Outcome(FAILED, str(exc))
+                batch["exact/euler"] = ee
+                batch["exact/axis"] = ea
+            self.acc.update(buf.scal[:j], buf.euler[:j], buf.axis[:j], ee, ea)
+            self.group.append(batch)
+        self.checkpoint()
+        m = self.acc.maxima_dict()
+        m["steps"] = self.steps()
+        self.group.set_metrics(m)
+        self.group.flush()
+        return None
+
+    def _advance_to(self, tk: float) -> int | None:
+        """Advance the stepper to the sample time tk, timing the calls; returns its status, or
+        None when a stop was asked for inside a long interval (the stepper is then back at
+        t_(k-1)).
+
+        A fixed-step interval longer than CHUNK_STEPS steps is taken in pieces of CHUNK_STEPS,
+        so that the progress bar moves and a signal is heard within a fraction of a second. The
+        pieces are fixed by the step count, never by the clock, so that a run repeats its
+        bits."""
+        plan, s = self.plan, self.stepper
+        per = plan.settings.get("steps_per_sample", 0)
+        if per <= CHUNK_STEPS:
+            return self._timed(s, tk)
+        at_start = (s.snapshot(), self.wall, self.cpu)
+        h = plan.stepper_settings["step"]
+        t_prev = plan.sample_time(self.k - 1)
+        done = 0
+        while True:
+            left = per - done
+            target = tk if left <= CHUNK_STEPS else t_prev + (done + CHUNK_STEPS) * h
+            st = self._timed(s, target)
+            if st != ST_OK or target == tk:
+                return st
+            done += CHUNK_STEPS
+            if self.progress:
+                self.progress.update(self.k - 1 + done / per, self.steps())
+            if self.stop.requested:
+                # Back to the last sample: the checkpoint must describe a state at a sample time.
+                fresh = self.fresh_stepper()
+                fresh.restore(at_start[0])
+                self.stepper = fresh
+                self.wall, self.cpu = at_start[1], at_start[2]
+                return None
+
+    def _timed(self, s: Stepper, t: float) -> int:
+        c0, t0 = time.thread_time(), time.perf_counter()
+        try:
+            return s.advance_to(t)
+        finally:
+            self.wall += time.perf_counter() - t0
+            self.cpu += time.thread_time() - c0
+
+    def final_metrics(self, t_fail) -> dict:
+        g = self.group.g
+        t = g["t"][()]
+        energy = g["invariants/energy"][()]
+        return finish(self.acc, self.stepper.counters, self.wall, self.cpu, t, energy, t_fail)
 
 
 def checkpoint_parts(k: int, wall: float, cpu: float, stepper: Stepper, acc: Accumulator) -> dict:
@@ -549,11 +701,19 @@ def checkpoint_parts(k: int, wall: float, cpu: float, stepper: Stepper, acc: Acc
 
 
 def start_accumulator(plan: RunPlan) -> Accumulator:
-    """The reference values a run takes from its start sample (as _loop does at k = 0)."""
-    b = _Buffers(1, FORM_SIZE[plan.form_code])
+    """The reference values a run takes from its start sample (as take_start does)."""
+    b = SampleBuffers(1, FORM_SIZE[plan.form_code])
     b.record(plan.form_code, plan.y0, plan.params, 0)
-    has_exact = plan.exact is not None
-    return Accumulator.at_start(b.scal[0], b.mom[0], plan.params, has_exact, plan.form_code != 0)
+    has_norm = plan.form_code != FORM_EULER
+    return Accumulator.at_start(b.scal[0], b.mom[0], plan.params, plan.exact is not None, has_norm)
+
+
+def check_resume(plan: RunPlan, f) -> None:
+    """Every check a resume of plan makes (its checkpoint restores exactly, the stored samples
+    up to it are all there and readable), on a file open for reading. The command line calls
+    this before it opens the file for writing, so that a refused resume leaves the file byte
+    for byte as it was (HDF5 may write into a file it only opens for writing)."""
+    _Run(plan, RunGroup(f, plan.run_id), StopFlag(), None).restore(truncate=False)
 
 
 def execute(
@@ -567,232 +727,33 @@ def execute(
 ) -> RunResult:
     """Run a plan into the open store f (creating or continuing its group)."""
     stop = stop or StopFlag()
-    has_exact = plan.exact is not None
     width = FORM_SIZE[plan.form_code]
     if resume:
         group = RunGroup(f, plan.run_id)
-        run = _Run(plan, group)
+        run = _Run(plan, group, stop, progress)
         run.restore()
-        group.set(status="running")
+        group.set(status=RUNNING)
         group.flush()
     else:
+        has_exact = plan.exact is not None
         group = RunGroup.create(f, plan.run_id, run_attrs(plan), width, has_exact, plan.samples)
-        run = _Run(plan, group)
-    if not resume:
-        run.stepper = plan.method.start(
-            plan.form_code, plan.params.copy(), 0.0, plan.y0.copy(), dict(plan.stepper_settings)
-        )
+        run = _Run(plan, group, stop, progress)
+        run.stepper = run.fresh_stepper()
     try:
-        return _loop(plan, run, has_exact, progress, stop, flush_every)
+        end = sample_loop(run, progress=progress, stop=stop, flush_every=flush_every)
     except NoRoom as exc:
         # Nothing of the batch was written: the run stops at its last checkpoint, marked
         # interrupted (a few bytes, within the margin kept), and --resume goes on from there.
-        group.set(status="interrupted", detail=str(exc))
+        group.set(status=INTERRUPTED, detail=str(exc))
         group.flush()
         if progress:
-            progress.end("interrupted")
+            progress.end(INTERRUPTED)
         done = group.n_stored
         raise NoRoom(
             f"{exc}; run {plan.run_id} is interrupted with {done} of {plan.samples} samples "
             "stored: make room, then go on with --resume"
         ) from None
-
-
-def _loop(plan, run: _Run, has_exact, progress, stop, flush_every) -> RunResult:
-    form = plan.form_code
-    p = plan.params
-    n = plan.samples
-    s = run.stepper
-    buf = _Buffers(min(BATCH_ROWS, n), FORM_SIZE[form])
-    j = 0
-    status = "ok"
-    detail = ""
-    t_fail = None
-    exact_failed = False
-    last_flush = time.perf_counter()
-    if progress:
-        progress.begin(run.k, int(s.counters[0]))
-
-    def flush() -> None:
-        nonlocal j, last_flush
-        # Checked before anything is written (see store.NoRoom). A flush writes the new rows
-        # and rewrites the last, partly filled chunk of every dataset (compressed, perhaps at a
-        # new place in the file), plus the checkpoint: rows + one chunk of rows, uncompressed,
-        # bound it.
-        row_bytes = 8 * (buf.state.shape[1] + 3 + 4 + 3 + 4 + (6 if has_exact else 0))
-        rows = j + min(CHUNK_ROWS, n)
-        ensure_room(run.group.f, rows * row_bytes + 64 * 1024, f"the samples up to {run.k}")
-        if j:
-            tb = buf.t[:j].copy()
-            batch = {
-                "t": tb,
-                "state": buf.state[:j],
-                "euler": buf.euler[:j],
-                "quaternion": buf.quat[:j],
-                "momentum": buf.mom[:j],
-                "invariants/energy": buf.scal[:j, S_ENERGY],
-                "invariants/p_phi": buf.scal[:j, S_P_PHI],
-                "invariants/p_psi": buf.scal[:j, S_P_PSI],
-                "invariants/norm": buf.scal[:j, S_NORM],
-            }
-            ee = ea = None
-            if has_exact:
-                ee, ea = _exact_rows(plan.exact, tb)  # raises ExactFailed
-                batch["exact/euler"] = ee
-                batch["exact/axis"] = ea
-            run.acc.update(buf.scal[:j], buf.euler[:j], buf.axis[:j], ee, ea)
-            run.group.append(batch)
-        run.checkpoint()
-        m = run.acc.maxima_dict()
-        m["steps"] = int(s.counters[0])
-        run.group.set_metrics(m)
-        run.group.flush()
-        j = 0
-        last_flush = time.perf_counter()
-        if progress:
-            progress.flushed(run.k, int(s.counters[0]))
-
-    if run.k == 0:
-        buf.t[0] = 0.0
-        if not buf.record(form, s.y, p, 0):
-            raise UserError(f"{plan.case.name}: the start state is not finite")
-        run.acc = Accumulator.at_start(buf.scal[0], buf.mom[0], p, has_exact, form != 0)
-        j = 1
-        run.k = 1
-    while run.k < n:
-        tk = plan.sample_time(run.k)
-        try:
-            st = _advance(plan, run, tk, stop, progress)
-        except MethodRefused as exc:
-            status, detail, t_fail = "failed", str(exc), float(run.stepper.t)
-            break
-        except ArithmeticError as exc:  # a kernel's own division by zero or overflow
-            status, t_fail = "failed", float(run.stepper.t)
-            detail = f"{type(exc).__name__} in the integrator after t = {t_fail:.17g} ({exc})"
-            break
-        s = run.stepper  # a stop inside a long interval rolls the stepper back to t_(k-1)
-        if st is None:
-            flush()
-            return _interrupted(plan, run, progress)
-        if st != ST_OK:
-            t_fail = float(s.t_fail) if math.isfinite(s.t_fail) else float(s.t)
-            if st == ST_SINGULAR:
-                status = "singular"
-            elif st == ST_DIVERGED:
-                status = "diverged"
-            else:
-                status = "failed"
-            detail = f"{STATUS_NAMES[st]} at t = {t_fail:.17g}"
-            if st in _WHY:
-                detail += f": {_WHY[st]}"
-            break
-        buf.t[j] = tk
-        if not buf.record(form, s.y, p, j):
-            status, t_fail = "diverged", tk
-            detail = f"non-finite state at t = {tk:.17g}"
-            break
-        e_rel = abs(buf.scal[j, S_ENERGY] - run.acc.e0) / run.acc.e_scale
-        j += 1
-        run.k += 1
-        if not e_rel <= 1.0:
-            status, t_fail = "diverged", tk
-            detail = f"relative energy error {e_rel:.3g} > 1 at t = {tk:.17g}"
-            break
-        if progress:
-            progress.update(run.k, int(s.counters[0]))
-        if run.k < n and (
-            j == buf.rows or stop.requested or time.perf_counter() - last_flush >= flush_every
-        ):
-            try:
-                flush()
-            except ExactFailed as exc:
-                status, detail, t_fail, exact_failed = "failed", str(exc), None, True
-                break
-            if stop.requested:
-                return _interrupted(plan, run, progress)
-    if not exact_failed:
-        try:
-            flush()
-        except ExactFailed as exc:
-            # The batch is dropped whole: every stored row has its exact counterpart.
-            status, detail, t_fail = "failed", str(exc), None
-    metrics = _final_metrics(run, t_fail)
-    run.group.set_metrics(metrics)
-    # The samples reach the disk before the final status is set: a write that fails (a full
-    # disk, a file-size limit) raises here, and the run stays `running`, never `ok` and short.
-    run.group.flush()
-    run.group.set(status=status, detail=detail)
-    run.group.flush()
-    if progress:
-        progress.end(status)
-    return RunResult(plan.run_id, status, metrics, detail)
-
-
-# What a stepper's failure status means, said in the run's detail after "<status> at t = ...".
-_WHY = {
-    ST_STEP_UNDERFLOW: "the adaptive step fell below 10 ulp of t (round-off) without meeting "
-    "the tolerance; loosen --rtol/--atol or look for a singularity near that time",
-    ST_NO_CONVERGENCE: "the implicit stages did not converge; take a smaller --step",
-}
-
-
-def _interrupted(plan: RunPlan, run: _Run, progress) -> RunResult:
-    metrics = _final_metrics(run, None)
-    run.group.set_metrics(metrics)
-    run.group.set(status="interrupted")
-    run.group.flush()
-    if progress:
-        progress.end("interrupted")
-    return RunResult(plan.run_id, "interrupted", metrics)
-
-
-def _advance(plan: RunPlan, run: _Run, tk: float, stop: StopFlag, progress) -> int | None:
-    """Advance the stepper to the sample time tk, timing the calls; returns its status, or None
-    when a stop was asked for inside a long interval (the stepper is then back at t_(k-1)).
-
-    A fixed-step interval longer than CHUNK_STEPS steps is taken in pieces of CHUNK_STEPS, so
-    that the progress bar moves and a signal is heard within a fraction of a second. The pieces
-    are fixed by the step count, never by the clock, so that a run repeats its bits."""
-    s = run.stepper
-    per = plan.settings.get("steps_per_sample", 0)
-    clock, cpu_clock = time.perf_counter, time.thread_time
-    if per <= CHUNK_STEPS:
-        c0, t0 = cpu_clock(), clock()
-        try:
-            return s.advance_to(tk)
-        finally:
-            run.wall += clock() - t0
-            run.cpu += cpu_clock() - c0
-    at_start = (s.snapshot(), run.wall, run.cpu)
-    h = plan.stepper_settings["step"]
-    t_prev = plan.sample_time(run.k - 1)
-    done = 0
-    while True:
-        left = per - done
-        target = tk if left <= CHUNK_STEPS else t_prev + (done + CHUNK_STEPS) * h
-        c0, t0 = cpu_clock(), clock()
-        st = s.advance_to(target)
-        run.wall += clock() - t0
-        run.cpu += cpu_clock() - c0
-        if st != ST_OK or target == tk:
-            return st
-        done += CHUNK_STEPS
-        if progress:
-            progress.update(run.k - 1 + done / per, int(s.counters[0]))
-        if stop.requested:
-            # Back to the last sample: the checkpoint must describe a state at a sample time.
-            p = plan
-            fresh = p.method.start(
-                p.form_code, p.params.copy(), 0.0, p.y0.copy(), dict(p.stepper_settings)
-            )
-            fresh.restore(at_start[0])
-            run.stepper = fresh
-            run.wall, run.cpu = at_start[1], at_start[2]
-            return None
-
-
-def _final_metrics(run: _Run, t_fail) -> dict:
-    g = run.group.g
-    t = g["t"][()]
-    energy = g["invariants/energy"][()]
-    return finish(run.acc, run.stepper.counters, run.wall, run.cpu, t, energy, t_fail)
+    end = end or Outcome(OK)
+    metrics = run.final_metrics(end.t_fail)
+    close_run(group, end.status, end.detail, metrics, progress)
+    return RunResult(plan.run_id, end.status, metrics, end.detail)

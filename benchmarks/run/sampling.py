@@ -10,13 +10,21 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
 from numba import njit
 
-from topdrift.models.forms import FORM_EULER, body_to_euler, euler_to_body
-from topdrift.models.invariants import INV_ENERGY, INV_NORM, INV_P_PHI, INV_P_PSI, invariants
+from topdrift.models.forms import FORM_BODY, FORM_EULER, FORM_SIZE, body_to_euler, euler_to_body
+from topdrift.models.invariants import (
+    INV_ENERGY,
+    INV_NORM,
+    INV_P_PHI,
+    INV_P_PSI,
+    N_INVARIANTS,
+    invariants,
+)
 from topdrift.models.quaternion import figure_axis
 
-# Columns of the per-sample scalar block `inv` (one row per sample).
+# Columns of the per-sample scalar block `scal` (one row per sample).
 S_ENERGY = 0
 S_P_PHI = 1
 S_P_PSI = 2
@@ -82,3 +90,54 @@ def record_sample(form, y, p, j, state, euler, quat, mom, axis, scal, ye, yb, in
     scal[j, S_P_PSI] = inv[INV_P_PSI]
     scal[j, S_NORM] = inv[INV_NORM]
     return math.isfinite(inv[INV_ENERGY])
+
+
+class SampleBuffers:
+    """Preallocated sample rows (one run's samples between writes, or one sample of every member
+    of an ensemble), plus the scratch arrays of record_sample."""
+
+    def __init__(self, rows: int, width: int):
+        self.state = np.zeros((rows, width))
+        self.euler = np.zeros((rows, 3))
+        self.quat = np.zeros((rows, 4))
+        self.mom = np.zeros((rows, 3))
+        self.axis = np.zeros((rows, 3))
+        self.scal = np.zeros((rows, N_SCALARS))
+        self.t = np.zeros(rows)
+        self.ye = np.zeros(FORM_SIZE[FORM_EULER])
+        self.yb = np.zeros(FORM_SIZE[FORM_BODY])
+        self.inv = np.zeros(N_INVARIANTS)
+        self.rows = rows
+
+    def record(self, form: int, y: np.ndarray, p: np.ndarray, j: int) -> bool:
+        """Row j from state y (see record_sample); False when the state is not finite."""
+        return record_sample(
+            form,
+            y,
+            p,
+            j,
+            self.state,
+            self.euler,
+            self.quat,
+            self.mom,
+            self.axis,
+            self.scal,
+            self.ye,
+            self.yb,
+            self.inv,
+        )
+
+    def rows_of(self, j: int, stop: int | None = None) -> dict[str, np.ndarray]:
+        """Rows [j, stop) as the run group's sample datasets (state, angles, quaternion,
+        momentum and invariants; the time is the caller's), views into the buffers."""
+        stop = j + 1 if stop is None else stop
+        return {
+            "state": self.state[j:stop],
+            "euler": self.euler[j:stop],
+            "quaternion": self.quat[j:stop],
+            "momentum": self.mom[j:stop],
+            "invariants/energy": self.scal[j:stop, S_ENERGY],
+            "invariants/p_phi": self.scal[j:stop, S_P_PHI],
+            "invariants/p_psi": self.scal[j:stop, S_P_PSI],
+            "invariants/norm": self.scal[j:stop, S_NORM],
+        }

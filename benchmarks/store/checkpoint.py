@@ -1,13 +1,14 @@
 """A run's checkpoint group, `checkpoint/<part>/<entry>`: plain numbers in, plain numbers out.
 
-An entry is a float64 or int64 number (an attribute of its part's group) or a float64 or int64
+An entry is a float64 or int64 number or a short text (an attribute of its part's group; text
+as fixed-length UTF-8 bytes, so that its size is known before it is read) or a float64 or int64
 array (a dataset). The reader is given a template, the entries the running code would write now
 (part -> name -> value), and reads only those names, each only after its place, dtype and shape
 are found to be the template's. So nothing in a file decides what is read, how much, or as what:
-no object, string or opaque dtype is ever read, no link is followed, no array larger than the
-template's is allocated, and a name the code does not write (a pickled solver of an older
-layout, say) is refused rather than skipped. Every refusal is one CheckpointRefused line naming
-the run and the entry.
+no object, variable-length or opaque dtype is ever read, no link is followed, no array larger
+than the template's is allocated, and a name the code does not write (a pickled solver of an
+older layout, say) is refused rather than skipped. Every refusal is one CheckpointRefused line
+naming the run and the entry.
 """
 
 from __future__ import annotations
@@ -19,16 +20,28 @@ from topdrift.benchmarks.errors import UserError
 
 GROUP = "checkpoint"
 ENTRY_DTYPES = (np.dtype(np.float64), np.dtype(np.int64))
+# The longest text entry (a method's name, its settings as JSON): a few hundred bytes.
+MAX_TEXT_BYTES = 4096
 
 
 class CheckpointRefused(UserError):
     """A checkpoint that is not what this code writes; the run cannot resume from it."""
 
 
-def entry_layout(value) -> tuple[str, np.dtype, tuple[int, ...]]:
-    """(where, dtype, shape) of an entry: ("attr", ...) for a number, ("dataset", ...) for an
-    array. Raises TypeError for anything else (a string, a bool, an object): checkpoints hold
-    numbers only."""
+def _text_bytes(value: str) -> np.ndarray:
+    raw = value.encode("utf-8")
+    if len(raw) > MAX_TEXT_BYTES:
+        raise TypeError(f"a checkpoint text entry holds at most {MAX_TEXT_BYTES} bytes")
+    return np.array(raw, dtype=f"S{max(1, len(raw))}")
+
+
+def entry_layout(value) -> tuple[str, np.dtype | str, tuple[int, ...]]:
+    """(where, dtype, shape) of an entry: ("attr", ...) for a number or a text ("text" for the
+    dtype), ("dataset", ...) for an array. Raises TypeError for anything else (a bool, an
+    object, an array of another dtype): checkpoints hold numbers and text only."""
+    if isinstance(value, str):
+        _text_bytes(value)
+        return "attr", "text", ()
     if isinstance(value, np.ndarray):
         if value.dtype in ENTRY_DTYPES:
             return "dataset", value.dtype, value.shape
@@ -40,7 +53,9 @@ def entry_layout(value) -> tuple[str, np.dtype, tuple[int, ...]]:
         if not isinstance(value, np.integer) or np.dtype(type(value)) == np.int64:
             return "attr", np.dtype(np.int64), ()
     shown = f"array of {value.dtype}" if isinstance(value, np.ndarray) else type(value).__name__
-    raise TypeError(f"a checkpoint entry is a float64 or int64 number or array, not a {shown}")
+    raise TypeError(
+        f"a checkpoint entry is a float64 or int64 number or array or a text, not a {shown}"
+    )
 
 
 def write_checkpoint(run: h5py.Group, parts: dict[str, dict]) -> None:
@@ -56,6 +71,8 @@ def write_checkpoint(run: h5py.Group, parts: dict[str, dict]) -> None:
             where, dtype, _ = layouts[(part, key)]
             if where == "dataset":
                 sub.create_dataset(key, data=value)
+            elif dtype == "text":
+                sub.attrs.create(key, _text_bytes(value))
             else:
                 sub.attrs.create(key, value, dtype=dtype)
 
@@ -76,9 +93,11 @@ def read_checkpoint(run: h5py.Group, template: dict[str, dict], run_id: str) -> 
     as numpy arrays), None when the run has none. Raises CheckpointRefused unless it holds
     exactly the template's parts and names, each in the template's place, dtype and shape."""
 
+    path = run.file.filename
+
     def refuse(what: str):
         raise CheckpointRefused(
-            f"run {run_id}: checkpoint {what}; it cannot be resumed (--force runs it again)"
+            f"{path}: run {run_id}: checkpoint {what}; it cannot be resumed (--force runs it again)"
         )
 
     if GROUP not in run and run.get(GROUP, getlink=True) is None:
@@ -120,10 +139,19 @@ def _read_entry(g: h5py.Group, key: str, example, where: str, refuse):
     place, dtype, shape = entry_layout(example)
     if place == "attr":
         if key not in g.attrs:
-            refuse(f"{where} should be an attribute (a number)")
+            refuse(f"{where} should be an attribute (a number or a text)")
         aid = g.attrs.get_id(key)
+        if dtype == "text":
+            t = aid.dtype
+            if t.kind != "S" or t.itemsize > MAX_TEXT_BYTES or aid.shape != ():
+                refuse(f"{where} is {_shown(t, aid.shape)}, expected a fixed-length UTF-8 text")
+            try:
+                return bytes(g.attrs[key]).decode("utf-8")
+            except UnicodeDecodeError:
+                refuse(f"{where} is not UTF-8 text")
         if aid.dtype != dtype or aid.shape != ():
-            refuse(f"{where} is {_shown(aid.dtype, aid.shape)}, expected a {dtype} number")
+            article = "an" if dtype == np.int64 else "a"
+            refuse(f"{where} is {_shown(aid.dtype, aid.shape)}, expected {article} {dtype} number")
         return g.attrs[key].item()
     if key in g.attrs:
         refuse(f"{where} should be a dataset (an array)")

@@ -1,164 +1,187 @@
-"""Read-only access to a runs file: validation, run records and one run's sample series.
+"""The one reader of run files: the only way any command opens a run file to read it.
 
-Only reads (mode "r", without taking HDF5's file lock), so that a file another process is still
-writing can be looked at and nothing in it can be changed. Every attribute is read defensively:
-a run group that its writer has only just created may lack attributes or datasets; such a run
+`open_reader` looks at the path (a regular file, with an HDF5 signature), opens it read-only
+without taking HDF5's file lock (a writer holds that lock for as long as it runs and flushes
+after every batch, so a file being written is readable up to its last flush), and runs every
+check of validate.py before handing the file over: links first, then the layout. Inside it, any
+failed HDF5 read is the one damaged-file line. Everything else here reads through it:
+
+- list_runs: every run's known attributes (summary, sweep, demo);
+- load_records / load_series: the records and sample series that plot and report use;
+- existing_status / stored_result / complete_ids: what `run` and `sweep` find in their file.
+
+A run group that its writer has only just created may lack attributes or datasets; such a run
 comes back with the status `incomplete` (records) or as a UserError naming what is missing
 (series), never as a traceback.
 """
 
 from __future__ import annotations
 
-import contextlib
-import json
 import os
+import stat
+from pathlib import Path
 
+import h5py
 import numpy as np
 
 from topdrift.benchmarks.errors import UserError
-
-FORMAT_NAME = "topdrift-runs"
-FORMAT_VERSION = 1  # the newest layout this reader understands
-
-STATUS_OK = "ok"
-STATUS_INCOMPLETE = "incomplete"  # not a writer's status: the group lacks what a run must have
-
-
-def _text(value) -> str:
-    if isinstance(value, bytes):
-        return value.decode("utf-8", "replace")
-    if isinstance(value, np.ndarray) and value.shape == ():
-        return _text(value[()])
-    return str(value)
-
-
-def _plain(value):
-    return value.item() if isinstance(value, np.generic) else value
+from topdrift.benchmarks.store.failures import damage_is_an_error
+from topdrift.benchmarks.store.format import (
+    FINAL_STATUSES,
+    STATUS_INCOMPLETE,
+    STATUS_OK,  # noqa: F401  (the records' status for a complete run, for readers of records)
+    cannot_open,
+    damaged,
+    first_line,
+    is_a_directory,
+    no_such_file,
+    not_a_regular_file,
+    not_hdf5,
+)
+from topdrift.benchmarks.store.validate import check_file, check_resumable, read_attrs, run_name
 
 
-def _json(value, what: str, run_id: str):
-    if value is None:
-        return None
+def check_path(path) -> None:
+    """Refuse a path that is not a regular HDF5 file, without opening it as one (a FIFO would
+    block a read, a directory or a foreign file would give HDF5's own words)."""
     try:
-        return json.loads(_text(value))
-    except ValueError as exc:
-        raise UserError(f"run {run_id}: attribute '{what}' is not valid JSON ({exc})") from None
-
-
-@contextlib.contextmanager
-def open_runs(path: str):
-    """The runs file opened read-only, after checking that it is a topdrift runs file this
-    reader understands. Every failure is a one-line UserError."""
-    import h5py
-
-    path = os.fspath(path)
-    if not os.path.exists(path):
-        raise UserError(f"runs file '{path}' does not exist")
-    if os.path.isdir(path):
-        raise UserError(f"runs file '{path}' is a directory, not an HDF5 file")
-    try:
-        is_hdf5 = h5py.is_hdf5(path)
+        st = os.stat(path)
+    except FileNotFoundError:
+        raise no_such_file(path) from None
     except OSError as exc:
-        raise UserError(f"runs file '{path}' cannot be read ({exc.strerror or exc})") from None
-    if not is_hdf5:
-        raise UserError(f"'{path}' is not an HDF5 file")
+        raise cannot_open(path, exc.strerror or first_line(exc)) from None
+    if stat.S_ISDIR(st.st_mode):
+        raise is_a_directory(path)
+    if not stat.S_ISREG(st.st_mode):
+        raise not_a_regular_file(path)
+    if st.st_size == 0:
+        raise not_hdf5(path, "empty file")
     try:
-        # Read mode without HDF5's file lock: the writer holds that lock for as long as it runs,
-        # and flushes after every batch, so the file is readable up to its last flush.
-        f = h5py.File(path, "r", locking=False)
+        signed = h5py.is_hdf5(path)
     except OSError as exc:
-        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise UserError(f"runs file '{path}' cannot be opened ({first})") from None
-    try:
-        fmt = f.attrs.get("format")
-        if fmt is None or _text(fmt) != FORMAT_NAME:
-            shown = "none" if fmt is None else repr(_text(fmt))
-            raise UserError(
-                f"'{path}' is not a topdrift runs file (format attribute {shown}, "
-                f"expected '{FORMAT_NAME}')"
-            )
-        version = f.attrs.get("format_version")
+        raise cannot_open(path, exc.strerror or first_line(exc)) from None
+    if not signed:
+        raise not_hdf5(path)
+
+
+# Files this process checked and found good, by path -> the (device, inode, size, mtime) they had
+# then. A command opens its file several times (to decide, to check a resume, to write); a file
+# whose signature is unchanged is the file already checked, and is not checked again. Any write
+# changes the modification time, so a file this process or another changed is checked anew.
+_CHECKED: dict[str, tuple] = {}
+_CHECKED_MAX = 16
+
+
+def _signature(path: str) -> tuple:
+    st = os.stat(path)
+    return (st.st_dev, st.st_ino, st.st_size, st.st_mtime_ns)
+
+
+def check_open_file(f: h5py.File, path) -> None:
+    """validate.check_file on an open file, unless this process checked the same path with the
+    same signature before; failed HDF5 reads are the damaged-file line."""
+    key = os.path.abspath(os.fspath(path))
+    sig = _signature(key)
+    if _CHECKED.get(key) == sig:
+        return
+    with damage_is_an_error(path):
+        check_file(f, path)
+    if len(_CHECKED) >= _CHECKED_MAX:
+        _CHECKED.clear()
+    _CHECKED[key] = sig
+
+
+class open_reader:
+    """The run file opened read-only and checked (see the module docstring), for a with-block:
+    `with open_reader(path) as f:`. The checks run when it is called, so that a refused file is
+    refused there; a failed HDF5 read inside the with-block is the damaged-file line too, and
+    the file is closed at its end."""
+
+    def __init__(self, path):
+        self.path = os.fspath(path)
+        check_path(self.path)
         try:
-            version = int(version)
-        except (TypeError, ValueError):
-            raise UserError(f"'{path}' has no valid format_version attribute") from None
-        if version > FORMAT_VERSION:
-            raise UserError(
-                f"'{path}' has format_version {version}; this topdrift reads up to "
-                f"{FORMAT_VERSION}: upgrade topdrift"
-            )
-        if version < 1:
-            raise UserError(f"'{path}' has format_version {version}, which never existed")
-        yield f
-    except (OSError, RuntimeError, KeyError) as exc:
-        # HDF5 finds damage (a cut file, overwritten bytes) only where it reads: any read of the
-        # open file may fail (h5py raises KeyError for an object header it cannot read), and
-        # every such failure is the same one-line error.
-        raise UserError(f"runs file '{path}' is damaged: {_first_line(exc)}") from None
-    finally:
-        f.close()
+            self.f = h5py.File(self.path, "r", locking=False)
+        except OSError as exc:
+            raise cannot_open(self.path, first_line(exc)) from None
+        try:
+            check_open_file(self.f, self.path)
+        except BaseException:
+            self.f.close()
+            raise
+
+    def __enter__(self) -> h5py.File:
+        return self.f
+
+    def __exit__(self, kind, exc, tb):
+        try:
+            return damage_is_an_error(self.path).__exit__(kind, exc, tb)
+        finally:
+            self.f.close()
 
 
-def _first_line(exc: Exception) -> str:
-    return str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+def run_record(g: h5py.Group, run_id: str, path) -> dict:
+    """A run's known attributes, decoded, with `run_id`, `samples_stored` and `has_exact`; the
+    status is `incomplete` where the group lacks its case, method or status."""
+    row = {"run_id": run_id, **read_attrs(g, run_id, path)}
+    if any(k not in row for k in ("case", "method", "status")):
+        row["status"] = STATUS_INCOMPLETE
+    row["samples_stored"] = int(g["t"].shape[0]) if "t" in g else 0
+    row["has_exact"] = "exact" in g and "euler" in g["exact"]
+    return row
 
 
-def _record(run_id: str, g) -> dict:
-    a = g.attrs
-    rec = {
-        "run_id": run_id,
-        "case": _text(a["case"]) if "case" in a else None,
-        "method": _text(a["method"]) if "method" in a else None,
-        "settings": _json(a.get("settings"), "settings", run_id) or {},
-        "status": _text(a["status"]) if "status" in a else STATUS_INCOMPLETE,
-        "created": _text(a["created"]) if "created" in a else None,
-        "metrics": _json(a.get("metrics"), "metrics", run_id) or {},
-    }
-    # The form and the horizon name a series as much as the settings do; the writer keeps them
-    # as attributes of their own. Samples are left out: they do not change the numerics.
+def _runs(f: h5py.File, path):
+    runs = f.get("runs")
+    if runs is None:
+        return
+    for raw in list(runs.id):
+        run_id = run_name(raw, path)
+        yield run_id, runs[run_id]
+
+
+def list_runs(f: h5py.File) -> list[dict]:
+    """Every run's record (see run_record), in creation order."""
+    path = f.filename
+    out = [run_record(g, run_id, path) for run_id, g in _runs(f, path)]
+    for row in out:
+        del row["has_exact"]  # the analysis records' key, not an attribute
+    out.sort(key=lambda r: (str(r.get("created", "")), r["run_id"]))
+    return out
+
+
+def analysis_record(row: dict) -> dict:
+    """A run_record as analysis, plot and report take it: run_id, case, method, settings (dict;
+    with the form and the horizon, which name a series as much as the settings do), status,
+    created, metrics (dict), has_exact."""
+    settings = dict(row.get("settings") or {})
     for key in ("form", "horizon"):
-        if key in a and key not in rec["settings"]:
-            v = a[key]
-            rec["settings"][key] = _text(v) if isinstance(v, (str, bytes)) else _plain(v)
-    if rec["case"] is None or rec["method"] is None:
-        rec["status"] = STATUS_INCOMPLETE
-    rec["has_exact"] = "exact" in g and "euler" in g["exact"]
-    return rec
+        if key in row and key not in settings:
+            settings[key] = row[key]
+    return {
+        "run_id": row["run_id"],
+        "case": row.get("case"),
+        "method": row.get("method"),
+        "settings": settings,
+        "status": row["status"],
+        "created": row.get("created"),
+        "metrics": row.get("metrics") or {},
+        "has_exact": row["has_exact"],
+    }
 
 
-def load_records(path: str) -> list[dict]:
-    """Every run in the file as a record: run_id, case, method, settings (dict), status,
-    created, metrics (dict), has_exact. Runs of any status are returned; callers skip or mark."""
-    with open_runs(path) as f:
-        runs = f.get("runs")
-        if runs is None:
-            return []
-        return [_record(run_id, runs[run_id]) for run_id in sorted(runs.keys())]
+def load_records(path) -> list[dict]:
+    """Every run in the file as an analysis_record, runs of any status, ordered by run id."""
+    with open_reader(path) as f:
+        rows = [run_record(g, run_id, path) for run_id, g in _runs(f, path)]
+    return [analysis_record(row) for row in sorted(rows, key=lambda r: r["run_id"])]
 
 
-def case_toml(path: str, run_id: str) -> str | None:
-    with open_runs(path) as f:
-        g = _run_group(f, run_id, path)
-        v = g.attrs.get("case_toml")
-        return None if v is None else _text(v)
-
-
-def _run_group(f, run_id: str, path: str):
+def _run_group(f, run_id: str, path):
     runs = f.get("runs")
     if runs is None or run_id not in runs:
-        raise UserError(f"no run '{run_id}' in '{path}'")
+        raise UserError(f"{path}: no run '{run_id}'")
     return runs[run_id]
-
-
-def _read(g, name: str, run_id: str, path: str) -> np.ndarray:
-    """A dataset's values; a damaged file (a chunk cut off or overwritten) is a one-line error."""
-    try:
-        return np.asarray(g[name][...], dtype=np.float64)
-    except (OSError, RuntimeError) as exc:
-        first = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise UserError(
-            f"run {run_id} in '{path}': dataset '{name}' cannot be read ({first})"
-        ) from None
 
 
 SERIES_DATASETS = {
@@ -172,22 +195,77 @@ SERIES_DATASETS = {
 }
 
 
-def load_series(path: str, run_id: str) -> dict:
-    """One run's samples as numpy arrays (keys of SERIES_DATASETS, plus exact_euler, which is
-    None where the case has no exact solution), with its record under 'record'.
+def _read(g, name: str, run_id: str, path) -> np.ndarray:
+    """A dataset's values; a chunk that cannot be read is the damaged-file line."""
+    try:
+        return np.asarray(g[name][...], dtype=np.float64)
+    except (OSError, RuntimeError) as exc:
+        raise damaged(path, f"run {run_id}: '{name}' cannot be read ({first_line(exc)})") from None
+
+
+def read_series(f: h5py.File, run_id: str) -> dict:
+    """One run's samples from an open, checked file, as numpy arrays (keys of SERIES_DATASETS,
+    plus exact_euler, which is None where the case has no exact solution), with its
+    analysis_record under 'record'.
 
     A run that is still being written may have datasets of different lengths; all are cut to the
     shortest, so that every row is one sample."""
-    with open_runs(path) as f:
-        g = _run_group(f, run_id, path)
-        out = {"record": _record(run_id, g)}
-        for key, name in SERIES_DATASETS.items():
-            if name not in g:
-                raise UserError(f"run {run_id} in '{path}' has no dataset '{name}'")
-            out[key] = _read(g, name, run_id, path)
-        out["exact_euler"] = _read(g, "exact/euler", run_id, path) if "exact/euler" in g else None
+    path = f.filename
+    g = _run_group(f, run_id, path)
+    out = {"record": analysis_record(run_record(g, run_id, path))}
+    for key, name in SERIES_DATASETS.items():
+        if name not in g:
+            raise UserError(f"{path}: run {run_id} has no dataset '{name}'")
+        out[key] = _read(g, name, run_id, path)
+    out["exact_euler"] = _read(g, "exact/euler", run_id, path) if "exact/euler" in g else None
     n = min(len(v) for k, v in out.items() if k != "record" and v is not None)
     for k, v in out.items():
         if k != "record" and v is not None:
             out[k] = v[:n]
     return out
+
+
+def load_series(path, run_id: str) -> dict:
+    """read_series of one run, the file opened (and checked) for it."""
+    with open_reader(path) as f:
+        return read_series(f, run_id)
+
+
+def existing_status(path, run_id: str) -> tuple[str | None, int]:
+    """(status, samples stored) of a run in a file, (None, 0) when the file or run is absent
+    (status None too where the run's group has no status yet). Checks the whole file as every
+    reader does; never writes."""
+    path = Path(path)
+    if not path.exists() and not path.is_symlink():
+        return None, 0
+    with open_reader(path) as f:
+        runs = f.get("runs")
+        if runs is None or run_id not in runs:
+            return None, 0
+        row = run_record(runs[run_id], run_id, path)
+        return read_attrs(runs[run_id], run_id, path).get("status"), row["samples_stored"]
+
+
+def stored_result(path, run_id: str) -> tuple[str, dict, str]:
+    """(status, metrics, detail) of a stored run, as `run` reports a run it reuses."""
+    with open_reader(path) as f:
+        row = run_record(_run_group(f, run_id, path), run_id, path)
+    return row["status"], row.get("metrics") or {}, row.get("detail", "") or ""
+
+
+def complete_ids(f: h5py.File) -> set[str]:
+    """Run ids with a final status in an open, checked file (the writer's or a reader's)."""
+    return {
+        run_id
+        for run_id, g in _runs(f, f.filename)
+        if read_attrs(g, run_id, f.filename).get("status") in FINAL_STATUSES
+    }
+
+
+def check_run_samples(f: h5py.File, run_id: str) -> None:
+    """A run's checkpoint kinds and its stored samples read through (validate.check_resumable):
+    the resume path calls this before it writes anything, so that a damaged chunk refuses the
+    resume and leaves the file as it was."""
+    path = f.filename
+    with damage_is_an_error(path):
+        check_resumable(f["runs"][run_id], run_id, path)

@@ -26,19 +26,13 @@ from topdrift.benchmarks.cases.library import load_case
 from topdrift.benchmarks.cases.schema import parse_case
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.in_memory import MemoryRun, copy_run, run_in_memory
-from topdrift.benchmarks.run.runner import plan_run
-from topdrift.benchmarks.store.writer import (
-    FINAL_STATUSES,
-    _attr_str,
-    close_after_failure,
-    ensure_room,
-    is_write_failure,
-    open_writer,
-    write_reason,
-)
+from topdrift.benchmarks.run.runner import StartFailed, plan_run, samples_for_horizon
+from topdrift.benchmarks.store.failures import ensure_room, file_failure
+from topdrift.benchmarks.store.reader import complete_ids
+from topdrift.benchmarks.store.writer import open_writer
 from topdrift.benchmarks.sweep.settings_ladder import rtol_ladder, step_ladder
 from topdrift.benchmarks.sweep.spec import SweepSpec
-from topdrift.integrators import MethodRefused
+from topdrift.integrators import MethodRefused, UnknownMethod
 from topdrift.integrators import get as get_method
 
 
@@ -62,6 +56,31 @@ class Job:
     def describe(self) -> str:
         s = f"step={self.step:.4g}" if self.step is not None else f"rtol={self.rtol:.3g}"
         return f"{self.case_name} {self.method} ({self.form}) {s}"
+
+
+# Why a grid point did not become a job. "refused": the method cannot run it (a form it lacks, a
+# body it cannot describe); "failed": it refused to start because its kernel raised in the
+# first steps (runner.StartFailed); "error": planning raised something else (only when asked,
+# see expand_grid); "over-budget" and "same-run" are the sweep's own choices (max_steps, two
+# requested steps that round to one run).
+SKIP_KINDS = ("refused", "failed", "error", "over-budget", "same-run")
+
+
+@dataclass(frozen=True)
+class Skip:
+    """A grid point that is not run, with the reason. `form` is None when the method refused the
+    case before any form was chosen (no form of it fits the body); `step`, `rtol` and `atol` are
+    None then too, and for a method-level refusal they name no setting."""
+
+    case_name: str
+    method: str
+    form: str | None
+    step: float | None
+    rtol: float | None
+    atol: float | None
+    kind: str
+    reason: str
+    line: str  # the sentence a sweep prints after "skipped"
 
 
 @dataclass
@@ -100,15 +119,35 @@ def expand(spec: SweepSpec) -> tuple[list[Job], list[str]]:
     """Every (case, method, form, setting) of the grid, planned (so checked) on the client.
     Grid points a method cannot run (an Euler-form method on an asymmetric body) are skipped
     with the reason; anything else wrong is a UserError."""
+    jobs, skips = expand_grid(spec)
+    return jobs, [s.line for s in skips]
+
+
+def expand_grid(spec: SweepSpec, *, keep_errors: bool = False) -> tuple[list[Job], list[Skip]]:
+    """As `expand`, with each skipped grid point as a Skip. `keep_errors`: a grid point whose
+    planning raises anything but a refusal or a UserError becomes a Skip of kind "error" instead
+    of ending the expansion (the regression gate wants every cell's fate, a sweep a traceback)."""
     jobs: list[Job] = []
-    skipped: list[str] = []
+    skipped: list[Skip] = []
     same: dict[tuple, Job] = {}
     for spec_case in spec.cases:
         case = load_case(spec_case)
         horizon = spec.horizon if spec.horizon is not None else case.horizon
-        samples = spec.samples if spec.samples is not None else case.samples
+        # The horizon rule of every command: a sweep's horizon keeps the case's sample interval
+        # unless the sweep gives its own sample count.
+        samples = spec.samples if spec.samples is not None else samples_for_horizon(case, horizon)
         for name in spec.methods:
-            method = get_method(name)
+            try:
+                method = get_method(name)
+            except UnknownMethod:
+                # For the gate, a method that is no longer registered (a plug-in that failed
+                # to load) is a cell that stopped running, not a sweep file to reject.
+                if not keep_errors:
+                    raise
+                why = f"unknown method {name!r}: not registered (a plug-in that did not load?)"
+                line = f"{case.name} {name}: {why}"
+                skipped.append(Skip(case.name, name, None, None, None, None, "error", why, line))
+                continue
             own = spec.per_method.get(name, {})
             wrong = "rtols" if method.info.control == "step" else "steps"
             if wrong in own:
@@ -122,7 +161,10 @@ def expand(spec: SweepSpec) -> tuple[list[Job], list[str]]:
                 try:
                     forms = [method.default_form(case.body)]
                 except MethodRefused as exc:
-                    skipped.append(f"{case.name} {name}: {exc}")
+                    line = f"{case.name} {name}: {exc}"
+                    skipped.append(
+                        Skip(case.name, name, None, None, None, None, "refused", str(exc), line)
+                    )
                     continue
             for form in forms:
                 if method.info.control == "step":
@@ -131,10 +173,13 @@ def expand(spec: SweepSpec) -> tuple[list[Job], list[str]]:
                         every = step_ladder(case, method.info.order, spec.rungs, horizon, math.inf)
                         ladder = [h for h in every if horizon / h <= spec.max_steps]
                         for h in (h for h in every if h not in ladder):  # said, not silent
-                            skipped.append(
-                                f"{case.name} {name} ({form}) step={h:.4g}: "
+                            why = (
                                 f"{horizon / h:.3g} steps over the horizon, more than "
                                 f"max_steps = {spec.max_steps:g}"
+                            )
+                            line = f"{case.name} {name} ({form}) step={h:.4g}: {why}"
+                            skipped.append(
+                                Skip(case.name, name, form, h, None, None, "over-budget", why, line)
                             )
                     settings = [(h, None, None) for h in ladder]
                 else:
@@ -162,7 +207,15 @@ def expand(spec: SweepSpec) -> tuple[list[Job], list[str]]:
                     try:
                         plan = _plan(job)
                     except MethodRefused as exc:
-                        skipped.append(f"{job.describe()}: {exc}")
+                        kind = "failed" if isinstance(exc, StartFailed) else "refused"
+                        skipped.append(_skip(job, kind, str(exc)))
+                        continue
+                    except UserError:
+                        raise
+                    except Exception as exc:  # noqa: BLE001 - kept as a cell only when asked
+                        if not keep_errors:
+                            raise
+                        skipped.append(_skip(job, "error", f"{type(exc).__name__}: {exc}"))
                         continue
                     # Two requested steps that round to the same step (one whole number of
                     # steps per sample interval) are the same computation: run it once.
@@ -170,10 +223,11 @@ def expand(spec: SweepSpec) -> tuple[list[Job], list[str]]:
                     used = json.dumps(used, sort_keys=True)
                     key = (job.case_toml, name, form, used, horizon, samples)
                     if key in same:
-                        skipped.append(
-                            f"{job.describe()}: runs as step={plan.settings['step']:.4g}, "
+                        why = (
+                            f"runs as step={plan.settings['step']:.4g}, "
                             f"the same run as {same[key].describe()}"
                         )
+                        skipped.append(_skip(job, "same-run", why))
                         continue
                     same[key] = job
                     jobs.append(Job(**{**job.__dict__, "run_id": plan.run_id}))
@@ -186,11 +240,18 @@ def expand(spec: SweepSpec) -> tuple[list[Job], list[str]]:
     return unique, skipped
 
 
-def _complete_ids(f) -> set[str]:
-    runs = f.get("runs")
-    if runs is None:
-        return set()
-    return {rid for rid, g in runs.items() if _attr_str(g, "status") in FINAL_STATUSES}
+def _skip(job: Job, kind: str, reason: str) -> Skip:
+    return Skip(
+        job.case_name,
+        job.method,
+        job.form,
+        job.step,
+        job.rtol,
+        job.atol,
+        kind,
+        reason,
+        f"{job.describe()}: {reason}",
+    )
 
 
 def run_sweep(
@@ -218,7 +279,7 @@ def run_sweep(
             client.close()
         raise
     try:
-        done = _complete_ids(f)
+        done = complete_ids(f)
         todo = [j for j in grid if j.run_id not in done]
         outcome.reused = [j.run_id for j in grid if j.run_id in done]
         for line in skipped:
@@ -258,17 +319,20 @@ def run_sweep(
                     accept(job, result, None)
         else:
             _on_pool(todo, jobs, accept, outcome, stop)
-    except (OSError, RuntimeError) as exc:
-        if not is_write_failure(exc):
+    except (OSError, RuntimeError, KeyError) as exc:
+        # A full disk or a file-size limit while a run was copied in, or a part of the file
+        # HDF5 could not read.
+        error = file_failure(
+            exc,
+            f,
+            out,
+            in_hand="the runs already copied in are kept",
+            next_step="run the same sweep again (complete runs are not run twice)",
+        )
+        if error is None:
             raise
-        # A full disk or a file-size limit while a run was copied in. HDF5 may not finish its
-        # own bookkeeping, so the file can be left unreadable: the message says to check it.
-        close_after_failure(f)
         f = None
-        raise UserError(
-            f"{out}: cannot write the results ({write_reason(exc)}); make room, check the file "
-            "with `topdrift summary`, then run the same sweep again (complete runs are kept)"
-        ) from None
+        raise error from None
     finally:
         try:
             if f is not None:

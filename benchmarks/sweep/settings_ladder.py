@@ -8,30 +8,14 @@ A tolerance ladder runs from rtol 1e-3 to 1e-12 whatever the method.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
-from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from topdrift.benchmarks.cases.time_scales import fastest_period
 
 # The error span (decades) a step ladder aims to cover, from a coarse start.
 ERROR_DECADES = 8.0
 COARSE_FRACTION = 1.0 / 8.0  # first rung: an eighth of the fastest period
 RTOL_RANGE = (1e-3, 1e-12)
-
-
-def fastest_period(case) -> float:
-    """2 pi over the fastest rate of the start: the largest body angular velocity, or the small-
-    oscillation rate of gravity sqrt(M g |chi| / I_min)."""
-    p = case.body.params()
-    y = case.body_state()
-    w = np.abs(y[4:7] * p[[P_INV1, P_INV2, P_INV3]])
-    mg_chi = math.sqrt(p[P_MGX] ** 2 + p[P_MGY] ** 2 + p[P_MGZ] ** 2)
-    w_grav = math.sqrt(mg_chi * max(p[P_INV1], p[P_INV2], p[P_INV3]))
-    rate = max(float(np.max(w)), w_grav)
-    if not rate > 0.0:
-        return case.horizon  # a body at rest: any step will do
-    return 2.0 * math.pi / rate
 
 
 def step_ladder(case, order: int, rungs: int, horizon: float, max_steps: float) -> list[float]:

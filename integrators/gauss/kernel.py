@@ -1,53 +1,20 @@
 """The one kernel behind every Gauss-Legendre method: fixed steps of an s-stage implicit Runge-Kutta
 method given by its tableau, the stage equations solved by fixed-point iteration to round-off.
 
-Stage equations in increment form, Z_i = Y_i - y_n = h sum_j a_ij f(y_n + Z_j): the Z are small,
-so their round-off is small against y_n (Hairer, McLachlan and Razakarivony, "Achieving Brouwer's
-law with implicit Runge-Kutta methods", BIT 48 (2008) 231-243, from memory). The iteration stops
-when the largest change of Z is zero, or when it has stopped decreasing at round-off level (that
-paper's stopping point). It gives up after `max_iter` sweeps if it never reached round-off
-(ST_NO_CONVERGENCE).
+A step: a starting guess for the stage increments Z_i = Y_i - y_n (the last step's collocation
+polynomial extrapolated over the new step, matrix E in gauss/tableau.py, or Z_i = c_i h f(y_n)
+for a first step or after the step changed sign); fixed-point sweeps Z <- h A f(y_n + Z) until
+the largest change is zero or stalls at round-off (ST_NO_CONVERGENCE after `max_iter` sweeps);
+the stages rounded to the double nearest the exact stage solution, so that the rounding has no
+preferred direction; the update y_n + h sum_i b_i F_i, plain or compensated, carrying every
+rounding error of the update (error-free transformations, eft.py). Increment form and stopping
+rule follow Hairer, McLachlan and Razakarivony, "Achieving Brouwer's law with implicit
+Runge-Kutta methods", BIT 48 (2008) 231-243 (from memory); compensated summation Hairer, Lubich,
+Wanner, Geometric Numerical Integration, sec. VIII.5.
 
-Rounding the stages without bias. The step keeps a quadratic invariant y.C y only up to
--2 h sum_i b_i F_i.C d_i, where d_i = Y_i - y_n - h sum_j a_ij F_j is the residual of the stage
-equations at the stage values Y_i actually evaluated (doubles) and F_i = f(Y_i). Whatever the
-iteration does, d_i cannot vanish: Y_i is a double. What matters is that d_i has no preferred
-direction. The point where a fixed-point iteration of the rounded map comes to rest does have
-one: the doubles that are fixed points of Z -> h A f(fl(y_n + Z)) (there are 0, 1 or 2 near the
-exact solution, with the iteration matrix h A f' turning the cell of admissible residuals), and
-which of them the iteration reaches (or which member of a cycle it stops on) depends on the
-direction in which the iteration turns, set by the motion. Measured on looping-nutation,
-gauss4-kahan, body form, h = 2e-3, 16 starts x 5e5 steps, with the energy change of every step
-split exactly into its sources (double-double bookkeeping, closing to 1e-32): the stage residual
-term averaged +4e-22 per step (14 of 16 starts positive), +9e-21 on the steps that converged
-directly and -8e-21 on those that stalled first, the whole of the shared drift. So after the
-iteration every stage value is replaced by the double nearest the exact stage solution Y*, which
-depends only on y_n and not on the way there: Y* = Y - (I - h A f')^-1 d, to first order
-Y - d - h A f'(Y) d, with d in exact arithmetic (error-free transformations) and f'(Y_j) d_j
-by one finite difference per stage along d_j scaled up by 2^24. A stage whose value moves is
-evaluated again. Rounding to nearest is unbiased whatever the direction of the motion; the stage
-term of the same run went to +2e-23 +- 7e-23 per step. This costs s evaluations per step plus
-one per stage moved (0.3 to 1 per step, measured), 14-17 % more evaluations at the timing
-benchmark's step, and replaces the extra sweeps after a stall that an earlier version spent
-looking for an exact fixed point.
-
-The update y_{n+1} = y_n + h sum_i b_i F_i is added either plainly or with compensated
-summation (Kahan's idea, carrying the compensation from step to step; Hairer, Lubich, Wanner,
-Geometric Numerical Integration, sec. VIII.5). The compensated update carries every rounding
-error of the update, not only that of y_n + increment: the increment h sum_i b_i F_i is formed
-as an unevaluated sum of two doubles by error-free transformations (eft.py), and both parts and
-the old compensation go into y_{n+1} + comp_{n+1} exactly (Knuth's TwoSum). Measured as above
-for gauss6-kahan: the rounding of the plain weighted sum sum_i b_i F_i alone drifted the energy
-by -1.1e-21 per step (2 of 16 starts positive), the main shared drift once the stages were
-unbiased; carried exactly, the update term is below 1e-36. The plain update rounds as before.
-It uses the derivatives of the last sweep, which costs no extra evaluation. Not
-y_n + sum_i d_i Z_i with d = b^T A^-1: d is irrational, and the rounded d make the effective
-weights d A differ from b, so the tableau is no longer exactly symplectic (measured: a drift of
--3e-14 over 10^6 steps of gauss4-kahan on looping-nutation, 30 times the random error).
-
-The starting guess for Z comes from the last step's collocation polynomial extrapolated over the
-new step (matrix E in gauss_tableau), or, for a first step or after the step changed sign, from
-Z_i = c_i h f(y_n). Everything is in caller-owned flat arrays: nothing is allocated per step.
+Why the stages are rounded and the update carried this way, with the measurements that decided
+it: docs/design-notes.md, "Gauss-Legendre: rounding without bias". Everything is in caller-owned
+flat arrays: nothing is allocated per step.
 """
 
 from __future__ import annotations
@@ -118,7 +85,9 @@ def gauss_steps(
     """Take up to nsteps steps of size h in place on y. Returns (status, steps taken).
 
     work holds work_size(s, n) floats. A failed step is not committed: y, comp, fprev stay at
-    the last good step.
+    the last good step. One function on purpose: its parts (guess, sweeps, residuals, rounding,
+    update) as inline helpers cost 3-9 % per step in reference counting of their array
+    arguments (docs/design-notes.md).
     """
     n = y.shape[0]
     s = b.shape[0]
@@ -212,7 +181,7 @@ def gauss_steps(
             iters[I_MAX] = sweeps
         if status != ST_OK:
             return status, done
-        # Round the stages without bias (see above). Residual d_i = Y_i - y - h sum_j a_ij F_j
+        # Round the stages without bias (module note). Residual d_i = Y_i - y - h sum_j a_ij F_j
         # with Y_i = fl(y + z_i), exactly up to its own last bits: y + z_i = Y_i + r, so
         # Y_i - y = z_i - r; h sum_j a_ij F_j = w + wl from two_prod and two_sum. d goes into
         # the buffer of the next iterate, which is free now.
@@ -235,7 +204,7 @@ def gauss_steps(
             for k in range(n):
                 jd[i * n + k] = (dy[k] - f[i * n + k]) / JD_SCALE
         evals = s
-        # The double nearest Y* = Y - d - h A f' d; evaluate again where it moved.
+        # The double nearest Y* = Y - d - h A f' d (design notes); evaluate again where it moved.
         for i in range(s):
             moved = False
             for k in range(n):

@@ -21,20 +21,28 @@ form) are kept too, in that form only; the tests check all four statements.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
 
 from topdrift.integrators.base import (
+    N_COUNTERS,
     ST_OK,
     Method,
     MethodInfo,
     MethodRefused,
     Stepper,
-    name_key,
+    grid_steps,
 )
 from topdrift.integrators.gauss.kernel import N_ITERS, N_MEMO, gauss_steps, work_size
 from topdrift.integrators.gauss.tableau import GAUSS2, GAUSS3, Tableau
+from topdrift.integrators.validation import (
+    ANY,
+    COUNT,
+    STEP,
+    Setting,
+    check_snapshot,
+    snapshot_identity,
+    stepper_fields,
+)
 from topdrift.models import FORM_NAMES
 
 # Sweeps of the fixed-point iteration allowed per step, unless settings say otherwise. At the
@@ -42,26 +50,37 @@ from topdrift.models import FORM_NAMES
 # and needs 4 to 15 sweeps; 60 leaves room for a slowly contracting step before giving up.
 DEFAULT_MAX_ITERATIONS = 60
 
-# advance_to needs t_end - t to be a whole number of steps to this relative precision.
-GRID_RTOL = 1e-9
-
 SOURCE = (
     "Butcher 1964, Math. Comp. 18; Hairer and Wanner, Solving ODEs II, sec. IV.5; "
     "Hairer, Lubich and Wanner, Geometric Numerical Integration, sec. II.1.3"
 )
 
-SETTING_KEYS = ("step", "max_iterations")
+SETTINGS = (
+    STEP,
+    Setting(
+        "max_iterations",
+        kind=COUNT,
+        required=False,
+        default=DEFAULT_MAX_ITERATIONS,
+        minimum=2,
+        why="a stall is seen only after two sweeps",
+    ),
+)
 
 
 class GaussStepper(Stepper):
-    def __init__(self, method, form, params, t0, y0, h, max_iter):
+    """A run of a Gauss-Legendre method; advance_to goes forward or back on the grid t0 + k h,
+    the step's sign following the direction (the methods are symmetric)."""
+
+    def __init__(self, method, form, params, t0, y0, settings):
         super().__init__(form=form, params=params, t=t0, y=y0)
         tab = method.tableau
         n = y0.shape[0]
         s = tab.stages
         self.method_name = method.name
-        self.h = h
-        self.max_iter = max_iter
+        self.settings = settings
+        self.h = settings["step"]
+        self.max_iter = settings["max_iterations"]
         self.compensated = method.info.compensated
         self.tab = tab
         self.comp = np.zeros(n)
@@ -73,13 +92,7 @@ class GaussStepper(Stepper):
     def advance_to(self, t_end: float) -> int:
         if self.status != ST_OK:
             return self.status
-        span = float(t_end) - self.t
-        whole = round(span / self.h)
-        if abs(span - whole * self.h) > GRID_RTOL * max(abs(span), self.h):
-            raise MethodRefused(
-                f"{self.method_name}: t_end = {t_end!r} is not a whole number of steps "
-                f"(step {self.h!r}) from t = {self.t!r}"
-            )
+        whole = grid_steps(self.method_name, self.t, t_end, self.h)
         if whole == 0:
             return ST_OK
         h = self.h if whole > 0 else -self.h
@@ -115,37 +128,40 @@ class GaussStepper(Stepper):
         """Fixed-point sweeps so far (each costs one rhs evaluation per stage)."""
         return int(self.iters[0])
 
-    # memo holds NaN while no stages of a previous step are kept (see gauss/kernel.py).
-    nonfinite_fields = ("t_fail", "memo")
-
-    def snapshot(self) -> dict:
+    def _fields(self) -> dict:
+        state = (np.float64, self.y.shape)
         return {
-            "method_key": name_key(self.method_name),
-            "step": self.h,
-            "max_iterations": self.max_iter,
-            "t": self.t,
-            "y": self.y.copy(),
-            "comp": self.comp.copy(),
-            "fprev": self.fprev.copy(),
-            "memo": self.memo.copy(),
-            "counters": self.counters.copy(),
-            "iters": self.iters.copy(),
-            "status": self.status,
-            "t_fail": self.t_fail,
+            **stepper_fields(N_COUNTERS),
+            "y": state,
+            "comp": state,
+            "fprev": (np.float64, self.fprev.shape),
+            "memo": (np.float64, self.memo.shape, ANY),  # NaN: no stages kept yet
+            "iters": (np.int64, self.iters.shape),
         }
 
+    def snapshot(self) -> dict:
+        snap = snapshot_identity(self.method_name, self.form, self.settings)
+        snap.update(
+            t=self.t,
+            y=self.y.copy(),
+            comp=self.comp.copy(),
+            fprev=self.fprev.copy(),
+            memo=self.memo.copy(),
+            counters=self.counters.copy(),
+            iters=self.iters.copy(),
+            status=self.status,
+            t_fail=self.t_fail,
+        )
+        return snap
+
     def restore(self, snap: dict) -> None:
-        self.check_snapshot(snap)
-        if (
-            snap["method_key"] != name_key(self.method_name)
-            or snap["step"] != self.h
-            or snap["max_iterations"] != self.max_iter
-        ):
-            raise MethodRefused(
-                f"{self.method_name}: snapshot is of another method or of step "
-                f"{snap['step']!r}, max_iterations {snap['max_iterations']!r}, not of this run "
-                f"(step {self.h!r}, max_iterations {self.max_iter!r})"
-            )
+        check_snapshot(
+            snap,
+            method=self.method_name,
+            form=self.form,
+            settings=self.settings,
+            fields=self._fields(),
+        )
         for key, dest in (
             ("y", self.y),
             ("comp", self.comp),
@@ -154,20 +170,15 @@ class GaussStepper(Stepper):
             ("counters", self.counters),
             ("iters", self.iters),
         ):
-            src = np.asarray(snap[key])
-            if src.shape != dest.shape:
-                raise MethodRefused(
-                    f"{self.method_name}: snapshot field {key!r} has shape {src.shape}, "
-                    f"expected {dest.shape}"
-                )
-            dest[:] = src
-        self.max_iter = int(snap["max_iterations"])
+            dest[:] = snap[key]
         self.t = float(snap["t"])
         self.status = int(snap["status"])
         self.t_fail = float(snap["t_fail"])
 
 
 class GaussMethod(Method):
+    """A Gauss-Legendre collocation method from its tableau, plain or compensated."""
+
     def __init__(self, name: str, table: dict, compensated: bool) -> None:
         self.tableau = Tableau(table)
         s = self.tableau.stages
@@ -193,26 +204,18 @@ class GaussMethod(Method):
             source=SOURCE,
         )
 
+    @property
+    def settings_spec(self):
+        return SETTINGS
+
     def start(self, form, params, t0, y0, settings) -> Stepper:
         form = int(form)
         if form < 0 or form >= len(FORM_NAMES) or FORM_NAMES[form] not in self.info.forms:
             raise MethodRefused(f"{self.name}: unknown state form code {form!r}")
-        for key in settings:
-            if key not in SETTING_KEYS:
-                raise MethodRefused(
-                    f"{self.name}: unknown setting {key!r} (known: {', '.join(SETTING_KEYS)})"
-                )
-        h = settings.get("step")
-        if not isinstance(h, float) or not h > 0.0 or not math.isfinite(h):
-            raise MethodRefused(f"{self.name}: needs a positive finite step, got {h!r}")
-        max_iter = settings.get("max_iterations", DEFAULT_MAX_ITERATIONS)
-        if isinstance(max_iter, bool) or not isinstance(max_iter, int) or max_iter < 2:
-            raise MethodRefused(
-                f"{self.name}: max_iterations must be an integer of at least 2, got {max_iter!r}"
-            )
+        checked = self.settings(settings)
         y = self.start_state(form, y0)
         p = np.ascontiguousarray(params, dtype=np.float64)
-        return GaussStepper(self, form, p, float(t0), y, h, int(max_iter))
+        return GaussStepper(self, form, p, float(t0), y, checked)
 
 
 METHODS = [

@@ -32,7 +32,6 @@ its start (the same bits, the solver being deterministic).
 
 from __future__ import annotations
 
-import math
 import warnings
 from dataclasses import dataclass
 
@@ -47,18 +46,23 @@ from topdrift.integrators.base import (
     ST_OK,
     ST_SINGULAR,
     ST_STEP_UNDERFLOW,
+    STATUS_NAMES,
     Method,
     MethodInfo,
     MethodRefused,
     Stepper,
-    name_key,
+)
+from topdrift.integrators.validation import (
+    FINITE_WHILE_OK,
+    SnapshotRefused,
+    check_snapshot,
+    snapshot_identity,
+    stepper_fields,
 )
 from topdrift.models import FORM_NAMES, FORM_SIZE
 from topdrift.models.dynamics import rhs, singular
 
 REJECTED_UNKNOWN = -1
-
-SETTING_KEYS = ("rtol", "atol")
 
 SOLVER_STATUSES = ("running", "finished", "failed")  # OdeSolver.status, stored as its index
 
@@ -85,14 +89,16 @@ class Field:
     kind: "float", "int", "bool", "status" (scalars); "f8" (a float64 array); "lu" / "lu_complex"
     (the (lu, piv) pair of scipy.linalg.lu_factor, real or complex). shape: of an array, in terms
     of the state size n ("n", "n,n", "3,n"), or "" for the shape of the array the constructor
-    makes. optional: None until the first step (stored with a `<key>_set` flag). in_place: copied
-    into the constructor's array, because a view of it exists (DOP853's K) or the solver hands
-    that very array on."""
+    makes. optional: None until the first step (stored with a `<key>_set` flag). after_step: an
+    array the constructor leaves uninitialised (np.empty) and the first step fills: stored as
+    zeros, and not put back, until then. in_place: copied into the constructor's array, because
+    a view of it exists (DOP853's K) or the solver hands that very array on."""
 
     attr: str
     kind: str
     shape: str = ""
     optional: bool = False
+    after_step: bool = False
     in_place: bool = False
 
     @property
@@ -118,8 +124,10 @@ _RUNGE_KUTTA = _ODE_SOLVER + (
 
 # The whitelist: every attribute of each solver class that changes as it steps.
 STATE = {
-    "RK45": _RUNGE_KUTTA + (Field("K", "f8", in_place=True),),
-    "DOP853": _RUNGE_KUTTA + (Field("K_extended", "f8", in_place=True),),
+    "RK45": _RUNGE_KUTTA + (Field("K", "f8", after_step=True, in_place=True),),
+    # K is the first n_stages + 1 rows of K_extended, the stages of the last step; the rows
+    # after them are the dense output's extra stages, which dense_output() computes from K.
+    "DOP853": _RUNGE_KUTTA + (Field("K", "f8", after_step=True, in_place=True),),
     "Radau": _ODE_SOLVER
     + (
         Field("y_old", "f8", "n", optional=True),
@@ -137,8 +145,9 @@ STATE = {
 }
 
 # Attributes set by the constructor from the settings alone, or functions bound to the solver:
-# the fresh solver restore() builds has them already. DOP853's K is a view of K_extended;
-# Radau's sol is the interpolant of its last step, computed again from Z, t_old, t and y_old.
+# the fresh solver restore() builds has them already. DOP853's K_extended holds K (a view of its
+# first rows) and the dense output's extra stages, made from K when asked for; Radau's sol is the
+# interpolant of its last step, computed again from Z, t_old, t and y_old.
 _FIXED_COMMON = (
     "_fun",
     "fun",
@@ -154,7 +163,7 @@ _FIXED_COMMON = (
 )
 FIXED = {
     "RK45": _FIXED_COMMON + ("error_exponent",),
-    "DOP853": _FIXED_COMMON + ("error_exponent", "K"),
+    "DOP853": _FIXED_COMMON + ("error_exponent", "K_extended"),
     "Radau": _FIXED_COMMON + ("I", "jac", "lu", "solve_lu", "newton_tol", "sol"),
 }
 
@@ -174,6 +183,7 @@ def _as_array(v, dtype) -> np.ndarray:
 
 def solver_entries(solver, fields, n: int) -> dict:
     """The solver's state as snapshot entries (numbers and float64/int64 arrays only)."""
+    stepped = solver.t_old is not None
     out: dict = {}
     for fl in fields:
         v = getattr(solver, fl.attr)
@@ -190,6 +200,8 @@ def solver_entries(solver, fields, n: int) -> dict:
         elif fl.kind == "f8":
             if v is None:
                 v = np.zeros(_dims(fl.shape, n))
+            elif fl.after_step and not stepped:
+                v = np.zeros_like(v)
             out[fl.key] = _as_array(v, np.float64)
         else:  # lu, lu_complex
             lu, piv = (np.zeros((n, n)), np.arange(n)) if v is None else v
@@ -203,10 +215,25 @@ def solver_entries(solver, fields, n: int) -> dict:
     return out
 
 
+def solver_field_specs(entries: dict) -> dict:
+    """validation.check_snapshot's field specs for solver entries, from entries of the same
+    solver class and state size (their names, kinds and shapes). Floats must be finite while
+    the run is ok; a failed run's last attempt may have met non-finite values."""
+    specs = {}
+    for key, v in entries.items():
+        if isinstance(v, np.ndarray):
+            specs[key] = (v.dtype.type, v.shape, FINITE_WHILE_OK)
+        elif isinstance(v, float):
+            specs[key] = (float, (), FINITE_WHILE_OK)
+        else:
+            specs[key] = (int, ())
+    return specs
+
+
 def _flag(snap: dict, key: str) -> bool:
     v = snap[key]
     if v not in (0, 1):
-        raise MethodRefused(f"snapshot entry {key!r} is {v}, not 0 or 1")
+        raise SnapshotRefused(f"snapshot field {key!r} is {v}, not 0 or 1")
     return v == 1
 
 
@@ -216,16 +243,18 @@ def _pivots(snap: dict, key: str, n: int) -> np.ndarray:
     # xGETRF: "row i of the matrix was interchanged with row IPIV(i)", IPIV(i) >= i), 0-based in
     # scipy; anything else would make lu_solve swap rows outside the matrix.
     if piv.shape != (n,) or not np.all((piv >= np.arange(n)) & (piv < n)):
-        raise MethodRefused(f"snapshot entry {key!r} holds pivots outside the matrix")
+        raise SnapshotRefused(f"snapshot field {key!r} holds pivots outside the matrix")
     return piv.astype(np.int32)
 
 
 def solver_values(snap: dict, fields, n: int) -> dict:
     """Decode and check the solver entries of a snapshot (kinds and shapes checked already by
-    check_snapshot): attribute name -> value to set, None for an unset optional one."""
+    check_snapshot): attribute name -> value to set, None for an unset optional one or an
+    after-step array of a solver that has not stepped."""
     out = {}
+    stepped = _flag(snap, "solver_t_old_set")
     for fl in fields:
-        if fl.optional and not _flag(snap, f"{fl.key}_set"):
+        if (fl.optional and not _flag(snap, f"{fl.key}_set")) or (fl.after_step and not stepped):
             out[fl.attr] = None
             continue
         if fl.kind == "float":
@@ -233,14 +262,14 @@ def solver_values(snap: dict, fields, n: int) -> dict:
         elif fl.kind == "int":
             v = snap[fl.key]
             if v < 0:
-                raise MethodRefused(f"snapshot entry {fl.key!r} is negative")
+                raise SnapshotRefused(f"snapshot field {fl.key!r} is negative")
             out[fl.attr] = int(v)
         elif fl.kind == "bool":
             out[fl.attr] = _flag(snap, fl.key)
         elif fl.kind == "status":
             v = snap[fl.key]
             if not 0 <= v < len(SOLVER_STATUSES):
-                raise MethodRefused(f"snapshot entry {fl.key!r} is {v}, not a solver status")
+                raise SnapshotRefused(f"snapshot field {fl.key!r} is {v}, not a solver status")
             out[fl.attr] = SOLVER_STATUSES[v]
         elif fl.kind == "f8":
             out[fl.attr] = snap[fl.key].copy()
@@ -267,7 +296,7 @@ def _check_times(v: dict, t: float, class_name: str) -> None:
         else:
             ok = ok and v["h_previous"] is not None
     if not ok:
-        raise MethodRefused("snapshot holds no consistent solver state (times, steps)")
+        raise SnapshotRefused("snapshot holds no consistent solver state (times, steps)")
 
 
 _unknown_state: dict[str, str] = {}
@@ -308,6 +337,7 @@ class ReferenceStepper(Stepper):
         self.n_stages = method.stages_per_attempt
         self.rtol = rtol
         self.atol = atol
+        self.settings = {"rtol": rtol, "atol": atol}  # as the method checked them
         self.calls = [0]
         self.solver = self._new_solver(t0, y0)
         self.dense = None  # interpolant of the solver's last step, once asked for
@@ -384,48 +414,62 @@ class ReferenceStepper(Stepper):
         return ST_OK
 
     def snapshot(self) -> dict:
-        snap = {
-            "method_key": name_key(self.method_name),
-            "rtol": self.rtol,
-            "atol": self.atol,
-            "t": self.t,
-            "y": self.y.copy(),
-            "counters": self.counters.copy(),
-            "calls": self.calls[0],
-            "status": self.status,
-            "t_fail": self.t_fail,
-            "dense_ready": int(self.dense is not None),
-        }
+        """Plain numbers, strings and arrays: the identity (method, form, rtol and atol), the
+        stepper's own values, and the solver's state as the whitelist for its class names it
+        (STATE; none for LSODA, which is never resumed)."""
+        snap = snapshot_identity(self.method_name, self.form, self.settings)
+        snap.update(
+            t=self.t,
+            y=self.y.copy(),
+            counters=self.counters.copy(),
+            calls=self.calls[0],
+            status=self.status,
+            t_fail=self.t_fail,
+            dense_ready=int(self.dense is not None),
+        )
         if self.fields:
             snap.update(solver_entries(self.solver, self.fields, self.y.shape[0]))
         return snap
 
+    def _field_specs(self) -> dict:
+        own = solver_entries(self.solver, self.fields, self.y.shape[0]) if self.fields else {}
+        return {
+            **stepper_fields(len(self.counters)),
+            "y": (np.float64, self.y.shape),
+            "calls": (int, ()),
+            "dense_ready": (int, ()),
+            **solver_field_specs(own),
+        }
+
     def restore(self, snap: dict) -> None:
         """Take back a snapshot; nothing of this stepper changes unless every check passes."""
-        self.check_snapshot(snap)
-        if (
-            snap["method_key"] != name_key(self.method_name)
-            or snap["rtol"] != self.rtol
-            or snap["atol"] != self.atol
-        ):
-            raise MethodRefused(
-                f"{self.method_name}: snapshot is of another method or of rtol {snap['rtol']!r}, "
-                f"atol {snap['atol']!r}, not of this run"
-            )
+        check_snapshot(
+            snap,
+            method=self.method_name,
+            form=self.form,
+            settings=self.settings,
+            fields=self._field_specs(),
+        )
         why = self.refusal()
         if why:
-            raise MethodRefused(f"{self.method_name}: cannot resume: {why}")
-        n = self.y.shape[0]
-        v = solver_values(snap, self.fields, n)
-        _check_times(v, snap["t"], self.solver_class.__name__)
-        dense_ready = _flag(snap, "dense_ready")
-        if dense_ready and v["t_old"] is None:
-            raise MethodRefused(f"{self.method_name}: snapshot has an interpolant but no step")
-        if snap["calls"] < 0:
-            raise MethodRefused(f"{self.method_name}: snapshot entry 'calls' is negative")
+            raise SnapshotRefused(f"{self.method_name}: cannot resume: {why}")
+        name = self.method_name
+        try:
+            n = self.y.shape[0]
+            v = solver_values(snap, self.fields, n)
+            _check_times(v, snap["t"], self.solver_class.__name__)
+            dense_ready = _flag(snap, "dense_ready")
+            if dense_ready and v["t_old"] is None:
+                raise SnapshotRefused("snapshot has an interpolant but no step")
+            if snap["calls"] < 0 or not 0 <= snap["status"] < len(STATUS_NAMES):
+                raise SnapshotRefused("snapshot holds a negative count or an unknown status")
+        except SnapshotRefused as exc:
+            raise SnapshotRefused(f"{name}: {exc}") from None
         solver = self._new_solver(float(v["t"]), v["y"].copy())
         for fl in self.fields:
             value = v[fl.attr]
+            if value is None and fl.after_step:
+                continue  # not stepped: the constructor's array is never read before it is filled
             if fl.in_place:
                 getattr(solver, fl.attr)[...] = value
             else:
@@ -494,20 +538,10 @@ class ReferenceMethod(Method):
         form = int(form)
         if form < 0 or form >= len(FORM_NAMES):
             raise MethodRefused(f"{self.name}: unknown state form code {form!r}")
-        for key in settings:
-            if key not in SETTING_KEYS:
-                raise MethodRefused(
-                    f"{self.name}: unknown setting {key!r} (known: {', '.join(SETTING_KEYS)})"
-                )
-        for key in SETTING_KEYS:
-            v = settings.get(key)
-            if not isinstance(v, float) or not v > 0.0 or not math.isfinite(v):
-                raise MethodRefused(f"{self.name}: needs a positive finite {key}, got {v!r}")
+        checked = self.settings(settings)  # rtol, atol: positive finite floats (base.py)
         y = self.start_state(form, y0)
         p = np.ascontiguousarray(params, dtype=np.float64)
-        return ReferenceStepper(
-            self, form, p, float(t0), y, float(settings["rtol"]), float(settings["atol"])
-        )
+        return ReferenceStepper(self, form, p, float(t0), y, checked["rtol"], checked["atol"])
 
 
 def _scipy_version() -> str:

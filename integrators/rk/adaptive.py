@@ -1,13 +1,14 @@
 """Adaptive embedded Runge-Kutta methods: Dormand-Prince 5(4) (`rk45`) and DOP853 (`dop853`).
 
-Both run on the one tableau-driven kernel in rk_embedded_kernel.py (one body, compiled into one
+Both run on the one tableau-driven kernel in embedded_kernel.py (one body, compiled into one
 entry point per state form).
 
-Settings (floats): "rtol", "atol" (required; rtol >= 100 machine epsilons, as scipy enforces by
-clamping); "first_step" (optional, else Hairer's starting-step heuristic); "horizon" (optional:
-the last time the run will ask for; steps are then clipped to end exactly on it, as scipy's
-t_bound, and the starting step never exceeds the interval. Without a horizon no step is ever
-clipped and every output, the last included, comes from the dense output.)
+Settings (floats, checked by validation.py): "rtol", "atol" (required, positive; rtol >= 100
+machine epsilons, where scipy clamps instead); "first_step" (optional, else Hairer's
+starting-step heuristic); "horizon" (optional: the last time the run will ask for; steps are then
+clipped to end exactly on it, as scipy's t_bound, and the starting step never exceeds the
+interval. Without a horizon no step is ever clipped and every output, the last included, comes
+from the dense output.)
 
 advance_to(t_out) steps while the internal time is below t_out, never shortening a step for an
 output time, then evaluates the dense output at t_out: the step sequence does not depend on how
@@ -58,10 +59,27 @@ from topdrift.integrators.rk.embedded_kernel import (
 )
 from topdrift.integrators.rk.packed import pack
 from topdrift.integrators.rk.tableaux import DOP853, DP5, Tableau
+from topdrift.integrators.validation import (
+    EPS,
+    FINITE_WHILE_OK,
+    Setting,
+    SnapshotRefused,
+    check_snapshot,
+    snapshot_identity,
+    stepper_fields,
+)
 from topdrift.models import FORM_SIZE
 
-EPS = float(np.finfo(float).eps)
-SETTING_KEYS = ("rtol", "atol", "first_step", "horizon")
+# rtol below 100 machine epsilons is refused: the error estimate is round-off there (scipy
+# clamps it to that floor instead, with a warning).
+SETTINGS = (
+    Setting(
+        "rtol", minimum=100 * EPS, why="100 machine epsilons, where the error estimate is round-off"
+    ),
+    Setting("atol"),
+    Setting("first_step", required=False),
+    Setting("horizon", required=False, positive=False),
+)
 
 # Runge-Kutta methods keep every linear invariant whose derivative the right-hand side makes
 # exactly zero. In the Euler form that holds for p_phi and p_psi (rhs writes 0.0 for both), but
@@ -71,19 +89,9 @@ SETTING_KEYS = ("rtol", "atol", "first_step", "horizon")
 _KEEPS: tuple[str, ...] = ()
 
 
-def _float_setting(name: str, settings: dict, key: str, required: bool) -> float | None:
-    v = settings.get(key)
-    if v is None and not required:
-        return None
-    if isinstance(v, bool) or not isinstance(v, (int, float)):
-        raise MethodRefused(f"{name}: setting {key!r} must be a number, got {v!r}")
-    v = float(v)
-    if not math.isfinite(v) or v <= 0.0:
-        raise MethodRefused(f"{name}: setting {key!r} must be positive and finite, got {v!r}")
-    return v
-
-
 class EmbeddedRK(Method):
+    """An embedded explicit Runge-Kutta pair with FSAL and dense output, scipy's controller."""
+
     def __init__(self, tab: Tableau, description: str) -> None:
         self.tableau = tab
         self.packed = pack(tab)
@@ -101,41 +109,23 @@ class EmbeddedRK(Method):
             source=tab.source,
         )
 
-    def _settings(self, settings: dict, t0: float | None = None) -> dict:
-        unknown = sorted(set(settings) - set(SETTING_KEYS))
-        if unknown:
-            raise MethodRefused(
-                f"{self.name}: unknown setting(s) {', '.join(map(repr, unknown))}; "
-                f"known: {', '.join(SETTING_KEYS)}"
-            )
-        rtol = _float_setting(self.name, settings, "rtol", True)
-        atol = _float_setting(self.name, settings, "atol", True)
-        if rtol < 100 * EPS:
-            raise MethodRefused(
-                f"{self.name}: rtol {rtol:g} is below 100 machine epsilons ({100 * EPS:.3g}), "
-                f"where the error estimate is round-off"
-            )
-        first = _float_setting(self.name, settings, "first_step", False)
-        horizon = settings.get("horizon")
+    @property
+    def settings_spec(self):
+        return SETTINGS
+
+    def _settings(self, settings: dict, t0: float) -> dict:
+        s = self.settings(settings)
+        horizon, first = s["horizon"], s["first_step"]
         if horizon is not None:
-            if isinstance(horizon, bool) or not isinstance(horizon, (int, float)):
-                raise MethodRefused(f"{self.name}: setting 'horizon' must be a number")
-            horizon = float(horizon)
-            if not math.isfinite(horizon):
-                raise MethodRefused(f"{self.name}: setting 'horizon' must be finite")
-            if t0 is not None and not horizon > t0:
+            if not horizon > t0:
                 raise MethodRefused(
                     f"{self.name}: horizon {horizon!r} must be later than the start {t0!r}"
                 )
-            if t0 is not None and first is not None and first > horizon - t0:
+            if first is not None and first > horizon - t0:
                 raise MethodRefused(
                     f"{self.name}: first_step {first!r} exceeds the interval to the horizon"
                 )
-        return {"rtol": rtol, "atol": atol, "first_step": first, "horizon": horizon}
-
-    def check(self, body, form: str, settings: dict) -> None:
-        super().check(body, form, settings)
-        self._settings(settings)
+        return s
 
     def start(self, form, params, t0, y0, settings) -> EmbeddedStepper:
         s = self._settings(settings, float(t0))
@@ -158,6 +148,7 @@ class EmbeddedStepper(Stepper):
         params = np.ascontiguousarray(params, dtype=np.float64)
         st = cls(form=form, params=params, t=t0, y=y0.copy())
         st.method = method
+        st.settings = s
         st.horizon = s["horizon"]
         st.kernel = advance_kernel(form)
         n = y0.shape[0]
@@ -258,55 +249,53 @@ class EmbeddedStepper(Stepper):
 
     _ARRAYS = ("y", "yi", "f", "K", "yold", "dense", "ctrl", "counters")
 
+    def _fields(self) -> dict:
+        n = self.yi.shape[0]
+        state = (np.float64, (n,))
+        return {
+            **stepper_fields(N_COUNTERS),
+            "y": state,
+            "yi": state,
+            "f": state,
+            "yold": state,
+            # The stages of the last attempt: a failed run may stop on a non-finite one.
+            "K": (np.float64, self.K.shape, FINITE_WHILE_OK),
+            "dense": (np.float64, self.dense.shape),
+            "ctrl": (np.float64, self.ctrl.shape),
+        }
+
     def snapshot(self) -> dict:
-        """Plain numbers and arrays only. `tol` (rtol, atol, horizon, exponent) and `order` are
-        there to refuse a snapshot of other settings or of the other method."""
-        snap = {k: getattr(self, k).copy() for k in self._ARRAYS}
-        snap["tol"] = self.tol.copy()
-        snap.update(
-            order=self.method.info.order,
-            form=self.form,
-            t=self.t,
-            status=self.status,
-            t_fail=self.t_fail,
-        )
+        """Plain numbers, strings and arrays; the identity (method, form, settings with the
+        tolerances and horizon) refuses a snapshot of other settings or of the other method."""
+        snap = snapshot_identity(self.method.name, self.form, self.settings)
+        snap.update({k: getattr(self, k).copy() for k in self._ARRAYS})
+        snap.update(t=self.t, status=self.status, t_fail=self.t_fail)
         return snap
 
-    # tol holds the horizon, +inf without one; restore() compares it with this stepper's own.
-    nonfinite_fields = ("t_fail", "tol")
-
     def restore(self, snap: dict) -> None:
-        self.check_snapshot(snap)
-        name = self.method.name
-        if int(snap.get("order", -1)) != self.method.info.order or int(snap.get("form", -1)) != int(
-            self.form
-        ):
-            raise MethodRefused(
-                f"{name}: snapshot is of an order-{snap.get('order')} method in form "
-                f"{snap.get('form')}, not of this stepper"
-            )
-        if not np.array_equal(np.asarray(snap["tol"]), self.tol):
-            raise MethodRefused(f"{name}: snapshot was made with other tolerances or horizon")
-        ctrl = snap["ctrl"]
+        check_snapshot(
+            snap,
+            method=self.method.name,
+            form=self.form,
+            settings=self.settings,
+            fields=self._fields(),
+        )
+        ctrl, t = snap["ctrl"], snap["t"]
         # What advance_to relies on (the kernel divides by the last step for dense output): the
         # internal time at or past the output time, the last step ending there, a step to try.
         if not (
-            ctrl[CT_T_OLD] <= snap["t"] <= ctrl[CT_T]
+            ctrl[CT_T_OLD] <= t <= ctrl[CT_T]
             and ctrl[CT_H] > 0.0
             and ctrl[CT_H_PREV] >= 0.0
-            and (ctrl[CT_H_PREV] > 0.0 or ctrl[CT_T] == snap["t"])
+            and (ctrl[CT_H_PREV] > 0.0 or ctrl[CT_T] == t)
             and ctrl[CT_DENSE_OK] in (0.0, 1.0)
         ):
-            raise MethodRefused(f"{name}: snapshot entry 'ctrl' is not a controller state")
+            raise SnapshotRefused(f"{self.method.name}: snapshot field 'ctrl' is not a controller")
         for k in self._ARRAYS:
-            src = np.asarray(snap[k])
-            dst = getattr(self, k)
-            if src.shape != dst.shape:
-                raise MethodRefused(f"{name}: snapshot field {k!r} has the wrong shape")
             if k == "y":
-                self.y = src.astype(np.float64, copy=True)  # outputs already handed out stay
+                self.y = np.array(snap[k], dtype=np.float64)  # outputs already handed out stay
             else:
-                dst[...] = src
+                getattr(self, k)[...] = snap[k]
         self.t = float(snap["t"])
         self.status = int(snap["status"])
         self.t_fail = float(snap["t_fail"])

@@ -1,6 +1,6 @@
 """One numba kernel for every embedded explicit Runge-Kutta pair with FSAL and dense output.
 
-The method is the packed coefficient table (`rk_packed.py`); the controller is the standard one,
+The method is the packed coefficient table (packed.py); the controller is the standard one,
 written to take the same decisions as scipy.integrate's RK45 / DOP853 (scipy/integrate/_ivp/rk.py)
 so that step sequences can be compared one for one:
 
@@ -68,11 +68,9 @@ TL_EXPONENT = 3  # -1 / (error_order + 1)
 N_TOL = 4
 
 
-# Index arithmetic: numba lets a negative index count from the end, so every access whose index
-# it cannot prove non-negative gets a compare-and-select. Clearing the sign bit proves it to
-# LLVM, which then drops those instructions and addresses the four K loads of a block as one
-# base plus constants. Indices here are never negative, so the mask changes no value. Measured
-# on DOP853, body form: 650 -> 510 ns per step from the masks alone (before the packing went dense).
+# Index arithmetic: clearing the sign bit of an index proves to LLVM that it is not negative,
+# which drops numba's wraparound compare-and-select on every access (measured: see
+# docs/design-notes.md). Indices here are never negative, so the mask changes no value.
 NONNEG = 0x3FFF_FFFF_FFFF_FFFF
 
 
@@ -267,16 +265,20 @@ def eval_dense(theta, yold, dense, n_coef, out):
 
 @njit(cache=True)
 def _advance(form, work):
-    (p, a, e, d, cfg, tol, y, f, K, yold, ynew, ytmp, etmp, dense, ctrl, counters, t_out, y_out) = (
-        work
-    )
     """Step while the internal time is below t_out, then write the state at t_out into y_out
     (dense output, or the state itself when a step ends on t_out). Returns a status code; on
     failure y, f, ctrl keep the last good step and y_out is untouched.
 
     `work` holds the arrays in the order unpacked here (see `advance_kernel`). Called from one
     entry per form (below) with `form` a constant, so that numba compiles it once per form, with
-    the rhs switch folded and the model's function inlined into the stage loop."""
+    the rhs switch folded and the model's function inlined into the stage loop.
+
+    One function on purpose: the trial stages, the error norm and the commit read as parts, but
+    as inline helpers they cost 4-18 % per step in reference counting of their array arguments
+    (docs/design-notes.md)."""
+    (p, a, e, d, cfg, tol, y, f, K, yold, ynew, ytmp, etmp, dense, ctrl, counters, t_out, y_out) = (
+        work
+    )
     n = y.shape[0]
     ns = cfg[CFG_N_STAGES]
     err_kind = cfg[CFG_ERR_KIND]
@@ -408,11 +410,9 @@ def _advance(form, work):
 
 
 # One small entry per form, so that a run compiles only the form it uses: numba compiles a
-# callee for every branch of its caller, and an entry switching on a run-time form compiled both
-# (measured, dop853 with an empty cache, both cores busy: 24 s for the switching entry, 12 s for
-# one form; the single combination site above took it to 7 s). The arrays travel as one tuple
-# because numba cannot inline a call with *args; _advance is a plain call, paid once per
-# advance, not per step.
+# callee for every branch of its caller (compile times in docs/design-notes.md). The arrays
+# travel as one tuple because numba cannot inline a call with *args; _advance is a plain call,
+# paid once per advance, not per step.
 
 
 @njit(cache=True)

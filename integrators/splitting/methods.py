@@ -13,7 +13,9 @@ Each method has a `-kahan` twin that evaluates every sub-flow as an increment fr
 cancellation and adds it with compensated summation (TwoSum), so that round-off grows like the
 square root of the number of steps (Hairer, McLachlan and Razakarivony, BIT 48 (2008) 231).
 
-Settings: {"step": h}. A negative h runs backwards (time reversal); the runner uses h > 0.
+Settings: {"step": h}, a positive finite float. A stepper runs backwards (time reversal) when its
+first advance_to asks for an earlier time; once it has taken a step it keeps that direction,
+because its state carries the pending closing kick of the direction it goes (kernels.py).
 """
 
 from __future__ import annotations
@@ -23,12 +25,13 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from topdrift.integrators.base import (
+    N_COUNTERS,
     ST_OK,
     Method,
     MethodInfo,
     MethodRefused,
     Stepper,
-    name_key,
+    grid_steps,
 )
 from topdrift.integrators.splitting.compositions import TABLES, SplittingTable
 from topdrift.integrators.splitting.kernels import (
@@ -37,11 +40,9 @@ from topdrift.integrators.splitting.kernels import (
     run_compensated,
     run_plain,
 )
+from topdrift.integrators.validation import check_snapshot, snapshot_identity, stepper_fields
 from topdrift.models import FORM_BODY, FORM_SIZE, RigidBody, form_code
 from topdrift.models.body import P_I1, P_I2
-
-# A requested interval may differ from a whole number of steps by this much, relative.
-GRID_RTOL = 1e-9
 
 # What every splitting here keeps to round-off by construction, in both forms: euler: p_phi
 # and p_psi are never written (the same bits after any number of steps), |q| is 1 trivially;
@@ -54,19 +55,32 @@ KEEPS = ("p_phi", "p_psi", "norm")
 
 @dataclass
 class SplittingStepper(Stepper):
-    step: float = 0.0
-    kick: np.ndarray = field(default_factory=lambda: np.zeros(0))  # h-scaled b_0..b_s
-    drift: np.ndarray = field(default_factory=lambda: np.zeros(0))  # h-scaled a_1..a_s
+    """A run of a splitting method: the open state w (and its compensation e) on the grid
+    t0 + n step, n signed (negative when running backwards); y is the closed state handed out."""
+
+    method: Method | None = None
+    settings: dict = field(default_factory=dict)  # checked settings, for the snapshot identity
+    step: float = 0.0  # > 0; the direction is the sign of n
+    kick: np.ndarray = field(default_factory=lambda: np.zeros(0))  # scaled b_0..b_s
+    drift: np.ndarray = field(default_factory=lambda: np.zeros(0))  # scaled a_1..a_s
     compensated: bool = False
     t0: float = 0.0
-    n: int = 0  # steps taken since t0; t on the grid is t0 + n h
+    n: int = 0  # steps taken since t0, signed; t on the grid is t0 + n step
     w: np.ndarray = field(default_factory=lambda: np.zeros(0))  # open state
     e: np.ndarray = field(default_factory=lambda: np.zeros(0))  # compensation terms
     fresh: np.ndarray = field(default_factory=lambda: np.ones(1, dtype=np.int64))
     scratch: np.ndarray = field(default_factory=lambda: np.zeros(0))
-    # name_key of the method: every table has the same arrays, so only this tells their
-    # snapshots apart.
-    method_key: int = 0
+    direction: int = 1  # +1 forward, -1 backward: the sign the coefficients are scaled with
+
+    def _face(self, direction: int) -> None:
+        """Scale the coefficient tables for the direction: h times the table, or -h times it
+        (the same bits as a stepper of step -h, which is what backwards means)."""
+        if direction == self.direction:
+            return
+        signed = self.step if direction > 0 else -self.step
+        self.kick = np.ascontiguousarray(self.method.kick_table * signed)
+        self.drift = np.ascontiguousarray(self.method.drift_table * signed)
+        self.direction = direction
 
     def _close(self) -> None:
         out = np.empty_like(self.w)
@@ -108,20 +122,19 @@ class SplittingStepper(Stepper):
         if self.status != ST_OK:
             return self.status
         t_end = float(t_end)
-        x = (t_end - self.t) / self.step
-        k = round(x)
-        if not abs(x - k) <= GRID_RTOL * max(1.0, abs(k)):
-            raise MethodRefused(
-                f"step {self.step!r}: the interval from t = {self.t!r} to {t_end!r} is "
-                f"{x:.12g} steps, not a whole number; choose output times on the step grid"
-            )
-        if k < 0:
-            raise MethodRefused(
-                f"cannot go back from t = {self.t!r} to {t_end!r} with step {self.step!r}; "
-                f"start a stepper with the opposite step instead"
-            )
+        name = self.method.name
+        k = grid_steps(name, self.t, t_end, self.step)
         if k == 0:
             return ST_OK
+        direction = 1 if k > 0 else -1
+        if self.n != 0 and direction != self.direction:
+            raise MethodRefused(
+                f"{name}: cannot turn back from t = {self.t!r} to {t_end!r}: a splitting stepper "
+                f"keeps the direction of its first step (its state holds that direction's "
+                f"pending kick); start a new stepper at t = {self.t!r} instead"
+            )
+        self._face(direction)
+        k = abs(k)
         entry = (self.w.copy(), self.e.copy(), self.fresh.copy())
         status, done = self._run(k)
         if status != ST_OK:
@@ -131,42 +144,57 @@ class SplittingStepper(Stepper):
             spare = self.counters.copy()
             self._run(done)
             self.counters[:] = spare
-            self.n += done
+            self.n += direction * done
             self.t = self.t0 + self.n * self.step
             self.t_fail = self.t
             self.status = int(status)
             self._close()
             return self.status
-        self.n += k
+        self.n += direction * k
         self.t = t_end
         self._close()
         return ST_OK
 
-    def snapshot(self) -> dict:
+    def _fields(self) -> dict:
+        state = (np.float64, self.w.shape)
         return {
-            "method_key": self.method_key,
-            "t": self.t,
-            "t0": self.t0,
-            "n": self.n,
-            "step": self.step,
-            "w": self.w.copy(),
-            "e": self.e.copy(),
-            "fresh": int(self.fresh[0]),
-            "y": self.y.copy(),
-            "counters": self.counters.copy(),
-            "status": self.status,
-            "t_fail": self.t_fail,
+            **stepper_fields(N_COUNTERS),
+            "t0": (float, ()),
+            "n": (int, ()),
+            "w": state,
+            "e": state,
+            "fresh": (int, ()),
+            "y": state,
         }
 
+    def snapshot(self) -> dict:
+        snap = snapshot_identity(self.method.name, self.form, self.settings)
+        snap.update(
+            t=self.t,
+            t0=self.t0,
+            n=self.n,
+            w=self.w.copy(),
+            e=self.e.copy(),
+            fresh=int(self.fresh[0]),
+            y=self.y.copy(),
+            counters=self.counters.copy(),
+            status=self.status,
+            t_fail=self.t_fail,
+        )
+        return snap
+
     def restore(self, snap: dict) -> None:
-        self.check_snapshot(snap)
-        if snap["method_key"] != self.method_key:
-            raise MethodRefused("snapshot: made by another splitting method")
-        if snap["step"] != self.step:
-            raise MethodRefused(f"snapshot: made with step {snap['step']!r}, not {self.step!r}")
+        check_snapshot(
+            snap,
+            method=self.method.name,
+            form=self.form,
+            settings=self.settings,
+            fields=self._fields(),
+        )
         self.t = float(snap["t"])
         self.t0 = float(snap["t0"])
         self.n = int(snap["n"])
+        self._face(-1 if self.n < 0 else 1)
         self.w[:] = snap["w"]
         self.e[:] = snap["e"]
         self.fresh[0] = int(snap["fresh"])
@@ -177,10 +205,13 @@ class SplittingStepper(Stepper):
 
 
 class SplittingMethod(Method):
+    """A splitting method from a coefficient table (compositions.py), in both forms."""
+
     def __init__(self, table: SplittingTable, compensated: bool) -> None:
         self.table = table
         self.compensated = compensated
-        self._kick, self._drift = table.sequence()
+        # The coefficients of one step in order (compositions.py), before scaling by the step.
+        self.kick_table, self.drift_table = table.sequence()
         name = "leapfrog" + (f"-{table.key}" if table.key else "")
         if compensated:
             name += "-kahan"
@@ -225,12 +256,8 @@ class SplittingMethod(Method):
     def start(
         self, form: int, params: np.ndarray, t0: float, y0: np.ndarray, settings: dict
     ) -> Stepper:
-        h = settings.get("step")
-        if isinstance(h, bool) or not isinstance(h, (int, float)):
-            raise MethodRefused(f"{self.name}: needs a step, got {h!r}")
-        h = float(h)
-        if not np.isfinite(h) or h == 0.0:
-            raise MethodRefused(f"{self.name}: needs a finite non-zero step, got {h!r}")
+        checked = self.settings(settings)
+        h = checked["step"]
         form = int(form)
         n = FORM_SIZE[form]
         self._refuse_inexact(params, form)
@@ -242,9 +269,11 @@ class SplittingMethod(Method):
             params=np.ascontiguousarray(params, dtype=np.float64),
             t=float(t0),
             y=y.copy(),
+            method=self,
+            settings=checked,
             step=h,
-            kick=np.ascontiguousarray(self._kick * h),
-            drift=np.ascontiguousarray(self._drift * h),
+            kick=np.ascontiguousarray(self.kick_table * h),
+            drift=np.ascontiguousarray(self.drift_table * h),
             compensated=self.compensated,
             t0=float(t0),
             n=0,
@@ -252,7 +281,6 @@ class SplittingMethod(Method):
             e=np.zeros(n),
             fresh=np.ones(1, dtype=np.int64),
             scratch=np.zeros(n),
-            method_key=name_key(self.name),
         )
 
 

@@ -1,0 +1,155 @@
+"""The timing half of the gate: the interval it judges a change by, the verdicts it gives, and
+when it refuses to compare at all (another machine, another unit).
+
+The interval is the distribution-free one for a shift between two samples (Hodges-Lehmann with
+Mann-Whitney ranks; Bauer, JASA 67 (1972) 687). Its null distribution is checked against scipy's
+exact Mann-Whitney test, its coverage by simulation with a fixed seed.
+"""
+
+from __future__ import annotations
+
+import copy
+import math
+
+import numpy as np
+import pytest
+from scipy.stats import mannwhitneyu
+
+from topdrift.benchmarks.gate.compare import (
+    T_FASTER,
+    T_OK,
+    T_SLOWER,
+    T_UNMEASURABLE,
+    Thresholds,
+    compare,
+    judge_timing,
+)
+from topdrift.benchmarks.gate.machine import differences, fingerprint
+from topdrift.benchmarks.gate.shift_interval import lower_rank, mann_whitney_counts, shift_interval
+
+
+@pytest.mark.parametrize(("n", "m"), [(4, 4), (5, 7), (9, 9), (12, 6)])
+def test_null_distribution_matches_scipy_exact_test(n, m):
+    """P(U >= u) from our counts against scipy.stats.mannwhitneyu(method="exact") (reference
+    library), for samples built to have each possible U."""
+    counts = mann_whitney_counts(n, m)
+    total = math.comb(n + m, n)
+    assert sum(counts) == total and len(counts) == n * m + 1
+    y = np.arange(m, dtype=float)
+    for u in range(0, n * m + 1, max(1, n * m // 7)):
+        # x values placed between the y's so that exactly u pairs have x > y
+        x, left = [], u
+        for _ in range(n):
+            k = min(m, left)
+            x.append(k - 0.5)
+            left -= k
+        x = np.array(x)
+        assert sum(a > b for a in x for b in y) == u
+        p = mannwhitneyu(x, y, alternative="greater", method="exact").pvalue
+        assert sum(counts[u:]) / total == pytest.approx(p, rel=1e-12)
+
+
+def test_critical_ranks():
+    # 9 against 9 at 5 % two-sided: the lower critical value of U is 17 in the published tables
+    # (from memory), so the interval runs from the 18th difference.
+    assert lower_rank(9, 9, 0.95) == 18
+    assert lower_rank(3, 3, 0.95) is None  # 1/20 per tail is the best 3 and 3 can do
+    assert lower_rank(4, 4, 0.95) == 1
+
+
+def test_interval_covers_a_known_shift_as_often_as_it_claims():
+    """2000 pairs of samples of 9 with a shift of 0.3 and heavy-tailed noise (Student t with 3
+    degrees of freedom): the interval holds the shift in the fraction its ranks promise, 1 - 2
+    P(U < 18) = 0.9536 (exact for any continuous noise), within three standard errors."""
+    rng = np.random.default_rng(20261202)
+    k = lower_rank(9, 9, 0.95)
+    counts = mann_whitney_counts(9, 9)
+    level = 1.0 - 2.0 * sum(counts[:k]) / math.comb(18, 9)
+    hits = 0
+    trials = 2000
+    for _ in range(trials):
+        x = rng.standard_t(3, 9) + 0.3
+        y = rng.standard_t(3, 9)
+        _, lo, hi = shift_interval(list(x), list(y))
+        hits += lo <= 0.3 <= hi
+    se = math.sqrt(level * (1 - level) / trials)
+    assert abs(hits / trials - level) < 3 * se
+
+
+def _timing(norm: float, spread: float, rounds: int = 9) -> dict:
+    """A timing record whose rounds spread evenly by +-spread around its median."""
+    per = [1.0 + spread * (2 * k / (rounds - 1) - 1) for k in range(rounds)]
+    return {
+        "status": "ok",
+        "steps": 1000,
+        "rounds": rounds,
+        "per_round": per,
+        "ns_per_step_norm": norm,
+    }
+
+
+@pytest.mark.parametrize(
+    ("change", "spread", "verdict"),
+    [
+        (1.0, 0.01, T_OK),
+        (1.08, 0.01, T_OK),
+        (1.3, 0.01, T_SLOWER),  # a 1.3x slowdown on a quiet machine
+        (1.3, 0.08, T_SLOWER),  # and on a noisier one
+        (3.0, 0.30, T_SLOWER),  # 3x shows through noise that hides everything smaller
+        (1.3, 0.30, T_UNMEASURABLE),
+        (1.05, 0.30, T_UNMEASURABLE),  # neither within the band nor out of it: not a pass
+        (1.14, 0.02, T_UNMEASURABLE),  # at the edge of the band: too close to tell
+        (1 / 1.3, 0.01, T_FASTER),
+    ],
+)
+def test_verdicts(change, spread, verdict):
+    v = judge_timing("rk4 body", _timing(2.0, spread), _timing(2.0 * change, spread), Thresholds())
+    assert v.verdict == verdict, v
+    assert v.change == pytest.approx(change)
+    assert v.low <= change <= v.high
+
+
+def test_too_few_rounds_is_not_measurable_and_says_why():
+    v = judge_timing("rk4 body", _timing(2.0, 0.01, 3), _timing(6.0, 0.01, 3), Thresholds())
+    assert v.verdict == T_UNMEASURABLE and v.low is None
+    assert "too few rounds" in v.why
+
+
+def _baseline_like() -> dict:
+    timings = {"rk4 body": {**_timing(2.0, 0.01), "run": "r", "detail": ""}}
+    ref = {"kernel": "k", "version": 1, "clock": "thread_time", "scalar_steps": 1}
+    ref["stages_steps"] = 1
+    return {
+        "runs": {},
+        "timings": timings,
+        "reference": ref,
+        "machine": fingerprint(),
+        "versions": {},
+        "plugins": {},
+        "sweep": {"source": "s", "sha256": "0" * 64},
+    }
+
+
+def test_another_machine_compares_only_the_deterministic_half():
+    base = _baseline_like()
+    now = copy.deepcopy(base)
+    now["timings"]["rk4 body"]["ns_per_step_norm"] = 6.0  # 3x: would fail on the same machine
+    assert compare(base, now, Thresholds()).failed
+    now["machine"]["family"] = "26" if base["machine"]["family"] != "26" else "27"
+    now["machine"]["flags"] = (base["machine"]["flags"] or "") + " avx512f"
+    r = compare(base, now, Thresholds())
+    assert not r.failed and r.timings_compared == 0
+    assert differences(base["machine"], now["machine"])[0].startswith("family ")
+    assert any(n.startswith("timings not comparable: the machine differs") for n in r.notes)
+    assert any("+avx512f" in n for n in r.notes)
+    # asked for, they are compared anyway
+    assert compare(base, now, Thresholds(), timings=True).failed
+
+
+def test_another_reference_unit_is_not_compared():
+    base = _baseline_like()
+    now = copy.deepcopy(base)
+    now["timings"]["rk4 body"]["ns_per_step_norm"] = 6.0
+    now["reference"]["version"] = 2
+    r = compare(base, now, Thresholds())
+    assert not r.failed and any("reference workload changed" in n for n in r.notes)
