@@ -145,6 +145,9 @@ FINITE_WHILE_OK = "finite-while-ok"  # finite when the stepper's status is ok (s
 #                                      failed attempt may hold the non-finite values it met)
 ANY = "any"  # NaN or inf allowed (t_fail is NaN while ok; "not yet" markers)
 
+# How many status codes a stepper has (base.STATUS_NAMES; a test keeps the two equal).
+STATUS_CODES = 6
+
 # The identity every snapshot carries, and the fields every Stepper has.
 IDENTITY_FIELDS = {"method": (str, ()), "form": (int, ()), "settings": (str, ())}
 
@@ -270,3 +273,6 @@ def check_snapshot(
     status_ok = _scalar_ok("int", status) and int(status) == 0
     for key, fspec in fields.items():
         _field(method, key, snap[key], fspec, status_ok)
+    if "status" in fields and not 0 <= int(snap["status"]) < STATUS_CODES:
+        # Steppers hand their status on as a code the runner names (base.STATUS_NAMES).
+        raise SnapshotRefused(f"{method}: snapshot field 'status' is {snap['status']}, no status")

@@ -129,6 +129,10 @@ def _decide(plans, out: Path, force: bool, resume: bool) -> list[str]:
         elif resume:
             # Killed before its first write: nothing was done, so nothing to continue from.
             action = "resume" if p.y0 is not None and n > 0 else "new"
+            why = p.method.resume_refusal() if action == "resume" else ""
+            if why and "ensemble" not in p.settings:  # said on stderr and kept with the run
+                p.notes.append(f"not resumed: {why}; running it again from the start")
+                action = "new"
             if action == "resume" and "ensemble" not in p.settings:  # ensembles start over
                 _check_resume(p, out)
             actions.append(action)

@@ -63,6 +63,7 @@ from topdrift.integrators.validation import (
     EPS,
     FINITE_WHILE_OK,
     Setting,
+    SnapshotRefused,
     check_snapshot,
     snapshot_identity,
     stepper_fields,
@@ -286,6 +287,17 @@ class EmbeddedStepper(Stepper):
             settings=self.settings,
             fields=self._fields(),
         )
+        ctrl, t = snap["ctrl"], snap["t"]
+        # What advance_to relies on (the kernel divides by the last step for dense output): the
+        # internal time at or past the output time, the last step ending there, a step to try.
+        if not (
+            ctrl[CT_T_OLD] <= t <= ctrl[CT_T]
+            and ctrl[CT_H] > 0.0
+            and ctrl[CT_H_PREV] >= 0.0
+            and (ctrl[CT_H_PREV] > 0.0 or ctrl[CT_T] == t)
+            and ctrl[CT_DENSE_OK] in (0.0, 1.0)
+        ):
+            raise SnapshotRefused(f"{self.method.name}: snapshot field 'ctrl' is not a controller")
         for k in self._ARRAYS:
             if k == "y":
                 self.y = np.array(snap[k], dtype=np.float64)  # outputs already handed out stay
