@@ -303,6 +303,13 @@ class Method(ABC):
             )
         return y
 
+    def resume_refusal(self) -> str:
+        """Why a snapshot of this method cannot be taken back in this installation ("" when it
+        can): `run --resume` then runs an interrupted run again from its start, saying so. For a
+        state that cannot be handed back safely (a library's compiled internals that index its
+        own arrays) or completely (a library that holds state the method does not store)."""
+        return ""
+
     @abstractmethod
     def start(
         self, form: int, params: np.ndarray, t0: float, y0: np.ndarray, settings: dict

@@ -48,8 +48,9 @@ class Setting:
     """One setting a method takes.
 
     kind: REAL (a finite float) or COUNT (an int). positive: a REAL must be > 0. minimum: the
-    smallest value allowed (inclusive), with `why` saying in a few words why. required: refused
-    when missing; otherwise `default` is filled in (None: the method decides later)."""
+    smallest value allowed (inclusive); floor names it in words ("100 machine epsilons") and
+    `why` says in a few words why. required: refused when missing; otherwise `default` is filled
+    in (None: the method decides later)."""
 
     key: str
     kind: str = REAL
@@ -57,6 +58,7 @@ class Setting:
     default: object = None
     positive: bool = True
     minimum: float | None = None
+    floor: str = ""
     why: str = ""
 
     def __post_init__(self) -> None:
@@ -84,9 +86,9 @@ def _real(name: str, s: Setting, v) -> float:
     if s.positive and not v > 0.0:
         raise MethodRefused(f"{name}: setting {s.key!r} must be positive, got {v!r}")
     if s.minimum is not None and v < s.minimum:
+        floor = f"{s.floor} ({s.minimum:.3g})" if s.floor else f"{s.minimum:.3g}"
         raise MethodRefused(
-            f"{name}: setting {s.key!r} = {v!r} is below {s.minimum:.3g}"
-            + (f" ({s.why})" if s.why else "")
+            f"{name}: setting {s.key!r} = {v!r} is below {floor}" + (f", {s.why}" if s.why else "")
         )
     return v
 
@@ -100,7 +102,7 @@ def _count(name: str, s: Setting, v) -> int:
     if s.minimum is not None and v < s.minimum:
         raise MethodRefused(
             f"{name}: setting {s.key!r} must be at least {int(s.minimum)}, got {v}"
-            + (f" ({s.why})" if s.why else "")
+            + (f": {s.why}" if s.why else "")
         )
     return v
 
@@ -142,6 +144,9 @@ FINITE = "finite"  # every value finite, always
 FINITE_WHILE_OK = "finite-while-ok"  # finite when the stepper's status is ok (scratch of a
 #                                      failed attempt may hold the non-finite values it met)
 ANY = "any"  # NaN or inf allowed (t_fail is NaN while ok; "not yet" markers)
+
+# How many status codes a stepper has (base.STATUS_NAMES; a test keeps the two equal).
+STATUS_CODES = 6
 
 # The identity every snapshot carries, and the fields every Stepper has.
 IDENTITY_FIELDS = {"method": (str, ()), "form": (int, ()), "settings": (str, ())}
@@ -268,3 +273,6 @@ def check_snapshot(
     status_ok = _scalar_ok("int", status) and int(status) == 0
     for key, fspec in fields.items():
         _field(method, key, snap[key], fspec, status_ok)
+    if "status" in fields and not 0 <= int(snap["status"]) < STATUS_CODES:
+        # Steppers hand their status on as a code the runner names (base.STATUS_NAMES).
+        raise SnapshotRefused(f"{method}: snapshot field 'status' is {snap['status']}, no status")

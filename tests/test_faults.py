@@ -1,7 +1,9 @@
 """Faults during a run. Signals: SIGINT and SIGTERM flush what was done and mark the run
 `interrupted`; SIGKILL leaves a readable file; `--resume` then completes to the bytes of a run
-that never stopped, for an adaptive method (dop853) and a Gauss-Legendre one (gauss6), which
-test_cli_run.py (gauss4, SIGKILL and SIGTERM) does not cover. Numerical faults: a start on the
+that never stopped, for an adaptive method (dop853), a Gauss-Legendre one (gauss6), which
+test_cli_run.py (gauss4, SIGKILL and SIGTERM) does not cover, and the scipy references (RK45,
+DOP853 and Radau resume from their plain-data snapshots; LSODA is run again from its start, and
+says so, which gives the same bytes). Numerical faults: a start on the
 Euler-angle pole is refused up front, a case without an exact solution says why and stores no
 axis error, and an adaptive step that falls below round-off ends with a status that says so."""
 
@@ -27,8 +29,57 @@ from topdrift.integrators import ST_STEP_UNDERFLOW, Method
 SETTINGS = {
     "dop853": ["--method", "dop853", "--rtol", "1e-12", "--horizon", "60", "--samples", "121"],
     "gauss6": ["--method", "gauss6", "--step", "0.0005", "--horizon", "60", "--samples", "121"],
+    # The scipy references cost 20-100 us a step (a Python right-hand side): shorter horizons.
+    "scipy-rk45": [
+        "--method",
+        "scipy-rk45",
+        "--rtol",
+        "1e-8",
+        "--horizon",
+        "40",
+        "--samples",
+        "121",
+    ],
+    "scipy-dop853": [
+        "--method",
+        "scipy-dop853",
+        "--rtol",
+        "1e-8",
+        "--horizon",
+        "60",
+        "--samples",
+        "121",
+    ],
+    "scipy-radau": [
+        "--method",
+        "scipy-radau",
+        "--rtol",
+        "1e-8",
+        "--horizon",
+        "4",
+        "--samples",
+        "121",
+    ],
+    "scipy-lsoda": [
+        "--method",
+        "scipy-lsoda",
+        "--rtol",
+        "1e-8",
+        "--horizon",
+        "20",
+        "--samples",
+        "121",
+    ],
 }
-FAULTS = [("dop853", signal.SIGINT), ("gauss6", signal.SIGINT), ("dop853", signal.SIGKILL)]
+FAULTS = [
+    ("dop853", signal.SIGINT),
+    ("gauss6", signal.SIGINT),
+    ("dop853", signal.SIGKILL),
+    ("scipy-rk45", signal.SIGINT),
+    ("scipy-dop853", signal.SIGKILL),
+    ("scipy-radau", signal.SIGKILL),
+    ("scipy-lsoda", signal.SIGINT),
+]
 COUNTS = {"faults": 0, "resumes_compared": 0}
 
 
@@ -98,6 +149,9 @@ def test_signal_mid_run_then_resume_gives_the_same_bytes(
         m2 = json.loads(f2["runs"][run_id].attrs["metrics"])
         for key in ("steps", "energy_rel_max", "axis_angle_max"):
             assert m1[key] == m2[key], key
+    with h5py.File(part, "r") as f:  # LSODA is never resumed from a file (scipy_methods.py)
+        notes = json.loads(f["runs"][run_id].attrs["notes"])
+    assert any("not resumed" in note for note in notes) == (method == "scipy-lsoda"), notes
     COUNTS["resumes_compared"] += 1
 
 

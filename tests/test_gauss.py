@@ -15,6 +15,7 @@ from scipy_reference import dop853
 from topdrift.integrators import (
     C_EVALS,
     C_STEPS,
+    N_COUNTERS,
     ST_DIVERGED,
     ST_NO_CONVERGENCE,
     ST_OK,
@@ -266,7 +267,7 @@ def _one_step_jacobian(a, b, c, h, y0, p, delta=1e-5):
             np.zeros(s * n),
             memo,
             np.zeros(work_size(s, n)),
-            np.zeros(3, dtype=np.int64),
+            np.zeros(N_COUNTERS, dtype=np.int64),
             np.zeros(N_ITERS, dtype=np.int64),
         )
         assert status == ST_OK

@@ -208,6 +208,20 @@ class Accumulator:
 
     @classmethod
     def from_state(cls, s: dict) -> Accumulator:
+        """Back from state(); raises ValueError naming an entry that no run could have written
+        (a scale that is not positive, a value or maximum that is not finite, a flag not 0/1)."""
+        for key in ("e0", "p_phi0", "p_psi0"):
+            if not math.isfinite(s[key]):
+                raise ValueError(f"{key} is not finite")
+        for key in ("e_scale", "l_scale"):
+            if not (math.isfinite(s[key]) and s[key] > 0.0):
+                raise ValueError(f"{key} is {s[key]!r}, not a positive scale")
+        for key in ("has_exact", "has_norm"):
+            if s[key] not in (0, 1):
+                raise ValueError(f"{key} is {s[key]!r}, not 0 or 1")
+        maxima = np.asarray(s["maxima"], dtype=np.float64)
+        if maxima.shape != (len(MAX_NAMES),) or not np.all(np.isfinite(maxima) & (maxima >= 0)):
+            raise ValueError(f"maxima are not {len(MAX_NAMES)} finite non-negative numbers")
         acc = cls(
             s["e0"],
             s["e_scale"],
@@ -220,8 +234,20 @@ class Accumulator:
             float(s["kov0"]),
             float(s["kov_scale"]),
         )
-        acc.maxima[:] = np.asarray(s["maxima"], dtype=np.float64)
+        acc.maxima[:] = maxima
         return acc
+
+    def reference(self) -> tuple:
+        """What the start sample fixes (everything but the maxima), to compare bit for bit."""
+        return (
+            self.e0,
+            self.e_scale,
+            self.p_phi0,
+            self.p_psi0,
+            self.l_scale,
+            self.has_exact,
+            self.has_norm,
+        )
 
     def maxima_dict(self) -> dict:
         out = {}

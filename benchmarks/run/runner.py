@@ -35,6 +35,7 @@ from topdrift.benchmarks.run.loop import (
 from topdrift.benchmarks.run.metrics import Accumulator, finish
 from topdrift.benchmarks.run.sampling import N_SCALARS, S_ENERGY, SampleBuffers
 from topdrift.benchmarks.stopping import StopFlag
+from topdrift.benchmarks.store.checkpoint import entry_layout
 from topdrift.benchmarks.store.failures import NoRoom, damage_is_an_error, ensure_room
 from topdrift.benchmarks.store.format import (
     CHUNK_ROWS,
@@ -65,6 +66,7 @@ from topdrift.integrators import (
 )
 from topdrift.integrators import get as get_method
 from topdrift.models import FORM_EULER, FORM_NAMES, FORM_SIZE, SingularAttitude, form_code
+from topdrift.models.dynamics import singular
 
 FLUSH_EVERY_S = 2.0
 BATCH_ROWS = 4096
@@ -373,7 +375,11 @@ def warm_up(plan: RunPlan) -> None:
         w.advance_to(2.0 * h)
     else:
         w.advance_to(interval * 1e-6)
-    w.snapshot()
+    for key, value in w.snapshot().items():  # a checkpoint holds numbers and text only
+        try:
+            entry_layout(value)
+        except TypeError as exc:
+            raise MethodRefused(f"{plan.method.name}: snapshot entry {key!r}: {exc}") from None
     SampleBuffers(1, plan.y0.shape[0]).record(plan.form_code, plan.y0, plan.params, 0)
 
 
@@ -470,20 +476,8 @@ class _Run(SampledRun):
         )
 
     def checkpoint(self) -> None:
-        s = self.stepper
         self.group.write_checkpoint(
-            {
-                "run": {
-                    "sample": self.k,
-                    "wall_s": self.wall,
-                    "cpu_s": self.cpu,
-                    "t": float(s.t),
-                    "y": np.array(s.y, dtype=np.float64),
-                    "counters": np.array(s.counters, dtype=np.int64),
-                },
-                "stepper": s.snapshot(),
-                "metrics": self.acc.state(),
-            }
+            checkpoint_parts(self.k, self.wall, self.cpu, self.stepper, self.acc)
         )
 
     def restore(self, truncate: bool = True) -> None:
@@ -493,9 +487,12 @@ class _Run(SampledRun):
         (unless truncate is False: check_resume on a file open for reading)."""
         p = self.plan
         where = f"{self.group.f.filename}: run {p.run_id}"
+        # Read as this run would write it now (names, dtypes, shapes; store/checkpoint.py):
+        # nothing in the file decides what is read.
+        template = checkpoint_parts(1, 0.0, 0.0, self.fresh_stepper(), start_accumulator(p))
         with damage_is_an_error(self.group.f.filename):
-            cp = self.group.read_checkpoint()
-        if cp is None or "run" not in cp:
+            cp = self.group.read_checkpoint(template)
+        if cp is None:
             raise UserError(f"{where}: no checkpoint to resume from; use --force")
         try:
             self._restore_from(cp)
@@ -511,6 +508,10 @@ class _Run(SampledRun):
             self.group.truncate(self.k)
 
     def _restore_from(self, cp: dict) -> None:
+        """Take the checkpoint back, trusting nothing in it: the stepper checks its own
+        snapshot (validation.check_snapshot), and what ties it to this run is checked here: the
+        sample it stopped at, that sample's time, a state of this form, and the reference values
+        of this run's start (bit for bit). Raises ValueError naming what is wrong."""
         p = self.plan
         counters = np.asarray(cp["run"].get("counters", ()))
         if counters.shape != (N_COUNTERS,):
@@ -522,19 +523,27 @@ class _Run(SampledRun):
                 f"keeps {N_COUNTERS} (force evaluations were added): it was written by an older "
                 "version and cannot be resumed; run it again with --force"
             )
-        self.k = int(cp["run"]["sample"])
-        if not 1 <= self.k <= p.samples:
-            raise ValueError(f"sample {self.k} is not between 1 and {p.samples}")
-        self.wall = float(cp["run"]["wall_s"])
-        self.cpu = float(cp["run"].get("cpu_s", 0.0))
-        self.stepper = self.fresh_stepper()
-        self.stepper.restore(cp["stepper"])
-        self.stepper.counters[:] = cp["run"]["counters"]
-        if not (
-            self.stepper.t == cp["run"]["t"] and np.array_equal(self.stepper.y, cp["run"]["y"])
-        ):
+        run = cp["run"]
+        k = run["sample"]
+        if not 1 <= k <= p.samples:
+            raise ValueError(f"run/sample is {k}, not a sample of this run (1 to {p.samples})")
+        if run["t"] != p.sample_time(k - 1):
+            raise ValueError(f"run/t is {run['t']!r}, not the time of sample {k - 1}")
+        for key in ("wall_s", "cpu_s"):
+            if not (math.isfinite(run[key]) and run[key] >= 0.0):
+                raise ValueError(f"run/{key} is {run[key]!r}, not a time spent")
+        if not np.all(np.isfinite(run["y"])) or singular(p.form_code, run["y"]):
+            raise ValueError("run/y is not a finite state of this form")
+        stepper = self.fresh_stepper()
+        stepper.restore(cp["stepper"])  # SnapshotRefused (a ValueError) names the field
+        stepper.counters[:] = run["counters"]
+        if not (stepper.t == run["t"] and np.array_equal(stepper.y, run["y"])):
             raise ValueError("the stepper did not restore its checkpoint exactly")
-        self.acc = Accumulator.from_state(cp["metrics"])
+        acc = Accumulator.from_state(cp["metrics"])
+        if acc.reference() != start_accumulator(p).reference():
+            raise ValueError("metrics/ holds the reference values of another start, case or form")
+        self.k, self.wall, self.cpu = k, run["wall_s"], run["cpu_s"]
+        self.stepper, self.acc = stepper, acc
 
     def _check_rows(self) -> None:
         p = self.plan
@@ -594,6 +603,9 @@ class _Run(SampledRun):
             st = self._advance_to(tk)
         except MethodRefused as exc:
             return Outcome(FAILED, str(exc), float(self.stepper.t))
+        except ArithmeticError as exc:  # a kernel's own division by zero or overflow
+            t = float(self.stepper.t)
+            return Outcome(FAILED, f"{type(exc).__name__} in the integrator after t = {t:.17g}", t)
         if st is None:
             return STOPPED
         if st != ST_OK:
@@ -691,6 +703,31 @@ class _Run(SampledRun):
         energy = g["invariants/energy"][()]
         acc, counters = self.acc, self.stepper.counters
         return finish(acc, counters, self.wall, self.cpu, t, energy, t_fail, self.plan.scales)
+
+
+def checkpoint_parts(k: int, wall: float, cpu: float, stepper: Stepper, acc: Accumulator) -> dict:
+    """What a checkpoint holds, by part (the writer's input and, from a fresh stepper, the
+    reader's template)."""
+    return {
+        "run": {
+            "sample": int(k),
+            "wall_s": float(wall),
+            "cpu_s": float(cpu),
+            "t": float(stepper.t),
+            "y": np.array(stepper.y, dtype=np.float64),
+            "counters": np.array(stepper.counters, dtype=np.int64),
+        },
+        "stepper": stepper.snapshot(),
+        "metrics": acc.state(),
+    }
+
+
+def start_accumulator(plan: RunPlan) -> Accumulator:
+    """The reference values a run takes from its start sample (as take_start does)."""
+    b = SampleBuffers(1, FORM_SIZE[plan.form_code])
+    b.record(plan.form_code, plan.y0, plan.params, 0)
+    has_norm = plan.form_code != FORM_EULER
+    return Accumulator.at_start(b.scal[0], b.mom[0], plan.params, plan.exact is not None, has_norm)
 
 
 def check_resume(plan: RunPlan, f, parent: str = RUNS) -> None:

@@ -47,8 +47,14 @@ def _checked(plan, out: Path, action: Action) -> Action:
     """A resume is checked on the file opened for reading, before anything opens it for
     writing (runner.check_resume: its checkpoint restores exactly, its stored samples are all
     there), so that a refused resume leaves the file byte for byte as it was. An ensemble keeps
-    no checkpoint and starts over."""
+    no checkpoint and starts over. A method that cannot be resumed from a file (its
+    resume_refusal says why: scipy-lsoda) is run again from the start, with a note kept with
+    the run."""
     if action.kind == RESUME and "ensemble" not in plan.settings:
+        why = plan.method.resume_refusal()
+        if why:
+            plan.notes.append(f"not resumed: {why}; running it again from the start")
+            return Action(NEW, action.parent, action.note)
         with open_reader(out) as f:
             check_resume(plan, f, action.parent)
     return action

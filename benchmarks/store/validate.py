@@ -206,6 +206,12 @@ def _attr_value(name: str, raw, what: str):
     return v
 
 
+# Metrics that are text where a number could not be had (the reason a drift law is unknown).
+TEXT_METRICS = frozenset({"energy_drift_unknown"})
+# Metrics that are a pair of times (the window the drift law was fitted on).
+SPAN_METRICS = frozenset({"energy_drift_window"})
+
+
 def _json_value(name: str, text: str, what: str):
     try:
         v = json.loads(text)
@@ -220,8 +226,14 @@ def _json_value(name: str, text: str, what: str):
                 raise ValueError(f"{what}: '{k}' is {x!r}, not a finite number")
     elif name == "metrics":
         for k, x in v.items():
-            if x is not None and not _is_number(x):
-                raise ValueError(f"{what}: '{k}' is {x!r}, not a number or null")
+            if x is None or _is_number(x):
+                continue
+            if k in TEXT_METRICS and isinstance(x, str):
+                continue  # why a quantity could not be measured, in words
+            if k in SPAN_METRICS and isinstance(x, list) and len(x) == 2:
+                if all(_is_number(e) and math.isfinite(e) for e in x):
+                    continue  # a time window [from, to]
+            raise ValueError(f"{what}: '{k}' is {x!r}, not a number or null")
     elif name == "versions":
         for k, x in v.items():
             if x is not None and not isinstance(x, str):

@@ -17,6 +17,7 @@ import h5py
 import numpy as np
 
 from topdrift.benchmarks.errors import UserError
+from topdrift.benchmarks.store.checkpoint import read_checkpoint, write_checkpoint
 from topdrift.benchmarks.store.failures import ensure_room
 from topdrift.benchmarks.store.format import (
     CHUNK_ROWS,
@@ -77,35 +78,6 @@ def open_writer(path: Path) -> h5py.File:
 
 def utc_now() -> str:
     return datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
-
-
-def _put(g: h5py.Group, key: str, value) -> None:
-    """One checkpoint entry: an array as a dataset, a number or string as an attribute."""
-    if isinstance(value, np.ndarray):
-        g.create_dataset(key, data=value)
-    elif isinstance(value, (bool, np.bool_)):
-        g.attrs[key] = np.int8(1 if value else 0)
-        g.attrs[f"{key}.__bool__"] = np.int8(1)
-    else:
-        g.attrs[key] = value
-
-
-def _get_all(g: h5py.Group) -> dict:
-    out: dict = {}
-    for key, v in g.attrs.items():
-        if key.endswith(".__bool__"):
-            continue
-        if f"{key}.__bool__" in g.attrs:
-            out[key] = bool(v)
-        elif isinstance(v, bytes):
-            out[key] = v.decode()
-        elif isinstance(v, np.generic):
-            out[key] = v.item()
-        else:
-            out[key] = v
-    for key, ds in g.items():
-        out[key] = ds[()]
-    return out
 
 
 class RunGroup:
@@ -200,20 +172,14 @@ class RunGroup:
                 self.g[name].resize(n, axis=0)
 
     def write_checkpoint(self, parts: dict[str, dict]) -> None:
-        """Replace the checkpoint: parts maps a subgroup name to its entries."""
-        if "checkpoint" in self.g:
-            del self.g["checkpoint"]
-        cp = self.g.create_group("checkpoint")
-        for part, entries in parts.items():
-            sub = cp.create_group(part)
-            for k, v in entries.items():
-                _put(sub, k, v)
+        """Replace the checkpoint: parts maps a subgroup name to its entries (numbers, text and
+        float64/int64 arrays only, see store/checkpoint.py)."""
+        write_checkpoint(self.g, parts)
 
-    def read_checkpoint(self) -> dict[str, dict] | None:
-        cp = self.g.get("checkpoint")
-        if cp is None:
-            return None
-        return {name: _get_all(sub) for name, sub in cp.items()}
+    def read_checkpoint(self, template: dict[str, dict]) -> dict[str, dict] | None:
+        """The checkpoint, read as template says it must be (store/checkpoint.py); None when
+        there is none. Raises CheckpointRefused (one line naming the run and the entry)."""
+        return read_checkpoint(self.g, template, self.run_id)
 
     def set(self, **attrs) -> None:
         for k, v in attrs.items():

@@ -272,6 +272,12 @@ def _dask_client(address: str):
         return Client(address, timeout=CONNECT_TIMEOUT_S)
     except (OSError, TimeoutError, ValueError) as exc:
         raise UserError(f"--scheduler {address}: cannot reach the Dask scheduler ({exc})") from None
+    except TypeError as exc:
+        # Dask's own words when a tls:// address meets a client without TLS settings.
+        raise UserError(
+            f"--scheduler {address}: cannot reach the Dask scheduler ({exc}); a tls:// address "
+            "needs Dask's TLS settings (distributed.comm.tls.*, see the README)"
+        ) from None
 
 
 def _on_dask(todo, client, accept, outcome, stop) -> None:

@@ -63,6 +63,7 @@ from topdrift.integrators.validation import (
     EPS,
     FINITE_WHILE_OK,
     Setting,
+    SnapshotRefused,
     check_snapshot,
     snapshot_identity,
     stepper_fields,
@@ -73,7 +74,10 @@ from topdrift.models import FORM_SIZE
 # clamps it to that floor instead, with a warning).
 SETTINGS = (
     Setting(
-        "rtol", minimum=100 * EPS, why="100 machine epsilons, where the error estimate is round-off"
+        "rtol",
+        minimum=100 * EPS,
+        floor="100 machine epsilons",
+        why="where the error estimate is round-off",
     ),
     Setting("atol"),
     Setting("first_step", required=False),
@@ -283,6 +287,17 @@ class EmbeddedStepper(Stepper):
             settings=self.settings,
             fields=self._fields(),
         )
+        ctrl, t = snap["ctrl"], snap["t"]
+        # What advance_to relies on (the kernel divides by the last step for dense output): the
+        # internal time at or past the output time, the last step ending there, a step to try.
+        if not (
+            ctrl[CT_T_OLD] <= t <= ctrl[CT_T]
+            and ctrl[CT_H] > 0.0
+            and ctrl[CT_H_PREV] >= 0.0
+            and (ctrl[CT_H_PREV] > 0.0 or ctrl[CT_T] == t)
+            and ctrl[CT_DENSE_OK] in (0.0, 1.0)
+        ):
+            raise SnapshotRefused(f"{self.method.name}: snapshot field 'ctrl' is not a controller")
         for k in self._ARRAYS:
             if k == "y":
                 self.y = np.array(snap[k], dtype=np.float64)  # outputs already handed out stay
