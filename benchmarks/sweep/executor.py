@@ -32,7 +32,7 @@ from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.in_memory import MemoryRun, copy_run, run_in_memory
 from topdrift.benchmarks.stopping import StopFlag
 from topdrift.benchmarks.store.failures import ensure_room, file_failure
-from topdrift.benchmarks.store.reader import complete_ids
+from topdrift.benchmarks.store.reader import check_path, complete_ids
 from topdrift.benchmarks.store.writer import open_writer
 from topdrift.benchmarks.sweep.grid import expand, expand_grid
 from topdrift.benchmarks.sweep.jobs import SKIP_KINDS, Job, Skip, plan_job
@@ -103,6 +103,8 @@ def run_sweep(
     try:
         with stopping.raising():  # nothing is written yet: a signal may stop it anywhere
             stopping.check(stop)
+            if out.exists() or out.is_symlink():
+                check_path(out)  # a path that is no run file is refused before the grid is planned
             grid, skipped = expand(spec, report)
             if scheduler:
                 try:
