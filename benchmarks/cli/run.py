@@ -106,14 +106,17 @@ def run(args) -> int:
             raise exc.saying("while the ensembles were planned; nothing written") from None
     actions = decide(plans, out, args.force, args.resume)
     for p, a in zip(plans, actions, strict=True):
-        for note in p.notes:
-            say(f"topdrift: {p.case.name} {p.method.name}: {note}")
         if a.note:
             say(f"topdrift: {p.case.name} {p.method.name}: {a.note}")
     with deferred() as stop:  # from here on a signal asks the runs to stop (stopping.py)
         outcome = execute_batch(
             plans, actions, out, stop=stop, ensembles=ensembles, flush_every=flush_every
         )
+    # The plans' notes once the runs are done (or reused), so that a refusal on the way (a file
+    # another process is writing, say) stays one line.
+    for p in plans:
+        for note in p.notes:
+            say(f"topdrift: {p.case.name} {p.method.name}: {note}")
     try:
         rows = result_rows(plans, actions, outcome.results, out, say=say)
         if args.json:
