@@ -57,7 +57,6 @@ from topdrift.benchmarks.store.writer import (
 )
 from topdrift.integrators import (
     C_STEPS,
-    N_COUNTERS,
     ST_OK,
     Method,
     MethodRefused,
@@ -513,16 +512,6 @@ class _Run(SampledRun):
         sample it stopped at, that sample's time, a state of this form, and the reference values
         of this run's start (bit for bit). Raises ValueError naming what is wrong."""
         p = self.plan
-        counters = np.asarray(cp["run"].get("counters", ()))
-        if counters.shape != (N_COUNTERS,):
-            # Checkpoints of topdrift before the force-evaluation counter hold 3 counters. The
-            # missing count cannot be made up afterwards (for a splitting it is not a fixed
-            # share of the evaluations), so such a run is not continued with a wrong one.
-            raise UserError(
-                f"run {p.run_id}: its checkpoint holds {counters.size} counters, this topdrift "
-                f"keeps {N_COUNTERS} (force evaluations were added): it was written by an older "
-                "version and cannot be resumed; run it again with --force"
-            )
         run = cp["run"]
         k = run["sample"]
         if not 1 <= k <= p.samples:
