@@ -63,3 +63,7 @@ def test_resume_continues_a_version_1_run(command_json, tmp_path):
         g = f["runs"][run_id]
         assert 1 < before < 201 and g["t"].shape == (201,)
         assert np.array_equal(g["t"][:before], t_before)  # the stored samples kept as they were
+        # Still a version-1 file: the resumed run is written in its layout, no turns, no units.
+        assert f.attrs["format_version"] == 1
+        assert "euler_turns" not in g and "exact/euler_turns" not in g
+        assert "units" not in g["euler"].attrs

@@ -66,6 +66,40 @@ TURNS_DATASET = "euler_turns"
 EXACT_TURNS_DATASET = "exact/euler_turns"
 TURN_DATASETS = {TURNS_DATASET: 2, EXACT_TURNS_DATASET: 2}
 FIRST_VERSION_WITH_TURNS = 2
+# Version 2: every dataset carries a `units` attribute (SI, text). A dataset whose columns differ
+# in units lists them per column, comma-separated. Energies in J (kg m^2/s^2), momenta in
+# kg m^2/s, Kovalevskaya's integral in 1/s^4 (the square of a squared rate); "1" for numbers
+# without a unit (quaternions, unit vectors, norms, counts of turns).
+UNITS_ATTR = "units"
+MOMENTUM_UNITS = "kg m^2/s"
+STATE_UNITS = {
+    "euler": "rad, rad, rad, kg m^2/s, kg m^2/s, kg m^2/s",  # phi, theta, psi, p_phi, ...
+    "body": "1, 1, 1, 1, kg m^2/s, kg m^2/s, kg m^2/s",  # q0..q3, m1..m3
+}
+UNITS = {
+    "t": "s",
+    "euler": "rad",
+    "quaternion": "1",
+    "momentum": MOMENTUM_UNITS,
+    "invariants/energy": "J",
+    "invariants/p_phi": MOMENTUM_UNITS,
+    "invariants/p_psi": MOMENTUM_UNITS,
+    "invariants/norm": "1",
+    KOVALEVSKAYA_DATASET: "1/s^4",
+    "exact/euler": "rad",
+    "exact/axis": "1",
+    TURNS_DATASET: "1",
+    EXACT_TURNS_DATASET: "1",
+    "ensemble/energy": "J",
+    "ensemble/p_phi": MOMENTUM_UNITS,
+    "ensemble/p_psi": MOMENTUM_UNITS,
+    "ensemble/axis": "1",
+    "ensemble/axis_spread": "rad",
+}
+# A checkpoint's arrays are a stepper's own (its state, compensation terms, stage values: the
+# state's units, column by column, or the stage derivatives') and its counters; they are read
+# back only by a resume, and say so.
+CHECKPOINT_UNITS = {"float": "internal (a stepper's own arrays, for resuming)", "int": "1"}
 STATE_WIDTHS = {"euler": 6, "body": 7}  # columns of `state` by the run's form
 # An ensemble run's own datasets: path -> the shape of one row after the member count
 # ("m" stands for the `ensemble_members` attribute).

@@ -24,6 +24,7 @@ from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.store.checkpoint import read_checkpoint, write_checkpoint
 from topdrift.benchmarks.store.failures import ensure_room
 from topdrift.benchmarks.store.format import (
+    CHECKPOINT_UNITS,
     CHUNK_ROWS,
     COMPRESSION,
     EXACT_DATASETS,
@@ -35,8 +36,11 @@ from topdrift.benchmarks.store.format import (
     RUNS,
     SAMPLE_DATASETS,
     STATE_DATASET,
+    STATE_UNITS,
     TURN_DATASETS,
     TURNS_DATASET,
+    UNITS,
+    UNITS_ATTR,
     attr_str,
     busy,
     cannot_open,
@@ -144,7 +148,7 @@ class RunGroup:
         """Sample datasets that grow by one row a sample: path in the group -> shape of one
         row, chunked by chunk_rows samples and compressed like every sample dataset."""
         for name, shape in rows.items():
-            self.g.create_dataset(
+            ds = self.g.create_dataset(
                 name,
                 shape=(0, *shape),
                 maxshape=(None, *shape),
@@ -152,6 +156,14 @@ class RunGroup:
                 dtype=dtype,
                 **COMPRESSION,
             )
+            if self.keeps_turns:  # version 2: every dataset says its units
+                ds.attrs[UNITS_ATTR] = self.units_of(name)
+
+    def units_of(self, name: str) -> str:
+        """The `units` attribute of a sample dataset of this run (format.UNITS)."""
+        if name == STATE_DATASET:
+            return STATE_UNITS[attr_str(self.g, "form")]
+        return UNITS[name]
 
     @property
     def version(self) -> int:
@@ -160,7 +172,7 @@ class RunGroup:
 
     @property
     def keeps_turns(self) -> bool:
-        """Whether runs of this file store turn counts (version 2 and later)."""
+        """Whether runs of this file store turn counts and units (version 2 and later)."""
         return self.version >= FIRST_VERSION_WITH_TURNS
 
     @property
@@ -211,7 +223,7 @@ class RunGroup:
     def write_checkpoint(self, parts: dict[str, dict]) -> None:
         """Replace the checkpoint: parts maps a subgroup name to its entries (numbers, text and
         float64/int64 arrays only, see store/checkpoint.py)."""
-        write_checkpoint(self.g, parts)
+        write_checkpoint(self.g, parts, CHECKPOINT_UNITS if self.keeps_turns else None)
 
     def read_checkpoint(self, template: dict[str, dict]) -> dict[str, dict] | None:
         """The checkpoint, read as template says it must be (store/checkpoint.py); None when
