@@ -3,7 +3,7 @@ against the exact solution, folded (the default) against unfolded (Stepper.keep_
 at log-spaced step counts out to 10^9 steps.
 
     python benchmarks/timing/folded_angles.py [--max-steps 1e9] [--case demo-wheel]
-        [--method leapfrog:1e-4 --method leapfrog-kl8:1e-3] [--json FILE]
+        [--method leapfrog:1e-4 --method leapfrog-kl8:1e-3] [--json FILE] [--cost]
 
 Each method runs twice from the case's start in the Euler form, once folding phi and psi every
 step with the whole turns counted beside the state, once letting them grow; both are advanced to
@@ -98,6 +98,28 @@ def measure(case_name: str, method: str, step: float, max_steps: int) -> list[di
     return rows
 
 
+def cost(case_name: str, method: str, step: float, steps: int, rounds: int = 7) -> float:
+    """The time per step folded over unfolded, the two interleaved in this process, round by
+    round (the median of the rounds' ratios): what the two compares per angle cost."""
+    case = load_case(case_name)
+    y0 = case.state(FORM_EULER)
+    params = case.body.params()
+    m = get(method)
+    ratios = []
+    for _ in range(rounds):
+        times = {}
+        for unfolded in (False, True):
+            st = m.start(FORM_EULER, params, 0.0, y0, {"step": step})
+            if unfolded:
+                st.keep_angles_unfolded()
+            st.advance_to(10 * step)  # compiled and warm
+            c0 = time.perf_counter()
+            st.advance_to((10 + steps) * step)
+            times[unfolded] = time.perf_counter() - c0
+        ratios.append(times[False] / times[True])
+    return float(np.median(ratios))
+
+
 def _cpu() -> str:
     try:
         with open("/proc/cpuinfo") as fh:
@@ -115,11 +137,20 @@ def main(argv=None) -> int:
     ap.add_argument("--case", default="demo-wheel")
     ap.add_argument("--method", action="append", help="NAME:STEP (repeatable)")
     ap.add_argument("--json", help="write the rows to this file")
+    ap.add_argument(
+        "--cost", action="store_true", help="only time folded against unfolded (10^6 steps)"
+    )
     args = ap.parse_args(argv)
     max_steps = int(args.max_steps)
     if max_steps < 1000:
         print("folded_angles: --max-steps must be at least 1000", file=sys.stderr)
         return 2
+    if args.cost:
+        for spec in args.method or DEFAULT_METHODS:
+            name, _, step = spec.partition(":")
+            r = cost(args.case, name, float(step), 10**6)
+            print(f"{name}: time per step folded / unfolded = {r:.3f} ({_cpu()})")
+        return 0
     out = {"case": args.case, "cpu": _cpu(), "runs": []}
     for spec in args.method or DEFAULT_METHODS:
         name, _, step = spec.partition(":")
