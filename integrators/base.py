@@ -31,6 +31,8 @@ from topdrift.integrators.validation import (
 )
 from topdrift.models import FORM_NAMES, FORM_SIZE, RigidBody
 from topdrift.models.dynamics import singular
+from topdrift.models.forms import FORM_EULER
+from topdrift.models.turns import N_TURNS, TURN
 
 # Counters, kept by the kernels themselves in one int64 array.
 C_STEPS = 0  # accepted steps
@@ -215,6 +217,28 @@ class Stepper(ABC):
     status: int = ST_OK
     # Time at which a failure was detected (the last good step's end), NaN while ok.
     t_fail: float = float("nan")
+    # Whole turns of fl(2 pi) taken off phi and psi (models/turns.py), int64: a family whose
+    # kernels fold the Euler form's cyclic angles counts them here, and the angles are
+    # y[phi] + TURN turns[0], y[psi] + TURN turns[1]. A family that does not fold leaves them 0
+    # (its angles grow unfolded); an empty array asks a folding family not to fold.
+    turns: np.ndarray = field(default_factory=lambda: np.zeros(N_TURNS, dtype=np.int64))
+
+    def unfolded_y(self) -> np.ndarray:
+        """A copy of y with the counted turns put back into phi and psi (rounded once): the
+        state as an unfolding run would hold it, for comparing with such a state."""
+        y = np.array(self.y, dtype=np.float64)
+        if self.form == FORM_EULER and self.turns.shape[0] == N_TURNS:
+            y[0] += TURN * float(self.turns[0])
+            y[2] += TURN * float(self.turns[1])
+        return y
+
+    def keep_angles_unfolded(self) -> None:
+        """The unfolded variant: phi and psi grow without bound in the state and round to
+        ulp(psi) per step, as before folding existed. Call before the first advance_to; for
+        measuring what folding buys (benchmarks/timing/folded_angles.py), never the default."""
+        if np.any(self.turns != 0):
+            raise MethodRefused("the angles are folded already; start a new stepper")
+        self.turns = np.zeros(0, dtype=np.int64)
 
     @abstractmethod
     def advance_to(self, t_end: float) -> int:

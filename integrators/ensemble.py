@@ -22,25 +22,28 @@ from topdrift.integrators.splitting.kernels import (
 )
 from topdrift.integrators.splitting.methods import SplittingMethod
 from topdrift.models import FORM_SIZE
+from topdrift.models.turns import N_TURNS
 
 from .base import N_COUNTERS, ST_OK, MethodRefused, grid_steps
 
 
 @njit(cache=True, parallel=True)
-def _advance_plain(form, p, kick, drift, nsteps, W, fresh, counters, status, out):
+def _advance_plain(form, p, kick, drift, nsteps, W, fresh, counters, turns, status, out):
     for j in prange(W.shape[0]):
         if status[j] == ST_OK:
-            st, _ = run_plain(form, p, kick, drift, nsteps, W[j], fresh[j], counters[j])
+            st, _ = run_plain(form, p, kick, drift, nsteps, W[j], fresh[j], counters[j], turns[j])
             status[j] = st
         close_plain(form, p, kick, W[j], fresh[j], out[j], counters[j])
 
 
 @njit(cache=True, parallel=True)
-def _advance_compensated(form, p, kick, drift, nsteps, W, E, D, fresh, counters, status, out):
+def _advance_compensated(
+    form, p, kick, drift, nsteps, W, E, D, fresh, counters, turns, status, out
+):
     for j in prange(W.shape[0]):
         if status[j] == ST_OK:
             st, _ = run_compensated(
-                form, p, kick, drift, nsteps, W[j], E[j], D[j], fresh[j], counters[j]
+                form, p, kick, drift, nsteps, W[j], E[j], D[j], fresh[j], counters[j], turns[j]
             )
             status[j] = st
         close_compensated(form, p, kick, W[j], E[j], D[j], fresh[j], out[j], counters[j])
@@ -48,7 +51,25 @@ def _advance_compensated(form, p, kick, drift, nsteps, W, E, D, fresh, counters,
 
 @njit(cache=True, parallel=True)
 def _advance_gauss(
-    form, p, h, nsteps, a, b, c, e, compensated, max_iter, Y, C, F, M, Wk, counters, iters, status
+    form,
+    p,
+    h,
+    nsteps,
+    a,
+    b,
+    c,
+    e,
+    compensated,
+    max_iter,
+    Y,
+    C,
+    F,
+    M,
+    Wk,
+    counters,
+    iters,
+    turns,
+    status,
 ):
     for j in prange(Y.shape[0]):
         if status[j] == ST_OK:
@@ -70,6 +91,7 @@ def _advance_gauss(
                 Wk[j],
                 counters[j],
                 iters[j],
+                turns[j],
             )
             status[j] = st
 
@@ -109,6 +131,8 @@ class EnsembleStepper:
         self.D = np.zeros_like(Y0)
         self.fresh = np.ones((m, 1), dtype=np.int64)
         self.counters = np.zeros((m, N_COUNTERS), dtype=np.int64)
+        # Whole turns of phi and psi per member, as a single run counts them (models/turns.py).
+        self.turns = np.zeros((m, N_TURNS), dtype=np.int64)
         self.status = np.zeros(m, dtype=np.int64)
         self.y = Y0.copy()
         if self.gauss:
@@ -162,6 +186,7 @@ class EnsembleStepper:
                 self.Wk,
                 self.counters,
                 self.iters,
+                self.turns,
                 self.status,
             )
         elif self.compensated:
@@ -176,6 +201,7 @@ class EnsembleStepper:
                 self.D,
                 self.fresh,
                 self.counters,
+                self.turns,
                 self.status,
                 self.y,
             )
@@ -189,6 +215,7 @@ class EnsembleStepper:
                 self.W,
                 self.fresh,
                 self.counters,
+                self.turns,
                 self.status,
                 self.y,
             )

@@ -320,7 +320,7 @@ TARGETED = {
     "format_version 'abc'": f_root_attr("abc"),
     "format_version array": f_root_attr(np.array([1, 1])),
     "format_version 1.0": f_root_attr(1.0),
-    "format_version 2": f_root_attr(2),
+    "format_version 3": f_root_attr(3),
     "format_version -1": f_root_attr(-1),
     "format_version true": f_root_attr(np.bool_(True)),
     "format not UTF-8": f_format(np.bytes_(b"\xff\xfe")),

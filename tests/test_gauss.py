@@ -269,6 +269,7 @@ def _one_step_jacobian(a, b, c, h, y0, p, delta=1e-5):
             np.zeros(work_size(s, n)),
             np.zeros(N_COUNTERS, dtype=np.int64),
             np.zeros(N_ITERS, dtype=np.int64),
+            np.zeros(0, dtype=np.int64),  # angles left unfolded: the map itself is measured
         )
         assert status == ST_OK
         return y

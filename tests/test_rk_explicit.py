@@ -91,15 +91,33 @@ def test_kahan_reduces_round_off():
     # compensated summation (Kahan 1965) removes most of it. At h = 2e-6 the truncation error
     # of RK4 (~1e-18 here) is below round-off, so the error against the reference is round-off.
     # Higham, Accuracy and Stability of Numerical Algorithms, sec. 4.3 [from memory] (common
-    # practice).
+    # practice). The large state is psi (75 rad at t = 0.5), so this is measured on the
+    # unfolded variant, whose psi rounds to ulp(psi) every step.
     t_end = 0.5
     y_ref = reference(FORM_EULER, t_end)
     errs = {}
     for name in METHODS:
         st = get(name).start(FORM_EULER, P, 0.0, y_start(FORM_EULER), {"step": 2e-6})
+        st.keep_angles_unfolded()
         st.advance_to(t_end)
         errs[name] = np.abs(st.y - y_ref).max()
     assert errs["rk4-kahan"] < 0.2 * errs["rk4"], errs
+
+
+def test_folded_angles_remove_the_round_off_of_a_large_psi():
+    # Folded to (-pi, pi] every step (models/turns.py), psi rounds to ulp(pi), not ulp(75):
+    # the plain method's psi error then falls to the level compensated summation reaches
+    # (the same reference and step as above; both errors are then the reference's floor and
+    # the other components' round-off, within a factor 2 of each other).
+    t_end = 0.5
+    y_ref = reference(FORM_EULER, t_end)
+    psi_err = {}
+    for name in METHODS:
+        st = get(name).start(FORM_EULER, P, 0.0, y_start(FORM_EULER), {"step": 2e-6})
+        st.advance_to(t_end)
+        assert abs(st.y[2]) <= math.pi and st.turns[1] == 12  # 75.3 rad = 12 turns + 0.03
+        psi_err[name] = abs(st.unfolded_y()[2] - y_ref[2])
+    assert psi_err["rk4"] < 2.0 * psi_err["rk4-kahan"] + 2.0 * np.spacing(y_ref[2]), psi_err
 
 
 @pytest.mark.parametrize("name", METHODS)

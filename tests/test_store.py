@@ -67,7 +67,7 @@ def test_layout_as_documented(stored):
     case, out = stored
     with h5py.File(out, "r") as f:
         assert f.attrs["format"] == "topdrift-runs"
-        assert f.attrs["format_version"] == 1
+        assert f.attrs["format_version"] == 2
         (run_id,) = list(f["runs"])
         assert re.fullmatch(r"[0-9a-f]{16}", run_id)
         g = f["runs"][run_id]
@@ -106,6 +106,10 @@ def test_layout_as_documented(stored):
             assert ds.shape == shape, name
             assert ds.dtype == np.float64
             assert ds.chunks is not None and ds.compression == "gzip", name
+        # Version 2: the exact reference's whole turns of phi and psi; a body-form run's own
+        # angles come from its quaternion, modulo 2 pi, so it has no turns of its own.
+        assert g["exact/euler_turns"].shape == (n, 2) and g["exact/euler_turns"].dtype == np.int64
+        assert "euler_turns" not in g
         assert "checkpoint" in g
         # The documented relations between datasets: the quaternion is unit, the state in the
         # body form is (quaternion, momentum), and the figure axis of the quaternion is the

@@ -67,7 +67,7 @@ def test_every_run_once_ok_in_the_documented_layout(clean):
     assert len(runs) == N_RUNS
     got = set()
     with h5py.File(out, "r") as f:
-        assert f.attrs["format"] == "topdrift-runs" and f.attrs["format_version"] == 1
+        assert f.attrs["format"] == "topdrift-runs" and f.attrs["format_version"] == 2
         assert list(f) == ["runs"]
         for rid, g in f["runs"].items():
             a = g.attrs
@@ -92,6 +92,10 @@ def test_every_run_once_ok_in_the_documented_layout(clean):
                 assert g[f"invariants/{name}"].shape == (n,)
             # exact comparison only where there is an exact solution (the Lagrange top)
             assert ("exact" in g) == (a["case"] == "grid-top")
+            # turns of phi and psi (format version 2): the samples' in the Euler form only
+            assert ("euler_turns" in g) == (a["form"] == "euler")
+            if a["form"] == "euler":
+                assert g["euler_turns"].shape == (n, 2) and g["euler_turns"].dtype == np.int64
             # sample times t_k = k T / (n - 1), the runner's documented formula
             assert np.array_equal(g["t"][()], np.array([1.5 * k / 15 for k in range(16)]))
             metrics = json.loads(a["metrics"])

@@ -43,6 +43,7 @@ from topdrift.benchmarks.store.format import FAILED, OK, RUNS
 from topdrift.benchmarks.store.writer import RunGroup
 from topdrift.integrators import C_EVALS, C_FORCE_EVALS, C_STEPS, ST_OK, ST_SINGULAR
 from topdrift.integrators.ensemble import EnsembleStepper
+from topdrift.models import FORM_EULER
 
 MAX_MEMBERS = 100_000
 BATCH = 256  # samples buffered between writes (each holds every member's invariants and axis),
@@ -262,7 +263,7 @@ class _EnsembleRun(SampledRun):
         start, which the metrics need)."""
         m, buf = self.members, self.buf
         for j in range(m):
-            buf.record(self.form, self.ens.y[j], self.params, j)
+            buf.record(self.form, self.ens.y[j], self.params, j, self.ens.turns[j])
             if not start and j % RECORD_PIECE == RECORD_PIECE - 1 and self.stop.requested:
                 return False
         now = {name: buf.scal[:m, col].copy() for name, col in self.followed.items()}
@@ -347,6 +348,7 @@ def execute_ensemble(
         plan.samples,
         kovalevskaya=run.kovalevskaya,
         parent=parent,
+        euler_form=plan.form_code == FORM_EULER,
     )
     group.add_datasets(_ensemble_rows(ep.members), max(1, min(run.rows, plan.samples)))
     run.group = group

@@ -71,8 +71,36 @@ DRIFT_MIN_SAMPLES = 8
 
 
 def wrapped(d: np.ndarray) -> np.ndarray:
-    """An angle difference folded into [-pi, pi): angles stored folded compare this way."""
+    """An angle difference folded into [-pi, pi), rounded to ulp(pi) (d + pi is formed): for
+    plotting and other coarse uses; errors come from angle_difference."""
     return np.mod(d + math.pi, 2.0 * math.pi) - math.pi
+
+
+# 2 pi as fl(2 pi) + its rounding error (the digits of models/double_double.TWO_PI, common
+# practice): the turn difference is taken off in two parts, so that no rounding is added.
+_TURN = 6.283185307179586
+_TURN_LO = 2.4492935982947064e-16
+
+
+def angle_difference(a, b, dturns=None) -> np.ndarray:
+    """a - b for angles folded into [-pi, pi], plus 2 pi dturns (the difference of their whole
+    turns, an integer array) where the turns are known; where they are not (dturns None), the
+    whole turns that bring the difference into [-pi, pi].
+
+    Never a difference of large unfolded angles, and no rounding to ulp(pi) as forming d + pi
+    would make: a - b is split exactly into s + e (Knuth's two-sum, common practice), and the
+    turns come off s first (exact when they nearly cancel it, Sterbenz's lemma), then off the
+    low part."""
+    a = np.asarray(a, dtype=np.float64)
+    b = np.asarray(b, dtype=np.float64)
+    s = a - b
+    bb = s - a
+    e = (a - (s - bb)) + (-b - bb)
+    if dturns is None:
+        k = -np.round(s / _TURN)
+    else:
+        k = np.asarray(dturns, dtype=np.float64)
+    return ((s + k * _TURN) + e) + k * _TURN_LO
 
 
 def axis_angle(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -171,8 +199,13 @@ class Accumulator:
         axis: np.ndarray,
         exact_euler: np.ndarray | None,
         exact_axis: np.ndarray | None,
+        turns: np.ndarray | None = None,
+        exact_turns: np.ndarray | None = None,
     ) -> None:
-        """Fold a batch of samples (rows) into the maxima."""
+        """Fold a batch of samples (rows) into the maxima. turns and exact_turns: the whole
+        turns of phi and psi (n x 2) of the samples and of the exact solution; where either is
+        not known (a body-form run, whose angles come from its quaternion modulo 2 pi) the
+        phase errors are taken modulo 2 pi."""
         if scal.shape[0] == 0:
             return
         m = self.maxima
@@ -185,8 +218,12 @@ class Accumulator:
         if self.has_exact and exact_euler is not None and exact_axis is not None:
             m[4] = max(m[4], float(np.max(axis_angle(axis, exact_axis))))
             m[5] = max(m[5], float(np.max(np.abs(euler[:, 1] - exact_euler[:, 1]))))
-            m[6] = max(m[6], float(np.max(np.abs(wrapped(euler[:, 0] - exact_euler[:, 0])))))
-            m[7] = max(m[7], float(np.max(np.abs(wrapped(euler[:, 2] - exact_euler[:, 2])))))
+            dk = None if turns is None or exact_turns is None else turns - exact_turns
+            for col, at, slot in ((0, 0, 6), (2, 1, 7)):
+                d = angle_difference(
+                    euler[:, col], exact_euler[:, col], None if dk is None else dk[:, at]
+                )
+                m[slot] = max(m[slot], float(np.max(np.abs(d))))
 
     def energy_rel(self, energy: np.ndarray) -> np.ndarray:
         return np.abs(energy - self.e0) / self.e_scale

@@ -41,6 +41,7 @@ from topdrift.benchmarks.store.format import (
     CHUNK_ROWS,
     DIVERGED,
     EXACT_DATASETS,
+    EXACT_TURNS_DATASET,
     FAILED,
     INTERRUPTED,
     OK,
@@ -382,12 +383,14 @@ def warm_up(plan: RunPlan) -> None:
     SampleBuffers(1, plan.y0.shape[0]).record(plan.form_code, plan.y0, plan.params, 0)
 
 
-def _exact_rows(top, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Exact (phi, theta, psi), folded like the computed ones, and the exact figure axis (both
-    from the exact solution's folded angles: no bit is lost to the unfolded ones)."""
+def _exact_rows(top, t: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Exact (phi, theta, psi), folded like the computed ones, the whole turns of phi and psi
+    (int64, n x 2) and the exact figure axis (from the exact solution's folded angles: no bit
+    is lost to the unfolded ones)."""
     try:
         ang = top.folded(t)
         e = np.column_stack((ang.phi, ang.theta, ang.psi))
+        turns = np.column_stack((ang.phi_turns, ang.psi_turns)).astype(np.int64)
         a = ang.axis()
     except Exception as exc:  # a reference that breaks must end the run loudly, not crash it
         raise ExactFailed(
@@ -397,7 +400,7 @@ def _exact_rows(top, t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     if not (np.all(np.isfinite(e)) and np.all(np.isfinite(a))):
         bad = t[~(np.all(np.isfinite(e), axis=1) & np.all(np.isfinite(a), axis=1))]
         raise ExactFailed(f"the exact solution is not finite at t = {bad[0]:.17g}")
-    return e, a
+    return e, a, turns
 
 
 def versions() -> dict:
@@ -489,8 +492,15 @@ class _Run(SampledRun):
         # Read as this run would write it now (names, dtypes, shapes; store/checkpoint.py):
         # nothing in the file decides what is read.
         template = checkpoint_parts(1, 0.0, 0.0, self.fresh_stepper(), start_accumulator(p))
+        # A version-1 checkpoint predates the turn counts: its angles are unfolded, which is
+        # the same state with no turns taken off (the kernels fold them at the next step).
+        old = not self.group.keeps_turns and "turns" in template["stepper"]
+        if old:
+            no_turns = template["stepper"].pop("turns")
         with damage_is_an_error(self.group.f.filename):
             cp = self.group.read_checkpoint(template)
+        if old and cp is not None:
+            cp["stepper"]["turns"] = np.zeros_like(no_turns)
         if cp is None:
             raise UserError(f"{where}: no checkpoint to resume from; use --force")
         try:
@@ -572,7 +582,7 @@ class _Run(SampledRun):
             return 0
         form, s, buf = self.plan.form_code, self.stepper, self.buf
         buf.t[0] = 0.0
-        if not buf.record(form, s.y, self.plan.params, 0):
+        if not buf.record(form, s.y, self.plan.params, 0, s.turns):
             raise UserError(f"{self.plan.case.name}: the start state is not finite")
         body = self.plan.case.body
         self.acc = Accumulator.at_start(
@@ -604,7 +614,8 @@ class _Run(SampledRun):
 
     def record(self, j: int, tk: float) -> Outcome | None:
         self.buf.t[j] = tk
-        if not self.buf.record(self.plan.form_code, self.stepper.y, self.plan.params, j):
+        s = self.stepper
+        if not self.buf.record(self.plan.form_code, s.y, self.plan.params, j, s.turns):
             return Outcome(DIVERGED, f"non-finite state at t = {tk:.17g}", tk)
         return None
 
@@ -620,22 +631,26 @@ class _Run(SampledRun):
         # and rewrites the last, partly filled chunk of every dataset (compressed, perhaps at a
         # new place in the file), plus the checkpoint: rows + one chunk of rows, uncompressed,
         # bound it.
-        row_bytes = 8 * (buf.state.shape[1] + 3 + 4 + 3 + N_SCALARS + (6 if self.has_exact else 0))
+        row_bytes = 8 * (buf.state.shape[1] + 5 + 4 + 3 + N_SCALARS + (8 if self.has_exact else 0))
         rows = j + min(CHUNK_ROWS, self.samples)
         ensure_room(self.group.f, rows * row_bytes + 64 * 1024, f"the samples up to {self.k}")
         if j:
             tb = buf.t[:j].copy()
             batch = {"t": tb, **buf.rows_of(0, j, kovalevskaya=self.acc.has_kovalevskaya)}
-            ee = ea = None
+            ee = ea = et = None
             if self.has_exact:
                 try:
-                    ee, ea = _exact_rows(self.plan.exact, tb)
+                    ee, ea, et = _exact_rows(self.plan.exact, tb)
                 except ExactFailed as exc:
                     # The batch is dropped whole: every stored row has its exact counterpart.
                     return Outcome(FAILED, str(exc))
                 batch["exact/euler"] = ee
                 batch["exact/axis"] = ea
-            self.acc.update(buf.scal[:j], buf.euler[:j], buf.axis[:j], ee, ea)
+                batch[EXACT_TURNS_DATASET] = et
+            # Turns of the computed angles are known in the Euler form only (the body form has
+            # them modulo 2 pi, from the quaternion): its errors then compare angles wrapped.
+            turns = buf.turns[:j] if self.plan.form_code == FORM_EULER else None
+            self.acc.update(buf.scal[:j], buf.euler[:j], buf.axis[:j], ee, ea, turns, et)
             self.group.append(batch)
         self.checkpoint()
         m = self.acc.maxima_dict()
@@ -759,6 +774,7 @@ def execute(
             plan.samples,
             kovalevskaya=plan.case.body.kovalevskaya,
             parent=parent,
+            euler_form=plan.form_code == FORM_EULER,
         )
         run = _Run(plan, group, stop, progress)
         run.stepper = run.fresh_stepper()

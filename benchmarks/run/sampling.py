@@ -13,6 +13,7 @@ import math
 import numpy as np
 from numba import njit
 
+from topdrift.benchmarks.store.format import TURNS_DATASET
 from topdrift.models.forms import FORM_BODY, FORM_EULER, FORM_SIZE, body_to_euler, euler_to_body
 from topdrift.models.invariants import (
     INV_ENERGY,
@@ -24,6 +25,7 @@ from topdrift.models.invariants import (
     invariants,
 )
 from topdrift.models.quaternion import figure_axis
+from topdrift.models.turns import N_TURNS, T_PHI, T_PSI, true_angle
 
 # Columns of the per-sample scalar block `scal` (one row per sample).
 S_ENERGY = 0
@@ -33,18 +35,20 @@ S_NORM = 3
 S_KOV = 4  # Kovalevskaya's integral (NaN unless the body has chi off axis 3; stored only for
 # Kovalevskaya tops, where it is an invariant)
 N_SCALARS = 5
+# The turns of a stepper that counts none (its angles are unfolded, or the start state).
+NO_TURNS = np.zeros(0, dtype=np.int64)
 
 
 @njit(cache=True)
-def _fold(a):
-    """An angle folded into (-pi, pi]: phi and psi of a fast spin cannot be unwrapped across
-    samples that lie many turns apart, so they are stored folded and compared wrapped."""
-    return math.atan2(math.sin(a), math.cos(a))
-
-
-@njit(cache=True)
-def record_sample(form, y, p, j, state, euler, quat, mom, axis, scal, ye, yb, inv):
+def record_sample(form, y, kturns, p, j, state, euler, turns, quat, mom, axis, scal, ye, yb, inv):
     """Write sample j of state y (native form) into the row j of each buffer.
+
+    In the Euler form, phi and psi are y's angles plus the stepper's whole turns of fl(2 pi)
+    (kturns: two int64, or empty where the stepper does not fold; models/turns.py); they are
+    written to `euler` (and to `state`) folded by 2 pi into [-pi, pi], with their whole 2 pi
+    turns in `turns`, so that no bit is lost however far they have grown. In the body form the
+    angles come from the quaternion and are known only modulo 2 pi: turns are written as 0 and
+    not stored (the writer leaves them out).
 
     Returns False when the state is not finite (nothing is then written but `state`).
     ye (6), yb (7) and inv (5) are scratch arrays owned by the caller.
@@ -58,13 +62,31 @@ def record_sample(form, y, p, j, state, euler, quat, mom, axis, scal, ye, yb, in
     if not ok:
         return False
     if form == FORM_EULER:
+        k_phi = float(kturns[T_PHI]) if kturns.shape[0] == N_TURNS else 0.0
+        k_psi = float(kturns[T_PSI]) if kturns.shape[0] == N_TURNS else 0.0
+        phi, n_phi = true_angle(y[0], k_phi)
+        psi, n_psi = true_angle(y[2], k_psi)
         for i in range(6):
             ye[i] = y[i]
-        euler_to_body(y, yb)
-        euler[j, 0] = _fold(y[0])
+        # The attitude from the angles folded by 2 pi itself (the kernel's y lacks the part of
+        # its turns that fl(2 pi) misses, 2.4e-16 rad a turn), and with the sign the unfolded
+        # angles give: a whole turn of phi or psi turns the quaternion into its negative.
+        ye[0] = phi
+        ye[2] = psi
+        euler_to_body(ye, yb)
+        if (int(n_phi) + int(n_psi)) % 2 != 0:
+            for i in range(4):
+                yb[i] = -yb[i]
+        euler[j, 0] = phi
         euler[j, 1] = y[1]
-        euler[j, 2] = _fold(y[2])
+        euler[j, 2] = psi
+        state[j, 0] = phi
+        state[j, 2] = psi
+        turns[j, 0] = np.int64(n_phi)
+        turns[j, 1] = np.int64(n_psi)
     else:
+        turns[j, 0] = 0
+        turns[j, 1] = 0
         for i in range(7):
             yb[i] = y[i]
         # At sin(theta) = 0 only phi + psi is defined; to_euler still returns a split of it,
@@ -103,6 +125,7 @@ class SampleBuffers:
     def __init__(self, rows: int, width: int):
         self.state = np.zeros((rows, width))
         self.euler = np.zeros((rows, 3))
+        self.turns = np.zeros((rows, N_TURNS), dtype=np.int64)
         self.quat = np.zeros((rows, 4))
         self.mom = np.zeros((rows, 3))
         self.axis = np.zeros((rows, 3))
@@ -113,15 +136,20 @@ class SampleBuffers:
         self.inv = np.zeros(N_INVARIANTS)
         self.rows = rows
 
-    def record(self, form: int, y: np.ndarray, p: np.ndarray, j: int) -> bool:
-        """Row j from state y (see record_sample); False when the state is not finite."""
+    def record(
+        self, form: int, y: np.ndarray, p: np.ndarray, j: int, kturns: np.ndarray = NO_TURNS
+    ) -> bool:
+        """Row j from state y and the stepper's turns kturns (see record_sample); False when
+        the state is not finite."""
         return record_sample(
             form,
             y,
+            kturns,
             p,
             j,
             self.state,
             self.euler,
+            self.turns,
             self.quat,
             self.mom,
             self.axis,
@@ -134,13 +162,15 @@ class SampleBuffers:
     def rows_of(
         self, j: int, stop: int | None = None, kovalevskaya: bool = False
     ) -> dict[str, np.ndarray]:
-        """Rows [j, stop) as the run group's sample datasets (state, angles, quaternion,
-        momentum and invariants, Kovalevskaya's integral where asked for; the time is the
-        caller's), views into the buffers."""
+        """Rows [j, stop) as the run group's sample datasets (state, angles and their turns,
+        quaternion, momentum and invariants, Kovalevskaya's integral where asked for; the time
+        is the caller's), views into the buffers. The writer leaves the turns out where the
+        run has no dataset for them (a body-form run, a version-1 file)."""
         stop = j + 1 if stop is None else stop
         rows = {
             "state": self.state[j:stop],
             "euler": self.euler[j:stop],
+            TURNS_DATASET: self.turns[j:stop],
             "quaternion": self.quat[j:stop],
             "momentum": self.mom[j:stop],
             "invariants/energy": self.scal[j:stop, S_ENERGY],

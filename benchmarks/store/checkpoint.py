@@ -58,8 +58,9 @@ def entry_layout(value) -> tuple[str, np.dtype | str, tuple[int, ...]]:
     )
 
 
-def write_checkpoint(run: h5py.Group, parts: dict[str, dict]) -> None:
-    """Replace the run's checkpoint with parts (part name -> entry name -> value)."""
+def write_checkpoint(run: h5py.Group, parts: dict[str, dict], units: dict | None = None) -> None:
+    """Replace the run's checkpoint with parts (part name -> entry name -> value). units: the
+    `units` attribute of its arrays by kind ("float", "int"), None for none (version 1)."""
     # Checked before the old checkpoint is deleted.
     layouts = {(p, k): entry_layout(v) for p, entries in parts.items() for k, v in entries.items()}
     if GROUP in run:
@@ -70,7 +71,9 @@ def write_checkpoint(run: h5py.Group, parts: dict[str, dict]) -> None:
         for key, value in entries.items():
             where, dtype, _ = layouts[(part, key)]
             if where == "dataset":
-                sub.create_dataset(key, data=value)
+                ds = sub.create_dataset(key, data=value)
+                if units is not None:
+                    ds.attrs["units"] = units["int" if dtype == np.int64 else "float"]
             elif dtype == "text":
                 sub.attrs.create(key, _text_bytes(value))
             else:

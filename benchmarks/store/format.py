@@ -1,6 +1,7 @@
-"""The run-file format "topdrift-runs", version 1, as one set of names: the constants of the
-layout (docs/run-files.md documents it and it is a contract: change it only with a version bump),
-the one version check, and the one set of messages every reader and the writer give about a file.
+"""The run-file format "topdrift-runs", version 2 (and version 1, which it extends), as one set
+of names: the constants of the layout (docs/run-files.md documents it and it is a contract:
+change it only with a version bump), the one version check, and the one set of messages every
+reader and the writer give about a file.
 
 The reader (reader.py), the checks behind it (validate.py) and the writer (writer.py) all take
 their names from here, so that two commands never describe the same file in two ways.
@@ -15,8 +16,8 @@ import numpy as np
 from topdrift.benchmarks.errors import UserError
 
 FORMAT = "topdrift-runs"
-FORMAT_VERSION = 1  # the version this topdrift writes
-READABLE_VERSIONS = (1,)  # the versions this topdrift reads
+FORMAT_VERSION = 2  # the version this topdrift writes into a new file
+READABLE_VERSIONS = (1, 2)  # the versions this topdrift reads (and appends to, in their layout)
 DEFAULT_FILE = Path("results") / "runs.h5"
 # Groups at the top of a run file. /runs holds one group per run. /replacing (optional) holds a
 # run that `run --force` computes to replace a stored run of the same id: it is moved into /runs
@@ -56,6 +57,49 @@ EXACT_DATASETS = {"exact/euler": 3, "exact/axis": 3}
 KOVALEVSKAYA_DATASET = "invariants/kovalevskaya"
 OPTIONAL_DATASETS = {KOVALEVSKAYA_DATASET: 0}
 STATE_DATASET = "state"
+# Version 2: the whole turns of phi and psi beside their folded angles (int64, columns phi, psi;
+# unfolded angle = folded + 2 pi turns), for the exact reference of every run that has one and
+# for the samples of every Euler-form run (a body-form run knows its angles only modulo 2 pi,
+# from the quaternion). A version-1 file has none; a run appended to one is written in its
+# layout, without them.
+TURNS_DATASET = "euler_turns"
+EXACT_TURNS_DATASET = "exact/euler_turns"
+TURN_DATASETS = {TURNS_DATASET: 2, EXACT_TURNS_DATASET: 2}
+FIRST_VERSION_WITH_TURNS = 2
+# Version 2: every dataset carries a `units` attribute (SI, text). A dataset whose columns differ
+# in units lists them per column, comma-separated. Energies in J (kg m^2/s^2), momenta in
+# kg m^2/s, Kovalevskaya's integral in 1/s^4 (the square of a squared rate); "1" for numbers
+# without a unit (quaternions, unit vectors, norms, counts of turns).
+UNITS_ATTR = "units"
+MOMENTUM_UNITS = "kg m^2/s"
+STATE_UNITS = {
+    "euler": "rad, rad, rad, kg m^2/s, kg m^2/s, kg m^2/s",  # phi, theta, psi, p_phi, ...
+    "body": "1, 1, 1, 1, kg m^2/s, kg m^2/s, kg m^2/s",  # q0..q3, m1..m3
+}
+UNITS = {
+    "t": "s",
+    "euler": "rad",
+    "quaternion": "1",
+    "momentum": MOMENTUM_UNITS,
+    "invariants/energy": "J",
+    "invariants/p_phi": MOMENTUM_UNITS,
+    "invariants/p_psi": MOMENTUM_UNITS,
+    "invariants/norm": "1",
+    KOVALEVSKAYA_DATASET: "1/s^4",
+    "exact/euler": "rad",
+    "exact/axis": "1",
+    TURNS_DATASET: "1",
+    EXACT_TURNS_DATASET: "1",
+    "ensemble/energy": "J",
+    "ensemble/p_phi": MOMENTUM_UNITS,
+    "ensemble/p_psi": MOMENTUM_UNITS,
+    "ensemble/axis": "1",
+    "ensemble/axis_spread": "rad",
+}
+# A checkpoint's arrays are a stepper's own (its state, compensation terms, stage values: the
+# state's units, column by column, or the stage derivatives') and its counters; they are read
+# back only by a resume, and say so.
+CHECKPOINT_UNITS = {"float": "internal (a stepper's own arrays, for resuming)", "int": "1"}
 STATE_WIDTHS = {"euler": 6, "body": 7}  # columns of `state` by the run's form
 # An ensemble run's own datasets: path -> the shape of one row after the member count
 # ("m" stands for the `ensemble_members` attribute).

@@ -27,11 +27,13 @@ import numpy as np
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.store.failures import damage_is_an_error
 from topdrift.benchmarks.store.format import (
+    EXACT_TURNS_DATASET,
     FINAL_STATUSES,
     KOVALEVSKAYA_DATASET,
     RUNS,
     STATUS_INCOMPLETE,
     STATUS_OK,  # noqa: F401  (the records' status for a complete run, for readers of records)
+    TURNS_DATASET,
     cannot_open,
     damaged,
     first_line,
@@ -197,10 +199,10 @@ SERIES_DATASETS = {
 }
 
 
-def _read(g, name: str, run_id: str, path) -> np.ndarray:
+def _read(g, name: str, run_id: str, path, dtype=np.float64) -> np.ndarray:
     """A dataset's values; a chunk that cannot be read is the damaged-file line."""
     try:
-        return np.asarray(g[name][...], dtype=np.float64)
+        return np.asarray(g[name][...], dtype=dtype)
     except (OSError, RuntimeError) as exc:
         raise damaged(path, f"run {run_id}: '{name}' cannot be read ({first_line(exc)})") from None
 
@@ -208,7 +210,9 @@ def _read(g, name: str, run_id: str, path) -> np.ndarray:
 def read_series(f: h5py.File, run_id: str) -> dict:
     """One run's samples from an open, checked file, as numpy arrays (keys of SERIES_DATASETS,
     plus exact_euler, which is None where the case has no exact solution), with its
-    analysis_record under 'record'.
+    analysis_record under 'record'. euler_turns and exact_turns: the whole turns of phi and psi
+    (int64, n x 2) of the samples and of the exact solution, None where the file holds none (a
+    version-1 file, a body-form run; unfolded angle = folded + 2 pi turns).
 
     A run that is still being written may have datasets of different lengths; all are cut to the
     shortest, so that every row is one sample."""
@@ -223,6 +227,8 @@ def read_series(f: h5py.File, run_id: str) -> dict:
     # Present only for a Kovalevskaya top, where it is an invariant.
     kov = KOVALEVSKAYA_DATASET
     out["kovalevskaya"] = _read(g, kov, run_id, path) if kov in g else None
+    for key, name in (("euler_turns", TURNS_DATASET), ("exact_turns", EXACT_TURNS_DATASET)):
+        out[key] = _read(g, name, run_id, path, np.int64) if name in g else None
     n = min(len(v) for k, v in out.items() if k != "record" and v is not None)
     for k, v in out.items():
         if k != "record" and v is not None:

@@ -8,7 +8,8 @@ Two passes over an open file, both reading metadata only (headers and attributes
    follows a link out of the file it was given.
 2. check_layout: the root attributes (format, format_version), `runs` a group and every run a
    group; every known attribute of a run of its kind (UTF-8 text, JSON of the right type, a
-   finite number, a whole number in range); every known dataset a float64 array of its shape,
+   finite number, a whole number in range); every known dataset a float64 array (turn counts:
+   int64) of its shape,
    with no more rows than the run's `samples` (and exactly that many once it is `ok`); the
    checkpoint a group.
 
@@ -49,6 +50,7 @@ from topdrift.benchmarks.store.format import (
     STATUS_OK,
     STATUSES,
     TEXT_ATTRS,
+    TURN_DATASETS,
     check_format,
     count_value,
     damaged,
@@ -268,7 +270,10 @@ def check_run(g: h5py.Group, run_id: str, path) -> dict:
         what = f"run {run_id}: '{name}'"
         if not isinstance(ds, h5py.Dataset):
             raise damaged(path, f"{what} is a group, not a dataset")
-        if ds.dtype.kind != "f" or ds.dtype.itemsize != 8:
+        if name in TURN_DATASETS:
+            if ds.dtype.kind != "i" or ds.dtype.itemsize != 8:
+                raise damaged(path, f"{what} has dtype {ds.dtype}, not int64 (whole turns)")
+        elif ds.dtype.kind != "f" or ds.dtype.itemsize != 8:
             raise damaged(path, f"{what} has dtype {ds.dtype}, not float64")
         if ds.ndim != 1 + len(shape) or any(
             want is not None and have != want
@@ -287,6 +292,7 @@ def expected_shapes(attrs: dict) -> dict:
     out[STATE_DATASET] = (STATE_WIDTHS.get(attrs.get("form")),)
     out.update({name: (k,) for name, k in EXACT_DATASETS.items()})
     out.update({name: () if k == 0 else (k,) for name, k in OPTIONAL_DATASETS.items()})
+    out.update({name: (k,) for name, k in TURN_DATASETS.items()})
     members = attrs.get("ensemble_members")
     for name, row in ENSEMBLE_DATASETS.items():
         out[name] = tuple(members if d == "m" else d for d in row)
@@ -383,7 +389,13 @@ def check_resumable(g: h5py.Group, run_id: str, path) -> None:
 def check_samples(g: h5py.Group, run_id: str, path) -> None:
     """Read every stored row of the run's datasets once (in slices), so that a chunk HDF5 cannot
     read (bytes overwritten, a file cut short) is found before anything is written."""
-    datasets = (*SAMPLE_DATASETS, STATE_DATASET, *EXACT_DATASETS, *OPTIONAL_DATASETS)
+    datasets = (
+        *SAMPLE_DATASETS,
+        STATE_DATASET,
+        *EXACT_DATASETS,
+        *OPTIONAL_DATASETS,
+        *TURN_DATASETS,
+    )
     for name in (*datasets, *ENSEMBLE_DATASETS):
         if name not in g:
             continue

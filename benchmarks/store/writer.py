@@ -1,5 +1,9 @@
-"""The one writer of run files (format "topdrift-runs" version 1: the names are in format.py,
+"""The one writer of run files (format "topdrift-runs" version 2: the names are in format.py,
 the layout in docs/run-files.md, and it is a contract: change it only with a version bump).
+
+A new file is version 2. A run added to a version-1 file (a resume, or a new run in an old
+file) is written in version 1's layout, without the turn datasets, so that a file never mixes
+the two: its format_version says what every run in it holds.
 
 One process writes a file (HDF5's own file lock refuses a second writer). A run's samples are
 appended in batches; between batches the file is not touched, and every batch ends with the
@@ -20,9 +24,11 @@ from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.store.checkpoint import read_checkpoint, write_checkpoint
 from topdrift.benchmarks.store.failures import ensure_room
 from topdrift.benchmarks.store.format import (
+    CHECKPOINT_UNITS,
     CHUNK_ROWS,
     COMPRESSION,
     EXACT_DATASETS,
+    FIRST_VERSION_WITH_TURNS,
     FORMAT,
     FORMAT_VERSION,
     KOVALEVSKAYA_DATASET,
@@ -30,6 +36,11 @@ from topdrift.benchmarks.store.format import (
     RUNS,
     SAMPLE_DATASETS,
     STATE_DATASET,
+    STATE_UNITS,
+    TURN_DATASETS,
+    TURNS_DATASET,
+    UNITS,
+    UNITS_ATTR,
     attr_str,
     busy,
     cannot_open,
@@ -100,8 +111,11 @@ class RunGroup:
         samples: int,
         kovalevskaya: bool = False,
         parent: str = RUNS,
+        euler_form: bool = False,
     ) -> RunGroup:
-        """A new, empty group for the run, replacing one of the same id under `parent`."""
+        """A new, empty group for the run, replacing one of the same id under `parent`. In a
+        version-2 file an Euler-form run (euler_form) gets the samples' turn counts and a run
+        with an exact reference the reference's."""
         ensure_room(f, 64 * 1024, f"run {run_id}")
         runs = f.require_group(parent)
         if run_id in runs:
@@ -120,21 +134,46 @@ class RunGroup:
         rows = max(1, min(CHUNK_ROWS, int(samples)))  # a short run needs no 4096-row chunk
         group = cls(f, run_id, parent)
         group.add_datasets({name: () if k == 0 else (k,) for name, k in cols.items()}, rows)
+        if group.keeps_turns:
+            turns = {n: (k,) for n, k in TURN_DATASETS.items() if n != TURNS_DATASET or euler_form}
+            if not has_exact:
+                turns = {n: k for n, k in turns.items() if not n.startswith("exact/")}
+            group.add_datasets(turns, rows, dtype="i8")
         f.flush()
         return group
 
-    def add_datasets(self, rows: dict[str, tuple[int, ...]], chunk_rows: int) -> None:
+    def add_datasets(
+        self, rows: dict[str, tuple[int, ...]], chunk_rows: int, dtype: str = "f8"
+    ) -> None:
         """Sample datasets that grow by one row a sample: path in the group -> shape of one
         row, chunked by chunk_rows samples and compressed like every sample dataset."""
         for name, shape in rows.items():
-            self.g.create_dataset(
+            ds = self.g.create_dataset(
                 name,
                 shape=(0, *shape),
                 maxshape=(None, *shape),
                 chunks=(chunk_rows, *shape),
-                dtype="f8",
+                dtype=dtype,
                 **COMPRESSION,
             )
+            if self.keeps_turns:  # version 2: every dataset says its units
+                ds.attrs[UNITS_ATTR] = self.units_of(name)
+
+    def units_of(self, name: str) -> str:
+        """The `units` attribute of a sample dataset of this run (format.UNITS)."""
+        if name == STATE_DATASET:
+            return STATE_UNITS[attr_str(self.g, "form")]
+        return UNITS[name]
+
+    @property
+    def version(self) -> int:
+        """The file's format_version (checked when it was opened)."""
+        return int(self.f.attrs["format_version"])
+
+    @property
+    def keeps_turns(self) -> bool:
+        """Whether runs of this file store turn counts and units (version 2 and later)."""
+        return self.version >= FIRST_VERSION_WITH_TURNS
 
     @property
     def status(self) -> str:
@@ -149,10 +188,14 @@ class RunGroup:
         return "exact" in self.g
 
     def append(self, batch: dict[str, np.ndarray]) -> None:
-        """Append rows to every sample dataset; batch holds one array per dataset name."""
+        """Append rows to every sample dataset; batch holds one array per dataset name. Turn
+        counts are left out where the run has no dataset for them (a version-1 file, a
+        body-form run)."""
         n0 = self.n_stored
         m = None
         for name, rows in batch.items():
+            if name in TURN_DATASETS and name not in self.g:
+                continue
             ds = self.g[name]
             m = rows.shape[0]
             ds.resize(n0 + m, axis=0)
@@ -162,7 +205,13 @@ class RunGroup:
 
     def datasets(self) -> dict:
         """The run's sample datasets present in its group, by name."""
-        names = [*SAMPLE_DATASETS, STATE_DATASET, *EXACT_DATASETS, *OPTIONAL_DATASETS]
+        names = [
+            *SAMPLE_DATASETS,
+            STATE_DATASET,
+            *EXACT_DATASETS,
+            *OPTIONAL_DATASETS,
+            *TURN_DATASETS,
+        ]
         return {name: self.g[name] for name in names if name in self.g}
 
     def truncate(self, n: int) -> None:
@@ -174,7 +223,7 @@ class RunGroup:
     def write_checkpoint(self, parts: dict[str, dict]) -> None:
         """Replace the checkpoint: parts maps a subgroup name to its entries (numbers, text and
         float64/int64 arrays only, see store/checkpoint.py)."""
-        write_checkpoint(self.g, parts)
+        write_checkpoint(self.g, parts, CHECKPOINT_UNITS if self.keeps_turns else None)
 
     def read_checkpoint(self, template: dict[str, dict]) -> dict[str, dict] | None:
         """The checkpoint, read as template says it must be (store/checkpoint.py); None when

@@ -34,6 +34,8 @@ from topdrift.integrators.base import (
 )
 from topdrift.integrators.eft import two_prod, two_sum
 from topdrift.models.dynamics import rhs, singular
+from topdrift.models.forms import FORM_EULER
+from topdrift.models.turns import fold_euler
 
 # A stalled iteration counts as converged only if its last change is below this fraction of
 # max|Z| + max|y_n|, with Z after the first sweep (a scale taken later would grow with a diverging
@@ -82,8 +84,11 @@ def gauss_steps(
     work,
     counters,
     iters,
+    turns,
 ):
-    """Take up to nsteps steps of size h in place on y. Returns (status, steps taken).
+    """Take up to nsteps steps of size h in place on y. Returns (status, steps taken). In the
+    Euler form phi and psi are folded after every step, whole turns counted in turns (two int64;
+    empty: left unfolded, models/turns.py).
 
     work holds work_size(s, n) floats. A failed step is not committed: y, comp, fprev stay at
     the last good step. One function on purpose: its parts (guess, sweeps, residuals, rounding,
@@ -262,6 +267,8 @@ def gauss_steps(
         for k in range(n):
             y[k] = ynew[k]
             comp[k] = cnew[k]
+        if form == FORM_EULER:
+            fold_euler(y, turns)  # exact, and comp still holds what y lacks
         for k in range(sn):
             fprev[k] = f[k]
         memo[M_HPREV] = h

@@ -122,6 +122,7 @@ class GaussStepper(Stepper):
             self.work,
             self.counters,
             self.iters,
+            self.turns,
         )
         if status == ST_OK:
             self.t = float(t_end)
@@ -145,6 +146,7 @@ class GaussStepper(Stepper):
             "fprev": (np.float64, self.fprev.shape),
             "memo": (np.float64, self.memo.shape, ANY),  # NaN: no stages kept yet
             "iters": (np.int64, self.iters.shape),
+            "turns": (np.int64, self.turns.shape),
         }
 
     def snapshot(self) -> dict:
@@ -157,6 +159,7 @@ class GaussStepper(Stepper):
             memo=self.memo.copy(),
             counters=self.counters.copy(),
             iters=self.iters.copy(),
+            turns=self.turns.copy(),
             status=self.status,
             t_fail=self.t_fail,
         )
@@ -177,6 +180,7 @@ class GaussStepper(Stepper):
             ("memo", self.memo),
             ("counters", self.counters),
             ("iters", self.iters),
+            ("turns", self.turns),
         ):
             dest[:] = snap[key]
         self.t = float(snap["t"])

@@ -118,6 +118,7 @@ class FixedStepper(Stepper):
                 self.ynew,
                 self.binc,
                 self.counters,
+                self.turns,
             )
         )
         self.steps_done += int(done)
@@ -131,7 +132,7 @@ class FixedStepper(Stepper):
         self.y = self.yi.copy()
         return ST_OK
 
-    _ARRAYS = ("y", "yi", "comp", "counters")
+    _ARRAYS = ("y", "yi", "comp", "counters", "turns")
 
     def _fields(self) -> dict:
         n = self.yi.shape[0]
@@ -143,6 +144,7 @@ class FixedStepper(Stepper):
             "comp": state,
             "t0": (float, ()),
             "steps_done": (int, ()),
+            "turns": (np.int64, self.turns.shape),
         }
 
     def snapshot(self) -> dict:

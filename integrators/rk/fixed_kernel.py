@@ -27,6 +27,7 @@ from topdrift.integrators.rk.embedded_kernel import (  # rhs: the inlined switch
 )
 from topdrift.models.dynamics import singular
 from topdrift.models.forms import FORM_BODY, FORM_EULER
+from topdrift.models.turns import fold_euler
 
 
 @njit(cache=True)
@@ -34,7 +35,7 @@ def _explicit(form, work):
     """Take nsteps steps of length h in place on y (and comp). Returns (status, steps taken);
     on failure y holds the state after the last good step. Compiled once per form, as the
     embedded kernel's _advance (see there)."""
-    p, a, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, counters = work
+    p, a, ns, h, nsteps, kahan, y, comp, K, ytmp, ynew, binc, counters, turns = work
     n = y.shape[0]
     rows = ns + 1  # the packed matrix of a fixed-step method: the stages, then b
     for step in range(nsteps):
@@ -67,6 +68,8 @@ def _explicit(form, work):
         if kahan:
             for k in range(n):
                 comp[k] = ytmp[k]
+        if form == FORM_EULER:
+            fold_euler(y, turns)  # exact: comp still holds what y lacks (models/turns.py)
         counters[C_STEPS] += 1
     return ST_OK, nsteps
 
@@ -87,5 +90,6 @@ def explicit_body(work):
 
 def explicit_kernel(form: int):
     """The entry for a form. It takes the tuple (p, a, ns, h, nsteps, kahan, y, comp, K, ytmp,
-    ynew, binc, counters) and returns (status, steps taken)."""
+    ynew, binc, counters, turns) and returns (status, steps taken); an Euler-form run folds phi and
+    psi after every step, counting whole turns in turns (models/turns.py)."""
     return explicit_euler if form == FORM_EULER else explicit_body

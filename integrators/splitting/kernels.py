@@ -11,7 +11,8 @@ fresh = 1 means w is a closed state (no step taken yet): the first kick is b_0 h
 
 Kernels call the model kernels by name (flow_a, flow_b, increment_a, increment_b, singular),
 allocate nothing inside the step loop, and count their own steps, sub-flow evaluations and, of
-these, the kicks (force evaluations).
+these, the kicks (force evaluations). In the Euler form they fold phi and psi into (-pi, pi]
+after every step and count the whole turns beside the state (models/turns.py).
 """
 
 from __future__ import annotations
@@ -31,10 +32,11 @@ from topdrift.integrators.base import (
 from topdrift.models.dynamics import singular
 from topdrift.models.flows import flow_a, flow_b, increment_a, increment_b
 from topdrift.models.forms import FORM_BODY, FORM_EULER
+from topdrift.models.turns import fold_euler
 
 
 @njit(cache=True, inline="always")
-def _plain_steps(form, p, kick, drift, nsteps, w, first, counters):
+def _plain_steps(form, p, kick, drift, nsteps, w, first, counters, turns):
     s = drift.shape[0]
     n = w.shape[0]
     wrap = kick[s] + kick[0]
@@ -56,6 +58,8 @@ def _plain_steps(form, p, kick, drift, nsteps, w, first, counters):
         if singular(form, w):
             status = ST_SINGULAR
             break
+        if form == FORM_EULER:
+            fold_euler(w, turns)  # exact, and e still holds what w lacks (models/turns.py)
         done += 1
     attempted = done + (1 if status != ST_OK else 0)
     counters[C_STEPS] += done
@@ -65,9 +69,11 @@ def _plain_steps(form, p, kick, drift, nsteps, w, first, counters):
 
 
 @njit(cache=True)
-def run_plain(form, p, kick, drift, nsteps, w, fresh, counters):
+def run_plain(form, p, kick, drift, nsteps, w, fresh, counters, turns):
     """Advance the open state w by nsteps steps in place. kick (s + 1) and drift (s) are the
-    coefficients already multiplied by the step. Returns (status, good steps taken).
+    coefficients already multiplied by the step. Returns (status, good steps taken). In the
+    Euler form phi and psi are folded after every step, whole turns counted in turns (two
+    int64; empty: left unfolded, models/turns.py).
 
     The loop is inlined once per form with the form a constant, so that the sub-flows' switch
     on the form folds away (measured: 62 -> 36 ns per Euler-form leapfrog step)."""
@@ -76,8 +82,8 @@ def run_plain(form, p, kick, drift, nsteps, w, fresh, counters):
     first = kick[0] if fresh[0] != 0 else kick[kick.shape[0] - 1] + kick[0]
     fresh[0] = 0
     if form == FORM_EULER:
-        return _plain_steps(FORM_EULER, p, kick, drift, nsteps, w, first, counters)
-    return _plain_steps(FORM_BODY, p, kick, drift, nsteps, w, first, counters)
+        return _plain_steps(FORM_EULER, p, kick, drift, nsteps, w, first, counters, turns)
+    return _plain_steps(FORM_BODY, p, kick, drift, nsteps, w, first, counters, turns)
 
 
 @njit(cache=True, inline="always")
@@ -93,7 +99,7 @@ def _add_compensated(w, e, d, n):
 
 
 @njit(cache=True, inline="always")
-def _compensated_steps(form, p, kick, drift, nsteps, w, e, d, first, counters):
+def _compensated_steps(form, p, kick, drift, nsteps, w, e, d, first, counters, turns):
     s = drift.shape[0]
     n = w.shape[0]
     wrap = kick[s] + kick[0]
@@ -119,6 +125,8 @@ def _compensated_steps(form, p, kick, drift, nsteps, w, e, d, first, counters):
         if singular(form, w):
             status = ST_SINGULAR
             break
+        if form == FORM_EULER:
+            fold_euler(w, turns)  # exact, and e still holds what w lacks (models/turns.py)
         done += 1
     attempted = done + (1 if status != ST_OK else 0)
     counters[C_STEPS] += done
@@ -128,7 +136,7 @@ def _compensated_steps(form, p, kick, drift, nsteps, w, e, d, first, counters):
 
 
 @njit(cache=True)
-def run_compensated(form, p, kick, drift, nsteps, w, e, d, fresh, counters):
+def run_compensated(form, p, kick, drift, nsteps, w, e, d, fresh, counters, turns):
     """run_plain with compensated summation: every sub-flow is evaluated as an increment d of
     the rounded state w and added to (w, e) with TwoSum; e carries what did not fit into w.
     d is scratch of the state's length."""
@@ -137,8 +145,10 @@ def run_compensated(form, p, kick, drift, nsteps, w, e, d, fresh, counters):
     first = kick[0] if fresh[0] != 0 else kick[kick.shape[0] - 1] + kick[0]
     fresh[0] = 0
     if form == FORM_EULER:
-        return _compensated_steps(FORM_EULER, p, kick, drift, nsteps, w, e, d, first, counters)
-    return _compensated_steps(FORM_BODY, p, kick, drift, nsteps, w, e, d, first, counters)
+        return _compensated_steps(
+            FORM_EULER, p, kick, drift, nsteps, w, e, d, first, counters, turns
+        )
+    return _compensated_steps(FORM_BODY, p, kick, drift, nsteps, w, e, d, first, counters, turns)
 
 
 @njit(cache=True)

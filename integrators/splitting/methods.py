@@ -114,9 +114,18 @@ class SplittingStepper(Stepper):
                 self.scratch,
                 self.fresh,
                 self.counters,
+                self.turns,
             )
         return run_plain(
-            self.form, self.params, self.kick, self.drift, k, self.w, self.fresh, self.counters
+            self.form,
+            self.params,
+            self.kick,
+            self.drift,
+            k,
+            self.w,
+            self.fresh,
+            self.counters,
+            self.turns,
         )
 
     def advance_to(self, t_end: float) -> int:
@@ -136,12 +145,12 @@ class SplittingStepper(Stepper):
             )
         self._face(direction)
         k = abs(k)
-        entry = (self.w.copy(), self.e.copy(), self.fresh.copy())
+        entry = (self.w.copy(), self.e.copy(), self.fresh.copy(), self.turns.copy())
         status, done = self._run(k)
         if status != ST_OK:
             # Keep the last good state: repeat the good steps from the entry state (the same
             # bits, since a step depends on nothing else); the counters keep the work of both.
-            self.w[:], self.e[:], self.fresh[:] = entry
+            self.w[:], self.e[:], self.fresh[:], self.turns[:] = entry
             spare = self.counters.copy()
             self._run(done)
             self.counters[:] = spare
@@ -166,6 +175,7 @@ class SplittingStepper(Stepper):
             "e": state,
             "fresh": (int, ()),
             "y": state,
+            "turns": (np.int64, self.turns.shape),
         }
 
     def snapshot(self) -> dict:
@@ -179,6 +189,7 @@ class SplittingStepper(Stepper):
             fresh=int(self.fresh[0]),
             y=self.y.copy(),
             counters=self.counters.copy(),
+            turns=self.turns.copy(),
             status=self.status,
             t_fail=self.t_fail,
         )
@@ -201,6 +212,7 @@ class SplittingStepper(Stepper):
         self.fresh[0] = int(snap["fresh"])
         self.y = np.array(snap["y"], dtype=np.float64)
         self.counters[:] = snap["counters"]
+        self.turns[:] = snap["turns"]
         self.status = int(snap["status"])
         self.t_fail = float(snap["t_fail"])
 
