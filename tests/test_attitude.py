@@ -186,3 +186,15 @@ def test_no_exact_solution_no_attitude_error(tmp_path):
     m = _run(plan, tmp_path / "a.h5").metrics
     assert m["axis_angle_max"] is None
     assert m["attitude_angle_max"] is None
+
+
+def test_near_the_pole_psi_errors_mislead_and_the_attitude_does_not(tmp_path):
+    # The README's second example: sleeping-above (1 deg off the vertical) under rk4 at h = 0.01
+    # s. phi and psi trade places near the pole, so their separate errors reach pi while the
+    # attitude, which does not split the rotation at all, is off by a fraction of that.
+    from topdrift.benchmarks.cases.library import load_case
+
+    plan = plan_run(load_case("sleeping-above"), "rk4", step=0.01, form="body")
+    m = _run(plan, tmp_path / "s.h5").metrics
+    assert m["psi_abs_max"] > 3.1
+    assert m["axis_angle_max"] <= m["attitude_angle_max"] < 0.2
