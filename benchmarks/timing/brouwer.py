@@ -168,8 +168,26 @@ def _phase_study(args) -> bool:
         )
         if r["phase_note"]:
             print(f"    note: {r['phase_note']}")
+        defect = weight_defect(method)
+        if defect:
+            # A step of the method advances time by h sum(b): the phase then drifts by the
+            # defect times the angle turned, linearly, whatever the round-off does.
+            print(
+                f"    the weights of {method} sum to 1 {defect:+.3g} (exact rationals): a linear "
+                f"phase drift of {abs(defect):.2g} times the angle turned"
+            )
         sys.stdout.flush()
     return ok
+
+
+def weight_defect(method: str) -> float:
+    """sum(b) - 1 of a Gauss method's tableau of doubles, in exact rationals, rounded once."""
+    from fractions import Fraction
+
+    from topdrift.integrators import get
+
+    b = get(method).tableau.b
+    return float(sum(Fraction(float(x)) for x in b) - 1)
 
 
 def _energy_study(args) -> bool:
