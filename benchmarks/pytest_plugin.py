@@ -23,6 +23,7 @@ BOUNDS = {
     "p_psi": ("p_psi_rel_max", "p_psi error relative to |L0|"),
     "norm": ("norm_abs_max", "quaternion norm error"),
     "axis": ("axis_angle_max", "figure-axis angle to the exact solution (rad)"),
+    "attitude": ("attitude_angle_max", "attitude (rotation) angle to the exact solution (rad)"),
     "theta": ("theta_abs_max", "theta error against the exact solution (rad)"),
     "phi": ("phi_abs_max", "phi error against the exact solution (rad)"),
     "psi": ("psi_abs_max", "psi error against the exact solution (rad)"),

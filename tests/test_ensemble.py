@@ -5,8 +5,16 @@ import json
 import numpy as np
 import pytest
 
-from topdrift.benchmarks.choose.roundoff import energy_precise, fit_exponent
+from topdrift.benchmarks.choose.roundoff import (
+    energy_precise,
+    exact_quaternions,
+    fit_exponent,
+    member_quaternions,
+    phase_references,
+    rounded_inverses,
+)
 from topdrift.benchmarks.cli.entry import main
+from topdrift.benchmarks.cli.roundoff import table_rows
 from topdrift.integrators import MethodRefused, get
 from topdrift.integrators.ensemble import EnsembleStepper
 from topdrift.models import RigidBody, body_state, euler_state
@@ -51,6 +59,65 @@ def test_fit_recovers_a_known_exponent():
     n = np.geomspace(100, 1e7, 30)
     assert fit_exponent(n, 3e-17 * n**0.5)[0] == pytest.approx(0.5, abs=1e-12)
     assert fit_exponent(n, 1e-18 * n)[0] == pytest.approx(1.0, abs=1e-12)
+    assert fit_exponent(n, 2e-19 * n**1.5)[0] == pytest.approx(1.5, abs=1e-12)
+
+
+@pytest.mark.parametrize("exponent", [0.5, 1.5])
+def test_fit_recovers_known_exponents_through_noise_and_an_early_floor(exponent):
+    # Synthetic data of known exponents: the law times log-normal scatter of 10 per cent, over
+    # a floor that the law outgrows in the first decade; the fit over the last two decades
+    # must find the exponent.
+    rng = np.random.default_rng(11)
+    n = np.unique(np.round(np.geomspace(100, 1e7, 40)))
+    law = 1e-20 * n**exponent * np.exp(0.1 * rng.standard_normal(n.size))
+    rms = np.maximum(law, law[n >= 1e5][0] * 1e-2)
+    slope, (lo, hi) = fit_exponent(n, rms)
+    assert lo >= 1e5 and hi == 1e7
+    # within four standard errors of a least-squares slope with that scatter (common practice:
+    # sigma / sqrt(sum (x - mean x)^2), here with x = log10 n as the fit takes it)
+    x = np.log10(n[n >= lo])
+    se = 0.1 / np.log(10) / np.sqrt(np.sum((x - x.mean()) ** 2))
+    assert abs(slope - exponent) < 4 * se
+    assert 4 * se < 0.1  # fine enough to tell 0.5 from 1 and 1.5 from 1
+
+
+def test_table_rows_end_at_the_last_point():
+    # 40 points (today's study): the last printed row is the last step count, which the fit uses
+    assert table_rows(40)[-1] == 39 and table_rows(40)[0] == 0
+    assert 8 <= len(table_rows(40)) <= 10
+    assert table_rows(3) == [0, 1, 2]
+    assert table_rows(17)[-1] == 16
+
+
+def test_phase_is_measured_against_each_members_own_exact_solution():
+    # A member's start is its own exact solution at step 0: the attitude error is 0 to rounding
+    # there, and the exact time k h is taken as a double-double (k h - fl(k h) exact).
+    y0 = starts(1, 3)
+    case = _CaseLike(TOP)
+    tops, why = phase_references(case, "body", y0)
+    assert why is None and len(tops) == 3
+    q = member_quaternions(1, y0, None)
+    qe = exact_quaternions(tops, 0, 1e-3)
+    assert np.allclose(np.abs(np.einsum("ij,ij->i", q, qe)), 1.0, atol=1e-15)
+    # the Euler form gives the same attitude from its angles
+    ye = starts(0, 3)
+    assert np.allclose(
+        np.abs(np.einsum("ij,ij->i", member_quaternions(0, ye, None), q)), 1.0, atol=1e-15
+    )
+    asym = _CaseLike(RigidBody(1.0, (0.05, 0.06, 0.02), com=(0.0, 0.0, 0.1)))
+    tops, why = phase_references(asym, "body", y0)
+    assert tops is None and "no Lagrange top" in why
+    # 1/0.05 and 1/0.02 are no doubles; 1/0.25 and 1/0.125 are
+    assert rounded_inverses(TOP) == ["I1", "I3"]
+    assert rounded_inverses(RigidBody(1.0, (0.25, 0.25, 0.125), com=(0.0, 0.0, 0.1))) == []
+
+
+class _CaseLike:
+    """What phase_references reads of a case: its name and body."""
+
+    def __init__(self, body):
+        self.name = "test-top"
+        self.body = body
 
 
 def test_roundoff_command(capsys, tmp_path):
@@ -80,6 +147,10 @@ def test_roundoff_command(capsys, tmp_path):
     # Gauss-Legendre keeps the body-form energy (a quadratic invariant, Cooper 1987) up to
     # round-off: after 5000 steps the error is far below any truncation error of this step.
     assert max(r["rms_energy_error"]) < 1e-14
+    # the phase beside it, at every point, from each start's exact solution
+    assert len(r["rms_phase_error"]) == len(r["n"]) and r["phase_exponent"] is not None
+    assert r["phase_fit_range"][1] == r["n"][-1] == 5000
+    assert "1/I1" in r["phase_note"]  # looping-nutation's moments have no exact inverse
     assert png.stat().st_size > 10_000
 
 

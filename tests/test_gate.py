@@ -429,3 +429,25 @@ def test_the_kovalevskaya_integral_and_force_evaluations_are_gated(tmp_path, com
     path.write_text(json.dumps(older), encoding="utf-8")
     rc, text, _ = command_line("gate", "--baseline", path, *WIDE)
     assert rc == 0, text
+
+
+def test_attitude_error_is_gated_and_an_older_baseline_reports_it_as_new(pair):
+    base, now = pair
+    with_attitude = [k for k, r in base["runs"].items() if r.get("attitude_angle_max")]
+    assert S4_KEY in with_attitude  # a case with an exact solution records it
+    now["runs"][S4_KEY]["attitude_angle_max"] = base["runs"][S4_KEY]["attitude_angle_max"] * 100
+    r = compare(base, now, Thresholds())
+    assert _kinds(r) == {(S4_KEY, "attitude_angle_max"): "regression"}
+    # A baseline recorded before the metric existed: read, not failed, the metric reported new.
+    older = copy.deepcopy(base)
+    for rec in older["runs"].values():
+        del rec["attitude_angle_max"]
+    r = compare(older, now, Thresholds())
+    assert not r.failed and _kinds(r) == {}
+    assert r.new_metrics == {"attitude_angle_max": len(with_attitude)}
+    text = format_report(r, "header")
+    assert (
+        f"metric attitude_angle_max is new since the baseline: measured in {len(with_attitude)}"
+        in text
+    )
+    assert r.as_json()["new_metrics"] == {"attitude_angle_max": len(with_attitude)}

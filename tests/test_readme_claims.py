@@ -149,6 +149,21 @@ CHECKED = [
     ),
 ]
 
+CHECKED += [
+    (
+        "The axis error never exceeds the attitude error.",
+        ["test_pick.py::test_attitude_target_is_met_against_an_independent_attitude"],
+    ),
+    (
+        "reports `axis_angle_max` 0 and `attitude_angle_max` 2.01 rad, the spin phase lost",
+        ["test_attitude.py::test_attitude_catches_the_lost_spin_phase_the_axis_error_misses"],
+    ),
+    (
+        "`sleeping-above` with rk4 at h = 0.01 s gives `psi_abs_max` 3.14",
+        ["test_attitude.py::test_near_the_pole_psi_errors_mislead_and_the_attitude_does_not"],
+    ),
+]
+
 UNCHECKED = [
     (
         "Timings of runs this short are\nmachine- and load-dependent",

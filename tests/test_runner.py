@@ -167,7 +167,14 @@ def test_interrupt_then_resume_gives_the_same_bits(top, tmp_path):
         assert 0 < g["t"].shape[0] < 41
     done = _run(plan, tmp_path / "part.h5", resume=True)
     assert done.status == "ok"
-    for k in ("energy_rel_max", "p_phi_rel_max", "steps", "rhs_evals", "energy_drift_exponent"):
+    for k in (
+        "energy_rel_max",
+        "p_phi_rel_max",
+        "attitude_angle_max",
+        "steps",
+        "rhs_evals",
+        "energy_drift_exponent",
+    ):
         assert done.metrics[k] == whole.metrics[k]
     with (
         reader.open_reader(tmp_path / "whole.h5") as fa,

@@ -37,6 +37,7 @@ METRIC_KEYS = {
     "phi_abs_max",
     "psi_abs_max",
     "kovalevskaya_rel_max",
+    "attitude_angle_max",
     "steps",
     "rhs_evals",
     "force_evals",

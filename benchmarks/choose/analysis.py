@@ -25,6 +25,7 @@ KNOBS = ("step", "step_requested", "steps_per_sample", "rtol", "atol")
 # Error metrics: key -> (metric name, axis label, unit).
 ERRORS = {
     "axis": ("axis_angle_max", "max figure-axis angle from exact", "rad"),
+    "attitude": ("attitude_angle_max", "max attitude (rotation) angle from exact", "rad"),
     "energy": ("energy_rel_max", "max |E - E0| / |E0|", "1"),
 }
 # The invariant an error metric measures, where it measures one: a method that keeps it by
@@ -317,6 +318,15 @@ def drift_laws(records: list[dict]) -> dict[str, str]:
         r["run_id"]: drift_law((r.get("metrics") or {}).get("energy_drift_exponent"))
         for r in records
     }
+
+
+def has_error(records: list[dict], case: str, error: str) -> bool:
+    """Whether an ok run of the case has a finite value of the error metric (ERRORS key)."""
+    name = ERRORS[error][0]
+    return any(
+        r.get("status") == STATUS_OK and _finite((r.get("metrics") or {}).get(name)) is not None
+        for r in case_records(records, case)
+    )
 
 
 def default_error(records: list[dict], case: str) -> str:

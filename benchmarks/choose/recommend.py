@@ -2,9 +2,10 @@
 over a horizon, found by bisection on a log scale, verified by a fresh run, ranked by wall time.
 
 The error is the largest angle between the computed and the true figure axis over the samples
-(metric "axis"), or the largest relative energy error (metric "energy"). For a case without an
-exact solution the true axis is a reference run of dop853 at rtol 1e-13 in the body form, and
-the result says so.
+(metric "axis"), the largest rotation angle between the computed and the true attitude, spin
+phase included (metric "attitude"), or the largest relative energy error (metric "energy"). For
+a case without an exact solution the true axis and attitude are a reference run of dop853 at
+rtol 1e-13 in the body form, and the result says so.
 """
 
 from __future__ import annotations
@@ -18,6 +19,7 @@ import numpy as np
 from topdrift.benchmarks.cases.time_scales import fastest_period
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.in_memory import run_in_memory
+from topdrift.benchmarks.run.metrics import attitude_angle
 from topdrift.benchmarks.run.runner import plan_run, samples_for_horizon, steps_per_interval
 from topdrift.benchmarks.stopping import Interrupted
 from topdrift.integrators import MethodRefused
@@ -35,7 +37,9 @@ DEFAULT_CANDIDATES = (
     "gauss4",
     "gauss6",
 )
-METRICS = ("axis", "energy")
+METRICS = ("axis", "attitude", "energy")
+# The trajectory metrics (against the exact solution, or else a reference run) by run metric.
+TRAJECTORY_METRICS = {"axis": "axis_angle_max", "attitude": "attitude_angle_max"}
 REFERENCE = {"method": "dop853", "form": "body", "rtol": 1e-13, "atol": 1e-16}
 BISECTIONS = 5  # halvings of the log interval between a failing and a passing setting
 VERIFY_RUNS = 3  # fresh runs of a chosen setting, while they take under VERIFY_BUDGET_S in all
@@ -66,10 +70,13 @@ class Choice:
     capped: bool = False  # the step stopped at the sample interval, not at the target
 
 
-def _axes(run) -> np.ndarray:
+def _quaternions(run) -> np.ndarray:
     with run.open() as f:
-        q = f["runs"][run.run_id]["quaternion"][()]
-    return np.array([figure_axis(*row) for row in q])
+        return f["runs"][run.run_id]["quaternion"][()]
+
+
+def _axes(run) -> np.ndarray:
+    return np.array([figure_axis(*row) for row in _quaternions(run)])
 
 
 def _angle(a: np.ndarray, b: np.ndarray) -> float:
@@ -89,7 +96,7 @@ class Picker:
         report: Callable[[str], None],
     ):
         if metric not in METRICS:
-            raise UserError(f"--metric: expected axis or energy, got {metric!r}")
+            raise UserError(f"--metric: expected axis, attitude or energy, got {metric!r}")
         if not (isinstance(target, float) and math.isfinite(target) and target > 0.0):
             raise UserError(f"--target: must be a positive finite number, got {target!r}")
         self.case = case
@@ -99,9 +106,10 @@ class Picker:
         self.samples = samples
         self.report = report
         self.reference_axes = None
+        self.reference_quaternions = None
         self.reference_note = None
         self._trials: dict[tuple[str, str, float], Trial] = {}
-        if metric == "axis":
+        if metric in TRAJECTORY_METRICS:
             self._reference()
 
     def _reference(self) -> None:
@@ -124,8 +132,10 @@ class Picker:
         if run.status != "ok":
             raise UserError(f"{self.case.name}: the reference run ended {run.status}: {run.detail}")
         self.reference_axes = _axes(run)
+        self.reference_quaternions = _quaternions(run)
         self.reference_note = (
-            f"{why or 'no exact solution'} for {self.case.name}: the axis error is measured "
+            f"{why or 'no exact solution'} for {self.case.name}: the {self.metric} error is "
+            "measured "
             f"against a {r['method']} reference run at rtol {r['rtol']:g} in the {r['form']} form"
         )
         self.report(self.reference_note)
@@ -168,10 +178,12 @@ class Picker:
             achieved = math.inf
         elif self.metric == "energy":
             achieved = m.get("energy_rel_max")
-        elif self.reference_axes is not None:
-            achieved = _angle(_axes(run), self.reference_axes)
+        elif self.reference_axes is None:
+            achieved = m.get(TRAJECTORY_METRICS[self.metric])
+        elif self.metric == "attitude":
+            achieved = float(np.max(attitude_angle(_quaternions(run), self.reference_quaternions)))
         else:
-            achieved = m.get("axis_angle_max")
+            achieved = _angle(_axes(run), self.reference_axes)
         if achieved is None or not math.isfinite(achieved):
             achieved = math.inf
         return Trial(

@@ -8,6 +8,14 @@ independent random errors gives an exponent of 1/2 (Brouwer's law: D. Brouwer, "
 accumulation of errors in numerical integration", Astron. J. 46 (1937) 149; E. Hairer,
 R. I. McLachlan and A. Razakarivony, "Achieving Brouwer's law with implicit Runge-Kutta
 methods", BIT 48 (2008) 231); systematic rounding gives up to 1 (linear drift).
+
+The phase: at the same step counts, every member's attitude is compared with the exact solution
+of its own start (a Lagrange top; none otherwise), the rotation angle of R_exact^T R, and its RMS
+over the ensemble is fitted the same way. An energy error that walks like sqrt(N) makes the
+frequencies walk with it, and the angles, their integrals, then stray like N^(3/2) (Brouwer's
+second law, same paper). That law is about round-off only: the truncation error of the phase
+grows like N h^(p+1) and must be far below it over the fitted range, which takes a step much
+smaller than the energy alone needs (docs/ensembles-and-roundoff.md says how small).
 """
 
 from __future__ import annotations
@@ -18,6 +26,7 @@ import numpy as np
 
 from topdrift.benchmarks.cases.numbers import non_negative, positive, whole
 from topdrift.benchmarks.errors import UserError
+from topdrift.benchmarks.run.metrics import attitude_angle, euler_quaternions
 from topdrift.benchmarks.run.perturbed import perturbed_starts
 from topdrift.benchmarks.run.runner import MAX_STEPS
 from topdrift.benchmarks.stopping import Interrupted
@@ -89,6 +98,66 @@ def energy_precise(form: int, y: np.ndarray, low: np.ndarray | None, p: np.ndarr
         return t + P[P_MGX] * g1 + P[P_MGY] * g2 + P[P_MGZ] * g3
 
 
+def phase_references(case, form: str, Y0: np.ndarray) -> tuple[list | None, str | None]:
+    """The exact solution of every member's own start, or (None, why) when the body has none
+    (not a Lagrange top, or a start the exact solution refuses)."""
+    from topdrift.models.exact import LagrangeTop
+
+    if not case.body.lagrange_top:
+        return None, f"{case.name} is no Lagrange top: no exact solution to measure the phase by"
+    tops = []
+    for j in range(Y0.shape[0]):
+        try:
+            tops.append(LagrangeTop.from_state(case.body, form, Y0[j]))
+        except ValueError as exc:
+            return None, f"member {j}: no exact solution ({exc})"
+    return tops, None
+
+
+def rounded_inverses(body) -> list[str]:
+    """The moments of inertia whose inverse the kernels hold rounded (1/I not a double). The
+    kernels then integrate a top whose frequencies differ from the exact solution's by about
+    1e-16 relative, and the phase error gains a linear term of that size times the angle
+    turned, whatever the method; moments that are powers of two keep the two models one."""
+    from fractions import Fraction
+
+    from topdrift.models.body import P_I1, P_I3, P_INV1, P_INV3
+
+    p = body.params()
+    out = []
+    for name, i, inv in (("I1", P_I1, P_INV1), ("I3", P_I3, P_INV3)):
+        if Fraction(float(p[i])) * Fraction(float(p[inv])) != 1:
+            out.append(name)
+    return out
+
+
+def member_quaternions(form: int, Y: np.ndarray, low: np.ndarray | None) -> np.ndarray:
+    """(starts, 4) attitude quaternions of the members' states (low parts added, rounded once);
+    from the Euler angles in the Euler form."""
+    Y = Y if low is None else Y + low
+    if form == 0:
+        return euler_quaternions(Y[:, :3])
+    return Y[:, :4].copy()
+
+
+def exact_quaternions(tops: list, k: int, step: float) -> np.ndarray:
+    """(starts, 4) exact attitudes after k steps, at the time k * step taken exactly (as the
+    double-double of the product: t = k h rounded would move the phase by ulp(t) times the spin
+    rate, more than the round-off of the first decades)."""
+    t_hi = float(k) * step
+    t_lo = _product_error(float(k), step, t_hi)
+    th, tl = np.array([t_hi]), np.array([t_lo])
+    return np.vstack([top.sample(th, tl).quaternion for top in tops])
+
+
+def _product_error(a: float, b: float, p: float) -> float:
+    """a * b - p, exact in rationals and rounded once: the low word of the double-double a * b
+    (once per point, so the cost of rationals does not matter)."""
+    from fractions import Fraction
+
+    return float(Fraction(a) * Fraction(b) - Fraction(p))
+
+
 def fit_exponent(n: np.ndarray, rms: np.ndarray, decades: float = FIT_DECADES):
     """Least-squares slope of log rms against log n over the last `decades` of n."""
     keep = (n >= n[-1] / 10.0**decades) & (rms > 0)
@@ -125,6 +194,7 @@ def roundoff_study(
         Y0 = perturbed_starts(case, form, starts, spread, seed)
         ens = EnsembleStepper(m, code, p, 0.0, Y0, step)
         e0 = [energy_precise(code, Y0[j], None, p) for j in range(starts)]
+        tops, phase_unknown = phase_references(case, form, Y0)
     except Interrupted as exc:
         raise exc.saying("while preparing the starts, before any step; nothing written") from None
     n_at = np.unique(np.round(np.geomspace(100, steps, points)).astype(np.int64))
@@ -132,16 +202,34 @@ def roundoff_study(
     # The signed mean beside the RMS: a bias shared by the members (a systematic rounding) shows
     # as |mean| close to the RMS, a random walk as |mean| about RMS / sqrt(starts).
     mean: list[float] = []
+    phase: list[float] = []
     piece = max(1, CHUNK_MEMBER_STEPS // starts)
     try:
         for k in n_at:
             _take_point(case, ens, int(k), step, piece, code, p, e0, rms, mean)
+            if tops is not None:
+                q = member_quaternions(code, ens.y, ens.low_parts())
+                err = attitude_angle(q, exact_quaternions(tops, int(k), step))
+                phase.append(math.sqrt(float(np.mean(err * err))))
     except Interrupted as exc:
         raise exc.saying(
             f"at step {ens.n} of {steps} ({len(rms)} of {len(n_at)} points taken); nothing written"
         ) from None
     rms = np.array(rms)
     exponent, fit_range = fit_exponent(n_at.astype(float), rms)
+    phase_exponent = phase_range = None
+    if tops is not None:
+        phase_exponent, phase_range = fit_exponent(n_at.astype(float), np.array(phase))
+        if phase_exponent is None:
+            phase_unknown = "too few points above zero for a fit"
+    rounded = rounded_inverses(case.body) if tops is not None else []
+    phase_note = None
+    if rounded:
+        phase_note = (
+            f"1/{' and 1/'.join(rounded)} of {case.name} are rounded in the kernels: the phase "
+            "error gains a linear term of about 1e-16 times the angle turned from that alone "
+            "(moments of inertia that are powers of two avoid it)"
+        )
     return {
         "case": case.name,
         "method": method,
@@ -156,6 +244,12 @@ def roundoff_study(
         "n": n_at.tolist(),
         "rms_energy_error": rms.tolist(),
         "mean_energy_error": mean,
+        "phase_exponent": phase_exponent,
+        "phase_fit_range": phase_range,
+        "phase_error": "attitude angle of each member from its own start's exact solution (rad)",
+        "rms_phase_error": phase if tops is not None else None,
+        "phase_unknown": phase_unknown,
+        "phase_note": phase_note,
     }
 
 
@@ -193,7 +287,11 @@ def plot_roundoff(results: list[dict], path) -> None:
     matplotlib.use("Agg")
     import matplotlib.pyplot as plt
 
-    fig, ax = plt.subplots(figsize=(7.0, 4.8), layout="constrained")
+    with_phase = any(r.get("rms_phase_error") for r in results)
+    fig, axes = plt.subplots(
+        1, 2 if with_phase else 1, figsize=(12.0 if with_phase else 7.0, 4.8), layout="constrained"
+    )
+    ax = axes[0] if with_phase else axes
     for r in results:
         n = np.array(r["n"], dtype=float)
         rms = np.array(r["rms_energy_error"])
@@ -216,7 +314,34 @@ def plot_roundoff(results: list[dict], path) -> None:
     ax.set_title(f"{r0['case']}: round-off growth, h = {r0['step']:g} s, {r0['starts']} starts")
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=8, loc="upper left")
+    if with_phase:
+        _phase_panel(axes[1], results)
     try:
         save_png(fig, path, dpi=120)
     finally:
         plt.close(fig)
+
+
+def _phase_panel(ax, results: list[dict]) -> None:
+    """The RMS attitude error against N, with Brouwer's slope 3/2 and a linear slope beside."""
+    drawn = None
+    for r in results:
+        phase = r.get("rms_phase_error")
+        if not phase:
+            continue
+        n = np.array(r["n"], dtype=float)
+        e = np.array(phase)
+        label = r["method"]
+        if r.get("phase_exponent") is not None:
+            label = f"{r['method']} ({r['form']}): exponent {r['phase_exponent']:.2f}"
+        ax.loglog(n, e, "o-", ms=3, label=label)
+        drawn = drawn if drawn is not None else (n, e)
+    n, e = drawn
+    mid = len(n) // 2
+    for slope, style in ((1.5, ":"), (1.0, "--")):
+        ax.loglog(n, e[mid] * (n / n[mid]) ** slope, "k" + style, lw=0.8, label=f"slope {slope:g}")
+    ax.set_xlabel("steps N")
+    ax.set_ylabel("RMS attitude error from each start's exact solution (rad)")
+    ax.set_title("phase: Brouwer's law for an angle is slope 3/2")
+    ax.grid(True, which="both", alpha=0.3)
+    ax.legend(fontsize=8, loc="upper left")

@@ -73,9 +73,9 @@ def pick_runs(
 def pick_error(records: list[dict], case: str, error: str | None) -> str:
     if error is None:
         return analysis.default_error(records, case)
-    if error == "axis" and analysis.default_error(records, case) != "axis":
+    if error in ("axis", "attitude") and analysis.default_error(records, case) != "axis":
         raise UserError(
-            f"case '{case}' has no ok run with an axis error (no exact solution?); "
+            f"case '{case}' has no ok run with an {error} error (no exact solution?); "
             "use --error energy"
         )
     return error

@@ -21,13 +21,15 @@ def add_parser(sub) -> None:
         type=float,
         required=True,
         metavar="ERR",
-        help="largest acceptable error (rad for axis, relative for energy)",
+        help="largest acceptable error (rad for axis and attitude, relative for energy)",
     )
     p.add_argument(
         "--metric",
-        choices=("axis", "energy"),
+        choices=("axis", "attitude", "energy"),
         default="axis",
-        help="figure-axis angle error (default) or relative energy error",
+        help="figure-axis angle error (default: a pointing requirement), attitude error (the "
+        "rotation angle of the whole attitude, spin phase included: a three-axis requirement) "
+        "or relative energy error",
     )
     p.add_argument("--horizon", type=float, help="end time T (s); default from the case")
     p.add_argument(
@@ -77,7 +79,7 @@ def run(args) -> int:
     if args.json:
         print(json.dumps(result, indent=2))
         return 0 if result["ranking"] else 1
-    unit = "rad" if args.metric == "axis" else "(relative)"
+    unit = "(relative)" if args.metric == "energy" else "rad"
     print(
         f"{case.name}: {args.metric} error <= {args.target:g} {unit} over {result['horizon']:g} s"
     )

@@ -25,9 +25,10 @@ def add_parser(sub) -> None:
     )
     p.add_argument(
         "--error",
-        choices=("axis", "energy"),
-        help="work-precision error: figure-axis angle from the exact solution, or "
-        "relative energy error (default: axis where the case has an exact solution)",
+        choices=("axis", "attitude", "energy"),
+        help="work-precision error: figure-axis angle from the exact solution, attitude "
+        "(rotation) angle from it, or relative energy error (default: axis where the case has "
+        "an exact solution)",
     )
     p.add_argument(
         "--cost",
@@ -89,7 +90,7 @@ def _plot(args, saved: list[str]) -> int:
         costs = ("wall", "force") if args.cost == "both" else (args.cost,)
         if not any(analysis.work_points(records, case, error, c) for c in costs):
             what = " or ".join(analysis.COSTS[c][1] for c in costs)
-            raise UserError(f"case '{case}' has no ok run with both a {error} error and a {what}")
+            raise UserError(f"case '{case}' has no ok run with both an {error} error and a {what}")
         out = _guarded(args.out or f"{slug(case)}-{args.kind}.png", args.file)
         plots.work_precision(records, case, out, error=error, costs=costs)
     else:

@@ -1,6 +1,7 @@
-"""`topdrift roundoff CASE --method M --step H`: how the energy error grows with the number of
-steps at a step small enough for round-off to dominate; the exponent of the fit (Brouwer's law:
-1/2), over an ensemble of perturbed starts, with a plot."""
+"""`topdrift roundoff CASE --method M --step H`: how the energy error and the phase (the attitude
+error against each start's exact solution) grow with the number of steps at a step small enough
+for round-off to dominate; the exponents of the fits (Brouwer's laws: 1/2 and 3/2), over an
+ensemble of perturbed starts, with a plot."""
 
 from __future__ import annotations
 
@@ -10,11 +11,15 @@ import json
 def add_parser(sub) -> None:
     p = sub.add_parser(
         "roundoff",
-        help="fit the growth exponent of round-off in the energy over an ensemble of starts",
+        help="fit the growth exponents of round-off in the energy and the phase over an "
+        "ensemble of starts",
         description="Advance an ensemble of perturbed starts of CASE with one method and step, "
         "take the RMS relative energy error at log-spaced step counts (evaluated in 40-digit "
         "arithmetic), and fit its growth exponent over the last two decades: 1/2 is Brouwer's "
-        "law of random round-off, 1 a systematic drift. Use a step at which truncation is below "
+        "law of random round-off, 1 a systematic drift. For a Lagrange top the same for the "
+        "phase, the RMS attitude error against each start's exact solution: 3/2 is Brouwer's "
+        "law for an angle. The phase needs a step at which its truncation error, too, is below "
+        "round-off. Use a step at which truncation is below "
         "round-off (for Gauss-Legendre methods in the body form, energy has no truncation "
         "error at all).",
     )
@@ -47,6 +52,18 @@ def add_parser(sub) -> None:
     )
     p.add_argument("--json", action="store_true", help="print the result as JSON")
     p.set_defaults(func=run)
+
+
+TABLE_ROWS = 8  # about this many rows of the points, always ending with the last one
+
+
+def table_rows(points: int) -> list[int]:
+    """Indices of the points the table prints: every k-th from the first, and the last, which
+    is the last step count the fits use."""
+    rows = list(range(0, points, max(1, points // TABLE_ROWS)))
+    if points and rows[-1] != points - 1:
+        rows.append(points - 1)
+    return rows
 
 
 def run(args) -> int:
@@ -84,13 +101,28 @@ def run(args) -> int:
         f"{r['case']}: {r['method']} ({r['form']}), h = {r['step']:g} s, {r['starts']} starts,"
         f" {r['steps']:g} steps"
     )
-    for n, e in list(zip(r["n"], r["rms_energy_error"], strict=True))[:: max(1, len(r["n"]) // 8)]:
-        print(f"  N = {n:>10d}   RMS |dE/E| = {e:.3e}")
+    phase = r["rms_phase_error"]
+    for k in table_rows(len(r["n"])):
+        angle = "" if phase is None else f"   RMS attitude error = {phase[k]:.3e} rad"
+        print(f"  N = {r['n'][k]:>10d}   RMS |dE/E| = {r['rms_energy_error'][k]:.3e}{angle}")
     if r["exponent"] is None:
         print("too few points above zero for a fit")
         return 1
     lo, hi = r["fit_range"]
-    print(f"growth exponent {r['exponent']:.3f} (fit over N = {lo} .. {hi}); Brouwer's law: 0.5")
+    print(
+        f"energy growth exponent {r['exponent']:.3f} (fit over N = {lo} .. {hi}); "
+        "Brouwer's law: 0.5"
+    )
+    if r["phase_exponent"] is not None:
+        lo, hi = r["phase_fit_range"]
+        print(
+            f"phase growth exponent {r['phase_exponent']:.3f} (attitude error, fit over N = {lo} "
+            f".. {hi}); Brouwer's law: 1.5"
+        )
+    else:
+        print(f"phase: not fitted: {r['phase_unknown']}")
+    if r["phase_note"]:
+        print(f"note: {r['phase_note']}")
     if args.plot:
         print(f"plot: {args.plot}")
     return 0

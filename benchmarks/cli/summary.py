@@ -44,6 +44,7 @@ COLUMNS = (
     ("dp_psi", lambda r: _num(r["metrics"].get("p_psi_rel_max"))),
     ("dK/K", lambda r: _num(r["metrics"].get("kovalevskaya_rel_max"))),
     ("axis", lambda r: _num(r["metrics"].get("axis_angle_max"))),
+    ("attitude", lambda r: _num(r["metrics"].get("attitude_angle_max"))),
     ("drift", lambda r: _num(r["metrics"].get("energy_drift_exponent"), ".2f")),
     ("wall s", lambda r: _num(r["metrics"].get("wall_s"), ".3g")),
     ("ns/step", lambda r: _num(r["metrics"].get("ns_per_step"), ".1f")),

@@ -118,6 +118,9 @@ class GateResult:
     missing_timings: list[str] = field(default_factory=list)
     new_timings: list[str] = field(default_factory=list)
     new_methods: dict[str, int] = field(default_factory=dict)  # method -> runs in the rerun
+    # metric -> runs whose rerun measures it where the baseline run has no such key (a baseline
+    # recorded before the metric existed): reported, not gated
+    new_metrics: dict[str, int] = field(default_factory=dict)
     accepted: list[str] = field(default_factory=list)  # missing cells accepted by name
     accept_names: list[str] = field(default_factory=list)
     timing_verdicts: list[TimingVerdict] = field(default_factory=list)
@@ -174,6 +177,7 @@ class GateResult:
             "missing_timings": self.missing_timings,
             "new_timings": self.new_timings,
             "new_methods": self.new_methods,
+            "new_metrics": self.new_metrics,
             "accepted_missing": self.accepted,
             "version_changes": [
                 {"name": n, "baseline": a, "now": b} for n, a, b in self.version_changes
@@ -293,6 +297,8 @@ def compare_runs(
         for name in OPTIONAL_ERROR_METRICS:
             if name in a:
                 _compare_error(key, name, a[name], b.get(name), t, out)
+            elif b.get(name) is not None:
+                result.new_metrics[name] = result.new_metrics.get(name, 0) + 1
         counts = ("steps", "rhs_evals") + tuple(n for n in OPTIONAL_COUNT_METRICS if n in a)
         for name in counts:
             allowed = t.steps_tolerance * abs(a[name]) if a[name] is not None else 0.0
@@ -527,6 +533,11 @@ def format_report(result: GateResult, header: str, t: Thresholds | None = None) 
             lines.extend(f"  {k}" for k in keys)
     for m, n in result.new_methods.items():
         lines.append(f"method {m} is new since the baseline: {n} run(s), reported, not gated")
+    for m, n in result.new_metrics.items():
+        lines.append(
+            f"metric {m} is new since the baseline: measured in {n} run(s), reported, not gated "
+            "(record the baseline again to gate it)"
+        )
     if result.accepted:
         names = " ".join(result.accept_names)
         lines.append(

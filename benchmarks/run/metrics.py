@@ -38,7 +38,13 @@ MAX_NAMES = (
 )
 _EXACT_NAMES = ("axis_angle_max", "theta_abs_max", "phi_abs_max", "psi_abs_max")
 
+# The whole attitude against the exact solution: kept beside the array above, not in it, so that
+# a checkpoint's maxima keep their layout (a checkpoint written before this metric existed still
+# resumes); a resumed run takes it again from the stored samples (Accumulator.attitude_from_rows).
+ATTITUDE_NAME = "attitude_angle_max"
+
 METRIC_NAMES = MAX_NAMES + (
+    ATTITUDE_NAME,
     "steps",
     "rhs_evals",
     "force_evals",
@@ -112,6 +118,29 @@ def axis_angle(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     return np.arctan2(cross, dot)
 
 
+def euler_quaternions(euler: np.ndarray) -> np.ndarray:
+    """(n, 4) quaternions (scalar first, body to space) of (n, 3) rows (phi, theta, psi), z-x-z:
+    the formula of models/quaternion.from_euler, row-wise. Folded angles give q or -q, the same
+    rotation."""
+    phi, theta, psi = euler[:, 0], euler[:, 1], euler[:, 2]
+    ch, sh = np.cos(0.5 * theta), np.sin(0.5 * theta)
+    sp, sm = 0.5 * (phi + psi), 0.5 * (phi - psi)
+    return np.column_stack((ch * np.cos(sp), sh * np.cos(sm), sh * np.sin(sm), ch * np.sin(sp)))
+
+
+def attitude_angle(q: np.ndarray, q_ref: np.ndarray) -> np.ndarray:
+    """Rotation angle (rad) of R_ref^T R between rows of two (n, 4) quaternions (scalar first):
+    2 atan2(|vec(d)|, |scalar(d)|) with d = conj(q_ref) q. The atan2 form keeps small angles to
+    full relative accuracy, where 2 acos of the scalar part loses half the digits (common
+    practice); the absolute values make q and -q the same attitude; and a quaternion whose norm
+    drifted scales both parts alike, so the drift does not enter the angle."""
+    a0, av = q_ref[:, 0], q_ref[:, 1:]
+    b0, bv = q[:, 0], q[:, 1:]
+    scalar = a0 * b0 + np.einsum("ij,ij->i", av, bv)
+    vec = a0[:, None] * bv - b0[:, None] * av - np.cross(av, bv)
+    return 2.0 * np.arctan2(np.linalg.norm(vec, axis=1), np.abs(scalar))
+
+
 class Accumulator:
     """Reference values from the start sample and the running maxima since."""
 
@@ -139,6 +168,7 @@ class Accumulator:
         self.kov0 = float(kov0)  # NaN unless the body is a Kovalevskaya top
         self.kov_scale = float(kov_scale)
         self.maxima = np.zeros(len(MAX_NAMES))
+        self.attitude_max = 0.0  # not in state(): see ATTITUDE_NAME
 
     @property
     def has_kovalevskaya(self) -> bool:
@@ -201,11 +231,13 @@ class Accumulator:
         exact_axis: np.ndarray | None,
         turns: np.ndarray | None = None,
         exact_turns: np.ndarray | None = None,
+        quat: np.ndarray | None = None,
     ) -> None:
         """Fold a batch of samples (rows) into the maxima. turns and exact_turns: the whole
         turns of phi and psi (n x 2) of the samples and of the exact solution; where either is
         not known (a body-form run, whose angles come from its quaternion modulo 2 pi) the
-        phase errors are taken modulo 2 pi."""
+        phase errors are taken modulo 2 pi. quat, the computed quaternions, adds the attitude
+        error (against the quaternions of exact_euler, whose folding does not change them)."""
         if scal.shape[0] == 0:
             return
         m = self.maxima
@@ -224,6 +256,15 @@ class Accumulator:
                     euler[:, col], exact_euler[:, col], None if dk is None else dk[:, at]
                 )
                 m[slot] = max(m[slot], float(np.max(np.abs(d))))
+            if quat is not None:
+                self.attitude_from_rows(quat, exact_euler)
+
+    def attitude_from_rows(self, quat: np.ndarray, exact_euler: np.ndarray) -> None:
+        """Fold the attitude error of rows of computed quaternions against the exact angles into
+        its maximum (the runner's batches, or a resumed run's stored samples)."""
+        if quat.shape[0]:
+            worst = float(np.max(attitude_angle(quat, euler_quaternions(exact_euler))))
+            self.attitude_max = max(self.attitude_max, worst)
 
     def energy_rel(self, energy: np.ndarray) -> np.ndarray:
         return np.abs(energy - self.e0) / self.e_scale
@@ -299,6 +340,7 @@ class Accumulator:
                 out[name] = None
             else:
                 out[name] = float(v)
+        out[ATTITUDE_NAME] = float(self.attitude_max) if self.has_exact else None
         return out
 
 

@@ -513,6 +513,14 @@ class _Run(SampledRun):
             ) from None
         self._check_rows()
         check_run_samples(self.group.f, p.run_id, self.group.parent)
+        if p.exact is not None:
+            # The attitude maximum is no part of the checkpoint (run/metrics.py, ATTITUDE_NAME):
+            # taken again from the stored rows the accumulator saw, it ends bit for bit as an
+            # uninterrupted run's, also for a checkpoint written before the metric existed.
+            g = self.group.g
+            with damage_is_an_error(self.group.f.filename):
+                quat, exact_euler = g["quaternion"][: self.k], g["exact/euler"][: self.k]
+            self.acc.attitude_from_rows(quat, exact_euler)
         if truncate:
             self.group.truncate(self.k)
 
@@ -650,7 +658,9 @@ class _Run(SampledRun):
             # Turns of the computed angles are known in the Euler form only (the body form has
             # them modulo 2 pi, from the quaternion): its errors then compare angles wrapped.
             turns = buf.turns[:j] if self.plan.form_code == FORM_EULER else None
-            self.acc.update(buf.scal[:j], buf.euler[:j], buf.axis[:j], ee, ea, turns, et)
+            self.acc.update(
+                buf.scal[:j], buf.euler[:j], buf.axis[:j], ee, ea, turns, et, buf.quat[:j]
+            )
             self.group.append(batch)
         self.checkpoint()
         m = self.acc.maxima_dict()
