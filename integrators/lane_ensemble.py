@@ -31,6 +31,7 @@ from topdrift.models.body import P_I1, P_I2, P_INV1, P_INV3, P_MGX, P_MGY, P_MGZ
 from topdrift.models.forms import FORM_BODY, FORM_EULER
 from topdrift.models.lane_flows import (
     drift_euler_lane,
+    fold_lane,
     free_symmetric_lane,
     kick_body_lane,
     kick_euler_lane,
@@ -95,9 +96,12 @@ def _kick_all(form, h, W, p, live):
 
 
 @njit(cache=True, inline="always")
-def _check_all(form, W, live, status, done) -> int:
-    """After a step: stop the members that failed it, count a good step for the others.
+def _check_all(form, W, live, status, done, turns) -> int:
+    """After a step: stop the members that failed it, count a good step for the others and,
+    in the Euler form, fold their phi and psi by whole turns into turns (2 x members; none
+    when it has no columns: the unfolded variant), as the scalar kernel does after a good step.
     Returns how many are still live."""
+    fold = form == FORM_EULER and turns.shape[1] == W.shape[1]
     n = W.shape[1]
     k = 6 if form == FORM_EULER else 7  # a constant once the form is: the sum unrolls
     alive = 0
@@ -115,11 +119,21 @@ def _check_all(form, W, live, status, done) -> int:
         live[j] = ok
         done[j] += ok
         alive += ok
+    if fold:
+        w0, w2, tp, ts = W[0], W[2], turns[0], turns[1]
+        for j in range(n):
+            a, ka = fold_lane(w0[j])
+            b, kb = fold_lane(w2[j])
+            go = live[j] != 0
+            w0[j] = a if go else w0[j]
+            w2[j] = b if go else w2[j]
+            tp[j] += int(ka) if go else 0
+            ts[j] += int(kb) if go else 0
     return alive
 
 
 @njit(cache=True, inline="always")
-def _lane_steps(form, p, kick, drift, nsteps, W, first, live, status, done):
+def _lane_steps(form, p, kick, drift, nsteps, W, first, live, status, done, turns):
     s = drift.shape[0]
     wrap = kick[s] + kick[0]
     for _ in range(nsteps):
@@ -129,7 +143,7 @@ def _lane_steps(form, p, kick, drift, nsteps, W, first, live, status, done):
             _drift_all(form, drift[i], W, p, live)
             _kick_all(form, kick[i + 1], W, p, live)
         _drift_all(form, drift[s - 1], W, p, live)
-        if _check_all(form, W, live, status, done) == 0:
+        if _check_all(form, W, live, status, done, turns) == 0:
             break
 
 
@@ -137,12 +151,13 @@ def _lane_steps(form, p, kick, drift, nsteps, W, first, live, status, done):
 # Python that would keep every loop with a division from vectorising. The scalar kernels never
 # divide by zero either: a state where they would is stopped by the check after its step.
 @njit(cache=True, error_model="numpy")
-def run_lanes(form, p, kick, drift, nsteps, W, fresh, counters, status, live, done):
+def run_lanes(form, p, kick, drift, nsteps, W, fresh, counters, turns, status, live, done):
     """Advance the open states W (SoA, components x members) by nsteps steps in place. kick
     (s + 1) and drift (s) are the coefficients times the step; fresh[0] = 1 before the first
-    step (the opening kick is b_0 h, not the merged one). status, live (1 while ok) and done
-    are per member; done is scratch. Counters as the scalar kernel: steps taken, and 2 s
-    sub-flows (s of them kicks) per step attempted."""
+    step (the opening kick is b_0 h, not the merged one). turns (2 x members, int64): the whole
+    turns of phi and psi, Euler form (models/turns.py); with no columns the angles stay
+    unfolded. status, live (1 while ok) and done are per member; done is scratch. Counters as
+    the scalar kernel: steps taken, and 2 s sub-flows (s of them kicks) per step attempted."""
     if nsteps <= 0:
         return
     s = drift.shape[0]
@@ -154,9 +169,9 @@ def run_lanes(form, p, kick, drift, nsteps, W, fresh, counters, status, live, do
         done[j] = 0
         was[j] = live[j]
     if form == FORM_EULER:
-        _lane_steps(FORM_EULER, p, kick, drift, nsteps, W, first, live, status, done)
+        _lane_steps(FORM_EULER, p, kick, drift, nsteps, W, first, live, status, done, turns)
     else:
-        _lane_steps(FORM_BODY, p, kick, drift, nsteps, W, first, live, status, done)
+        _lane_steps(FORM_BODY, p, kick, drift, nsteps, W, first, live, status, done, turns)
     for j in range(n):
         attempted = done[j] + (1 if (was[j] != 0 and live[j] == 0) else 0)
         counters[j, C_STEPS] += done[j]

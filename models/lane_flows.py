@@ -20,8 +20,10 @@ import math
 
 from numba import njit
 
+from .double_double import two_prod
 from .lane_trig import sincos
 from .quaternion import qmul, rotate, vertical_in_body
+from .turns import HALF_TURN, TURN
 
 
 @njit(cache=True, inline="always", error_model="numpy")
@@ -91,3 +93,19 @@ def free_symmetric_lane(h, q0, q1, q2, q3, m1, m2, m3, inv1, inv3):
         m1 + (m1 * cb1 + m2 * sb),
         m2 + (m2 * cb1 - m1 * sb),
     )
+
+
+@njit(cache=True, inline="always", error_model="numpy")
+def fold_lane(a):
+    """turns.fold_one for one angle in a lane: (folded angle, whole turns T taken off, as a
+    double). The same operations with selects for its branch, so the same bits: for an angle
+    already in (-fl(pi), fl(pi)], k = 0 and the angle comes back as it was."""
+    k = math.floor(a / TURN + 0.5)
+    ph, pl = two_prod(k, TURN)
+    r = (a - ph) - pl
+    up = r > HALF_TURN
+    down = r <= -HALF_TURN
+    r = r - TURN if up else (r + TURN if down else r)
+    k = k + 1.0 if up else (k - 1.0 if down else k)
+    inside = a <= HALF_TURN and a > -HALF_TURN
+    return (a if inside else r), (0.0 if inside else k)

@@ -28,6 +28,7 @@ from topdrift.models.flows import drift_euler, free_symmetric, kick_body, kick_e
 from topdrift.models.invariants import invariants_of
 from topdrift.models.lane_flows import (
     drift_euler_lane,
+    fold_lane,
     free_symmetric_lane,
     kick_body_lane,
     kick_euler_lane,
@@ -82,11 +83,12 @@ def lane_run(name, form, y0, h, nsteps):
     status = np.zeros(n, dtype=np.int64)
     live = np.ones(n, dtype=np.int64)
     fresh = np.ones(1, dtype=np.int64)
+    turns = np.zeros((2, n), dtype=np.int64)
     run_lanes(
-        form, ens.params, ens.kick, ens.drift, nsteps, W, fresh, counters, status, live,
+        form, ens.params, ens.kick, ens.drift, nsteps, W, fresh, counters, turns, status, live,
         np.zeros(n, dtype=np.int64),
     )  # fmt: skip
-    return W.T, counters, status
+    return W.T, counters, status, turns.T
 
 
 @pytest.mark.parametrize("form", [0, 1])
@@ -96,14 +98,18 @@ def test_steps_match_the_scalar_ensemble(name, form):
     h = 1e-3
     ens = EnsembleStepper(get(name), form, P, 0.0, y0, h)
     ens.advance_to(h)
-    W, counters, status = lane_run(name, form, y0, h, 1)
+    W, counters, status, _ = lane_run(name, form, y0, h, 1)
     assert np.all(status == ST_OK)
     assert ulps(W, ens.W) <= 8.0
     ens = EnsembleStepper(get(name), form, P, 0.0, y0, h)
     ens.advance_to(200 * h)
-    W, counters, status = lane_run(name, form, y0, h, 200)
-    # 200 steps of a top whose nutation amplifies differences: close, not the same bits
+    W, counters, status, turns = lane_run(name, form, y0, h, 200)
+    # 200 steps of a top whose nutation amplifies differences: close, not the same bits; the
+    # Euler form's angles folded by the same whole turns as the scalar kernel's
     assert np.max(np.abs(W - ens.W)) < 1e-10
+    assert np.array_equal(turns, ens.turns)
+    if form == 0:
+        assert np.all(np.abs(W[:, [0, 2]]) <= np.pi) and np.any(turns != 0)
     assert_same_counts(counters, ens.counters)
 
 
@@ -123,7 +129,7 @@ def test_a_member_at_the_pole_stops_there_and_the_others_go_on():
     h = 1e-3
     ens = EnsembleStepper(get("leapfrog"), 0, P, 0.0, y0, h)
     ens.advance_to(50 * h)
-    W, counters, status = lane_run("leapfrog", 0, y0, h, 50)
+    W, counters, status, _ = lane_run("leapfrog", 0, y0, h, 50)
     assert ens.status[4] == ST_SINGULAR and status[4] == ST_SINGULAR
     assert np.all(np.delete(status, 4) == ST_OK)
     assert_same_counts(counters, ens.counters)  # the same step of failure, the same counts
@@ -141,12 +147,27 @@ def test_round_off_statistics_match_the_scalar_ensemble(form):
     e0 = np.array([invariants_of(form, y, P)["energy"] for y in y0])
     ens = EnsembleStepper(get("leapfrog"), form, P, 0.0, y0, h)
     ens.advance_to(n * h)
-    W, _, status = lane_run("leapfrog", form, y0, h, n)
+    W, _, status, _ = lane_run("leapfrog", form, y0, h, n)
     assert np.all(status == ST_OK)
     e_scalar = np.array([invariants_of(form, y, P)["energy"] for y in ens.W]) - e0
     e_lanes = np.array([invariants_of(form, y, P)["energy"] for y in W]) - e0
     rms_s, rms_l = np.sqrt(np.mean(e_scalar**2)), np.sqrt(np.mean(e_lanes**2))
     assert abs(rms_l - rms_s) <= 1e-3 * rms_s, (rms_l, rms_s)
+
+
+def test_the_lane_fold_is_the_scalar_fold_bit_for_bit():
+    from topdrift.models.turns import fold_one
+
+    rng = np.random.default_rng(5)
+    angles = np.concatenate(
+        [rng.uniform(-40.0, 40.0, 2000), [np.pi, -np.pi, 3.141592653589793, 0.0, -0.0, 1e7]]
+    )
+    for a in angles:
+        y = np.array([a])
+        k = np.zeros(1, dtype=np.int64)
+        fold_one(y, 0, k, 0)
+        r, kk = fold_lane(a)
+        assert r == y[0] and int(kk) == k[0], a
 
 
 def test_which_bodies_and_forms_the_lanes_cover():

@@ -55,11 +55,13 @@ class Lanes:
         self.status = np.zeros(n, dtype=np.int64)
         self.live = np.ones(n, dtype=np.int64)
         self.done = np.zeros(n, dtype=np.int64)
+        self.turns = np.zeros((2, n), dtype=np.int64)
 
     def run(self, k: int) -> None:
         form, p, kick, drift = self.args
         run_lanes(
-            form, p, kick, drift, k, self.W, self.fresh, self.counters, self.status, self.live,
+            form, p, kick, drift, k, self.W, self.fresh, self.counters, self.turns, self.status,
+            self.live,
             self.done,
         )  # fmt: skip
 
