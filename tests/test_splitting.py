@@ -79,7 +79,9 @@ E_LO = {
 EULER_ROUNDOFF_PER_STEP = 3e-15
 # Above E_HI[order] the error is not yet asymptotic (from the local slopes: the asymmetric and
 # Kovalevskaya bodies reach the asymptotic regime later than the symmetric top).
-E_HI = {2: 1e-2, 4: 5e-4, 6: 1e-5, 8: 1e-7}
+# leapfrog-bm4 on the asymmetric top, exact free flow: local slopes 7.3 and 5.8 from 4.9e-4 to
+# 5.3e-6, then 4.2, 4.07, 4.03, ...: order 4's window starts at 1e-4.
+E_HI = {2: 1e-2, 4: 1e-4, 6: 1e-5, 8: 1e-7}
 # A decade of steps for orders 2 and 4; orders 6 and 8 lose 6 and 8 decades of error per
 # decade of steps, more than double precision holds between E_HI and E_LO: a factor 4 and 2.8.
 MIN_SPAN = {2: 10.0, 4: 10.0, 6: 4.0, 8: 2.8}
@@ -121,13 +123,17 @@ def measured_order(method, body, form):
     p = method.info.order
     e_lo = E_LO[form, method.info.compensated]
     per_step = EULER_ROUNDOFF_PER_STEP if form == FORM_EULER else 0.0
-    # contiguous: round-off grows with the number of steps, and errors re-enter from below
-    window = []
+    # contiguous: round-off grows with the number of steps, and errors re-enter from below;
+    # the longest such run (a coarse step can land on a small error by a sign change of the
+    # error, which would otherwise open and close a window of one point)
+    window, run_ = [], []
     for n, e in zip(ORDER_STEPS, errs, strict=True):
         if E_HI[p] > e > max(e_lo, per_step * n):
-            window.append((n, e))
-        elif window:
-            break
+            run_.append((n, e))
+        else:
+            run_ = []
+        if len(run_) > len(window):
+            window = list(run_)
     span = window[-1][0] / window[0][0] if window else 0.0
     assert span >= MIN_SPAN[p] * 0.99, f"too few steps where truncation dominates: {errs}"
     x = np.log([T_ORDER / n for n, _ in window])
@@ -159,7 +165,7 @@ def test_direct_splittings_run_on_any_body():
     for name in sorted(EXACT_SUBFLOWS_ONLY):
         BY_NAME[name].check(ASYMMETRIC, "body", {"step": 1e-3})
         run(BY_NAME[name], ASYMMETRIC, FORM_BODY, 1e-3, 1)
-    assert not any(n.startswith(("leapfrog-bm4-composed", "leapfrog-bm6-composed")) for n in BY_NAME)
+    assert "leapfrog-bm4-composed" not in BY_NAME  # no twin: its order needs the exact flow
 
 
 COMPOSED = [m.name for m in METHODS if m.name.endswith("-composed")]
@@ -369,6 +375,11 @@ def test_energy_bounded_euler_million_steps(name):
 def test_energy_bounded_body(name, case):
     body, form = CASES[case]
     n = 10**6 if name == "leapfrog" else 10**5
+    if not body.symmetric:
+        # The energy error's envelope beats slowly here: leapfrog-tj8, exact free flow, 4e-11
+        # to 6e-11 with a period of about 2e5 steps (measured over 4e5); 1e5 steps saw half a
+        # beat as a trend (-0.33), 4e5 steps see none (-0.11).
+        n = max(n, 4 * 10**5)
     drift, env = energy_envelope_drift(BY_NAME[name], body, form, n)
     assert abs(drift) < ENVELOPE_CHANGE, env
     assert env.max() < 1e-4
