@@ -28,22 +28,35 @@ from .base import N_COUNTERS, ST_OK, MethodRefused, grid_steps
 
 
 @njit(cache=True, parallel=True)
-def _advance_plain(form, p, kick, drift, nsteps, W, fresh, counters, turns, status, out):
+def _advance_plain(form, free, p, kick, drift, nsteps, W, fresh, counters, turns, status, out):
     for j in prange(W.shape[0]):
         if status[j] == ST_OK:
-            st, _ = run_plain(form, p, kick, drift, nsteps, W[j], fresh[j], counters[j], turns[j])
+            st, _ = run_plain(
+                form, free, p, kick, drift, nsteps, W[j], fresh[j], counters[j], turns[j]
+            )
             status[j] = st
         close_plain(form, p, kick, W[j], fresh[j], out[j], counters[j])
 
 
 @njit(cache=True, parallel=True)
 def _advance_compensated(
-    form, p, kick, drift, nsteps, W, E, D, fresh, counters, turns, status, out
+    form, free, p, kick, drift, nsteps, W, E, D, fresh, counters, turns, status, out
 ):
     for j in prange(W.shape[0]):
         if status[j] == ST_OK:
             st, _ = run_compensated(
-                form, p, kick, drift, nsteps, W[j], E[j], D[j], fresh[j], counters[j], turns[j]
+                form,
+                free,
+                p,
+                kick,
+                drift,
+                nsteps,
+                W[j],
+                E[j],
+                D[j],
+                fresh[j],
+                counters[j],
+                turns[j],
             )
             status[j] = st
         close_compensated(form, p, kick, W[j], E[j], D[j], fresh[j], out[j], counters[j])
@@ -147,6 +160,7 @@ class EnsembleStepper:
         else:
             self.kick = single.kick
             self.drift = single.drift
+            self.free = single.free
 
     def low_parts(self) -> np.ndarray | None:
         """What compensated summation has not yet added into `y` (N x n), where the state is
@@ -192,6 +206,7 @@ class EnsembleStepper:
         elif self.compensated:
             _advance_compensated(
                 self.form,
+                self.free,
                 self.params,
                 self.kick,
                 self.drift,
@@ -208,6 +223,7 @@ class EnsembleStepper:
         else:
             _advance_plain(
                 self.form,
+                self.free,
                 self.params,
                 self.kick,
                 self.drift,

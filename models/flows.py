@@ -7,9 +7,14 @@ kernels call by name.
 euler: A = p_theta^2/(2 I1) + p_psi^2/(2 I3)           (theta, psi move linearly)
        B = (p_phi - p_psi cos theta)^2/(2 I1 sin^2 theta) + M g l cos theta
                                                        (theta fixed: kick p_theta, move phi, psi)
-body:  A = kinetic energy, the exact free flow          (exact for I1 = I2; for I1 != I2 the
-           symmetric part and one rotation about body axis 2, composed symmetrically)
+body:  A = kinetic energy, the exact free flow          (I1 = I2: a closed form in two turns;
+           I1 != I2: Jacobi elliptic functions, free_asymmetric.py)
        B = potential, M g chi.Gamma                    (q fixed: kick m)
+
+The body form has a second, cheaper free flow for I1 != I2: the symmetric part and one rotation
+about body axis 2, composed symmetrically (second order in the step, exact for I1 = I2). A
+kernel picks it with the free-flow code FREE_COMPOSED (flow_a_with, increment_a_with); flow_a and
+increment_a are the exact flow.
 """
 
 from __future__ import annotations
@@ -20,7 +25,12 @@ from numba import njit
 
 from .body import P_I1, P_I2, P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 from .forms import FORM_EULER
+from .free_asymmetric import free_asymmetric, free_asymmetric_increment
 from .quaternion import qmul, rotate, vertical_in_body
+
+# Which free flow the body form uses for I1 != I2 (an int64 kernel argument).
+FREE_EXACT = 0
+FREE_COMPOSED = 1
 
 
 @njit(cache=True)
@@ -131,7 +141,7 @@ def turn_axis2(h, y, p):
 
 
 @njit(cache=True)
-def free_body(h, y, p):
+def free_body_composed(h, y, p):
     """Free flow of any body: exact when I1 = I2, else a symmetric second-order composition."""
     if p[P_I1] == p[P_I2]:
         free_symmetric(h, y, p)
@@ -142,9 +152,29 @@ def free_body(h, y, p):
 
 
 @njit(cache=True)
+def free_body(h, y, p):
+    """The exact free flow of any body: the closed form for I1 = I2, else the elliptic one."""
+    if p[P_I1] == p[P_I2]:
+        free_symmetric(h, y, p)
+    else:
+        free_asymmetric(h, y, p)
+
+
+@njit(cache=True)
 def flow_a(form, h, y, p):
     if form == FORM_EULER:
         drift_euler(h, y, p)
+    else:
+        free_body(h, y, p)
+
+
+@njit(cache=True)
+def flow_a_with(form, free, h, y, p):
+    """flow_a with the body form's free flow chosen by `free` (FREE_EXACT, FREE_COMPOSED)."""
+    if form == FORM_EULER:
+        drift_euler(h, y, p)
+    elif free == FREE_COMPOSED:
+        free_body_composed(h, y, p)
     else:
         free_body(h, y, p)
 
@@ -265,8 +295,17 @@ def _turn_axis2_increment(h, q0, q1, q2, q3, m1, m2, m3, p):
 
 @njit(cache=True)
 def free_body_increment(h, y, p, d):
-    """Increment of free_body, written into d; y is left as it is. For I1 != I2 the three
-    pieces are evaluated in turn and their increments summed (never y_end - y)."""
+    """Increment of free_body (exact), written into d; y is left as it is."""
+    if p[P_I1] == p[P_I2]:
+        free_body_composed_increment(h, y, p, d)
+    else:
+        free_asymmetric_increment(h, y, p, d)
+
+
+@njit(cache=True)
+def free_body_composed_increment(h, y, p, d):
+    """Increment of free_body_composed, written into d; y is left as it is. For I1 != I2 the
+    three pieces are evaluated in turn and their increments summed (never y_end - y)."""
     q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
     m1, m2, m3 = y[4], y[5], y[6]
     if p[P_I1] == p[P_I2]:
@@ -300,6 +339,17 @@ def increment_a(form, h, y, p, d):
     """flow_a(form, h, y, p) - y, written into d, y unchanged (compensated summation)."""
     if form == FORM_EULER:
         drift_euler_increment(h, y, p, d)
+    else:
+        free_body_increment(h, y, p, d)
+
+
+@njit(cache=True)
+def increment_a_with(form, free, h, y, p, d):
+    """increment_a with the body form's free flow chosen by `free` (as flow_a_with)."""
+    if form == FORM_EULER:
+        drift_euler_increment(h, y, p, d)
+    elif free == FREE_COMPOSED:
+        free_body_composed_increment(h, y, p, d)
     else:
         free_body_increment(h, y, p, d)
 

@@ -32,7 +32,15 @@ FORMS = {"euler": FORM_EULER, "body": FORM_BODY}
 # Steps (s) at which each order's truncation error is far above the round-off bound (measured:
 # the smallest energy error over the starts, 1000 steps, is above 1e-11 for every method that
 # does not keep the energy), and at which the Euler form stays clear of the pole.
-STEP = {2: 0.02, 4: 0.1, 6: 0.2, 8: 0.3, "leapfrog-tj8": 0.2, "leapfrog-tj8-kahan": 0.2}
+STEP = {
+    2: 0.02,
+    4: 0.1,
+    6: 0.2,
+    8: 0.3,
+    "leapfrog-tj8": 0.2,
+    "leapfrog-tj8-kahan": 0.2,
+    "leapfrog-tj8-composed": 0.2,
+}
 
 
 def starts(k, seed, tumble=True):

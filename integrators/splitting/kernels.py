@@ -9,7 +9,8 @@ change the step sequence, so a run sampled often gives the same bits as a run sa
 
 fresh = 1 means w is a closed state (no step taken yet): the first kick is b_0 h, not the merge.
 
-Kernels call the model kernels by name (flow_a, flow_b, increment_a, increment_b, singular),
+Kernels call the model kernels by name (flow_a_with, flow_b, increment_a_with, increment_b,
+singular; `free` picks the body form's free flow, models/flows.py FREE_EXACT or FREE_COMPOSED),
 allocate nothing inside the step loop, and count their own steps, sub-flow evaluations and, of
 these, the kicks (force evaluations). In the Euler form they fold phi and psi into (-pi, pi]
 after every step and count the whole turns beside the state (models/turns.py).
@@ -30,13 +31,13 @@ from topdrift.integrators.base import (
     ST_SINGULAR,
 )
 from topdrift.models.dynamics import singular
-from topdrift.models.flows import flow_a, flow_b, increment_a, increment_b
+from topdrift.models.flows import flow_a_with, flow_b, increment_a_with, increment_b
 from topdrift.models.forms import FORM_BODY, FORM_EULER
 from topdrift.models.turns import fold_euler
 
 
 @njit(cache=True, inline="always")
-def _plain_steps(form, p, kick, drift, nsteps, w, first, counters, turns):
+def _plain_steps(form, free, p, kick, drift, nsteps, w, first, counters, turns):
     s = drift.shape[0]
     n = w.shape[0]
     wrap = kick[s] + kick[0]
@@ -46,9 +47,9 @@ def _plain_steps(form, p, kick, drift, nsteps, w, first, counters, turns):
         flow_b(form, first, w, p)
         first = wrap
         for i in range(s - 1):
-            flow_a(form, drift[i], w, p)
+            flow_a_with(form, free, drift[i], w, p)
             flow_b(form, kick[i + 1], w, p)
-        flow_a(form, drift[s - 1], w, p)
+        flow_a_with(form, free, drift[s - 1], w, p)
         acc = 0.0
         for i in range(n):
             acc += w[i]
@@ -69,7 +70,7 @@ def _plain_steps(form, p, kick, drift, nsteps, w, first, counters, turns):
 
 
 @njit(cache=True)
-def run_plain(form, p, kick, drift, nsteps, w, fresh, counters, turns):
+def run_plain(form, free, p, kick, drift, nsteps, w, fresh, counters, turns):
     """Advance the open state w by nsteps steps in place. kick (s + 1) and drift (s) are the
     coefficients already multiplied by the step. Returns (status, good steps taken). In the
     Euler form phi and psi are folded after every step, whole turns counted in turns (two
@@ -82,8 +83,8 @@ def run_plain(form, p, kick, drift, nsteps, w, fresh, counters, turns):
     first = kick[0] if fresh[0] != 0 else kick[kick.shape[0] - 1] + kick[0]
     fresh[0] = 0
     if form == FORM_EULER:
-        return _plain_steps(FORM_EULER, p, kick, drift, nsteps, w, first, counters, turns)
-    return _plain_steps(FORM_BODY, p, kick, drift, nsteps, w, first, counters, turns)
+        return _plain_steps(FORM_EULER, free, p, kick, drift, nsteps, w, first, counters, turns)
+    return _plain_steps(FORM_BODY, free, p, kick, drift, nsteps, w, first, counters, turns)
 
 
 @njit(cache=True, inline="always")
@@ -99,7 +100,7 @@ def _add_compensated(w, e, d, n):
 
 
 @njit(cache=True, inline="always")
-def _compensated_steps(form, p, kick, drift, nsteps, w, e, d, first, counters, turns):
+def _compensated_steps(form, free, p, kick, drift, nsteps, w, e, d, first, counters, turns):
     s = drift.shape[0]
     n = w.shape[0]
     wrap = kick[s] + kick[0]
@@ -110,11 +111,11 @@ def _compensated_steps(form, p, kick, drift, nsteps, w, e, d, first, counters, t
         _add_compensated(w, e, d, n)
         first = wrap
         for i in range(s - 1):
-            increment_a(form, drift[i], w, p, d)
+            increment_a_with(form, free, drift[i], w, p, d)
             _add_compensated(w, e, d, n)
             increment_b(form, kick[i + 1], w, p, d)
             _add_compensated(w, e, d, n)
-        increment_a(form, drift[s - 1], w, p, d)
+        increment_a_with(form, free, drift[s - 1], w, p, d)
         _add_compensated(w, e, d, n)
         acc = 0.0
         for i in range(n):
@@ -136,7 +137,7 @@ def _compensated_steps(form, p, kick, drift, nsteps, w, e, d, first, counters, t
 
 
 @njit(cache=True)
-def run_compensated(form, p, kick, drift, nsteps, w, e, d, fresh, counters, turns):
+def run_compensated(form, free, p, kick, drift, nsteps, w, e, d, fresh, counters, turns):
     """run_plain with compensated summation: every sub-flow is evaluated as an increment d of
     the rounded state w and added to (w, e) with TwoSum; e carries what did not fit into w.
     d is scratch of the state's length."""
@@ -146,9 +147,11 @@ def run_compensated(form, p, kick, drift, nsteps, w, e, d, fresh, counters, turn
     fresh[0] = 0
     if form == FORM_EULER:
         return _compensated_steps(
-            FORM_EULER, p, kick, drift, nsteps, w, e, d, first, counters, turns
+            FORM_EULER, free, p, kick, drift, nsteps, w, e, d, first, counters, turns
         )
-    return _compensated_steps(FORM_BODY, p, kick, drift, nsteps, w, e, d, first, counters, turns)
+    return _compensated_steps(
+        FORM_BODY, free, p, kick, drift, nsteps, w, e, d, first, counters, turns
+    )
 
 
 @njit(cache=True)

@@ -4,10 +4,18 @@ One method per coefficient table (compositions.py), each running in both forms:
 
 - euler: H = H_a + H_b on the canonical Euler-angle variables; A = H_a (theta, psi move
   linearly), B = H_b (theta fixed: kick p_theta, move phi and psi). Symplectic.
-- body: kinetic and potential energy on (q, m); A = the exact free flow (for I1 != I2 its
-  symmetric second-order composition with a turn about body axis 2), B = the kick from gravity.
-  Every piece is the exact flow of a Hamiltonian on the Lie-Poisson space, so the method is a
-  Poisson map (symplectic on the coadjoint orbit), for any principal moments and centre of mass.
+- body: kinetic and potential energy on (q, m); A = the exact free flow (for I1 != I2 by
+  Jacobi elliptic functions, models/free_asymmetric.py), B = the kick from gravity. Every piece
+  is the exact flow of a Hamiltonian on the Lie-Poisson space, so the method is a Poisson map
+  (symplectic on the coadjoint orbit), for any principal moments and centre of mass, and every
+  table reaches its order on any body.
+
+Each composition of the Strang step also has a `-composed` twin whose body-form free flow, for
+I1 != I2, is the cheaper second-order composition of the symmetric free flow with a turn about
+body axis 2 (models/flows.py free_body_composed): still a Poisson map and of the table's order
+(a composition of symmetric second-order steps), with a larger error constant. For I1 = I2 and
+in the euler form the twin is the same method, to the bit. The Blanes-Moan tables have no such
+twin: they are not compositions of the Strang step and need the exact sub-flows for their order.
 
 Each method has a `-kahan` twin that evaluates every sub-flow as an increment free of
 cancellation and adds it with compensated summation (TwoSum), so that round-off grows like the
@@ -41,8 +49,8 @@ from topdrift.integrators.splitting.kernels import (
     run_plain,
 )
 from topdrift.integrators.validation import check_snapshot, snapshot_identity, stepper_fields
-from topdrift.models import FORM_BODY, FORM_SIZE, RigidBody, form_code
-from topdrift.models.body import P_I1, P_I2
+from topdrift.models import FORM_SIZE
+from topdrift.models.flows import FREE_COMPOSED, FREE_EXACT
 
 # What every splitting here keeps by construction (the rule: integrators/base.py). euler: p_phi
 # and p_psi are never written (the same bits after any number of steps), |q| is 1 trivially.
@@ -65,6 +73,7 @@ class SplittingStepper(Stepper):
     kick: np.ndarray = field(default_factory=lambda: np.zeros(0))  # scaled b_0..b_s
     drift: np.ndarray = field(default_factory=lambda: np.zeros(0))  # scaled a_1..a_s
     compensated: bool = False
+    free: int = FREE_EXACT  # the body form's free flow for I1 != I2 (models/flows.py)
     t0: float = 0.0
     n: int = 0  # steps taken since t0, signed; t on the grid is t0 + n step
     w: np.ndarray = field(default_factory=lambda: np.zeros(0))  # open state
@@ -105,6 +114,7 @@ class SplittingStepper(Stepper):
         if self.compensated:
             return run_compensated(
                 self.form,
+                self.free,
                 self.params,
                 self.kick,
                 self.drift,
@@ -118,6 +128,7 @@ class SplittingStepper(Stepper):
             )
         return run_plain(
             self.form,
+            self.free,
             self.params,
             self.kick,
             self.drift,
@@ -220,12 +231,17 @@ class SplittingStepper(Stepper):
 class SplittingMethod(Method):
     """A splitting method from a coefficient table (compositions.py), in both forms."""
 
-    def __init__(self, table: SplittingTable, compensated: bool) -> None:
+    def __init__(self, table: SplittingTable, compensated: bool, composed: bool = False) -> None:
+        if composed and table.kind != "composition":
+            raise ValueError(f"{table.key}: only compositions of the Strang step have a twin")
         self.table = table
         self.compensated = compensated
+        self.free = FREE_COMPOSED if composed else FREE_EXACT
         # The coefficients of one step in order (compositions.py), before scaling by the step.
         self.kick_table, self.drift_table = table.sequence()
         name = "leapfrog" + (f"-{table.key}" if table.key else "")
+        if composed:
+            name += "-composed"
         if compensated:
             name += "-kahan"
         evals = 2 * table.stages
@@ -241,32 +257,18 @@ class SplittingMethod(Method):
             keeps_by_form=KEEPS_BY_FORM,
             compensated=compensated,
             description=(
-                f"{table.title}; euler: drift H_a / kick H_b on the Euler angles, body: exact "
-                f"free flow / gravity kick on (q, m); {evals} sub-flows per step"
+                f"{table.title}; euler: drift H_a / kick H_b on the Euler angles, body: "
                 + (
-                    "; refused in the body form for I1 != I2 (needs exact sub-flows)"
-                    if table.kind != "composition"
-                    else ""
+                    "free flow composed of the symmetric one and a turn about axis 2 for "
+                    "I1 != I2 (cheaper, larger error)"
+                    if composed
+                    else "exact free flow (elliptic functions for I1 != I2)"
                 )
+                + f" / gravity kick on (q, m); {evals} sub-flows per step"
                 + ("; compensated summation of the increments" if compensated else "")
             ),
             source=table.source,
         )
-
-    def _refuse_inexact(self, params: np.ndarray, form: int) -> None:
-        # A table that is not a composition of the symmetric Strang step relies on exact
-        # sub-flows for its order; the body form's free flow is exact only for I1 == I2
-        # (otherwise a symmetric second-order composition), and then the order falls to 2.
-        if self.table.kind != "composition" and form == FORM_BODY and params[P_I1] != params[P_I2]:
-            raise MethodRefused(
-                f"{self.name}: reaches order {self.table.order} only with exact sub-flows, and "
-                f"the free flow of a body with I1 != I2 is a second-order composition; use a "
-                f"composition method (e.g. leapfrog-kl6, leapfrog-kl8)"
-            )
-
-    def check(self, body: RigidBody, form: str, settings: dict) -> None:
-        super().check(body, form, settings)
-        self._refuse_inexact(body.params(), form_code(form))
 
     def start(
         self, form: int, params: np.ndarray, t0: float, y0: np.ndarray, settings: dict
@@ -275,7 +277,6 @@ class SplittingMethod(Method):
         h = checked["step"]
         form = int(form)
         n = FORM_SIZE[form]
-        self._refuse_inexact(params, form)
         y = np.array(y0, dtype=np.float64)
         if y.shape != (n,):
             raise MethodRefused(f"{self.name}: a state of this form has {n} entries, not {y.size}")
@@ -290,6 +291,7 @@ class SplittingMethod(Method):
             kick=np.ascontiguousarray(self.kick_table * h),
             drift=np.ascontiguousarray(self.drift_table * h),
             compensated=self.compensated,
+            free=self.free,
             t0=float(t0),
             n=0,
             w=y.copy(),
@@ -299,4 +301,6 @@ class SplittingMethod(Method):
         )
 
 
-METHODS = [SplittingMethod(t, c) for t in TABLES for c in (False, True)]
+METHODS = [SplittingMethod(t, c) for t in TABLES for c in (False, True)] + [
+    SplittingMethod(t, False, composed=True) for t in TABLES if t.kind == "composition"
+]
