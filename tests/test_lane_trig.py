@@ -19,7 +19,12 @@ from topdrift.models.lane_trig import (
     sincos_wide,
 )
 
-mpmath.mp.dps = 50
+
+@pytest.fixture(autouse=True)
+def fifty_digits():
+    # mpmath's precision is global and other test files set their own: each test here sets 50.
+    with mpmath.workdps(50):
+        yield
 
 
 def worst_ulps(x: np.ndarray) -> tuple[float, float]:
