@@ -41,8 +41,6 @@ DEFAULT_CANDIDATES = (
 METRICS = ("axis", "energy")
 # The run planned to learn whether the case has an exact solution (its notes say why not).
 PROBE = {"method": "dop853", "form": "body", "rtol": 1e-10, "atol": 1e-12}
-# The family of the extended-precision reference: a candidate of it would be judged against itself.
-REFERENCE_FAMILY = "taylor-dd"
 BISECTIONS = 5  # halvings of the log interval between a failing and a passing setting
 VERIFY_RUNS = 3  # fresh runs of a chosen setting, while they take under VERIFY_BUDGET_S in all
 VERIFY_BUDGET_S = 0.5
@@ -109,6 +107,7 @@ class Picker:
         self.reference_axes = None
         self.reference_note = None
         self.reference_accuracy = None  # the reference's verified accuracy (dict), if one is used
+        self.reference_family = None  # its method family: no candidate of it is judged by it
         self._trials: dict[tuple[str, str, float], Trial] = {}
         if metric == "axis":
             self._reference()
@@ -133,6 +132,7 @@ class Picker:
         ref = case_reference(self.case, self.horizon, self.samples, quiet=self.quiet)
         self.reference_axes = ref.axes()
         self.reference_accuracy = dict(ref.accuracy)
+        self.reference_family = ref.family
         self.reference_note = (
             f"{why or 'no exact solution'} for {self.case.name}: the axis error is measured "
             f"against its extended-precision reference ({ref.method}), {ref.accuracy_text()}"
@@ -217,11 +217,11 @@ class Picker:
             )
         except MethodRefused as exc:
             return Choice(method, form or "?", reason=str(exc))
-        if self.reference_axes is not None and m.info.family == REFERENCE_FAMILY:
+        if self.reference_family and m.info.family == self.reference_family:
             return Choice(
                 method,
                 form,
-                reason=f"of the reference's own family ({REFERENCE_FAMILY}): it would be judged "
+                reason=f"of the reference's own family ({m.info.family}): it would be judged "
                 "against itself",
             )
         if self.metric == "energy" and "energy" in m.info.kept_in(form):

@@ -31,6 +31,8 @@ class Provider:
     settings: dict  # name, version and settings: what the numbers depend on (the cache key)
     refuses: Callable[[object], str | None]
     build: Callable  # (body, y0, times, progress) -> a reference (see the module docstring)
+    # The method family it belongs to: a candidate of that family is not judged against it.
+    family: str = ""
 
 
 TAYLOR_DD = Provider(
@@ -60,6 +62,7 @@ class CaseReference:
     parting: dict
     cost: dict
     cached: bool
+    family: str = ""
     notes: list[str] = field(default_factory=list)
 
     def axes(self) -> np.ndarray:
@@ -150,7 +153,7 @@ def case_reference(
     if hit is not None:
         return CaseReference(
             case.name, provider.name, hit["method"], hit["times"], hit["states"],
-            hit["accuracy"], hit["parting"], hit["cost"], cached=True,
+            hit["accuracy"], hit["parting"], hit["cost"], cached=True, family=provider.family,
         )  # fmt: skip
     if not build:
         return None
@@ -162,7 +165,7 @@ def case_reference(
         raise UserError(f"{case.name}: the reference could not be built: {exc}") from None
     out = CaseReference(
         case.name, provider.name, ref.method, ref.times, ref.states, dict(ref.accuracy),
-        dict(ref.parting), dict(ref.cost), cached=False,
+        dict(ref.parting), dict(ref.cost), cached=False, family=provider.family,
     )  # fmt: skip
     note = reference_cache.store(key, ref)
     if note:

@@ -15,6 +15,8 @@ import hashlib
 import json
 import os
 import tempfile
+import zipfile
+import zlib
 from pathlib import Path
 
 import numpy as np
@@ -66,8 +68,8 @@ def load(key: str, times: np.ndarray) -> dict | None:
     try:
         with np.load(path, allow_pickle=False) as z:
             entry = {name: z[name] for name in z.files}
-    except (OSError, ValueError, EOFError):
-        return None
+    except (OSError, ValueError, EOFError, KeyError, zipfile.BadZipFile, zlib.error):
+        return None  # missing or damaged: built again
     try:
         if int(entry["cache_version"]) != CACHE_VERSION or str(entry["key"]) != key:
             return None
