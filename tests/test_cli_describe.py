@@ -189,8 +189,7 @@ def test_describe_states_the_reference_of_a_case_with_no_exact_solution(
     assert info["reference"] == {
         "built": False,
         "cache": str(tmp_path),
-        "how": "built on first use by `topdrift pick`, or by `topdrift describe CASE "
-        "--reference`",
+        "how": "built on first use by `topdrift pick`, or by `topdrift describe CASE --reference`",
     }
     info = _json(capsys, ["describe", "chaotic-asymmetric", "--json", "--reference"])
     r = info["reference"]
