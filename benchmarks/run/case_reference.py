@@ -21,6 +21,7 @@ import numpy as np
 
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run import reference_cache
+from topdrift.benchmarks.run.runner import samples_for_horizon
 from topdrift.integrators.extended import reference as extended
 from topdrift.models.quaternion import figure_axis
 
@@ -136,11 +137,12 @@ def case_reference(
     quiet: bool = False,
     stream=None,
 ) -> CaseReference | None:
-    """The case's reference at its run sample times over `horizon` (default the case's), read
-    from the cache or built (and cached) when `build`; None when not cached and not `build`.
-    Raises UserError when no provider takes the case or the build fails."""
+    """The case's reference at its run sample times over `horizon` (default the case's; the
+    samples by the horizon rule of every command unless given), read from the cache or built
+    (and cached) when `build`; None when not cached and not `build`. Raises UserError when no
+    provider takes the case or the build fails."""
     horizon = case.horizon if horizon is None else float(horizon)
-    samples = case.samples if samples is None else int(samples)
+    samples = samples_for_horizon(case, horizon) if samples is None else int(samples)
     provider, why = provider_for(case.body)
     if provider is None:
         raise UserError(f"{case.name}: no reference provider takes this body ({'; '.join(why)})")

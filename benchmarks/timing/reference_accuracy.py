@@ -91,8 +91,8 @@ def main() -> None:
     print("\n".join(table(without_exact(cases.values()))))
     if args.check_mpmath:
         print(
-            "\n| case | horizon (s) | true axis error (rad) | stated estimate | true attitude "
-            "error (rad) | stated estimate |\n| --- | --- | --- | --- | --- | --- |"
+            "\n| case | horizon (s) | true axis error (rad) | 2 x parting | true attitude error "
+            "(rad) | 2 x parting |\n| --- | --- | --- | --- | --- | --- |"
         )
         for spec in args.check_mpmath:
             print(check_mpmath(spec, cases))
