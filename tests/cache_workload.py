@@ -1,9 +1,10 @@
-"""Run every built-in compiled method a few steps in both forms, and the exact solution's kernels
-(used by test_numba_cache)."""
+"""Run every built-in compiled method a few steps in both forms, the exact solution's kernels and
+the extended-precision reference's (used by test_numba_cache)."""
 
 import numpy as np
 
 from topdrift.integrators import all_methods
+from topdrift.integrators.extended.reference import MAIN, integrate
 from topdrift.models import RigidBody, body_state, double_double, euler_state, form_code
 from topdrift.models.exact import LagrangeTop
 from topdrift.models.invariants import N_INVARIANTS, invariants
@@ -30,4 +31,5 @@ LagrangeTop.from_state(top, "euler", euler_state(top, *start)).sample(times).ang
 sleeping = np.array([1.0, 0.0, 0.0, 0.0, 0.0, 0.0, 2.0])
 LagrangeTop.from_state(top, "body", sleeping).sample(times)
 double_double.remainder((1.0, 0.0, 0.0), (0.0, 0.0), (3.0, 0.0, 0.0), times, 0.0 * times)
+integrate(top, body_state(top, *start), times[:2] * 0.01, MAIN)
 print("workload done")

@@ -1,5 +1,6 @@
 """Fixtures shared by the test files: the command line run in this process, the tiny top as a
-case file, a method swapped in the registry for one test, and a run asked to stop."""
+case file, a method swapped in the registry for one test, a run asked to stop, and the
+references' cache directory of the session."""
 
 from __future__ import annotations
 
@@ -10,8 +11,19 @@ import pytest
 from tiny_cases import TOP_TOML, write_case
 
 from topdrift.benchmarks.cli import entry as cli_entry
+from topdrift.benchmarks.run.reference_cache import CACHE_ENV
 from topdrift.benchmarks.run.runner import StopFlag
 from topdrift.integrators import UnknownMethod, get, register, unregister
+
+
+@pytest.fixture(autouse=True, scope="session")
+def reference_cache_of_the_session(tmp_path_factory):
+    """Extended-precision references built by the tests go to a directory of the session, not
+    to the user's cache (a test that needs its own sets the variable again)."""
+    mp = pytest.MonkeyPatch()
+    mp.setenv(CACHE_ENV, str(tmp_path_factory.mktemp("reference-cache")))
+    yield
+    mp.undo()
 
 
 @pytest.fixture

@@ -39,6 +39,9 @@ def _mpf(x: float):
     return mp.mpf(repr(float(x)))
 
 
+_decimal = _mpf
+
+
 def _series_step(c, inv, mgc, order):
     """Extend the Taylor coefficients c (7 lists holding y_0) to `order` terms in place."""
     for k in range(order):
@@ -74,8 +77,11 @@ def _horner(coefficients, h):
 
 
 @functools.cache
-def _taylor(body_key, y0, times, dps, order):
+def _taylor(body_key, y0, times, dps, order, binary=False):
     mass, gravity, inertia, com = body_key
+    # binary: the exact values of the doubles (the reference of the double start), else the
+    # decimal each double prints as
+    _mpf = (lambda x: mp.mpf(float(x))) if binary else _decimal
     with mp.workdps(dps):
         inv = [1 / _mpf(v) for v in inertia]
         mg = _mpf(mass) * _mpf(gravity)
@@ -100,8 +106,8 @@ def _taylor(body_key, y0, times, dps, order):
                     h = target - t
                 y = [_horner(ci, h) for ci in c]
                 t += h
-            out.append([float(v) for v in y])
-        return np.array(out)
+            out.append(list(y) if binary else [float(v) for v in y])
+        return out if binary else np.array(out)
 
 
 def taylor_states(body, y0, times, dps: int = DPS, order: int = ORDER) -> np.ndarray:
@@ -111,6 +117,16 @@ def taylor_states(body, y0, times, dps: int = DPS, order: int = ORDER) -> np.nda
     return _taylor(
         key, tuple(float(v) for v in y0), tuple(float(t) for t in times), int(dps), int(order)
     )
+
+
+def taylor_states_mp(body, y0, times, dps: int = 50, order: int = 55) -> list:
+    """As taylor_states, from the exact binary values of the double start and parameters, the
+    states left as mpmath numbers (rows of 7) at `dps` digits."""
+    key = (float(body.mass), float(body.gravity), tuple(body.inertia), tuple(body.com))
+    return _taylor(
+        key, tuple(float(v) for v in y0), tuple(float(t) for t in times), int(dps), int(order),
+        True,
+    )  # fmt: skip
 
 
 def odefun_states(body, y0, times, dps: int = DPS) -> np.ndarray:

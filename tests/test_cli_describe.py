@@ -176,3 +176,33 @@ def test_exact_refusal_is_reported(capsys, monkeypatch):
     assert main(["describe", "--demo"]) == 0
     out, _ = capsys.readouterr()
     assert "exact motion  unavailable: theta: a test refusal" in out
+
+
+def test_describe_states_the_reference_of_a_case_with_no_exact_solution(
+    capsys, tmp_path, monkeypatch
+):
+    from topdrift.benchmarks.run.reference_cache import CACHE_ENV
+
+    monkeypatch.setenv(CACHE_ENV, str(tmp_path))
+    info = _json(capsys, ["describe", "chaotic-asymmetric", "--json"])
+    assert info["exact"] is None
+    assert info["reference"] == {
+        "built": False,
+        "cache": str(tmp_path),
+        "how": "built on first use by `topdrift pick`, or by `topdrift describe CASE --reference`",
+    }
+    info = _json(capsys, ["describe", "chaotic-asymmetric", "--json", "--reference"])
+    r = info["reference"]
+    assert r["built"] and not r["cached"] and r["provider"] == "taylor-dd"
+    assert (r["horizon"], r["samples"]) == (40.0, 4001)  # the case's own
+    assert set(r["accuracy"]) == {"axis", "attitude", "momentum"}
+    # the chaotic top amplifies round-off ~1e20 over 40 s: measured 6.3e-14 (docs/references.md)
+    assert 1e-14 < r["accuracy"]["axis"] < 1e-12
+    assert main(["describe", "chaotic-asymmetric"]) == 0
+    out = capsys.readouterr().out
+    assert "reference (no exact solution)" in out
+    assert f"verified accuracy, figure axis   {r['accuracy']['axis']:.2g}" in out
+    assert "(read)" in out
+    # a Lagrange top has its exact solution and no such section
+    assert main(["describe", "looping-nutation"]) == 0
+    assert "reference (no exact solution)" not in capsys.readouterr().out

@@ -3,6 +3,8 @@ target, checked here against a trajectory of our own (scipy's DOP853 on the Eule
 equations); the JSON has its documented keys; a case without an exact solution says what the axis
 is measured against; an impossible target ranks nothing and exits 1; bad input exits 2."""
 
+import dataclasses
+
 import h5py
 import numpy as np
 import pytest
@@ -11,6 +13,9 @@ from scipy.spatial.transform import Rotation
 from sweep_grid import ASYM_TOML, SYM_TOML
 
 from topdrift.benchmarks.cases.schema import parse_case
+from topdrift.benchmarks.run import case_reference
+from topdrift.integrators import FixedStepMethod
+from topdrift.integrators import get as get_method
 
 HORIZON = "1.0"
 SAMPLES = "11"
@@ -241,11 +246,13 @@ def test_no_exact_solution_measures_against_a_reference_run(
     rc, out, _ = command_line(*args)
     assert rc == 0
     assert (
-        "note: no exact solution for grid-asym: the axis error is measured against a dop853 "
-        "reference run at rtol 1e-13 in the body form" in out
+        "note: no exact solution for grid-asym: the axis error is measured against its "
+        "extended-precision reference (Taylor series of order 32 in double-double arithmetic, "
+        "checked against order 26), verified accuracy 2.2e-16 rad (figure axis)" in out
     )
     rc, doc, _ = command_json(*args)
-    assert rc == 0 and "reference run" in doc["reference"]
+    assert rc == 0 and "extended-precision reference" in doc["reference"]
+    assert doc["reference_accuracy"]["axis"] == 2.2e-16  # the double floor: both parted less
     (e,) = doc["ranking"]
     _, axes = rerun(command_json, asym, e, tmp_path)
     # Against scipy's trajectory of the same body the achieved error holds up.
@@ -315,3 +322,79 @@ def test_a_shorter_horizon_keeps_the_sample_interval_and_a_capped_step_says_so(
     assert e["capped"] and e["settings"]["step"] == 0.5 / 50
     rc, out, _ = command_line(*args)
     assert "note: leapfrog stopped at the sample interval (0.01 s), not at the target" in out
+
+
+def test_a_target_below_the_reference_accuracy_is_refused_in_one_line(command_line):
+    """The chaotic library top over its 40 s: round-off grows about 1e20 there (nearby starts
+    part a hundredfold every 4 s, its description), and the double-double reference is verified
+    only to about 6e-14 rad (docs/references.md)."""
+    rc, out, err = command_line(
+        "pick", "chaotic-asymmetric", "--target", "1e-14", "--methods", "dop853"
+    )
+    assert rc == 2 and out == ""
+    (line,) = [x for x in err.strip().splitlines() if x.startswith("topdrift: error:")]
+    assert "--target 1e-14: below this case's verified reference accuracy of 6.3e-14 rad" in line
+    assert err.strip().splitlines()[-1] == line  # the refusal is the last word, one line
+
+
+def _coarse_provider(accuracy, family=""):
+    """A stand-in reference provider: the real reference, claiming a coarser accuracy."""
+    real = case_reference.TAYLOR_DD
+
+    def build(body, y0, times, progress):
+        ref = real.build(body, y0, times, progress)
+        ref.accuracy = {k: accuracy for k in ref.accuracy}
+        return ref
+
+    return case_reference.Provider(
+        name="coarse-test",
+        settings={"name": "coarse-test", "accuracy": accuracy},
+        refuses=lambda body: None,
+        build=build,
+        family=family,
+    )
+
+
+def test_errors_below_the_reference_accuracy_are_marked(command_line, command_json, cases,
+                                                         monkeypatch):  # fmt: skip
+    _, asym = cases
+    monkeypatch.setattr(case_reference, "PROVIDERS", [_coarse_provider(1e-5)])
+    args = ["pick", str(asym), "--methods", "dop853", "--horizon", HORIZON, "--samples", SAMPLES]
+    # a target at the accuracy is taken; every error that meets it is below the accuracy
+    rc, out, _ = command_line(*args, "--target", "1e-5")
+    assert rc == 0
+    rc, doc, _ = command_json(*args, "--target", "1e-5")
+    (e,) = doc["ranking"]
+    assert e["achieved"] < 1e-5 and e["unresolved"] is True
+    assert f"{e['achieved']:.3g}*" in out
+    assert "note: * below this case's verified reference accuracy of 1e-05 rad" in out
+    # and a looser target ranks errors above it, unmarked
+    rc, doc, _ = command_json(*args, "--target", "1e-3")
+    (e,) = doc["ranking"]
+    assert e["unresolved"] == (e["achieved"] < 1e-5)
+    # a target the reference cannot check is refused, with the provider's accuracy
+    rc, _, err = command_line(*args, "--target", "1e-6")
+    assert rc == 2 and "below this case's verified reference accuracy of 1e-05 rad" in err
+
+
+def test_a_candidate_of_the_reference_family_is_not_judged_against_itself(
+    command_json, cases, swap_method, monkeypatch
+):
+    """No built-in family is the reference's (a Taylor family would be): a stand-in provider of
+    the plug-ins' family and a plug-in candidate show the rule."""
+    _, asym = cases
+    monkeypatch.setattr(case_reference, "PROVIDERS", [_coarse_provider(2.2e-16, family="external")])
+    info = get_method("rk4").info
+    twin = swap_method(
+        FixedStepMethod(
+            dataclasses.replace(info, name="taylor-twin", family="external"),
+            lambda f, t, y, h: y + h * f(y + 0.5 * h * f(y)),  # the midpoint rule (common practice)
+        )
+    )
+    rc, doc, _ = command_json(
+        "pick", str(asym), "--target", "1e-3", "--methods", twin.info.name, "dop853",
+        "--horizon", HORIZON, "--samples", SAMPLES,
+    )  # fmt: skip
+    assert rc == 0
+    (u,) = doc["unreached"]
+    assert u["method"] == "taylor-twin" and "reference's own family" in u["reason"]

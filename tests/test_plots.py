@@ -269,3 +269,36 @@ def test_plot_never_writes_over_the_results_file(tmp_path, capsys):
     assert main(argv) == 2
     assert "results file itself" in capsys.readouterr().err
     assert digest(store) == before
+
+
+def test_axis_path_of_a_case_with_no_exact_solution_uses_its_reference(tmp_path, capsys):
+    """An asymmetric top has no exact solution: the figure shows the runs seen from the case's
+    extended-precision reference (docs/references.md), at the runs' own sample times."""
+    from sweep_grid import ASYM_TOML
+
+    from topdrift.benchmarks.choose.reference_path import reference_axis
+    from topdrift.benchmarks.choose.selection import load_labelled
+
+    case = tmp_path / "asym.toml"
+    case.write_text(ASYM_TOML)
+    runs = tmp_path / "runs.h5"
+    for method, setting in (("dop853", ["--rtol", "1e-9"]), ("rk4", ["--step", "0.001"])):
+        assert main(["run", str(case), "--method", method, *setting, "--out", str(runs)]) == 0
+    capsys.readouterr()
+    records = load_records(runs)
+    series = load_labelled(str(runs), records, records)
+    found = reference_axis(series)
+    assert found is not None
+    axes, label = found
+    assert label.startswith("extended-precision reference (verified to 2.2e-16 rad)")
+    for s in series:  # each run's axis within its own error of the reference's (rtol 1e-9, h 1e-3)
+        got = plots.axis_from_quaternion(s["quaternion"])
+        assert axes.shape == got.shape and np.max(np.abs(got - axes)) < 1e-6
+    out = tmp_path / "path.png"
+    assert main(["plot", str(runs), "--kind", "axis-path", "--out", str(out)]) == 0
+    assert_png(out)
+    # runs over two horizons have no single reference: the runs are drawn against each other
+    assert main(["run", str(case), "--method", "rk4", "--step", "0.001", "--horizon", "0.5",
+                 "--out", str(runs)]) == 0  # fmt: skip
+    records = load_records(runs)
+    assert reference_axis(load_labelled(str(runs), records, records)) is None

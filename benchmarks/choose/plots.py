@@ -19,6 +19,8 @@ import numpy as np  # noqa: E402
 
 from topdrift.benchmarks.choose import analysis  # noqa: E402
 from topdrift.benchmarks.choose.figure_files import save_png  # noqa: E402
+from topdrift.benchmarks.choose.reference_path import LABEL as REFERENCE_LABEL  # noqa: E402
+from topdrift.benchmarks.choose.reference_path import reference_axis  # noqa: E402
 
 DPI = 110
 _MARKERS = ("o", "s", "^", "v", "D", "P", "X", "<", ">", "p", "h", "*")
@@ -507,6 +509,11 @@ def error_path(a: np.ndarray, ref: np.ndarray) -> np.ndarray:
     return np.stack((np.einsum("ij,ij->i", d, h), np.einsum("ij,ij->i", d, tilt)), axis=1)
 
 
+def _is_truth(label: str) -> bool:
+    """The path drawn as the truth: the exact solution's, or the extended-precision reference's."""
+    return label == "exact" or label.startswith(REFERENCE_LABEL)
+
+
 def axis_path(runs: list[dict], case: str, out) -> Path:
     """The figure axis R e3 projected on the horizontal plane, seen from above, inside the unit
     circle (the horizon: the axis lying flat); the exact path dashed where there is one.
@@ -530,7 +537,12 @@ def axis_path(runs: list[dict], case: str, out) -> Path:
     exact = next((r for r in runs if r["exact_euler"] is not None), None)
     if exact is not None:
         paths.append(("exact", axis_from_euler(exact["exact_euler"]), "black", (0, (4, 3))))
-    ref = paths[-1] if exact is not None else (paths[0] if paths else None)
+    else:
+        found = reference_axis(runs)  # no exact solution: the case's extended-precision one
+        if found is not None:
+            paths.append((found[1], found[0], "black", (0, (4, 3))))
+    truth = bool(paths) and _is_truth(paths[-1][0])
+    ref = paths[-1] if truth else (paths[0] if paths else None)
     turns = float(path_turns(ref[1])[-1]) if ref is not None and len(ref[1]) > 1 else 0.0
     long_run = turns > LONG_PATH_TURNS
     first = slice(None)
@@ -538,14 +550,14 @@ def axis_path(runs: list[dict], case: str, out) -> Path:
         n_first = int(np.searchsorted(path_turns(ref[1]), 1.0)) + 1
         first = slice(0, n_first)
     for label, a, color, ls in paths:
-        lw = 1.0 if label == "exact" else 0.9
+        lw = 1.0 if _is_truth(label) else 0.9
         (h,) = ax.plot(
             a[first, 0],
             a[first, 1],
             color=color,
             lw=lw,
             ls=ls,
-            zorder=5 if label == "exact" else 2,
+            zorder=5 if _is_truth(label) else 2,
         )
         handles.setdefault(label, h)
     if paths:
@@ -600,7 +612,13 @@ def _error_paths(az, paths, ref) -> None:
         az.plot([d[-1, 0]], [d[-1, 1]], marker="s", color=color, ms=5, ls="none", zorder=6)
         drawn += 1
     az.plot([0.0], [0.0], marker="+", color="black", ms=12, zorder=7)
-    name = "the exact axis" if ref_label == "exact" else f"the axis of {ref_label}"
+    name = (
+        "the exact axis"
+        if ref_label == "exact"
+        else "the reference axis"
+        if _is_truth(ref_label)
+        else f"the axis of {ref_label}"
+    )
     if not drawn:
         az.text(
             0.5,
@@ -626,7 +644,7 @@ def _zoom_on_ends(az, paths) -> None:
     drawn, else the first run's), scaled to show the spread of the end points."""
     if not paths:
         return
-    ref = paths[-1][1][-1] if paths[-1][0] == "exact" else paths[0][1][-1]
+    ref = paths[-1][1][-1] if _is_truth(paths[-1][0]) else paths[0][1][-1]
     ends = np.array([a[-1, :2] for _, a, _, _ in paths]) - ref[:2]
     w = 1.6 * float(np.max(np.abs(ends))) if ends.size else 0.0
     if not w > 0.0:
@@ -643,18 +661,19 @@ def _zoom_on_ends(az, paths) -> None:
             seg[:, 0],
             seg[:, 1],
             color=color,
-            lw=1.0 if label == "exact" else 0.9,
+            lw=1.0 if _is_truth(label) else 0.9,
             ls=ls,
             marker=".",
             ms=3,
-            zorder=5 if label == "exact" else 2,
+            zorder=5 if _is_truth(label) else 2,
         )
         az.plot([d[-1, 0]], [d[-1, 1]], marker="s", color=color, ms=5, ls="none", zorder=6)
     az.set_xlim(-w, w)
     az.set_ylim(-w, w)
     az.set_aspect("equal")
     az.ticklabel_format(style="sci", scilimits=(-3, 3))
-    ref_name = "exact" if paths[-1][0] == "exact" else "first run's"
+    last = paths[-1][0]
+    ref_name = "exact" if last == "exact" else "reference" if _is_truth(last) else "first run's"
     az.set_xlabel(f"x offset from the {ref_name} end point (1)")
     az.set_ylabel(f"y offset from the {ref_name} end point (1)")
     az.grid(True, alpha=0.3)

@@ -4,8 +4,10 @@ over a horizon, found by bisection on a log scale, verified by a fresh run, rank
 The error is the largest angle between the computed and the true figure axis over the samples
 (metric "axis"), the largest rotation angle between the computed and the true attitude, spin
 phase included (metric "attitude"), or the largest relative energy error (metric "energy"). For
-a case without an exact solution the true axis and attitude are a reference run of dop853 at
-rtol 1e-13 in the body form, and the result says so.
+a case without an exact solution the true axis and attitude are the case's extended-precision
+reference (run/case_reference.py: a double-double Taylor integration of no candidate's family,
+with its own error estimate), and the result says so; a target below that reference's verified
+accuracy is refused, and an achieved error below it is marked as not resolved.
 """
 
 from __future__ import annotations
@@ -18,6 +20,7 @@ import numpy as np
 
 from topdrift.benchmarks.cases.time_scales import fastest_period
 from topdrift.benchmarks.errors import UserError
+from topdrift.benchmarks.run.case_reference import case_reference
 from topdrift.benchmarks.run.in_memory import run_in_memory
 from topdrift.benchmarks.run.metrics import attitude_angle
 from topdrift.benchmarks.run.runner import plan_run, samples_for_horizon, steps_per_interval
@@ -38,9 +41,10 @@ DEFAULT_CANDIDATES = (
     "gauss6",
 )
 METRICS = ("axis", "attitude", "energy")
-# The trajectory metrics (against the exact solution, or else a reference run) by run metric.
+# The trajectory metrics (against the exact solution, or else the case's reference) by run metric.
 TRAJECTORY_METRICS = {"axis": "axis_angle_max", "attitude": "attitude_angle_max"}
-REFERENCE = {"method": "dop853", "form": "body", "rtol": 1e-13, "atol": 1e-16}
+# The run planned to learn whether the case has an exact solution (its notes say why not).
+PROBE = {"method": "dop853", "form": "body", "rtol": 1e-10, "atol": 1e-12}
 BISECTIONS = 5  # halvings of the log interval between a failing and a passing setting
 VERIFY_RUNS = 3  # fresh runs of a chosen setting, while they take under VERIFY_BUDGET_S in all
 VERIFY_BUDGET_S = 0.5
@@ -94,6 +98,7 @@ class Picker:
         horizon: float,
         samples: int,
         report: Callable[[str], None],
+        quiet: bool = False,
     ):
         if metric not in METRICS:
             raise UserError(f"--metric: expected axis, attitude or energy, got {metric!r}")
@@ -105,17 +110,21 @@ class Picker:
         self.horizon = horizon
         self.samples = samples
         self.report = report
+        self.quiet = quiet  # no progress line while a reference builds
         self.reference_axes = None
         self.reference_quaternions = None
         self.reference_note = None
+        self.reference_accuracy = None  # the reference's verified accuracy (dict), if one is used
+        self.reference_family = None  # its method family: no candidate of it is judged by it
         self._trials: dict[tuple[str, str, float], Trial] = {}
         if metric in TRAJECTORY_METRICS:
             self._reference()
 
     def _reference(self) -> None:
-        """The reference run, when the case has no exact solution to measure the axis against:
-        not a Lagrange top, or one whose exact solution is refused (a degenerate start)."""
-        r = REFERENCE
+        """The extended-precision reference, when the case has no exact solution to measure the
+        axis against (not a Lagrange top, or one whose exact solution is refused: a degenerate
+        start); a target below its verified accuracy is refused before any candidate runs."""
+        r = PROBE
         plan = plan_run(
             self.case,
             r["method"],
@@ -128,17 +137,31 @@ class Picker:
         if plan.exact is not None:
             return
         why = next((n for n in plan.notes if n.startswith("no exact solution")), None)
-        run = run_in_memory(plan)
-        if run.status != "ok":
-            raise UserError(f"{self.case.name}: the reference run ended {run.status}: {run.detail}")
-        self.reference_axes = _axes(run)
-        self.reference_quaternions = _quaternions(run)
+        ref = case_reference(self.case, self.horizon, self.samples, quiet=self.quiet)
+        self.reference_axes = ref.axes()
+        self.reference_quaternions = np.ascontiguousarray(ref.states[:, :4])
+        self.reference_accuracy = dict(ref.accuracy)
+        self.reference_family = ref.family
         self.reference_note = (
             f"{why or 'no exact solution'} for {self.case.name}: the {self.metric} error is "
-            "measured "
-            f"against a {r['method']} reference run at rtol {r['rtol']:g} in the {r['form']} form"
+            f"measured against its extended-precision reference ({ref.method}), "
+            f"{ref.accuracy_text()}"
         )
+        acc = ref.accuracy[self.metric]
+        what = "figure axis" if self.metric == "axis" else "attitude"
+        if self.target < acc:
+            raise UserError(
+                f"--target {self.target:g}: below this case's verified reference accuracy of "
+                f"{acc:.2g} rad ({what} over {self.horizon:g} s): no error that small can "
+                "be measured; ask for a target of at least that"
+            )
         self.report(self.reference_note)
+
+    def unresolved(self, achieved: float) -> bool:
+        """An achieved axis or attitude error below the reference's verified accuracy: the
+        measurement says only that the error is about that accuracy or less."""
+        acc = self.reference_accuracy
+        return acc is not None and self.metric in acc and achieved < acc[self.metric]
 
     def divisor_step(self, value: float) -> float:
         """The step the runner will use for a requested `value` (the sample interval over a
@@ -207,6 +230,13 @@ class Picker:
             )
         except MethodRefused as exc:
             return Choice(method, form or "?", reason=str(exc))
+        if self.reference_family and m.info.family == self.reference_family:
+            return Choice(
+                method,
+                form,
+                reason=f"of the reference's own family ({m.info.family}): it would be judged "
+                "against itself",
+            )
         if self.metric == "energy" and "energy" in m.info.kept_in(form):
             # Its energy error is rounding at any setting: the cheapest setting "meeting" an
             # energy target would say nothing about the method. Ranked by --metric axis.
@@ -345,6 +375,7 @@ def pick(
     methods=None,
     form: str | None = None,
     report: Callable[[str], None] = lambda s: None,
+    quiet: bool = False,
 ) -> dict:
     horizon = case.horizon if horizon is None else horizon
     if samples is None:
@@ -356,7 +387,7 @@ def pick(
     methods = list(methods or DEFAULT_CANDIDATES)
     for name in methods:
         get_method(name)  # unknown names fail before any work
-    picker = Picker(case, target, metric, horizon, samples, report)
+    picker = Picker(case, target, metric, horizon, samples, report, quiet)
     choices: list[Choice] = []
     try:
         for name in methods:
@@ -389,6 +420,7 @@ def pick(
                 "margin": target / v.achieved if v.achieved > 0 else None,
                 "trials": len(c.tried),
                 "capped": c.capped,
+                "unresolved": picker.unresolved(v.achieved),
             }
         )
     return {
@@ -398,6 +430,7 @@ def pick(
         "horizon": horizon,
         "samples": samples,
         "reference": picker.reference_note,
+        "reference_accuracy": picker.reference_accuracy,
         "ranking": ranking,
         "unreached": [
             {"method": c.method, "form": c.form, "reason": c.reason} for c in choices if c not in ok

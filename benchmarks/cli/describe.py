@@ -23,6 +23,12 @@ def add_parser(sub) -> None:
     p.add_argument("case", nargs="?", help="a case file or the name of a library case")
     p.add_argument("--demo", action="store_true", help="describe the demo-wheel case")
     p.add_argument("--json", action="store_true", help="print the JSON contract")
+    p.add_argument(
+        "--reference",
+        action="store_true",
+        help="for a case with no exact solution, build its extended-precision reference over "
+        "the case's horizon if it is not cached yet (seconds), and show its verified accuracy",
+    )
     p.set_defaults(func=run)
 
 
@@ -36,12 +42,44 @@ def run(args) -> int:
         raise UserError("describe: give a CASE (a file or a library name) or --demo")
     from topdrift.benchmarks.cases.description import summarise
 
-    info = summarise(load_case(DEMO_CASE if args.demo else args.case))
+    case = load_case(DEMO_CASE if args.demo else args.case)
+    info = summarise(case)
+    if info["exact"] is None:
+        info["reference"] = reference_summary(case, build=args.reference, quiet=args.json)
     if args.json:
         print(json.dumps(info, indent=2, allow_nan=False))
     else:
         print(render(info))
     return 0
+
+
+def reference_summary(case, build: bool, quiet: bool) -> dict:
+    """What a case with no exact solution is measured against: its extended-precision reference
+    over the case's horizon, read from the cache (or built, when asked), with its verified
+    accuracy; {"built": False, ...} when it is not cached and not asked for."""
+    from topdrift.benchmarks.run.case_reference import case_reference
+    from topdrift.benchmarks.run.reference_cache import cache_dir
+
+    ref = case_reference(case, build=build, quiet=quiet)
+    if ref is None:
+        return {
+            "built": False,
+            "cache": str(cache_dir()),
+            "how": "built on first use by `topdrift pick`, or by `topdrift describe CASE "
+            "--reference`",
+        }
+    return {
+        "built": True,
+        "cached": ref.cached,
+        "cache": str(cache_dir()),
+        "provider": ref.provider,
+        "method": ref.method,
+        "horizon": float(ref.times[-1]),
+        "samples": int(ref.times.shape[0]),
+        "accuracy": ref.accuracy,
+        "parting": ref.parting,
+        "cost": ref.cost,
+    }
 
 
 def _g(x: float | None, digits: int = 6) -> str:
@@ -169,4 +207,28 @@ def render(info: dict) -> str:
         )
     elif "exact_unavailable" in info:
         out += ["", f"exact motion  unavailable: {info['exact_unavailable']}"]
+    r = info.get("reference")
+    if r is not None:
+        out += ["", "reference (no exact solution)"]
+        if not r["built"]:
+            out += [f"  not built yet: {r['how']} (cache {r['cache']})"]
+        else:
+            a, c = r["accuracy"], r["cost"]
+            out += [f"  {r['method']}"]
+            out += _table(
+                [
+                    ("over", f"{_g(r['horizon'])} s, {r['samples']} samples", ""),
+                    ("verified accuracy, figure axis", f"{a['axis']:.2g}", "rad"),
+                    ("verified accuracy, attitude", f"{a['attitude']:.2g}", "rad"),
+                    ("verified accuracy, momentum", f"{a['momentum']:.2g}", "(relative)"),
+                    ("parting of the two integrations", f"{r['parting']['axis']:.2g}", "rad"),
+                    (
+                        "cost",
+                        f"{int(c['steps'])} + {int(c['check_steps'])} steps, "
+                        f"{c['wall_s'] + c['check_wall_s']:.2g} s",
+                        "",
+                    ),
+                    ("cache", r["cache"] + (" (read)" if r["cached"] else " (built now)"), ""),
+                ]
+            )
     return "\n".join(out)

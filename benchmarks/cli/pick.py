@@ -75,6 +75,7 @@ def run(args) -> int:
         methods=args.methods,
         form=args.form,
         report=report,
+        quiet=args.json,
     )
     if args.json:
         print(json.dumps(result, indent=2))
@@ -98,13 +99,19 @@ def run(args) -> int:
                 f"{r['wall_s']:.3g}",
                 str(r["force_evals"]),
                 str(r["rhs_evals"]),
-                f"{r['achieved']:.3g}",
+                f"{r['achieved']:.3g}" + ("*" if r.get("unresolved") else ""),
                 margin,
             )
         )
     widths = [max(len(row[k]) for row in rows) for k in range(len(rows[0]))]
     for row in rows if len(rows) > 1 else []:  # no header over an empty ranking
         print("  ".join(c.ljust(w) for c, w in zip(row, widths, strict=True)).rstrip())
+    if any(r.get("unresolved") for r in result["ranking"]):
+        acc = result["reference_accuracy"]["axis"]
+        print(
+            f"note: * below this case's verified reference accuracy of {acc:.2g} rad: that "
+            "error is not resolved, only bounded by about the reference's accuracy"
+        )
     capped = [r["method"] for r in result["ranking"] if r.get("capped")]
     if capped:
         interval = result["horizon"] / (result["samples"] - 1)

@@ -157,7 +157,8 @@ def list_runs(f: h5py.File) -> list[dict]:
 def analysis_record(row: dict) -> dict:
     """A run_record as analysis, plot and report take it: run_id, case, method, settings (dict;
     with the form and the horizon, which name a series as much as the settings do), status,
-    created, metrics (dict), has_exact."""
+    created, metrics (dict), has_exact, and the case text and sample count (what a reference
+    of the case needs)."""
     settings = dict(row.get("settings") or {})
     for key in ("form", "horizon"):
         if key in row and key not in settings:
@@ -171,6 +172,8 @@ def analysis_record(row: dict) -> dict:
         "created": row.get("created"),
         "metrics": row.get("metrics") or {},
         "has_exact": row["has_exact"],
+        "case_toml": row.get("case_toml"),
+        "samples": row.get("samples"),
     }
 
 

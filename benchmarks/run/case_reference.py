@@ -1,0 +1,182 @@
+"""The reference of a case with no closed form: built in extended precision by a provider
+(today the double-double Taylor integration of integrators/extended), with its own error
+estimate, cached on disk (reference_cache.py) and built with a progress line.
+
+Providers are tried in order; the first that takes the case builds its reference. A provider
+is a name, the settings that decide its numbers (they key the cache) and two functions: why it
+does not take a body (None when it does) and the build (body, body-form start, sample times,
+progress) -> an object with times, states (n, 7 body-form rows), accuracy and parting (dicts of
+ACCURACY_KEYS), cost (dict of COST_KEYS) and method (text). An exact flow of the free
+asymmetric body would go first in PROVIDERS, refusing every body with a torque.
+"""
+
+from __future__ import annotations
+
+import sys
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from topdrift.benchmarks.errors import UserError
+from topdrift.benchmarks.run import reference_cache
+from topdrift.benchmarks.run.runner import samples_for_horizon
+from topdrift.integrators.extended import reference as extended
+from topdrift.models.quaternion import figure_axis
+
+
+@dataclass(frozen=True)
+class Provider:
+    name: str
+    settings: dict  # name, version and settings: what the numbers depend on (the cache key)
+    refuses: Callable[[object], str | None]
+    build: Callable  # (body, y0, times, progress) -> a reference (see the module docstring)
+    # The method family it belongs to: a candidate of that family is not judged against it.
+    family: str = ""
+
+
+TAYLOR_DD = Provider(
+    name="taylor-dd",
+    settings={
+        "name": "taylor-dd",
+        "version": 1,
+        "main": extended.MAIN.as_dict(),
+        "check": extended.CHECK.as_dict(),
+        "estimate_factor": repr(extended.ESTIMATE_FACTOR),
+    },
+    refuses=lambda body: None,  # the body-form equations hold for every body in uniform gravity
+    build=lambda body, y0, times, progress: extended.verified_reference(body, y0, times, progress),
+)
+
+PROVIDERS: list[Provider] = [TAYLOR_DD]
+
+
+@dataclass
+class CaseReference:
+    case: str
+    provider: str
+    method: str
+    times: np.ndarray
+    states: np.ndarray  # (n, 7) body-form states at the sample times
+    accuracy: dict  # verified accuracy: axis, attitude (rad), momentum (relative)
+    parting: dict
+    cost: dict
+    cached: bool
+    family: str = ""
+    notes: list[str] = field(default_factory=list)
+
+    def axes(self) -> np.ndarray:
+        return np.array([figure_axis(*row[:4]) for row in self.states])
+
+    def accuracy_text(self) -> str:
+        a = self.accuracy
+        return (
+            f"verified accuracy {a['axis']:.2g} rad (figure axis), {a['attitude']:.2g} rad "
+            f"(attitude) over {self.times[-1]:g} s"
+        )
+
+    def cost_text(self) -> str:
+        c = self.cost
+        return (
+            f"{int(c['steps'])} + {int(c['check_steps'])} steps, "
+            f"{c['wall_s'] + c['check_wall_s']:.2g} s to build"
+        )
+
+
+def sample_times(horizon: float, samples: int) -> np.ndarray:
+    """The times a run samples at (RunPlan.sample_time, the same arithmetic)."""
+    t = np.array([horizon * k / (samples - 1) for k in range(samples)], dtype=np.float64)
+    t[-1] = horizon
+    return t
+
+
+class BuildProgress:
+    """One line on stderr while a reference builds (its two integrations one after the other,
+    each half of the work): redrawn in place on a terminal, a line at each quarter otherwise."""
+
+    def __init__(self, label: str, stream=None, quiet: bool = False):
+        self.label = label
+        self.stream = stream if stream is not None else sys.stderr
+        self.tty = self.stream.isatty()
+        self.quiet = quiet
+        self._next = 0.25
+
+    def __call__(self, which: str, frac: float, steps: int, seconds: float) -> None:
+        if self.quiet:
+            return
+        done = 0.5 * frac if which == "reference" else 0.5 + 0.5 * frac
+        line = (
+            f"{self.label}: building, {100 * done:3.0f}% ({which} integration: {steps} steps "
+            f"in {seconds:.1f} s)"
+        )
+        if self.tty:
+            self.stream.write(f"\r{line}\x1b[K" + ("\n" if done >= 1.0 else ""))
+        elif done >= self._next:
+            self.stream.write(line + "\n")
+            self._next = (int(done * 4) + 1) / 4
+        self.stream.flush()
+
+
+def provider_for(body) -> tuple[Provider | None, list[str]]:
+    why = []
+    for p in PROVIDERS:
+        reason = p.refuses(body)
+        if reason is None:
+            return p, why
+        why.append(f"{p.name}: {reason}")
+    return None, why
+
+
+def case_reference(
+    case,
+    horizon: float | None = None,
+    samples: int | None = None,
+    *,
+    build: bool = True,
+    quiet: bool = False,
+    stream=None,
+) -> CaseReference | None:
+    """The case's reference at its run sample times over `horizon` (default the case's; the
+    samples by the horizon rule of every command unless given), read from the cache or built
+    (and cached) when `build`; None when not cached and not `build`. Raises UserError when no
+    provider takes the case or the build fails."""
+    horizon = case.horizon if horizon is None else float(horizon)
+    samples = samples_for_horizon(case, horizon) if samples is None else int(samples)
+    provider, why = provider_for(case.body)
+    if provider is None:
+        raise UserError(f"{case.name}: no reference provider takes this body ({'; '.join(why)})")
+    y0 = np.ascontiguousarray(case.body_state(), dtype=np.float64)
+    times = sample_times(horizon, samples)
+    key = reference_cache.reference_key(
+        case.toml_text, case.body, y0, horizon, samples, provider.settings
+    )
+    hit = reference_cache.load(key, times)
+    if hit is not None:
+        return CaseReference(
+            case.name, provider.name, hit["method"], hit["times"], hit["states"],
+            hit["accuracy"], hit["parting"], hit["cost"], cached=True, family=provider.family,
+        )  # fmt: skip
+    if not build:
+        return None
+    progress = BuildProgress(f"reference for {case.name}", stream, quiet)
+    t0 = time.perf_counter()
+    try:
+        ref = provider.build(case.body, y0, times, progress)
+    except extended.ReferenceFailed as exc:
+        raise UserError(f"{case.name}: the reference could not be built: {exc}") from None
+    out = CaseReference(
+        case.name, provider.name, ref.method, ref.times, ref.states, dict(ref.accuracy),
+        dict(ref.parting), dict(ref.cost), cached=False, family=provider.family,
+    )  # fmt: skip
+    note = reference_cache.store(key, ref)
+    if note:
+        out.notes.append(note)
+    if not quiet:
+        s = stream if stream is not None else sys.stderr
+        s.write(
+            f"reference for {case.name}: built in {time.perf_counter() - t0:.1f} s, "
+            f"{out.accuracy_text()}" + (f"; {note}" if note else "") + "\n"
+        )
+        s.flush()
+    return out
