@@ -34,6 +34,10 @@ DEFAULT_CANDIDATES = (
     "leapfrog-kl8",
     "gauss4",
     "gauss6",
+    "midpoint",
+    "engine-euler",
+    "engine-semi-implicit",
+    "engine-implicit-gyro",
 )
 METRICS = ("axis", "energy")
 REFERENCE = {"method": "dop853", "form": "body", "rtol": 1e-13, "atol": 1e-16}
@@ -90,7 +94,10 @@ class Picker:
     ):
         if metric not in METRICS:
             raise UserError(f"--metric: expected axis or energy, got {metric!r}")
-        if not (isinstance(target, float) and math.isfinite(target) and target > 0.0):
+        # None: no target (a fixed loop rate ranks by error alone, choose/loop_rate.py).
+        if target is not None and not (
+            isinstance(target, float) and math.isfinite(target) and target > 0.0
+        ):
             raise UserError(f"--target: must be a positive finite number, got {target!r}")
         self.case = case
         self.target = target
