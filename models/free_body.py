@@ -20,8 +20,6 @@ from __future__ import annotations
 
 import math
 
-from scipy.special import ellipkm1
-
 from .body import SYMMETRY_RTOL
 
 
@@ -61,4 +59,7 @@ def free_body_period(inertia, m) -> float:
     km1 = (i3 - i1) * d2 / ((i3 - i2) * lo)
     if not 0.0 < km1 <= 1.0:
         return math.inf
+    # imported here: scipy.special costs 0.3 s to import, and every command line plans with this
+    from scipy.special import ellipkm1
+
     return 4.0 * float(ellipkm1(km1)) * math.sqrt(i1 * i2 * i3 / ((i3 - i2) * lo))

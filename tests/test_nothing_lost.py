@@ -19,8 +19,9 @@ from tiny_cases import write_case as write
 
 from topdrift.benchmarks.cli import entry as cli
 
-# A few seconds of gauss4, flushed every half second: the signal lands mid-run.
-LONG = ["--method", "gauss4", "--step", "0.0002", "--horizon", "100", "--samples", "201"]
+# Seconds of gauss4 (1.5e6 steps), flushed every half second: a signal sent at the first flush
+# lands mid-run even on a loaded machine (at 5e5 steps a SIGKILL once came after the last sample).
+LONG = ["--method", "gauss4", "--step", "0.0002", "--horizon", "300", "--samples", "201"]
 
 
 def group_hashes(path, where: str) -> dict:

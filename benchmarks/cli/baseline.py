@@ -12,7 +12,7 @@ MIN_ROUNDS = 4  # the fewest rounds on each side for a 95 % interval (shift_inte
 
 
 def add_parser(sub) -> None:
-    from topdrift.benchmarks.gate.measure import TIMING_ROUNDS
+    from topdrift.benchmarks.gate.timing_settings import TIMING_ROUNDS
 
     p = sub.add_parser(
         "baseline",
@@ -33,7 +33,7 @@ def add_parser(sub) -> None:
     p.add_argument(
         "--rounds",
         type=int,
-        default=TIMING_ROUNDS,
+        default=None,
         metavar="N",
         help=f"timing rounds (default {TIMING_ROUNDS}, at least {MIN_ROUNDS}); the gate times "
         "as many",
@@ -52,7 +52,7 @@ def run(args) -> int:
     from topdrift.benchmarks.stopping import Interrupted
     from topdrift.benchmarks.sweep.spec import read_sweep
 
-    if args.rounds < MIN_ROUNDS:
+    if args.rounds is not None and args.rounds < MIN_ROUNDS:
         raise UserError(
             f"--rounds: at least {MIN_ROUNDS} (a 95 % interval of a timing change needs "
             f"{MIN_ROUNDS} rounds on each side), got {args.rounds}"

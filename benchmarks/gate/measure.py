@@ -49,17 +49,14 @@ from topdrift.benchmarks.gate.reference_workload import (
     reference_kind,
     unit_ns,
 )
+from topdrift.benchmarks.gate.timing_settings import TIMING_ROUNDS, TIMING_TARGET_S
 from topdrift.benchmarks.run.runner import plan_run, samples_at_interval
 from topdrift.benchmarks.sweep.executor import Job, Skip, expand_grid, run_job
 from topdrift.integrators import C_STEPS, STATUS_NAMES
 from topdrift.integrators import get as get_method
 
-# Many short rounds rather than a few long ones: on this 2-core machine under the load of other
-# work, 41 rounds of 10 ms passes gave 95 % intervals of +-1 to 3 % where 9 rounds of 50 ms (the
-# same total time) gave +-6 to 19 % (measured side by side): the noise comes in bursts, and a
-# rank interval shrugs off a burst that lands on a few short passes.
-TIMING_TARGET_S = 0.01
-TIMING_ROUNDS = 41
+# TIMING_ROUNDS and TIMING_TARGET_S (timing_settings.py, apart so the help needs no numba) are
+# read from this module's names at call time, so a test may shrink them here
 MAX_HORIZON_FACTOR = 10_000
 MIN_GRID_WALL_S = 1e-5  # below this a grid run's wall time says nothing about its speed
 
