@@ -53,7 +53,15 @@ ST_NO_CONVERGENCE = 4  # an implicit solve did not converge
 ST_FAILED = 5  # any other failure: a library's (scipy references), a plug-in step's exception
 STATUS_NAMES = ("ok", "diverged", "singular", "step-underflow", "no-convergence", "failed")
 
-FAMILIES = ("explicit-rk", "adaptive-rk", "splitting", "gauss-legendre", "reference", "external")
+FAMILIES = (
+    "explicit-rk",
+    "adaptive-rk",
+    "splitting",
+    "gauss-legendre",
+    "first-order-engine",
+    "reference",
+    "external",
+)
 KEEPS = ("energy", "p_phi", "p_psi", "norm")
 
 # What a method keeps, one rule for every family. A claim holds on every body for which the

@@ -1,10 +1,10 @@
 """Ensembles: one kernel advances many starts of the same body at once, in parallel.
 
-The step kernels of the splitting and Gauss-Legendre methods run once per start inside a numba
-`prange` loop over the starts, so an ensemble is the same arithmetic as N separate runs (member
-j gives the same bits as a single run from start j) spread over the cores. Used for
-spread-of-outcome studies (the chaotic top) and for the round-off study (Brouwer's law), where
-many perturbed starts turn one noisy error curve into a statistic.
+The step kernels of the splitting, Gauss-Legendre and first-order engine methods run once per
+start inside a numba `prange` loop over the starts, so an ensemble is the same arithmetic as N
+separate runs (member j gives the same bits as a single run from start j) spread over the cores.
+Used for spread-of-outcome studies (the chaotic top) and for the round-off study (Brouwer's
+law), where many perturbed starts turn one noisy error curve into a statistic.
 """
 
 from __future__ import annotations
@@ -12,6 +12,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
+from topdrift.integrators.engine.kernel import engine_steps
+from topdrift.integrators.engine.methods import EngineMethod
 from topdrift.integrators.gauss.kernel import N_ITERS, N_MEMO, gauss_steps, work_size
 from topdrift.integrators.gauss.methods import GaussMethod
 from topdrift.integrators.splitting.kernels import (
@@ -109,6 +111,14 @@ def _advance_gauss(
             status[j] = st
 
 
+@njit(cache=True, parallel=True)
+def _advance_engine(scheme, p, h, nsteps, Y, counters, status):
+    for j in prange(Y.shape[0]):
+        if status[j] == ST_OK:
+            st, _ = engine_steps(scheme, Y[j], p, h, nsteps, counters[j])
+            status[j] = st
+
+
 class EnsembleStepper:
     """N starts of one body advanced together on the step grid of one splitting method.
 
@@ -118,11 +128,11 @@ class EnsembleStepper:
     def __init__(
         self, method, form: int, params: np.ndarray, t0: float, Y0: np.ndarray, step: float
     ):
-        if not isinstance(method, (SplittingMethod, GaussMethod)):
+        if not isinstance(method, (SplittingMethod, GaussMethod, EngineMethod)):
             raise MethodRefused(
                 f"{method.name}: ensembles run on the splitting methods (leapfrog and its "
-                f"compositions) and the Gauss-Legendre methods, plain or -kahan; this method "
-                f"has no ensemble kernel"
+                f"compositions), the Gauss-Legendre methods, plain or -kahan, and the "
+                f"first-order engine schemes; this method has no ensemble kernel"
             )
         Y0 = np.ascontiguousarray(Y0, dtype=np.float64)
         n = FORM_SIZE[form]
@@ -133,6 +143,7 @@ class EnsembleStepper:
         self.form = int(form)
         self.params = single.params
         self.gauss = isinstance(method, GaussMethod)
+        self.engine = isinstance(method, EngineMethod)
         self.step = float(step)
         self.compensated = method.info.compensated
         self.t0 = float(t0)
@@ -157,7 +168,7 @@ class EnsembleStepper:
             self.M = np.full((m, N_MEMO), np.nan)
             self.Wk = np.zeros((m, work_size(s, n)))
             self.iters = np.zeros((m, N_ITERS), dtype=np.int64)
-        else:
+        elif not self.engine:
             self.kick = single.kick
             self.drift = single.drift
             self.free = single.free
@@ -180,7 +191,17 @@ class EnsembleStepper:
             )
         if k == 0:
             return self.status
-        if self.gauss:
+        if self.engine:
+            _advance_engine(
+                self.method.scheme,
+                self.params,
+                self.step,
+                k,
+                self.y,
+                self.counters,
+                self.status,
+            )
+        elif self.gauss:
             t = self.tab
             _advance_gauss(
                 self.form,

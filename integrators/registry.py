@@ -20,6 +20,7 @@ _BUILTIN_MODULES = (
     "topdrift.integrators.rk.adaptive",
     "topdrift.integrators.splitting.methods",
     "topdrift.integrators.gauss.methods",
+    "topdrift.integrators.engine.methods",
     "topdrift.integrators.reference.scipy_methods",
 )
 

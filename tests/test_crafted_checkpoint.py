@@ -48,6 +48,10 @@ FAMILIES = {
     "adaptive-rk": (("dop853", {"rtol": 1e-8}), ("dop853", {"rtol": 1e-7})),
     "splitting": (("leapfrog", {"step": 0.01}), ("leapfrog-s4", {"step": 0.01})),
     "gauss-legendre": (("gauss4", {"step": 0.01}), ("gauss4", {"step": 0.005})),
+    "first-order-engine": (
+        ("engine-semi-implicit", {"step": 0.01}),
+        ("engine-implicit-gyro", {"step": 0.01}),
+    ),
     "scipy-rk45": (("scipy-rk45", {"rtol": 1e-6}), ("scipy-rk45", {"rtol": 1e-7})),
     "scipy-dop853": (("scipy-dop853", {"rtol": 1e-6}), ("scipy-rk45", {"rtol": 1e-6})),
     "scipy-radau": (("scipy-radau", {"rtol": 1e-6}), ("scipy-radau", {"rtol": 1e-7})),

@@ -29,7 +29,9 @@ def starts(form, n=6):
 
 
 @pytest.mark.parametrize("form", [0, 1])
-@pytest.mark.parametrize("name", ["leapfrog", "leapfrog-s4-kahan", "gauss4", "gauss6-kahan"])
+@pytest.mark.parametrize(
+    "name", ["leapfrog", "leapfrog-s4-kahan", "midpoint", "gauss4", "gauss6-kahan"]
+)
 def test_members_match_single_runs_bit_for_bit(name, form):
     y0 = starts(form)
     m = get(name)
@@ -41,6 +43,21 @@ def test_members_match_single_runs_bit_for_bit(name, form):
         s.advance_to(0.1)
         s.advance_to(0.25)
         assert np.array_equal(ens.y[j], s.y)
+
+
+@pytest.mark.parametrize("name", ["engine-euler", "engine-semi-implicit", "engine-implicit-gyro"])
+def test_engine_members_match_single_runs_bit_for_bit(name):
+    y0 = starts(1)
+    m = get(name)
+    ens = EnsembleStepper(m, 1, TOP.params(), 0.0, y0, 1e-3)
+    for t in (0.1, 0.25):
+        assert np.all(ens.advance_to(t) == 0)
+    for j in (0, 3, 5):
+        s = m.start(1, TOP.params(), 0.0, y0[j], {"step": 1e-3})
+        s.advance_to(0.1)
+        s.advance_to(0.25)
+        assert np.array_equal(ens.y[j], s.y)
+        assert np.array_equal(ens.counters[j], s.counters)
 
 
 def test_methods_without_an_ensemble_kernel_are_refused():

@@ -24,7 +24,7 @@ from topdrift.integrators import (
     get,
 )
 from topdrift.integrators.gauss.kernel import I_ROUNDING, N_ITERS, N_MEMO, gauss_steps, work_size
-from topdrift.integrators.gauss.tableau import GAUSS2, GAUSS3, Tableau
+from topdrift.integrators.gauss.tableau import GAUSS1, GAUSS2, GAUSS3, Tableau
 from topdrift.models import FORM_BODY, FORM_EULER, body_state
 from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 from topdrift.models.dynamics import rhs
@@ -47,7 +47,9 @@ def scipy_reference(form, body, y0, times):
 # --- the tables ------------------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("table", [GAUSS2, GAUSS3], ids=["2 stages", "3 stages"])
+@pytest.mark.parametrize(
+    "table", [GAUSS1, GAUSS2, GAUSS3], ids=["1 stage (midpoint)", "2 stages", "3 stages"]
+)
 def test_tableau_is_gauss_legendre_collocation(table):
     tab = Tableau(table)
     s = tab.stages
@@ -66,7 +68,9 @@ def test_tableau_is_gauss_legendre_collocation(table):
     assert tab.order == 2 * s
 
 
-@pytest.mark.parametrize("table", [GAUSS2, GAUSS3], ids=["2 stages", "3 stages"])
+@pytest.mark.parametrize(
+    "table", [GAUSS1, GAUSS2, GAUSS3], ids=["1 stage (midpoint)", "2 stages", "3 stages"]
+)
 def test_float_tableau_is_exactly_symplectic(table):
     # The condition b_i a_ij + b_j a_ji = b_i b_j (Sanz-Serna 1988; Hairer, Lubich, Wanner, GNI
     # Theorem VI.4.3) [from memory] must hold for the doubles themselves, checked in rational
@@ -100,7 +104,9 @@ def test_float_tableau_is_exactly_symplectic(table):
                 assert abs(tab.a[i * s + j] - exact) <= 8 * math.ulp(scale), (i, j)
 
 
-@pytest.mark.parametrize("table", [GAUSS2, GAUSS3], ids=["2 stages", "3 stages"])
+@pytest.mark.parametrize(
+    "table", [GAUSS1, GAUSS2, GAUSS3], ids=["1 stage (midpoint)", "2 stages", "3 stages"]
+)
 def test_extrapolation_matrix_reproduces_the_collocation_polynomial(table):
     # For y' = t^(s-1) the collocation polynomial is exact, so extrapolating the last step's
     # stages must give the exact increments of the next step's stages.
@@ -124,7 +130,7 @@ ORDER_TIMES = np.linspace(0.4, 2.0, 5)
 
 
 @pytest.mark.parametrize("form,body", CASES, ids=CASE_IDS)
-@pytest.mark.parametrize("name,order", [("gauss4", 4), ("gauss6", 6)])
+@pytest.mark.parametrize("name,order", [("midpoint", 2), ("gauss4", 4), ("gauss6", 6)])
 def test_measured_order(name, order, form, body):
     # Global error: the largest error over the sample times against a reference of no method
     # family (tests/independent_references.py): the exact solution of the Lagrange top in the
@@ -230,7 +236,7 @@ def test_euler_form_energy_error_stays_bounded():
 
 
 @pytest.mark.parametrize("form,body", CASES, ids=CASE_IDS)
-@pytest.mark.parametrize("name", ["gauss4", "gauss6"])
+@pytest.mark.parametrize("name", ["midpoint", "gauss4", "gauss6"])
 def test_time_reversible(name, form, body):
     # Gauss methods are symmetric (Hairer, Lubich, Wanner, GNI sec. V.2) [from memory]: N steps
     # forward and N back return to the start up to the round-off of the stage solves.
@@ -299,7 +305,9 @@ def _symplecticity_defect(a, b, c):
     return np.max(np.abs(m.T @ j @ m - j))
 
 
-@pytest.mark.parametrize("table", [GAUSS2, GAUSS3], ids=["2 stages", "3 stages"])
+@pytest.mark.parametrize(
+    "table", [GAUSS1, GAUSS2, GAUSS3], ids=["1 stage (midpoint)", "2 stages", "3 stages"]
+)
 def test_symplectic_in_canonical_variables(table):
     # M^T J M = J for the Jacobian M of one step (Hairer, Lubich, Wanner, GNI sec. VI.4) [from
     # memory]: the canonical variables (phi, theta, psi; p_phi, p_theta, p_psi) make J the standard
@@ -312,7 +320,7 @@ def test_symplectic_in_canonical_variables(table):
 # --- compensated summation -------------------------------------------------------------------
 
 
-@pytest.mark.parametrize("name", ["gauss4", "gauss6"])
+@pytest.mark.parametrize("name", ["midpoint", "gauss4", "gauss6"])
 def test_compensated_summation_slows_round_off_growth(name):
     # Body form: energy is a quadratic first integral, so at a tiny step its error is pure
     # round-off. Adding the small update with Kahan's compensated summation removes the rounding
@@ -422,6 +430,8 @@ def test_stages_are_the_nearest_doubles_of_the_exact_stage_solution(name):
 
 def test_registry_metadata():
     for name, order, comp in [
+        ("midpoint", 2, False),
+        ("midpoint-kahan", 2, True),
         ("gauss4", 4, False),
         ("gauss6", 6, False),
         ("gauss4-kahan", 4, True),

@@ -32,7 +32,11 @@ FORMS = {"euler": FORM_EULER, "body": FORM_BODY}
 # Steps (s) at which each order's truncation error is far above the round-off bound (measured:
 # the smallest energy error over the starts, 1000 steps, is above 1e-11 for every method that
 # does not keep the energy), and at which the Euler form stays clear of the pole.
+# The increment of m3 of the implicit midpoint rule at 0.02 s, and of explicit Euler at 0.01 s, is
+# below half an ulp of m3 on every start (measured: p_psi never moved in 6000 steps), so their
+# rounding shows only at a longer step.
 STEP = {
+    1: 0.01,
     2: 0.02,
     4: 0.1,
     6: 0.2,
@@ -40,7 +44,13 @@ STEP = {
     "leapfrog-tj8": 0.2,
     "leapfrog-tj8-kahan": 0.2,
     "leapfrog-tj8-composed": 0.2,
+    "midpoint": 0.05,
+    "midpoint-kahan": 0.05,
+    "engine-euler": 0.02,
 }
+# Explicit Euler evaluates m3's rate m1 w2 - m2 w1 once per step, and its rounding reaches m3 on
+# about one step in a thousand at these rates (measured): twelve starts show it, six did not.
+STARTS = {"engine-euler": 12}
 
 
 def starts(k, seed, tumble=True):
@@ -120,7 +130,7 @@ def test_keeps_what_it_claims_and_no_more(name, form, body_name):
     to_bit, to_roundoff = method.info.keeps_by_form[form]
     # Python right-hand sides are slow: fewer steps for the scipy references.
     steps = 300 if method.info.family == "reference" else 1000
-    n_starts = 4 if method.info.family == "reference" else 6
+    n_starts = 4 if method.info.family == "reference" else STARTS.get(name, 6)
     moved = set()
     seed = zlib.crc32(f"{name} {form} {body_name}".encode())
     for start in starts(n_starts, seed, tumble=form == "body"):

@@ -39,6 +39,10 @@ DEFAULT_CANDIDATES = (
     "leapfrog-kl8",
     "gauss4",
     "gauss6",
+    "midpoint",
+    "engine-euler",
+    "engine-semi-implicit",
+    "engine-implicit-gyro",
 )
 METRICS = ("axis", "attitude", "energy")
 # The trajectory metrics (against the exact solution, or else the case's reference) by run metric.
@@ -102,7 +106,10 @@ class Picker:
     ):
         if metric not in METRICS:
             raise UserError(f"--metric: expected axis, attitude or energy, got {metric!r}")
-        if not (isinstance(target, float) and math.isfinite(target) and target > 0.0):
+        # None: no target (a fixed loop rate ranks by error alone, choose/loop_rate.py).
+        if target is not None and not (
+            isinstance(target, float) and math.isfinite(target) and target > 0.0
+        ):
             raise UserError(f"--target: must be a positive finite number, got {target!r}")
         self.case = case
         self.target = target

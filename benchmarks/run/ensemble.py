@@ -114,8 +114,8 @@ def plan_ensemble(plan: RunPlan, members: int, spread: float) -> EnsemblePlan:
         raise UserError(f"{plan.case.name}: {plan.start_singular}")
     if "step" not in plan.stepper_settings:
         raise UserError(
-            f"{plan.method.name}: ensembles run on fixed-step methods (splittings "
-            f"and Gauss-Legendre)"
+            f"{plan.method.name}: ensembles run on fixed-step methods (splittings, "
+            f"Gauss-Legendre and the first-order engine schemes)"
         )
     check_size(plan, members)
     settings = dict(plan.settings, ensemble=members, spread=spread)

@@ -1,4 +1,5 @@
-"""Gauss-Legendre collocation, 2 and 3 stages (orders 4 and 6), fixed step, in both state forms,
+"""Gauss-Legendre collocation, 1, 2 and 3 stages (orders 2, 4 and 6; one stage is the implicit
+midpoint rule), fixed step, in both state forms,
 with plain or compensated (Kahan) summation of the update.
 
 Which invariants a run keeps. Gauss collocation keeps every quadratic first integral of the ODE
@@ -36,7 +37,7 @@ from topdrift.integrators.base import (
     grid_steps,
 )
 from topdrift.integrators.gauss.kernel import N_ITERS, N_MEMO, gauss_steps, work_size
-from topdrift.integrators.gauss.tableau import GAUSS2, GAUSS3, Tableau
+from topdrift.integrators.gauss.tableau import GAUSS1, GAUSS2, GAUSS3, Tableau
 from topdrift.integrators.validation import (
     ANY,
     COUNT,
@@ -191,7 +192,7 @@ class GaussStepper(Stepper):
 class GaussMethod(Method):
     """A Gauss-Legendre collocation method from its tableau, plain or compensated."""
 
-    def __init__(self, name: str, table: dict, compensated: bool) -> None:
+    def __init__(self, name: str, table: dict, compensated: bool, title: str = "") -> None:
         self.tableau = Tableau(table)
         s = self.tableau.stages
         summation = (
@@ -211,11 +212,17 @@ class GaussMethod(Method):
             keeps_by_form=KEEPS_BY_FORM,
             compensated=compensated,
             description=(
-                f"Gauss-Legendre collocation, {s} stages, order {self.tableau.order}; stage "
+                f"{title}Gauss-Legendre collocation, {s} stage{'s' if s > 1 else ''}, order "
+                f"{self.tableau.order}; stage "
                 f"equations solved by fixed-point iteration to round-off; {summation}. Also "
                 f"keeps energy in the body form and p_phi in the Euler form"
             ),
-            source=SOURCE,
+            source=(
+                "implicit midpoint rule: Hairer, Lubich and Wanner, Geometric Numerical "
+                "Integration, 2006, sec. II.1 [from memory]; " + SOURCE
+                if s == 1
+                else SOURCE
+            ),
         )
 
     @property
@@ -232,7 +239,10 @@ class GaussMethod(Method):
         return GaussStepper(self, form, p, float(t0), y, checked)
 
 
+MIDPOINT = "implicit midpoint rule: "
 METHODS = [
+    GaussMethod("midpoint", GAUSS1, compensated=False, title=MIDPOINT),
+    GaussMethod("midpoint-kahan", GAUSS1, compensated=True, title=MIDPOINT),
     GaussMethod("gauss4", GAUSS2, compensated=False),
     GaussMethod("gauss6", GAUSS3, compensated=False),
     GaussMethod("gauss4-kahan", GAUSS2, compensated=True),

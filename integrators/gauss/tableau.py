@@ -1,5 +1,9 @@
 """Butcher tableaux of the Gauss-Legendre collocation methods, as exact closed forms.
 
+One stage is the implicit midpoint rule (c = 1/2, a = 1/2, b = 1; Hairer, Lubich and Wanner,
+Geometric Numerical Integration, 2006, sec. II.1.1 and II.1.3 [from memory]): order 2,
+symplectic, and like every Gauss method it keeps quadratic first integrals.
+
 Source: J. C. Butcher, "Implicit Runge-Kutta processes", Math. Comp. 18 (1964) 50-64; the same
 tables are printed in E. Hairer, G. Wanner, Solving Ordinary Differential Equations II, sec. IV.5
 [from memory] (Tables 5.1 and 5.2), and in E. Hairer, C. Lubich, G. Wanner, Geometric Numerical
@@ -30,6 +34,14 @@ from fractions import Fraction
 import numpy as np
 
 # (rational part, coefficient of sqrt(radicand)), as exact fraction strings.
+GAUSS1 = {
+    "radicand": 1,  # no irrational entries: the square-root parts are all zero
+    "order": 2,
+    "c": [("1/2", "0")],
+    "b": [("1", "0")],
+    "a": [[("1/2", "0")]],
+}
+
 GAUSS2 = {
     "radicand": 3,
     "order": 4,
@@ -170,7 +182,12 @@ def extrapolation_matrix(c: np.ndarray, b: np.ndarray) -> np.ndarray:
     e = np.empty((s, s))
     for j in range(s):
         others = np.delete(c, j)
-        lj = np.polynomial.Polynomial.fromroots(others) / np.prod(c[j] - others)
+        # One node: the Lagrange polynomial is the constant 1 (fromroots refuses no roots).
+        lj = (
+            np.polynomial.Polynomial.fromroots(others) / np.prod(c[j] - others)
+            if s > 1
+            else np.polynomial.Polynomial([1.0])
+        )
         ij = lj.integ()
         for i in range(s):
             e[i, j] = ij(1.0 + c[i]) - b[j]

@@ -1,0 +1,1 @@
+"""First-order engine schemes, the steps real-time engines take (kernel.py, methods.py)."""
