@@ -105,7 +105,7 @@ def pick_at_step(
     step = positive("--step", step)
     steps = whole("--steps", steps, 1, MAX_STEPS, "a whole number of steps")
     if metric not in METRICS:
-        raise UserError(f"--metric: expected axis or energy, got {metric!r}")
+        raise UserError(f"--metric: expected axis, attitude or energy, got {metric!r}")
     if target is not None:
         target = positive("--target", target)
     names = list(methods) if methods else fixed_step_candidates()
