@@ -145,7 +145,7 @@ def test_a_case_without_exact_solution_is_measured_against_the_reference(command
         "pick", str(path), "--step", H, "--steps", str(STEPS), "--methods", "rk4", "engine-euler"
     )
     assert rc == 0, err
-    assert "dop853 reference run" in doc["reference"]
+    assert "extended-precision reference" in doc["reference"]
     assert {r["method"] for r in doc["ranking"]} == {"rk4", "engine-euler"}
 
 

@@ -156,7 +156,7 @@ class Picker:
         )
         acc = ref.accuracy[self.metric]
         what = "figure axis" if self.metric == "axis" else "attitude"
-        if self.target < acc:
+        if self.target is not None and self.target < acc:
             raise UserError(
                 f"--target {self.target:g}: below this case's verified reference accuracy of "
                 f"{acc:.2g} rad ({what} over {self.horizon:g} s): no error that small can "
