@@ -129,30 +129,38 @@ def taylor_states_mp(body, y0, times, dps: int = 50, order: int = 55) -> list:
     )  # fmt: skip
 
 
+def odefun_solution(body, y0, dps: int = DPS, binary: bool = False):
+    """mpmath.odefun's solution of the body-form equations (mpmath's own Taylor integrator); the
+    start and parameters taken as their decimal strings, or (binary) as the exact values of the
+    doubles. Call it inside mp.workdps(dps)."""
+    _mpf = (lambda x: mp.mpf(float(x))) if binary else _decimal
+    inertia = [_mpf(v) for v in body.inertia]
+    mg = _mpf(body.mass) * _mpf(body.gravity)
+    chi = [_mpf(v) for v in body.com]
+
+    def f(_t, y):
+        q0, q1, q2, q3, m1, m2, m3 = y
+        w1, w2, w3 = m1 / inertia[0], m2 / inertia[1], m3 / inertia[2]
+        g1 = 2 * (q1 * q3 - q0 * q2)
+        g2 = 2 * (q2 * q3 + q0 * q1)
+        g3 = q0 * q0 - q1 * q1 - q2 * q2 + q3 * q3
+        return [
+            (-q1 * w1 - q2 * w2 - q3 * w3) / 2,
+            (q0 * w1 + q2 * w3 - q3 * w2) / 2,
+            (q0 * w2 - q1 * w3 + q3 * w1) / 2,
+            (q0 * w3 + q1 * w2 - q2 * w1) / 2,
+            m2 * w3 - m3 * w2 + mg * (g2 * chi[2] - g3 * chi[1]),
+            m3 * w1 - m1 * w3 + mg * (g3 * chi[0] - g1 * chi[2]),
+            m1 * w2 - m2 * w1 + mg * (g1 * chi[1] - g2 * chi[0]),
+        ]
+
+    return mp.odefun(f, 0, [_mpf(v) for v in y0])
+
+
 def odefun_states(body, y0, times, dps: int = DPS) -> np.ndarray:
     """The same equations through mpmath.odefun (mpmath's own Taylor integrator)."""
     with mp.workdps(dps):
-        inertia = [_mpf(v) for v in body.inertia]
-        mg = _mpf(body.mass) * _mpf(body.gravity)
-        chi = [_mpf(v) for v in body.com]
-
-        def f(_t, y):
-            q0, q1, q2, q3, m1, m2, m3 = y
-            w1, w2, w3 = m1 / inertia[0], m2 / inertia[1], m3 / inertia[2]
-            g1 = 2 * (q1 * q3 - q0 * q2)
-            g2 = 2 * (q2 * q3 + q0 * q1)
-            g3 = q0 * q0 - q1 * q1 - q2 * q2 + q3 * q3
-            return [
-                (-q1 * w1 - q2 * w2 - q3 * w3) / 2,
-                (q0 * w1 + q2 * w3 - q3 * w2) / 2,
-                (q0 * w2 - q1 * w3 + q3 * w1) / 2,
-                (q0 * w3 + q1 * w2 - q2 * w1) / 2,
-                m2 * w3 - m3 * w2 + mg * (g2 * chi[2] - g3 * chi[1]),
-                m3 * w1 - m1 * w3 + mg * (g3 * chi[0] - g1 * chi[2]),
-                m1 * w2 - m2 * w1 + mg * (g1 * chi[1] - g2 * chi[0]),
-            ]
-
-        sol = mp.odefun(f, 0, [_mpf(v) for v in y0])
+        sol = odefun_solution(body, y0, dps)
         return np.array([[float(v) for v in sol(_mpf(t))] for t in times])
 
 

@@ -9,7 +9,7 @@ import functools
 import mpmath as mp
 import numpy as np
 import pytest
-from independent_references import taylor_states_mp
+from independent_references import odefun_solution, taylor_states_mp
 
 from topdrift.benchmarks.cases.library import load_case
 from topdrift.benchmarks.run import case_reference as cr
@@ -27,29 +27,8 @@ def odefun_states(name: str) -> list:
     exact binary values of the double start and parameters (the Euler-Poisson equations with a
     quaternion: q' = q (0, w) / 2, m' = m x w + M g (Gamma x chi); common practice)."""
     case = load_case(name)
-    body, y0 = case.body, case.body_state()
     with mp.workdps(DPS):
-        inertia = [mp.mpf(float(v)) for v in body.inertia]
-        mg = mp.mpf(float(body.mass)) * mp.mpf(float(body.gravity))
-        c = [mg * mp.mpf(float(v)) for v in body.com]
-
-        def f(_t, y):
-            q0, q1, q2, q3, m1, m2, m3 = y
-            w1, w2, w3 = m1 / inertia[0], m2 / inertia[1], m3 / inertia[2]
-            g1 = 2 * (q1 * q3 - q0 * q2)
-            g2 = 2 * (q2 * q3 + q0 * q1)
-            g3 = q0 * q0 - q1 * q1 - q2 * q2 + q3 * q3
-            return [
-                (-q1 * w1 - q2 * w2 - q3 * w3) / 2,
-                (q0 * w1 + q2 * w3 - q3 * w2) / 2,
-                (q0 * w2 - q1 * w3 + q3 * w1) / 2,
-                (q0 * w3 + q1 * w2 - q2 * w1) / 2,
-                m2 * w3 - m3 * w2 + (g2 * c[2] - g3 * c[1]),
-                m3 * w1 - m1 * w3 + (g3 * c[0] - g1 * c[2]),
-                m1 * w2 - m2 * w1 + (g1 * c[1] - g2 * c[0]),
-            ]
-
-        sol = mp.odefun(f, 0, [mp.mpf(float(v)) for v in y0])
+        sol = odefun_solution(case.body, case.body_state(), DPS, binary=True)
         return [list(sol(mp.mpf(t))) for t in SHORT]
 
 
