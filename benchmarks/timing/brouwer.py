@@ -99,8 +99,8 @@ psi_rate = "1500 rpm"
 # decades only if R is above both others from N / 100 on. Measured on this top (16 and 8
 # starts, docs/ensembles-and-roundoff.md): rho is about 7e-15 (gauss6) and 8e-15 (gauss4) in
 # s^-2; kappa about 1e7 s^-5 for gauss4. So for gauss6 at N = 1e7, h = 4e-5 puts R(1e5) at
-# 4e-16, above F, with T about a tenth of R at the end; at 2e-5 R(1e5) is at F (the fit then
-# reads about 1.3). gauss4 has no such step below N ~ 1e9: R(N / 100) > 3 F and T < R / 5
+# 4e-16, above F, with T about a tenth of R at the end; at 3e-5 the fit read 1.40 (8 starts),
+# at 2e-5 R(1e5) is at F. gauss4 has no such step below N ~ 1e9: R(N / 100) > 3 F and T < R / 5
 # there need N / 100 > 1e7; at 1e-6 its error is R from about 3e7 steps on (slope 1.46
 # from 3e7 to 1e8 measured), F before.
 PHASE_STEPS = {"gauss4-kahan": 1e-6, "gauss6-kahan": 4e-5}

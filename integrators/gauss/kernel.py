@@ -166,12 +166,26 @@ def gauss_steps(
             sweeps += 1
             delta = 0.0
             zmax = 0.0
+            if compensated:
+                # W_j = h b_j F_j with both parts of the weight (jd is free until the rounding
+                # below): the sweeps then solve the ratio form's equations, the ones the stage
+                # residual measures, and not h A F with A of doubles, whose weights are off by
+                # a common relative 4.4e-16 for three stages (a bias of the fixed point).
+                for j in range(s):
+                    for k in range(n):
+                        fj = f[j * n + k]
+                        jd[j * n + k] = hb[j] * fj + hb[s + j] * fj
             for i in range(s):
                 for k in range(n):
                     acc = 0.0
-                    for j in range(s):
-                        acc += a[i * s + j] * f[j * n + k]
-                    znew = h * acc
+                    if compensated:
+                        for j in range(s):
+                            acc += mu[i * s + j] * jd[j * n + k]
+                        znew = acc
+                    else:
+                        for j in range(s):
+                            acc += a[i * s + j] * f[j * n + k]
+                        znew = h * acc
                     d = abs(znew - zz[zo + i * n + k])
                     # NaN-safe: a NaN change makes delta NaN, caught below.
                     if not d <= delta:
