@@ -30,8 +30,17 @@ from topdrift.integrators.base import (
     ST_OK,
     ST_SINGULAR,
 )
+from topdrift.models.body import P_I1, P_I2
 from topdrift.models.dynamics import singular
-from topdrift.models.flows import flow_a_with, flow_b, increment_a_with, increment_b
+from topdrift.models.flows import (
+    FREE_COMPOSED,
+    FREE_EXACT,
+    FREE_SYMMETRIC,
+    flow_a_fixed,
+    flow_b,
+    increment_a_with,
+    increment_b,
+)
 from topdrift.models.forms import FORM_BODY, FORM_EULER
 from topdrift.models.turns import fold_euler
 
@@ -47,9 +56,9 @@ def _plain_steps(form, free, p, kick, drift, nsteps, w, first, counters, turns):
         flow_b(form, first, w, p)
         first = wrap
         for i in range(s - 1):
-            flow_a_with(form, free, drift[i], w, p)
+            flow_a_fixed(form, free, drift[i], w, p)
             flow_b(form, kick[i + 1], w, p)
-        flow_a_with(form, free, drift[s - 1], w, p)
+        flow_a_fixed(form, free, drift[s - 1], w, p)
         acc = 0.0
         for i in range(n):
             acc += w[i]
@@ -77,13 +86,22 @@ def run_plain(form, free, p, kick, drift, nsteps, w, fresh, counters, turns):
     int64; empty: left unfolded, models/turns.py).
 
     The loop is inlined once per form with the form a constant, so that the sub-flows' switch
-    on the form folds away (measured: 62 -> 36 ns per Euler-form leapfrog step)."""
+    on the form folds away (measured: 62 -> 36 ns per Euler-form leapfrog step), and once more
+    for the body form of a symmetric body with the free flow a constant, so that the closed-form
+    free flow is compiled into the loop instead of called through the dispatch, which passes y
+    and p on and so counts their references twice a step (body-form leapfrog against C: 1.16 ->
+    1.05, benchmarks/timing/against_c.py)."""
     if nsteps <= 0:
         return ST_OK, 0
     first = kick[0] if fresh[0] != 0 else kick[kick.shape[0] - 1] + kick[0]
     fresh[0] = 0
     if form == FORM_EULER:
         return _plain_steps(FORM_EULER, free, p, kick, drift, nsteps, w, first, counters, turns)
+    if (free == FREE_EXACT or free == FREE_COMPOSED) and p[P_I1] == p[P_I2]:
+        # both of these free flows are the closed form for I1 = I2: compiled in place
+        return _plain_steps(
+            FORM_BODY, FREE_SYMMETRIC, p, kick, drift, nsteps, w, first, counters, turns
+        )
     return _plain_steps(FORM_BODY, free, p, kick, drift, nsteps, w, first, counters, turns)
 
 
