@@ -129,6 +129,9 @@ class GateResult:
     notes: list[str] = field(default_factory=list)
     runs_compared: int = 0
     timings_compared: int = 0
+    # the reference workload's ns per step (scalar, stages), baseline and now: how the machine
+    # itself moved, for reading beside the timing verdicts
+    reference_ns: dict[str, list[float]] = field(default_factory=dict)
 
     @property
     def regressions(self) -> list[Finding]:
@@ -183,6 +186,7 @@ class GateResult:
                 {"name": n, "baseline": a, "now": b} for n, a, b in self.version_changes
             ],
             "machine_changes": self.machine_changes,
+            "reference_ns": self.reference_ns,
             "notes": self.notes,
             "runs_compared": self.runs_compared,
             "timings_compared": self.timings_compared,
@@ -418,6 +422,10 @@ def compare(
     result = GateResult(accept_names=list(accept))
     compare_runs(baseline["runs"], now["runs"], t, result, unstarted, tuple(accept))
     result.machine_changes = differences(baseline["machine"], now["machine"])
+    for side, doc in (("baseline", baseline), ("now", now)):
+        ref = doc.get("reference") or {}
+        if "scalar_ns" in ref and "stages_ns" in ref:
+            result.reference_ns[side] = [ref["scalar_ns"], ref["stages_ns"]]
     if timings is None:
         timings = not result.machine_changes
         if not timings:
