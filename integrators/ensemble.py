@@ -24,9 +24,15 @@ from topdrift.integrators.splitting.kernels import (
 )
 from topdrift.integrators.splitting.methods import SplittingMethod
 from topdrift.models import FORM_SIZE
+from topdrift.models.flows import FREE_COMPOSED, FREE_EXACT
 from topdrift.models.turns import N_TURNS
 
 from .base import N_COUNTERS, ST_OK, MethodRefused, grid_steps
+from .lane_ensemble import lanes_apply, run_lane_blocks
+
+# Members per block of the lane kernel: a block is advanced by one thread as one vector loop per
+# sub-flow; 64 members of 7 components are 3.5 kB, in the first-level cache with room to spare.
+LANE_BLOCK = 64
 
 
 @njit(cache=True, parallel=True)
@@ -129,10 +135,24 @@ class EnsembleStepper:
     """N starts of one body advanced together on the step grid of one splitting method.
 
     A member that fails (non-finite, or the Euler form at the pole) stops where it is with its
-    status; the others go on. `y` holds the closed states (N x n) at `t`."""
+    status; the others go on. `y` holds the closed states (N x n) at `t`.
+
+    `lanes`: advance the members of a plain splitting in SIMD lanes (lane_ensemble.py), blocks
+    of LANE_BLOCK members over the threads; each member then differs from its single run by the
+    lane sine and cosine's few ulps per call. None (the default) takes the lanes where they
+    apply (`lanes_apply`: plain splittings, the Euler form, the body form of a symmetric body),
+    False the scalar kernels, whose member j gives the same bits as a single run from start j.
+    `uses_lanes` says which was taken."""
 
     def __init__(
-        self, method, form: int, params: np.ndarray, t0: float, Y0: np.ndarray, step: float
+        self,
+        method,
+        form: int,
+        params: np.ndarray,
+        t0: float,
+        Y0: np.ndarray,
+        step: float,
+        lanes: bool | None = None,
     ):
         if not isinstance(method, (SplittingMethod, GaussMethod, EngineMethod)):
             raise MethodRefused(
@@ -178,6 +198,51 @@ class EnsembleStepper:
             self.kick = single.kick
             self.drift = single.drift
             self.free = single.free
+        covered = (
+            not self.gauss
+            and not self.engine
+            and not self.compensated
+            and self.free in (FREE_EXACT, FREE_COMPOSED)  # both the symmetric flow at I1 = I2
+            and lanes_apply(self.form, self.params)
+        )
+        if lanes and not covered:
+            raise MethodRefused(
+                f"ensemble of {method.name}: the lane kernels cover plain splittings in the "
+                f"Euler form and in the body form of a symmetric body (I1 = I2) only"
+            )
+        self.uses_lanes = bool(covered) if lanes is None else bool(lanes)
+        if self.uses_lanes:
+            self._lane_blocks(Y0)
+
+    def _lane_blocks(self, Y0: np.ndarray) -> None:
+        """The members as blocks of LANE_BLOCK lanes (blocks x components x lanes); the lanes
+        past the last member hold member 0's start, never advance and are never read. The
+        per-member counters and statuses are views of the blocks' own."""
+        m, n = Y0.shape
+        nb = -(-m // LANE_BLOCK)
+        full = nb * LANE_BLOCK
+        padded = np.concatenate([Y0, np.repeat(Y0[:1], full - m, axis=0)])
+        self.lane_W = np.ascontiguousarray(padded.reshape(nb, LANE_BLOCK, n).transpose(0, 2, 1))
+        self.lane_out = self.lane_W.copy()
+        self.lane_fresh = np.ones((nb, 1), dtype=np.int64)
+        self.lane_counters = np.zeros((nb, LANE_BLOCK, N_COUNTERS), dtype=np.int64)
+        self.lane_turns = np.zeros((nb, N_TURNS, LANE_BLOCK), dtype=np.int64)
+        self.lane_status = np.zeros((nb, LANE_BLOCK), dtype=np.int64)
+        self.lane_live = np.zeros((nb, LANE_BLOCK), dtype=np.int64)
+        self.lane_live.reshape(full)[:m] = 1
+        self.lane_done = np.zeros((nb, LANE_BLOCK), dtype=np.int64)
+        self.counters = self.lane_counters.reshape(full, N_COUNTERS)[:m]
+        self.status = self.lane_status.reshape(full)[:m]
+
+    def _advance_lanes(self, k: int) -> None:
+        run_lane_blocks(
+            self.form, self.params, self.kick, self.drift, k, self.lane_W, self.lane_fresh,
+            self.lane_counters, self.lane_turns, self.lane_status, self.lane_live,
+            self.lane_done, self.lane_out,
+        )  # fmt: skip
+        m, n = self.y.shape
+        self.y[:] = self.lane_out.transpose(0, 2, 1).reshape(-1, n)[:m]
+        self.turns[:] = self.lane_turns.transpose(0, 2, 1).reshape(-1, N_TURNS)[:m]
 
     def low_parts(self) -> np.ndarray | None:
         """What compensated summation has not yet added into `y` (N x n), where the state is
@@ -197,7 +262,9 @@ class EnsembleStepper:
             )
         if k == 0:
             return self.status
-        if self.engine:
+        if self.uses_lanes:
+            self._advance_lanes(k)
+        elif self.engine:
             _advance_engine(
                 self.method.scheme,
                 self.params,

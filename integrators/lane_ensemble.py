@@ -25,7 +25,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from numba import njit
+from numba import njit, prange
 
 from topdrift.models.body import P_I1, P_I2, P_INV1, P_INV3, P_MGX, P_MGY, P_MGZ
 from topdrift.models.forms import FORM_BODY, FORM_EULER
@@ -177,3 +177,39 @@ def run_lanes(form, p, kick, drift, nsteps, W, fresh, counters, turns, status, l
         counters[j, C_STEPS] += done[j]
         counters[j, C_EVALS] += 2 * s * attempted
         counters[j, C_FORCE_EVALS] += s * attempted
+
+
+@njit(cache=True, error_model="numpy")
+def close_lanes(form, p, kick, W, fresh, out, counters):
+    """The closed states (SoA, components x members) into out: W with the pending kick b_s h
+    applied to every member, as the scalar ensemble's close_plain does (a member that stopped
+    is closed too, and its closing kick counted; W unchanged)."""
+    n = W.shape[1]
+    for i in range(W.shape[0]):
+        for j in range(n):
+            out[i, j] = W[i, j]
+    if fresh[0] == 0:
+        every = np.ones(n, dtype=np.int64)  # once per sample, not per step
+        if form == FORM_EULER:
+            _kick_all(FORM_EULER, kick[kick.shape[0] - 1], out, p, every)
+        else:
+            _kick_all(FORM_BODY, kick[kick.shape[0] - 1], out, p, every)
+        for j in range(n):
+            counters[j, C_EVALS] += 1
+            counters[j, C_FORCE_EVALS] += 1
+
+
+@njit(cache=True, parallel=True)
+def run_lane_blocks(
+    form, p, kick, drift, nsteps, W, fresh, counters, turns, status, live, done, out
+):
+    """run_lanes then close_lanes on each block of members, the blocks spread over the threads:
+    W, out (blocks x components x lanes), fresh (blocks x 1), counters (blocks x lanes x
+    counters), turns (blocks x 2 x lanes), status, live, done (blocks x lanes). A block is a
+    C-contiguous components x lanes array, what run_lanes vectorises over."""
+    for k in prange(W.shape[0]):
+        run_lanes(
+            form, p, kick, drift, nsteps, W[k], fresh[k], counters[k], turns[k], status[k],
+            live[k], done[k],
+        )  # fmt: skip
+        close_lanes(form, p, kick, W[k], fresh[k], out[k], counters[k])

@@ -30,7 +30,7 @@ _RF_Q = (3.0 * _EPS) ** (-1.0 / 6.0)
 _RJ_Q = (0.25 * _EPS) ** (-1.0 / 6.0)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def rf(x, y, z):
     """Carlson's R_F(x, y, z) for x, y, z >= 0, at most one of them zero."""
     a0 = (x + y + z) / 3.0
@@ -56,7 +56,7 @@ def rf(x, y, z):
     return (1.0 - e2 / 10.0 + e3 / 14.0 + e2 * e2 / 24.0 - 3.0 * e2 * e3 / 44.0) / math.sqrt(a)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def rc(x, y):
     """Carlson's R_C(x, y) for x >= 0, y > 0."""
     if x == 0.0:
@@ -78,7 +78,7 @@ def rc(x, y):
     return (math.log1p(w) - 0.5 * math.log(y / x)) / (w * math.sqrt(x))
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def rj(x, y, z, p):
     """Carlson's R_J(x, y, z, p) for x, y, z >= 0 (at most one zero) and p > 0."""
     a0 = (x + y + z + 2.0 * p) / 5.0
@@ -121,7 +121,7 @@ def rj(x, y, z, p):
     return series / (fac * a * math.sqrt(a)) + 3.0 * total
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _descend(u, a, b, c, scale):
     """phi_n of the AGM descent at the level holding (a_n, b_n, c_n), scale = 2^n."""
     if abs(c) <= _EPS * a or scale > 2.0**40:
@@ -139,7 +139,7 @@ def _descend(u, a, b, c, scale):
     return 0.5 * (phi1 + y)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def am(u, m, mc):
     """The Jacobi amplitude am(u | m), continuous in u, for 0 <= m <= 1 with mc = 1 - m given
     by the caller (near m = 1 it carries the digits m has lost)."""

@@ -154,7 +154,9 @@ def phase_kernel(c, landen, th, tl, j1, j2, rh, rl, count, sn, cn, dn, delta):
             delta[i] = sign * al
 
 
-@njit(cache=True, inline="always")
+# Called, not inlined: angles_kernel uses it twice a sample, and each inlined copy of its
+# double-double arithmetic was typed and optimised again (most of that kernel's cold compile).
+@njit(cache=True)
 def _whole(base0, base1, per0, per1, j1, j2, passes, lin0, lin1, rh, rl, small):
     """base + per (j1 + j2) + pi passes + lin r + small, folded, with its turns: the large part
     is reduced first so that the within-period terms are added at full precision."""

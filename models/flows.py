@@ -31,15 +31,18 @@ from .quaternion import qmul, rotate, vertical_in_body
 # Which free flow the body form uses for I1 != I2 (an int64 kernel argument).
 FREE_EXACT = 0
 FREE_COMPOSED = 1
+# What both are for I1 = I2: a kernel that knows the body is symmetric passes this constant so
+# that the dispatch folds away and the closed-form flow is compiled in place (flow_a_fixed).
+FREE_SYMMETRIC = 2
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def drift_euler(h, y, p):
     y[1] += h * y[4] * p[P_INV1]
     y[2] += h * y[5] * p[P_INV3]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def kick_euler(h, y, p):
     theta = y[1]
     p_psi = y[5]
@@ -52,7 +55,7 @@ def kick_euler(h, y, p):
     y[4] += h * (r * (a * c / s - p_psi * s) + p[P_MGZ] * s)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def kick_body(h, y, p):
     """Potential flow: q fixed, m += h M g (Gamma x chi); m3 untouched when chi is on axis 3."""
     g1, g2, g3 = vertical_in_body(y[0], y[1], y[2], y[3])
@@ -63,7 +66,7 @@ def kick_body(h, y, p):
         y[6] += h * (g1 * cy - g2 * cx)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def free_symmetric(h, y, p):
     """Exact free flow of a body with I1 = I2 = p[P_I1].
 
@@ -126,7 +129,7 @@ def free_symmetric(h, y, p):
     y[5] = m2 + (m2 * cb1 - m1 * sb)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def turn_axis2(h, y, p):
     """Exact flow of the remainder (1/I2 - 1/I1) m2^2 / 2: a turn about body axis 2."""
     beta = h * (p[P_INV2] - p[P_INV1]) * y[5]
@@ -140,7 +143,7 @@ def turn_axis2(h, y, p):
     y[6] = m1 * sb + m3 * cb
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def free_body_composed(h, y, p):
     """Free flow of any body: exact when I1 = I2, else a symmetric second-order composition."""
     if p[P_I1] == p[P_I2]:
@@ -151,7 +154,7 @@ def free_body_composed(h, y, p):
         turn_axis2(0.5 * h, y, p)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def free_body(h, y, p):
     """The exact free flow of any body: the closed form for I1 = I2, else the elliptic one."""
     if p[P_I1] == p[P_I2]:
@@ -160,7 +163,7 @@ def free_body(h, y, p):
         free_asymmetric(h, y, p)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def flow_a(form, h, y, p):
     if form == FORM_EULER:
         drift_euler(h, y, p)
@@ -168,18 +171,36 @@ def flow_a(form, h, y, p):
         free_body(h, y, p)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def flow_a_with(form, free, h, y, p):
-    """flow_a with the body form's free flow chosen by `free` (FREE_EXACT, FREE_COMPOSED)."""
+    """flow_a with the body form's free flow chosen by `free` (FREE_EXACT, FREE_COMPOSED).
+    For I1 = I2 both are free_symmetric, called from here directly: one call level less on the
+    hot path of the symmetric tops (free_body and free_body_composed decide the same way)."""
     if form == FORM_EULER:
         drift_euler(h, y, p)
+    elif p[P_I1] == p[P_I2]:
+        free_symmetric(h, y, p)
     elif free == FREE_COMPOSED:
         free_body_composed(h, y, p)
     else:
-        free_body(h, y, p)
+        free_asymmetric(h, y, p)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
+def flow_a_fixed(form, free, h, y, p):
+    """flow_a_with for a kernel that passes form and free as constants: the Euler drift and the
+    symmetric free flow are then called directly (small, compiled into the step loop with no
+    call and no reference counting of y and p), anything else through flow_a_with. Measured on
+    the body-form leapfrog of a symmetric top: see benchmarks/timing/against_c.py."""
+    if form == FORM_EULER:
+        drift_euler(h, y, p)
+    elif free == FREE_SYMMETRIC:
+        free_symmetric(h, y, p)
+    else:
+        flow_a_with(form, free, h, y, p)
+
+
+@njit(cache=True, error_model="numpy")
 def flow_b(form, h, y, p):
     if form == FORM_EULER:
         kick_euler(h, y, p)
@@ -193,7 +214,7 @@ def flow_b(form, h, y, p):
 # integrator adds d to y with compensation; y itself is not changed here.
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def drift_euler_increment(h, y, p, d):
     d[0] = 0.0
     d[1] = h * y[4] * p[P_INV1]
@@ -203,7 +224,7 @@ def drift_euler_increment(h, y, p, d):
     d[5] = 0.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def kick_euler_increment(h, y, p, d):
     theta = y[1]
     p_psi = y[5]
@@ -219,7 +240,7 @@ def kick_euler_increment(h, y, p, d):
     d[5] = 0.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def kick_body_increment(h, y, p, d):
     g1, g2, g3 = vertical_in_body(y[0], y[1], y[2], y[3])
     cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
@@ -235,7 +256,7 @@ def kick_body_increment(h, y, p, d):
         d[6] = 0.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _free_symmetric_increment(h, q0, q1, q2, q3, m1, m2, m3, p):
     """Increment of free_symmetric: q' - q = (qL - 1)(q qe3) + q (qe3 - 1), then the same
     one-step renormalisation, q'' - q = (q' - q) + q' (1 - |q'|^2) / 2."""
@@ -279,7 +300,7 @@ def _free_symmetric_increment(h, q0, q1, q2, q3, m1, m2, m3, p):
     )
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _turn_axis2_increment(h, q0, q1, q2, q3, m1, m2, m3, p):
     """Increment of turn_axis2: q (qe2 - 1) with qe2 - 1 = (-2 sin^2(hb/2), 0, sin hb, 0)."""
     beta = h * (p[P_INV2] - p[P_INV1]) * m2
@@ -293,7 +314,7 @@ def _turn_axis2_increment(h, q0, q1, q2, q3, m1, m2, m3, p):
     return dq0, dq1, dq2, dq3, m1 * cb1 - m3 * sb, m1 * sb + m3 * cb1
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def free_body_increment(h, y, p, d):
     """Increment of free_body (exact), written into d; y is left as it is."""
     if p[P_I1] == p[P_I2]:
@@ -302,7 +323,7 @@ def free_body_increment(h, y, p, d):
         free_asymmetric_increment(h, y, p, d)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def free_body_composed_increment(h, y, p, d):
     """Increment of free_body_composed, written into d; y is left as it is. For I1 != I2 the
     three pieces are evaluated in turn and their increments summed (never y_end - y)."""
@@ -334,7 +355,7 @@ def free_body_composed_increment(h, y, p, d):
     d[6] = am3 + cm3
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def increment_a(form, h, y, p, d):
     """flow_a(form, h, y, p) - y, written into d, y unchanged (compensated summation)."""
     if form == FORM_EULER:
@@ -343,7 +364,7 @@ def increment_a(form, h, y, p, d):
         free_body_increment(h, y, p, d)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def increment_a_with(form, free, h, y, p, d):
     """increment_a with the body form's free flow chosen by `free` (as flow_a_with)."""
     if form == FORM_EULER:
@@ -354,7 +375,7 @@ def increment_a_with(form, free, h, y, p, d):
         free_body_increment(h, y, p, d)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def increment_b(form, h, y, p, d):
     """flow_b(form, h, y, p) - y, written into d, y unchanged (compensated summation)."""
     if form == FORM_EULER:

@@ -57,13 +57,13 @@ from .elliptic import am, rf, rj
 from .quaternion import qmul
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _j1(sqrt1nu, x):
     """J1 on |x| <= pi/2: atan(sqrt(1 + nu) tan x) / sqrt(1 + nu), continuous at +-pi/2."""
     return math.atan2(sqrt1nu * math.sin(x), math.cos(x)) / sqrt1nu
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _j2(nu, k2, mc, sx, cx):
     """J2 on |x| <= pi/2 from sin x, cos x; also returns F(x) (the first term)."""
     c2 = cx * cx
@@ -73,7 +73,7 @@ def _j2(nu, k2, mc, sx, cx):
     return f - (nu + k2) / 3.0 * third, f
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _smallest_raw(l, mx, my, mz, c, s):
     """(l + |m_c|, m x z), z = s e_c: the smallest rotation taking m / l to z, unnormalised."""
     if c == 0:
@@ -85,7 +85,7 @@ def _smallest_raw(l, mx, my, mz, c, s):
     return l + abs(mcc), v0, v1, v2
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _place(a, b, c, va, vb, vc):
     """(x0, x1, x2) with x_a = va, x_b = vb, x_c = vc ((a, b, c) a permutation of 0, 1, 2)."""
     x0 = va if a == 0 else (vb if b == 0 else vc)
@@ -94,7 +94,7 @@ def _place(a, b, c, va, vb, vc):
     return x0, x1, x2
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _steady(h, m0, m1, m2, p):
     """A steady rotation (w parallel to m): the body turns about w by |w| h, m stays.
     Returns X - 1 of that turn (cos - 1 as -2 sin^2 of the half)."""
@@ -110,7 +110,7 @@ def _steady(h, m0, m1, m2, p):
     return -2.0 * t * t, sh * w0, sh * w1, sh * w2
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def free_asymmetric_turn(h, y, p):
     """The exact free flow over h of the body state y = (q, m) with moments p[0:3], as the
     body-fixed turn X (q(h) = q(0) X, before renormalisation) less one, and the change of m:
@@ -243,7 +243,7 @@ def free_asymmetric_turn(h, y, p):
     return x0 + ey, x1 + yx, x2 + yy, x3 + yz, dm0 * inv, dm1 * inv, dm2 * inv
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def free_asymmetric(h, y, p):
     """The exact free flow over h, in place on the body state y; q renormalised by one
     division-free Newton step (its error is round-off)."""
@@ -261,7 +261,7 @@ def free_asymmetric(h, y, p):
     y[6] += dm3
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def free_asymmetric_increment(h, y, p, d):
     """free_asymmetric(h, y) - y into d, y unchanged (compensated summation): q (X - 1) and
     the momentum's increment, both formed as increments (free_asymmetric_turn)."""

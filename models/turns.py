@@ -63,7 +63,9 @@ def fold_euler(y, turns):
         fold_one(y, 2, turns, T_PSI)
 
 
-@njit(cache=True, inline="always")
+# Called, not inlined: it runs once per angle and sample, never in a step loop, and each inlined
+# copy of its double-double arithmetic is typed and optimised again (record_sample has two).
+@njit(cache=True)
 def true_angle(a, k):
     """(angle, turns): a + T k as an angle folded by 2 pi into [-pi, pi] (rounded once) and its
     whole 2 pi turns, an integer-valued double; a may be any size (an unfolded angle, k = 0)."""

@@ -35,7 +35,10 @@ def starts(form, n=6):
 def test_members_match_single_runs_bit_for_bit(name, form):
     y0 = starts(form)
     m = get(name)
-    ens = EnsembleStepper(m, form, TOP.params(), 0.0, y0, 1e-3)
+    # lanes=False: the method's own kernel for every member (the plain splittings would take
+    # the SIMD lanes by default, test_lane_ensemble.py)
+    ens = EnsembleStepper(m, form, TOP.params(), 0.0, y0, 1e-3, lanes=False)
+    assert not ens.uses_lanes
     for t in (0.1, 0.25):
         assert np.all(ens.advance_to(t) == 0)
     for j in (0, 3, 5):
@@ -227,10 +230,20 @@ def test_run_with_an_ensemble(tmp_path, capsys):
         assert g["ensemble/energy"].shape == (11, 6)
         assert g["ensemble/axis"].shape == (11, 6, 3)
         assert g["ensemble/axis_spread"].shape == (11,)
-        # Member 0 is the case's own start: the same bits as the plain run.
-        assert g["state"][()].tobytes() == f["runs"][plain["run_id"]]["state"][()].tobytes()
+        # Member 0 is the case's own start. The leapfrog's members go in SIMD lanes: within a
+        # few ulps of the plain run (the lane sine and cosine), recorded in the settings.
+        assert r["settings"]["lanes"] == 1
+        own = f["runs"][plain["run_id"]]["state"][()]
+        assert np.max(np.abs(g["state"][()] - own)) <= 64 * np.spacing(np.max(np.abs(own)))
         spread = g["ensemble/axis_spread"][()]
         assert spread[0] > 0 and np.all(np.isfinite(spread))
+    # With --scalar-members, member by member on the method's own kernel: the same bits.
+    assert main([*args, "--ensemble", "6", "--spread", "1e-6", "--scalar-members"]) == 0
+    s = json.loads(capsys.readouterr().out)["runs"][0]
+    assert "lanes" not in s["settings"] and s["run_id"] not in (r["run_id"], plain["run_id"])
+    with h5py.File(out, "r") as f:
+        g = f["runs"][s["run_id"]]
+        assert g["state"][()].tobytes() == f["runs"][plain["run_id"]]["state"][()].tobytes()
 
 
 def test_ensemble_refused_for_an_adaptive_method(tmp_path, capsys):

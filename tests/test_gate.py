@@ -186,6 +186,13 @@ def test_json_output(command_line, recorded, monkeypatch):
     assert doc["verdict"] == "fail"
     hit = [f for f in doc["findings"] if f["run"] == S4_KEY and f["metric"] == "energy_rel_max"]
     assert hit and hit[0]["kind"] == "regression" and hit[0]["now"] > hit[0]["baseline"]
+    # how the machine itself moved: the reference workload's ns per step, both sides
+    base = read_baseline(path)
+    assert doc["reference_ns"]["baseline"] == [
+        base["reference"]["scalar_ns"],
+        base["reference"]["stages_ns"],
+    ]
+    assert len(doc["reference_ns"]["now"]) == 2 and min(doc["reference_ns"]["now"]) > 0.0
 
 
 class _SlowStepper:

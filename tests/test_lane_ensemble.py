@@ -19,8 +19,9 @@ from topdrift.integrators.base import (
     N_COUNTERS,
     ST_OK,
     ST_SINGULAR,
+    MethodRefused,
 )
-from topdrift.integrators.ensemble import EnsembleStepper
+from topdrift.integrators.ensemble import LANE_BLOCK, EnsembleStepper
 from topdrift.integrators.lane_ensemble import lanes_apply, run_lanes
 from topdrift.models import RigidBody, body_state, euler_state
 from topdrift.models.body import P_INV1, P_INV3, P_MGX, P_MGY, P_MGZ
@@ -76,7 +77,7 @@ def test_each_lane_flow_is_its_scalar_flow_to_a_few_ulps():
 
 
 def lane_run(name, form, y0, h, nsteps):
-    ens = EnsembleStepper(get(name), form, P, 0.0, y0, h)  # for its coefficients
+    ens = EnsembleStepper(get(name), form, P, 0.0, y0, h, lanes=False)  # for its coefficients
     n = y0.shape[0]
     W = np.ascontiguousarray(y0.T)
     counters = np.zeros((n, N_COUNTERS), dtype=np.int64)
@@ -96,12 +97,12 @@ def lane_run(name, form, y0, h, nsteps):
 def test_steps_match_the_scalar_ensemble(name, form):
     y0 = starts(form, 37)  # not a multiple of the vector width: the loop's remainder runs too
     h = 1e-3
-    ens = EnsembleStepper(get(name), form, P, 0.0, y0, h)
+    ens = EnsembleStepper(get(name), form, P, 0.0, y0, h, lanes=False)
     ens.advance_to(h)
     W, counters, status, _ = lane_run(name, form, y0, h, 1)
     assert np.all(status == ST_OK)
     assert ulps(W, ens.W) <= 8.0
-    ens = EnsembleStepper(get(name), form, P, 0.0, y0, h)
+    ens = EnsembleStepper(get(name), form, P, 0.0, y0, h, lanes=False)
     ens.advance_to(200 * h)
     W, counters, status, turns = lane_run(name, form, y0, h, 200)
     # 200 steps of a top whose nutation amplifies differences: close, not the same bits; the
@@ -127,7 +128,7 @@ def test_a_member_at_the_pole_stops_there_and_the_others_go_on():
     y0[4, 1] = 2e-3
     y0[4, 4] = -0.5
     h = 1e-3
-    ens = EnsembleStepper(get("leapfrog"), 0, P, 0.0, y0, h)
+    ens = EnsembleStepper(get("leapfrog"), 0, P, 0.0, y0, h, lanes=False)
     ens.advance_to(50 * h)
     W, counters, status, _ = lane_run("leapfrog", 0, y0, h, 50)
     assert ens.status[4] == ST_SINGULAR and status[4] == ST_SINGULAR
@@ -145,7 +146,7 @@ def test_round_off_statistics_match_the_scalar_ensemble(form):
     y0 = starts(form, 64, spread=1e-3)
     h, n = 1e-3, 20_000
     e0 = np.array([invariants_of(form, y, P)["energy"] for y in y0])
-    ens = EnsembleStepper(get("leapfrog"), form, P, 0.0, y0, h)
+    ens = EnsembleStepper(get("leapfrog"), form, P, 0.0, y0, h, lanes=False)
     ens.advance_to(n * h)
     W, _, status, _ = lane_run("leapfrog", form, y0, h, n)
     assert np.all(status == ST_OK)
@@ -174,3 +175,57 @@ def test_which_bodies_and_forms_the_lanes_cover():
     assert lanes_apply(0, P) and lanes_apply(1, P)
     odd = RigidBody(1.0, (0.05, 0.04, 0.02), com=(0.0, 0.0, 0.1)).params()
     assert not lanes_apply(1, odd)
+
+
+@pytest.mark.parametrize("form", [0, 1])
+@pytest.mark.parametrize("name", ["leapfrog", "leapfrog-kl8"])
+def test_the_ensemble_stepper_in_lanes_against_member_by_member(name, form):
+    # 100 members: a block and a part block of LANE_BLOCK lanes (the padding lanes never read)
+    y0 = starts(form, 100)
+    h = 1e-3
+    lanes = EnsembleStepper(get(name), form, P, 0.0, y0, h)
+    scalar = EnsembleStepper(get(name), form, P, 0.0, y0, h, lanes=False)
+    assert lanes.uses_lanes and not scalar.uses_lanes and 100 % LANE_BLOCK != 0
+    lanes.advance_to(h)
+    scalar.advance_to(h)
+    assert ulps(lanes.y, scalar.y) <= 8.0  # the closed states after one step
+    for t in (0.1, 0.2):
+        lanes.advance_to(t)
+        scalar.advance_to(t)
+    assert np.max(np.abs(lanes.y - scalar.y)) < 1e-10
+    assert np.array_equal(lanes.status, scalar.status)
+    assert np.array_equal(lanes.counters, scalar.counters)  # closing kicks counted alike
+    assert np.array_equal(lanes.turns, scalar.turns)
+    if form == 0:
+        assert np.any(lanes.turns != 0)
+
+
+def test_the_ensemble_stepper_in_lanes_stops_a_member_at_the_pole_like_the_scalar_one():
+    y0 = starts(0, 70)
+    y0[66, 1] = 2e-3  # in the part block
+    y0[66, 4] = -0.5
+    h = 1e-3
+    lanes = EnsembleStepper(get("leapfrog"), 0, P, 0.0, y0, h)
+    scalar = EnsembleStepper(get("leapfrog"), 0, P, 0.0, y0, h, lanes=False)
+    for t in (0.02, 0.05):
+        lanes.advance_to(t)
+        scalar.advance_to(t)
+    assert lanes.status[66] == ST_SINGULAR and np.array_equal(lanes.status, scalar.status)
+    assert np.array_equal(lanes.counters, scalar.counters)
+
+
+def test_which_methods_the_stepper_takes_lanes_for():
+    y0 = starts(1, 4)
+    odd = RigidBody(1.0, (0.05, 0.04, 0.02), com=(0.0, 0.0, 0.1)).params()
+    for name, params, want in (
+        ("leapfrog", P, True),
+        ("leapfrog-composed", P, True),  # the symmetric free flow at I1 = I2, as the base
+        ("leapfrog-kahan", P, False),  # compensated: no lane kernel
+        ("gauss4", P, False),
+        ("leapfrog", odd, False),  # the body form of an asymmetric body
+    ):
+        ens = EnsembleStepper(get(name), 1, params, 0.0, y0, 1e-3)
+        assert ens.uses_lanes is want, name
+        if not want:
+            with pytest.raises(MethodRefused, match="lane kernels cover"):
+                EnsembleStepper(get(name), 1, params, 0.0, y0, 1e-3, lanes=True)

@@ -12,6 +12,13 @@ from pathlib import Path
 import topdrift.benchmarks.cases.library  # noqa: F401
 import topdrift.benchmarks.run.in_memory  # noqa: F401
 import topdrift.benchmarks.run.runner  # noqa: F401
+from topdrift.models.quaternion import from_euler
+
+# numba finishes its own imports (scipy.linalg, numpy.fft, its typing of numpy's polynomials)
+# the first time it loads or compiles a kernel in a process; done here, before any inner session,
+# so that none of them is dropped by pytester and imported a second time (the test failed when it
+# ran alone, with "cannot load module more than once per process").
+from_euler(0.1, 0.2, 0.3)
 
 pytest_plugins = ["pytester"]
 

@@ -59,6 +59,18 @@ T_SLOWER = "slower"
 T_FASTER = "faster"
 T_UNMEASURABLE = "not measurable"
 
+# How far a method's ratio to the reference workload can move with the machine's state, per unit
+# of the movement of the reference workload's two kernels against each other. The two (a scalar
+# loop and a stages loop, reference_workload.py) respond differently to what shares the core,
+# so their ratio is a witness of the machine's state that needs no code change to move. Measured
+# (benchmarks/timing/gate_stability.py, 6 clean gates over 50 minutes on a loaded AMD EPYC
+# family 25 model 17, unchanged code against a baseline recorded hours before): where the
+# scalar / stages ratio stayed within 0.5 % of the baseline's the worst timing moved 1.6-3.2 %;
+# where it moved 5.1, 6.5 and 11.5 % the worst timing moved 11, 16 and 26 % with tight rounds
+# (the last a false alarm): 2.1-2.4 times the witness, in logarithms. So each timing's interval
+# is widened by MIX_FACTOR times the witness's movement either way.
+MIX_FACTOR = 3.0
+
 # The parts of the reference record that define the unit: timings in another unit are not
 # compared.
 UNIT_KEYS = ("kernel", "version", "clock", "scalar_steps", "stages_steps")
@@ -129,6 +141,9 @@ class GateResult:
     notes: list[str] = field(default_factory=list)
     runs_compared: int = 0
     timings_compared: int = 0
+    # the reference workload's ns per step (scalar, stages), baseline and now: how the machine
+    # itself moved, for reading beside the timing verdicts
+    reference_ns: dict[str, list[float]] = field(default_factory=dict)
 
     @property
     def regressions(self) -> list[Finding]:
@@ -183,6 +198,7 @@ class GateResult:
                 {"name": n, "baseline": a, "now": b} for n, a, b in self.version_changes
             ],
             "machine_changes": self.machine_changes,
+            "reference_ns": self.reference_ns,
             "notes": self.notes,
             "runs_compared": self.runs_compared,
             "timings_compared": self.timings_compared,
@@ -318,9 +334,24 @@ def same_unit(base_ref: dict | None, now_ref: dict | None) -> bool:
     return all(base_ref[k] == now_ref[k] for k in UNIT_KEYS)
 
 
-def judge_timing(tk: str, a: dict, b: dict, t: Thresholds) -> TimingVerdict:
+def machine_drift(base_ref: dict | None, now_ref: dict | None) -> float:
+    """|log| of how far the reference workload's two kernels moved against each other since the
+    baseline (0 when either side lacks them): the machine's state, witnessed (MIX_FACTOR)."""
+    try:
+        was = base_ref["scalar_ns"] / base_ref["stages_ns"]
+        now = now_ref["scalar_ns"] / now_ref["stages_ns"]
+    except (KeyError, TypeError, ZeroDivisionError):
+        return 0.0
+    if not (math.isfinite(was) and math.isfinite(now) and was > 0.0 and now > 0.0):
+        return 0.0
+    return abs(math.log(now / was))
+
+
+def judge_timing(tk: str, a: dict, b: dict, t: Thresholds, drift: float = 0.0) -> TimingVerdict:
     """One timing's verdict: the change of the median ratio, and whether the rounds of the two
-    sides are tight enough for it to mean anything at this band (see the module note)."""
+    sides are tight enough for it to mean anything at this band (see the module note). `drift`
+    (machine_drift) widens the interval by MIX_FACTOR times itself either way: what the rounds
+    of one gate cannot see, a machine in another state than the baseline's."""
     from topdrift.benchmarks.gate.shift_interval import shift_interval
 
     x, y = a["ns_per_step_norm"], b["ns_per_step_norm"]
@@ -335,7 +366,8 @@ def judge_timing(tk: str, a: dict, b: dict, t: Thresholds) -> TimingVerdict:
         )
         return TimingVerdict(tk, x, y, change, None, None, T_UNMEASURABLE, why)
     _, lo, hi = iv
-    low, high = change * math.exp(lo), change * math.exp(hi)
+    widen = MIX_FACTOR * drift
+    low, high = change * math.exp(lo - widen), change * math.exp(hi + widen)
     top, bottom = 1.0 + t.time_band, 1.0 / (1.0 + t.time_band)
     if low > top:
         return TimingVerdict(tk, x, y, change, low, high, T_SLOWER)
@@ -344,6 +376,8 @@ def judge_timing(tk: str, a: dict, b: dict, t: Thresholds) -> TimingVerdict:
     if bottom <= low and high <= top:
         return TimingVerdict(tk, x, y, change, low, high, T_OK)
     why = f"the interval reaches past the band of +-{t.time_band:.0%}: too noisy to tell"
+    if widen > 0.01:
+        why += f" (widened by {math.exp(widen) - 1.0:.0%} either way: the machine's state moved)"
     return TimingVerdict(tk, x, y, change, low, high, T_UNMEASURABLE, why)
 
 
@@ -363,6 +397,13 @@ def compare_timings(
         result.notes.append(f"reference workload changed ({was} -> {now_}): timings not compared")
         return
     out = result.findings
+    drift = machine_drift(base_ref, now_ref)
+    if drift > 0.01:
+        result.notes.append(
+            f"the reference workload's two kernels moved {math.exp(drift) - 1.0:.1%} against each "
+            f"other since the baseline: the machine is not in the baseline's state, and every "
+            f"timing's interval is widened by {math.exp(MIX_FACTOR * drift) - 1.0:.0%} either way"
+        )
     for tk, a in base.items():
         b = now.get(tk)
         label = f"timing {tk}"
@@ -386,7 +427,7 @@ def compare_timings(
                 f"{label}: {b['steps']} steps now, {a['steps']} in the baseline: the per-step "
                 "cost is compared, but the work is not the same"
             )
-        v = judge_timing(tk, a, b, t)
+        v = judge_timing(tk, a, b, t, drift)
         result.timing_verdicts.append(v)
         band = f"band {t.time_band:.0%}"
         x, y = v.baseline, v.now
@@ -418,6 +459,10 @@ def compare(
     result = GateResult(accept_names=list(accept))
     compare_runs(baseline["runs"], now["runs"], t, result, unstarted, tuple(accept))
     result.machine_changes = differences(baseline["machine"], now["machine"])
+    for side, doc in (("baseline", baseline), ("now", now)):
+        ref = doc.get("reference") or {}
+        if "scalar_ns" in ref and "stages_ns" in ref:
+            result.reference_ns[side] = [ref["scalar_ns"], ref["stages_ns"]]
     if timings is None:
         timings = not result.machine_changes
         if not timings:

@@ -97,13 +97,20 @@ class EnsemblePlan:
     seed: int
     run_id: str
     starts: np.ndarray  # members x state size, in the plan's form
+    lanes: bool = False  # members advanced in SIMD lanes (EnsembleStepper)
 
     @property
     def label(self) -> str:
         return f"{self.base.case.name} {self.base.method.name} x{self.members} {self.run_id[:8]}"
 
 
-def plan_ensemble(plan: RunPlan, members: int, spread: float) -> EnsemblePlan:
+def plan_ensemble(
+    plan: RunPlan, members: int, spread: float, lanes: bool | None = None
+) -> EnsemblePlan:
+    """`lanes`: as EnsembleStepper's (None: SIMD lanes where they apply, False: the method's own
+    kernel member by member). Where lanes are taken the run's settings say so (`lanes`), so that
+    the run id of a lane ensemble differs from that of the same ensemble member by member: their
+    numbers differ by a few ulps per step."""
     if isinstance(members, bool) or not isinstance(members, int) or not 2 <= members <= MAX_MEMBERS:
         raise UserError(
             f"--ensemble: need a whole number of starts from 2 to {MAX_MEMBERS}, got {members!r}"
@@ -118,7 +125,13 @@ def plan_ensemble(plan: RunPlan, members: int, spread: float) -> EnsemblePlan:
             f"Gauss-Legendre and the first-order engine schemes)"
         )
     check_size(plan, members)
+    # The stepper decides whether the lanes cover this method, form and body.
+    two = np.stack([plan.y0, plan.y0])
+    step = plan.stepper_settings["step"]
+    probe = EnsembleStepper(plan.method, plan.form_code, plan.params, 0.0, two, step, lanes)
     settings = dict(plan.settings, ensemble=members, spread=spread)
+    if probe.uses_lanes:
+        settings["lanes"] = 1  # settings are numbers: 1 = members in SIMD lanes
     run_id = make_run_id(
         plan.case.toml_text, plan.method.name, plan.form, settings, plan.horizon, plan.samples
     )
@@ -128,10 +141,7 @@ def plan_ensemble(plan: RunPlan, members: int, spread: float) -> EnsemblePlan:
     # Build the stepper once here, so that a method without an ensemble kernel is refused
     # before any file is opened.
     Y0 = perturbed_starts(plan.case, plan.form, members, spread, seed)
-    EnsembleStepper(
-        plan.method, plan.form_code, plan.params, 0.0, Y0[:2], plan.stepper_settings["step"]
-    )
-    return EnsemblePlan(plan, members, spread, seed, run_id, Y0)
+    return EnsemblePlan(plan, members, spread, seed, run_id, Y0, probe.uses_lanes)
 
 
 def _axis_spread(axes: np.ndarray) -> float:
@@ -179,10 +189,11 @@ class _EnsembleRun(SampledRun):
         self.form, self.params = plan.form_code, plan.params
         h = plan.stepper_settings["step"]
         # Compile (or load) the parallel kernel on a throwaway copy before any clock starts.
-        EnsembleStepper(plan.method, self.form, self.params, 0.0, ep.starts[:2], h).advance_to(
-            2.0 * h
-        )
-        self.ens = EnsembleStepper(plan.method, self.form, self.params, 0.0, ep.starts, h)
+        lanes = ep.lanes
+        EnsembleStepper(
+            plan.method, self.form, self.params, 0.0, ep.starts[:2], h, lanes
+        ).advance_to(2.0 * h)
+        self.ens = EnsembleStepper(plan.method, self.form, self.params, 0.0, ep.starts, h, lanes)
         self.buf = SampleBuffers(ep.members, ep.starts.shape[1])
         self.wall = 0.0
         self.pending: list[dict] = []

@@ -68,12 +68,15 @@ def plan_cases(specs: list[str], req: Request) -> list[RunPlan]:
     return plans
 
 
-def plan_ensembles(plans: list[RunPlan], members: int, spread: float) -> dict:
-    """Each plan as an ensemble of `members` starts (run/ensemble.py), by its new run id."""
+def plan_ensembles(
+    plans: list[RunPlan], members: int, spread: float, lanes: bool | None = None
+) -> dict:
+    """Each plan as an ensemble of `members` starts (run/ensemble.py), by its new run id;
+    `lanes` as plan_ensemble's."""
     from topdrift.benchmarks.run.ensemble import plan_ensemble
 
     out = {}
     for p in plans:
-        ep = plan_ensemble(p, members, spread)
+        ep = plan_ensemble(p, members, spread, lanes)
         out[ep.run_id] = ep
     return out

@@ -113,6 +113,7 @@ def trial(baseline: str, plant: str | None, factor: float) -> dict:
         "timings": doc["timings"],
         "findings": doc["findings"],
         "notes": doc["notes"],
+        "reference_ns": doc.get("reference_ns"),
     }
 
 
@@ -188,16 +189,23 @@ def main(argv: list[str] | None = None) -> int:
                 entry[label] = run_trial(baseline, name, factor)
             log.append(entry)
             print(_line(entry), flush=True)
+            # Written after every run: an hour-long study stopped early keeps what it measured.
+            _write(Path(args.out), fp, log, _summary(log))
     summary = _summary(log)
     for line in summary["lines"]:
         print(line)
-    out = Path(args.out)
+    _write(Path(args.out), fp, log, summary)
+    print(f"written to {args.out}")
+    return 0 if summary["met"] else 1
+
+
+def _write(out: Path, fp: dict, log: list[dict], summary: dict) -> None:
     out.parent.mkdir(parents=True, exist_ok=True)
-    out.write_text(
+    tmp = out.with_name(out.name + ".partial")
+    tmp.write_text(
         json.dumps({"machine": fp, "runs": log, "summary": summary}, indent=1), encoding="utf-8"
     )
-    print(f"written to {out}")
-    return 0 if summary["met"] else 1
+    tmp.replace(out)
 
 
 def _of(trial_doc: dict, tk: str) -> dict | None:
@@ -206,9 +214,15 @@ def _of(trial_doc: dict, tk: str) -> dict | None:
 
 def _line(e: dict) -> str:
     clean = e["clean"]["timings"]
-    worst = max((abs(t["change"] - 1.0) for t in clean), default=float("nan"))
+    worst = max(clean, key=lambda t: abs(t["change"] - 1.0), default=None)
     unm = sum(t["verdict"] == "not measurable" for t in clean)
-    parts = [f"run {e['run']} at {e['at_s']:.0f} s: clean rc {e['clean']['rc']}, worst {worst:.1%}"]
+    parts = [f"run {e['run']} at {e['at_s']:.0f} s: clean rc {e['clean']['rc']}"]
+    if worst is not None:  # which timing, and whether its interval saw the noise
+        span = ""
+        if worst.get("low") is not None:
+            span = f" [{worst['low'] - 1.0:+.1%} .. {worst['high'] - 1.0:+.1%}]"
+        change = f"{worst['change'] - 1.0:+.1%}{span}"
+        parts[-1] += f", worst {worst['timing']} {change} {worst['verdict']}"
     parts[-1] += f", {unm} not measurable"
     for label, _, _ in PLANTS:
         t = _of(e[label], e["planted"])

@@ -5,9 +5,12 @@ thread, per member-step; and the round-off statistics of the two at a long horiz
     python benchmarks/timing/lane_ensemble.py [--members 256] [--steps 20000] [--rounds 7]
                                               [--horizon-steps 1000000]
 
-Target (one thread): the lanes at least 3x faster per member-step than the scalar single run,
-in both forms, for the leapfrog and leapfrog-kl8. Timings are interleaved round by round and
-the ratio taken per round; the median is printed with its range and the CPU. Then, at
+Targets: the ensemble stepper in lanes (the default path of `run --ensemble` for plain
+splittings) on one thread at least 3x faster per member-step than the scalar single run, and on
+two threads at least 1.8x faster than on one, in both forms, for the leapfrog and leapfrog-kl8.
+Timings are interleaved round by round (lanes on one thread, on two, the scalar run) and the
+ratios taken per round; the medians are printed with their range and the CPU. Two threads need
+two idle cores: on a loaded machine the scaling says nothing. Then, at
 --horizon-steps, the energy error RMS and the figure-axis spread over the members, from the lanes
 and from a scalar loop over the same starts: they should agree (printed side by side, with their
 ratio).
@@ -25,15 +28,14 @@ import numpy as np
 
 from topdrift.benchmarks.gate.machine import fingerprint
 from topdrift.integrators import get
-from topdrift.integrators.base import N_COUNTERS
 from topdrift.integrators.ensemble import EnsembleStepper
-from topdrift.integrators.lane_ensemble import run_lanes
 from topdrift.models import RigidBody, body_state, euler_state
 from topdrift.models.forms import to_body
 from topdrift.models.invariants import invariants_of
 from topdrift.models.quaternion import figure_axis
 
 TARGET = 3.0
+TARGET_SCALING = 1.8  # two threads against one, per member-step
 TOP = RigidBody(1.0, (0.05, 0.05, 0.02), com=(0.0, 0.0, 0.1))  # a scenario of our own
 P = TOP.params()
 H = 1e-3
@@ -44,57 +46,47 @@ def starts(form: int, n: int) -> np.ndarray:
     return np.array([make(TOP, 0.3, 0.9 + 1e-3 * k / n, 0.2, 1.0, 0.5, 40.0) for k in range(n)])
 
 
-class Lanes:
-    def __init__(self, name: str, form: int, y0: np.ndarray):
-        ens = EnsembleStepper(get(name), form, P, 0.0, y0, H)
-        n = y0.shape[0]
-        self.args = (form, ens.params, ens.kick, ens.drift)
-        self.W = np.ascontiguousarray(y0.T)
-        self.fresh = np.ones(1, dtype=np.int64)
-        self.counters = np.zeros((n, N_COUNTERS), dtype=np.int64)
-        self.status = np.zeros(n, dtype=np.int64)
-        self.live = np.ones(n, dtype=np.int64)
-        self.done = np.zeros(n, dtype=np.int64)
-        self.turns = np.zeros((2, n), dtype=np.int64)
-
-    def run(self, k: int) -> None:
-        form, p, kick, drift = self.args
-        run_lanes(
-            form, p, kick, drift, k, self.W, self.fresh, self.counters, self.turns, self.status,
-            self.live,
-            self.done,
-        )  # fmt: skip
-
-
-def throughput(name: str, form: int, members: int, steps: int, rounds: int) -> list[float]:
+def throughput(name: str, form: int, members: int, steps: int, rounds: int) -> dict:
+    """Per round, interleaved: the ensemble stepper in lanes on one thread and on two, the
+    single scalar run. Returns the per-round ratios (scalar / lanes on one thread, and lanes on
+    one thread / lanes on two)."""
     y0 = starts(form, members)
     method = get(name)
-    lanes = Lanes(name, form, y0)
-    lanes.run(1)  # compiled before the clock starts
+    lanes = EnsembleStepper(method, form, P, 0.0, y0, H)
+    assert lanes.uses_lanes
+    lanes.advance_to(H)  # compiled before the clock starts
     single = method.start(form, P, 0.0, y0[0], {"step": H})
     single.advance_to(H)
-    ratios = []
+    speedup, scaling = [], []
     for r in range(rounds):
+        numba.set_num_threads(1)
         t0 = time.perf_counter()
-        lanes.run(steps)
+        lanes.advance_to(lanes.t + steps * H)
         t1 = time.perf_counter()
-        single.advance_to(single.t + steps * H)
+        numba.set_num_threads(2)
+        lanes.advance_to(lanes.t + steps * H)
         t2 = time.perf_counter()
-        lane_ns = 1e9 * (t1 - t0) / (steps * members)
-        scalar_ns = 1e9 * (t2 - t1) / steps
-        ratios.append(scalar_ns / lane_ns)
+        single.advance_to(single.t + steps * H)
+        t3 = time.perf_counter()
+        one_ns = 1e9 * (t1 - t0) / (steps * members)
+        two_ns = 1e9 * (t2 - t1) / (steps * members)
+        scalar_ns = 1e9 * (t3 - t2) / steps
+        speedup.append(scalar_ns / one_ns)
+        scaling.append(one_ns / two_ns)
         if r == rounds - 1:
-            print(f"  last round: lanes {lane_ns:.2f} ns per member-step, scalar run "
-                  f"{scalar_ns:.2f} ns per step")  # fmt: skip
-    return ratios
+            print(f"  last round: lanes {one_ns:.2f} ns per member-step on one thread, "
+                  f"{two_ns:.2f} on two; scalar run {scalar_ns:.2f} ns per step")  # fmt: skip
+    numba.set_num_threads(1)
+    return {"speedup": speedup, "scaling": scaling}
 
 
 def statistics_at(name: str, form: int, members: int, n: int) -> None:
     y0 = starts(form, members)
     e0 = np.array([invariants_of(form, y, P)["energy"] for y in y0])
-    lanes = Lanes(name, form, y0)
-    lanes.run(n)
-    ens = EnsembleStepper(get(name), form, P, 0.0, y0, H)  # the scalar kernel, member by member
+    lanes = EnsembleStepper(get(name), form, P, 0.0, y0, H)
+    lanes.advance_to(n * H)
+    # the method's own kernel, member by member
+    ens = EnsembleStepper(get(name), form, P, 0.0, y0, H, lanes=False)
     ens.advance_to(n * H)
 
     def stats(Y):
@@ -102,7 +94,7 @@ def statistics_at(name: str, form: int, members: int, n: int) -> None:
         axes = np.array([figure_axis(*(to_body(y) if form == 0 else y)[:4]) for y in Y])
         return np.sqrt(np.mean(de**2)), float(np.linalg.norm(axes.std(axis=0)))
 
-    (el, al), (es, as_) = stats(lanes.W.T), stats(ens.W)
+    (el, al), (es, as_) = stats(lanes.y), stats(ens.y)
     print(f"  at {n:.0e} steps: energy error RMS lanes {el:.3e}, scalar {es:.3e} (ratio "
           f"{el / es:.3f}); axis spread lanes {al:.6e}, scalar {as_:.6e}")  # fmt: skip
 
@@ -117,19 +109,24 @@ def main() -> int:
     numba.set_num_threads(1)
     fp = fingerprint()
     print(f"CPU: {fp['cpu']} (family {fp['family']}, model {fp['model']}), flags {fp['flags']}")
-    worst = float("inf")
+    worst, worst_scaling = float("inf"), float("inf")
     for name in ("leapfrog", "leapfrog-kl8"):
         for form, label in ((0, "euler"), (1, "body")):
-            print(f"{name} {label}, {args.members} members, one thread:")
+            print(f"{name} {label}, {args.members} members:")
             r = throughput(name, form, args.members, args.steps, args.rounds)
-            med = statistics.median(r)
-            worst = min(worst, med)
-            print(f"  scalar run / lanes per member-step: median {med:.2f} "
-                  f"(min {min(r):.2f}, max {max(r):.2f}, {len(r)} rounds)")  # fmt: skip
+            for key, words in (("speedup", "scalar run / lanes on one thread"),
+                               ("scaling", "lanes one thread / two threads")):  # fmt: skip
+                v = r[key]
+                print(f"  {words}, per member-step: median {statistics.median(v):.2f} "
+                      f"(min {min(v):.2f}, max {max(v):.2f}, {len(v)} rounds)")  # fmt: skip
+            worst = min(worst, statistics.median(r["speedup"]))
+            worst_scaling = min(worst_scaling, statistics.median(r["scaling"]))
             statistics_at(name, form, min(args.members, 64), args.horizon_steps)
-    verdict = "meets" if worst >= TARGET else "MISSES"
-    print(f"smallest speed-up {worst:.2f}: {verdict} the target of {TARGET:g}x")
-    return 0 if worst >= TARGET else 1
+    ok = worst >= TARGET and worst_scaling >= TARGET_SCALING
+    print(f"smallest speed-up {worst:.2f} (target {TARGET:g}x), smallest two-thread scaling "
+          f"{worst_scaling:.2f} (target {TARGET_SCALING:g}x): "
+          f"{'meets' if ok else 'MISSES'} the targets")  # fmt: skip
+    return 0 if ok else 1
 
 
 if __name__ == "__main__":

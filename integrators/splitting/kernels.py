@@ -30,10 +30,36 @@ from topdrift.integrators.base import (
     ST_OK,
     ST_SINGULAR,
 )
+from topdrift.models.body import P_I1, P_I2, P_INV1, P_INV3
 from topdrift.models.dynamics import singular
-from topdrift.models.flows import flow_a_with, flow_b, increment_a_with, increment_b
+from topdrift.models.flows import (
+    FREE_COMPOSED,
+    FREE_EXACT,
+    FREE_SYMMETRIC,
+    flow_a_fixed,
+    flow_b,
+    increment_a_with,
+    increment_b,
+)
 from topdrift.models.forms import FORM_BODY, FORM_EULER
 from topdrift.models.turns import fold_euler
+
+
+@njit(cache=True, inline="always")
+def _drift(form, free, h, w, p):
+    """The A flow, for a caller whose form is a constant: the branch not taken is pruned before
+    typing, so the Euler form's loop never compiles the body form's free flows, the elliptic one
+    included (measured: the cold compile of the Euler-form leapfrog's kernel fell from 20.7 s
+    to about 4 s on a loaded machine). flow_a_fixed, called as a function, is inlined by LLVM
+    with free a constant in the symmetric body's loop (see run_plain_body)."""
+    if form == FORM_EULER:
+        # models/flows.py drift_euler, written out: called (even inlined by numba) the
+        # Euler-form leapfrog measured 7 % slower, 36.5 against 34 ns a step beside C's 31
+        # (benchmarks/timing/against_c.py); tests/test_splitting.py pins the two together.
+        w[1] += h * w[4] * p[P_INV1]
+        w[2] += h * w[5] * p[P_INV3]
+    else:
+        flow_a_fixed(form, free, h, w, p)
 
 
 @njit(cache=True, inline="always")
@@ -47,9 +73,9 @@ def _plain_steps(form, free, p, kick, drift, nsteps, w, first, counters, turns):
         flow_b(form, first, w, p)
         first = wrap
         for i in range(s - 1):
-            flow_a_with(form, free, drift[i], w, p)
+            _drift(form, free, drift[i], w, p)
             flow_b(form, kick[i + 1], w, p)
-        flow_a_with(form, free, drift[s - 1], w, p)
+        _drift(form, free, drift[s - 1], w, p)
         acc = 0.0
         for i in range(n):
             acc += w[i]
@@ -69,6 +95,42 @@ def _plain_steps(form, free, p, kick, drift, nsteps, w, first, counters, turns):
     return status, done
 
 
+@njit(cache=True, inline="always")
+def _opening_kick(kick, fresh):
+    """The first kick of this call: b_0 h on a closed state, else the merged (b_s + b_0) h."""
+    first = kick[0] if fresh[0] != 0 else kick[kick.shape[0] - 1] + kick[0]
+    fresh[0] = 0
+    return first
+
+
+@njit(cache=True)
+def run_plain_euler(free, p, kick, drift, nsteps, w, fresh, counters, turns):
+    """run_plain for the Euler form only: what a single run compiles (not the body form's free
+    flows, the elliptic one included, that an Euler-form run never calls)."""
+    if nsteps <= 0:
+        return ST_OK, 0
+    first = _opening_kick(kick, fresh)
+    return _plain_steps(FORM_EULER, free, p, kick, drift, nsteps, w, first, counters, turns)
+
+
+@njit(cache=True)
+def run_plain_body(free, p, kick, drift, nsteps, w, fresh, counters, turns):
+    """run_plain for the body form only. Its loop is compiled twice: once for a symmetric body
+    with the free flow a constant, so that the closed-form free flow is compiled into the loop
+    instead of called through the dispatch, which passes y and p on and so counts their
+    references twice a step (body-form leapfrog against C: 1.16 -> 1.05,
+    benchmarks/timing/against_c.py), and once for any other body and free flow."""
+    if nsteps <= 0:
+        return ST_OK, 0
+    first = _opening_kick(kick, fresh)
+    if (free == FREE_EXACT or free == FREE_COMPOSED) and p[P_I1] == p[P_I2]:
+        # both of these free flows are the closed form for I1 = I2
+        return _plain_steps(
+            FORM_BODY, FREE_SYMMETRIC, p, kick, drift, nsteps, w, first, counters, turns
+        )
+    return _plain_steps(FORM_BODY, free, p, kick, drift, nsteps, w, first, counters, turns)
+
+
 @njit(cache=True)
 def run_plain(form, free, p, kick, drift, nsteps, w, fresh, counters, turns):
     """Advance the open state w by nsteps steps in place. kick (s + 1) and drift (s) are the
@@ -76,15 +138,14 @@ def run_plain(form, free, p, kick, drift, nsteps, w, fresh, counters, turns):
     Euler form phi and psi are folded after every step, whole turns counted in turns (two
     int64; empty: left unfolded, models/turns.py).
 
-    The loop is inlined once per form with the form a constant, so that the sub-flows' switch
-    on the form folds away (measured: 62 -> 36 ns per Euler-form leapfrog step)."""
-    if nsteps <= 0:
-        return ST_OK, 0
-    first = kick[0] if fresh[0] != 0 else kick[kick.shape[0] - 1] + kick[0]
-    fresh[0] = 0
+    The loop is compiled once per form with the form a constant, so that the sub-flows' switch
+    on the form folds away (measured: 62 -> 36 ns per Euler-form leapfrog step), in one entry
+    per form (run_plain_euler, run_plain_body): a single run calls the entry of its form and
+    compiles only that; this one, for kernels that take the form as data (the ensembles),
+    compiles both."""
     if form == FORM_EULER:
-        return _plain_steps(FORM_EULER, free, p, kick, drift, nsteps, w, first, counters, turns)
-    return _plain_steps(FORM_BODY, free, p, kick, drift, nsteps, w, first, counters, turns)
+        return run_plain_euler(free, p, kick, drift, nsteps, w, fresh, counters, turns)
+    return run_plain_body(free, p, kick, drift, nsteps, w, fresh, counters, turns)
 
 
 @njit(cache=True, inline="always")
@@ -137,21 +198,35 @@ def _compensated_steps(form, free, p, kick, drift, nsteps, w, e, d, first, count
 
 
 @njit(cache=True)
-def run_compensated(form, free, p, kick, drift, nsteps, w, e, d, fresh, counters, turns):
-    """run_plain with compensated summation: every sub-flow is evaluated as an increment d of
-    the rounded state w and added to (w, e) with TwoSum; e carries what did not fit into w.
-    d is scratch of the state's length."""
+def run_compensated_euler(free, p, kick, drift, nsteps, w, e, d, fresh, counters, turns):
+    """run_compensated for the Euler form only (see run_plain_euler)."""
     if nsteps <= 0:
         return ST_OK, 0
-    first = kick[0] if fresh[0] != 0 else kick[kick.shape[0] - 1] + kick[0]
-    fresh[0] = 0
-    if form == FORM_EULER:
-        return _compensated_steps(
-            FORM_EULER, free, p, kick, drift, nsteps, w, e, d, first, counters, turns
-        )
+    first = _opening_kick(kick, fresh)
+    return _compensated_steps(
+        FORM_EULER, free, p, kick, drift, nsteps, w, e, d, first, counters, turns
+    )
+
+
+@njit(cache=True)
+def run_compensated_body(free, p, kick, drift, nsteps, w, e, d, fresh, counters, turns):
+    """run_compensated for the body form only."""
+    if nsteps <= 0:
+        return ST_OK, 0
+    first = _opening_kick(kick, fresh)
     return _compensated_steps(
         FORM_BODY, free, p, kick, drift, nsteps, w, e, d, first, counters, turns
     )
+
+
+@njit(cache=True)
+def run_compensated(form, free, p, kick, drift, nsteps, w, e, d, fresh, counters, turns):
+    """run_plain with compensated summation: every sub-flow is evaluated as an increment d of
+    the rounded state w and added to (w, e) with TwoSum; e carries what did not fit into w.
+    d is scratch of the state's length. One entry per form as for run_plain."""
+    if form == FORM_EULER:
+        return run_compensated_euler(free, p, kick, drift, nsteps, w, e, d, fresh, counters, turns)
+    return run_compensated_body(free, p, kick, drift, nsteps, w, e, d, fresh, counters, turns)
 
 
 @njit(cache=True)

@@ -45,12 +45,15 @@ from topdrift.integrators.splitting.compositions import TABLES, SplittingTable
 from topdrift.integrators.splitting.kernels import (
     close_compensated,
     close_plain,
-    run_compensated,
-    run_plain,
+    run_compensated_body,
+    run_compensated_euler,
+    run_plain_body,
+    run_plain_euler,
 )
 from topdrift.integrators.validation import check_snapshot, snapshot_identity, stepper_fields
 from topdrift.models import FORM_SIZE
 from topdrift.models.flows import FREE_COMPOSED, FREE_EXACT
+from topdrift.models.forms import FORM_EULER
 
 # What every splitting here keeps by construction (the rule: integrators/base.py). euler: p_phi
 # and p_psi are never written (the same bits after any number of steps), |q| is 1 trivially.
@@ -111,9 +114,10 @@ class SplittingStepper(Stepper):
         self.y = out
 
     def _run(self, k: int) -> tuple[int, int]:
+        # The entry of this run's form only: a run compiles one form's loop, not both.
         if self.compensated:
-            return run_compensated(
-                self.form,
+            run = run_compensated_euler if self.form == FORM_EULER else run_compensated_body
+            return run(
                 self.free,
                 self.params,
                 self.kick,
@@ -126,8 +130,8 @@ class SplittingStepper(Stepper):
                 self.counters,
                 self.turns,
             )
-        return run_plain(
-            self.form,
+        run = run_plain_euler if self.form == FORM_EULER else run_plain_body
+        return run(
             self.free,
             self.params,
             self.kick,

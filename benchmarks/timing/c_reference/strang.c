@@ -2,7 +2,8 @@
  * kernels. Same algorithm, same operation order as models/flows.py and
  * integrators/splitting_kernels.py: B(h/2) A(h) B(h/2) per step, the closing kick of a step
  * merged with the opening kick of the next (so a step is one kick and one drift), and the same
- * per-step checks (non-finite state; Euler angles leaving (0, pi)). `first` is the first kick's
+ * per-step checks (non-finite state; Euler angles leaving (0, pi)) and, in the Euler form, the
+ * same folding of phi and psi by whole turns. `first` is the first kick's
  * time: h/2 for a fresh state, h for one whose closing kick is pending.
  * Parameter layout as models/body.py: I1 I2 I3 1/I1 1/I2 1/I3 Mg*chi1 Mg*chi2 Mg*chi3.
  * Returns the number of steps completed (n when nothing went wrong). */
@@ -24,13 +25,43 @@ static inline void drift_euler(double h, double *y, const double *p) {
     y[2] += h * y[5] * p[P_INV3];
 }
 
-long leapfrog_euler(double *y, const double *p, double h, double first, long n) {
+/* models/turns.py: phi and psi folded back into (-fl(pi), fl(pi)] by whole turns fl(2 pi) after
+ * every good step, the turns counted; the product k fl(2 pi) split exactly by Dekker's method
+ * (models/double_double.py two_prod, no fused multiply-add, as built here without -march). */
+static const double TURN = 6.283185307179586, HALF_TURN = 3.141592653589793;
+static const double SPLITTER = 134217729.0; /* 2^27 + 1 */
+
+static inline void fold_one(double *y, int i, long *turns, int t) {
+    double a = y[i];
+    if (a > HALF_TURN || a <= -HALF_TURN) {
+        double k = floor(a / TURN + 0.5);
+        double ph = k * TURN;
+        double c = SPLITTER * k, kh = c - (c - k), kl = k - kh;
+        c = SPLITTER * TURN;
+        double th = c - (c - TURN), tl = TURN - th;
+        double pl = ((kh * th - ph) + kh * tl + kl * th) + kl * tl;
+        double r = (a - ph) - pl;
+        if (r > HALF_TURN) {
+            r -= TURN;
+            k += 1.0;
+        } else if (r <= -HALF_TURN) {
+            r += TURN;
+            k -= 1.0;
+        }
+        y[i] = r;
+        turns[t] += (long)k;
+    }
+}
+
+long leapfrog_euler(double *y, const double *p, double h, double first, long n, long *turns) {
     for (long k = 0; k < n; k++) {
         kick_euler(first, y, p);
         first = h;
         drift_euler(h, y, p);
         double sum = y[0] + y[1] + y[2] + y[3] + y[4] + y[5];
         if (!isfinite(sum) || !(y[1] > 0.0 && y[1] < M_PI)) return k;
+        fold_one(y, 0, turns, 0);
+        fold_one(y, 2, turns, 1);
     }
     return n;
 }
