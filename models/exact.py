@@ -193,7 +193,7 @@ class LagrangeTop:
 
     # ----------------------------------------------------------------- construction
     @classmethod
-    def from_state(cls, body: RigidBody, form, y) -> LagrangeTop:
+    def from_state(cls, body: RigidBody, form, y, *, weight_by_norm: bool = False) -> LagrangeTop:
         if not isinstance(body, RigidBody):
             raise ExactUnavailable(f"body: expected a RigidBody, got {type(body).__name__}")
         if not body.lagrange_top:
@@ -221,6 +221,7 @@ class LagrangeTop:
             i1=float(p[P_I1]),
             i3=float(p[P_I3]),
             mgl=float(p[P_MGZ]),
+            weight_by_norm=bool(weight_by_norm),
         )
         self = object.__new__(cls)
         self._build(inp)

@@ -27,7 +27,7 @@ from typing import Any
 
 from .exact_arith import multiprecision
 from .exact_roots import Roots, solve_roots
-from .exact_start import ExactInput, Start, start_of
+from .exact_start import ExactInput, Start, start_of, weight_factor
 
 # Decimal digits for the constants: 40 keeps a double-double (32 digits) correctly rounded with
 # margin; more where the double-precision roots show that a small distance sets the size.
@@ -183,7 +183,7 @@ def periodic_motion(inp: ExactInput, flip: bool, digits: int) -> PeriodicMotion:
         st = start_of(inp, ar)
         if flip:
             st = st.reflected()
-        beta = 2 * abs(mp.mpf(inp.mgl)) / mp.mpf(inp.i1)
+        beta = 2 * abs(mp.mpf(inp.mgl)) * weight_factor(inp, ar) / mp.mpf(inp.i1)
         roots = solve_roots(st, beta, ar)
         ell = _elliptic(inp, st, roots, beta)
         tau0, pi1, pi2 = _start_phase(roots, ell, st.udot0)
@@ -352,7 +352,7 @@ def steady_motion(inp: ExactInput, flip: bool, pole: int, beta_zero: bool) -> St
         i1, i3 = mp.mpf(inp.i1), mp.mpf(inp.i3)
         spin = st.p_psi / i3
         a = st.p_psi / i1
-        beta = 2 * abs(mp.mpf(inp.mgl)) / i1
+        beta = 2 * abs(mp.mpf(inp.mgl)) * weight_factor(inp, ar) / i1
         period = mp.inf
         if not beta_zero:
             if pole == 1:

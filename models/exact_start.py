@@ -29,6 +29,20 @@ class ExactInput:
     i1: float
     i3: float
     mgl: float
+    # Body form only: the weight acts as M g l |q|^2, as in the body-form equations, whose
+    # vertical Gamma(q) = R(q)^T e_z is the unnormalised quadratic of q (models/dynamics.py).
+    # A start whose |q| is 1 only to rounding then moves as the unit-quaternion top with that
+    # weight; False gives the top the start describes (the quaternion normalised, M g l as is).
+    weight_by_norm: bool = False
+
+
+def weight_factor(inp: ExactInput, ar: Arithmetic):
+    """The factor on M g l in ar: |q|^2 of the given quaternion when inp.weight_by_norm (the
+    doubles' squares summed in ar), else 1."""
+    if not (inp.weight_by_norm and inp.form != FORM_EULER):
+        return ar.real(1.0)
+    q = [ar.real(v) for v in inp.y[:4]]
+    return q[0] ** 2 + q[1] ** 2 + q[2] ** 2 + q[3] ** 2
 
 
 @dataclass(frozen=True)

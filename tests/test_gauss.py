@@ -267,6 +267,9 @@ def _one_step_jacobian(a, b, c, h, y0, p, delta=1e-5):
             b,
             c,
             np.zeros(s * s),
+            np.zeros(s * s),  # mu, b_hi, b_lo: the compensated update's, unused by the plain
+            b,
+            np.zeros(s),
             False,
             60,
             np.zeros(n),

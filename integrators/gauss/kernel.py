@@ -62,7 +62,7 @@ N_ITERS = 3
 
 def work_size(stages: int, n: int) -> int:
     """Floats in the `work` array of gauss_steps."""
-    return 4 * stages * n + 4 * n
+    return 4 * stages * n + 4 * n + 2 * stages
 
 
 @njit(cache=True)
@@ -76,6 +76,9 @@ def gauss_steps(
     b,
     c,
     e,
+    mu,
+    b_hi,
+    b_lo,
     compensated,
     max_iter,
     comp,
@@ -90,10 +93,13 @@ def gauss_steps(
     Euler form phi and psi are folded after every step, whole turns counted in turns (two int64;
     empty: left unfolded, models/turns.py).
 
-    work holds work_size(s, n) floats. A failed step is not committed: y, comp, fprev stay at
-    the last good step. One function on purpose: its parts (guess, sweeps, residuals, rounding,
-    update) as inline helpers cost 3-9 % per step in reference counting of their array
-    arguments (docs/design-notes.md).
+    The compensated update is formed from mu, b_hi, b_lo (gauss/tableau.py, ratio_doubles and
+    weight_pairs): W_j = h (b_hi_j + b_lo_j) F_j as two doubles, stages y_n + sum_j mu_ij W_j,
+    update y_n + sum_j W_j, so that the weights sum to 1 within ~1e-32 and the method is still
+    exactly symplectic; the plain update uses a and b. work holds work_size(s, n) floats.
+    A failed step is not committed: y, comp, fprev stay at the last good step. One function on
+    purpose: its parts (guess, sweeps, residuals, rounding, update) as inline helpers cost 3-9 %
+    per step in reference counting of their array arguments (docs/design-notes.md).
     """
     n = y.shape[0]
     s = b.shape[0]
@@ -110,6 +116,12 @@ def gauss_steps(
     dy = work[4 * sn + n : 4 * sn + 2 * n]
     ynew = work[4 * sn + 2 * n : 4 * sn + 3 * n]
     cnew = work[4 * sn + 3 * n : 4 * sn + 4 * n]
+    hb = work[4 * sn + 4 * n : 4 * sn + 4 * n + 2 * s]  # h b_j as hi (j) + lo (s + j)
+    if compensated:
+        for j in range(s):
+            hh, hl = two_prod(h, b_hi[j])
+            hb[j] = hh
+            hb[s + j] = hl + h * b_lo[j]
     done = 0
     for _ in range(nsteps):
         # Starting guess.
@@ -154,12 +166,26 @@ def gauss_steps(
             sweeps += 1
             delta = 0.0
             zmax = 0.0
+            if compensated:
+                # W_j = h b_j F_j with both parts of the weight (jd is free until the rounding
+                # below): the sweeps then solve the ratio form's equations, the ones the stage
+                # residual measures, and not h A F with A of doubles, whose weights are off by
+                # a common relative 4.4e-16 for three stages (a bias of the fixed point).
+                for j in range(s):
+                    for k in range(n):
+                        fj = f[j * n + k]
+                        jd[j * n + k] = hb[j] * fj + hb[s + j] * fj
             for i in range(s):
                 for k in range(n):
                     acc = 0.0
-                    for j in range(s):
-                        acc += a[i * s + j] * f[j * n + k]
-                    znew = h * acc
+                    if compensated:
+                        for j in range(s):
+                            acc += mu[i * s + j] * jd[j * n + k]
+                        znew = acc
+                    else:
+                        for j in range(s):
+                            acc += a[i * s + j] * f[j * n + k]
+                        znew = h * acc
                     d = abs(znew - zz[zo + i * n + k])
                     # NaN-safe: a NaN change makes delta NaN, caught below.
                     if not d <= delta:
@@ -193,17 +219,28 @@ def gauss_steps(
         # with Y_i = fl(y + z_i), exactly up to its own last bits: y + z_i = Y_i + r, so
         # Y_i - y = z_i - r; h sum_j a_ij F_j = w + wl from two_prod and two_sum. d goes into
         # the buffer of the next iterate, which is free now.
+        # Compensated: against the stage equations in ratio form, Y_i - y - sum_j mu_ij W_j.
         for i in range(s):
             for k in range(n):
                 _, r = two_sum(y[k], zz[zo + i * n + k])
                 wh = 0.0
                 wl = 0.0
-                for j in range(s):
-                    ph, pl = two_prod(a[i * s + j], f[j * n + k])
-                    wh, se = two_sum(wh, ph)
-                    wl += se + pl
-                w, we = two_prod(h, wh)
-                zz[zn + i * n + k] = ((zz[zo + i * n + k] - w) - (we + h * wl)) - r
+                if compensated:
+                    for j in range(s):
+                        fj = f[j * n + k]
+                        vh, vl = two_prod(hb[j], fj)
+                        vl += hb[s + j] * fj
+                        ph, pl = two_prod(mu[i * s + j], vh)
+                        wh, se = two_sum(wh, ph)
+                        wl += se + (pl + mu[i * s + j] * vl)
+                    zz[zn + i * n + k] = ((zz[zo + i * n + k] - wh) - wl) - r
+                else:
+                    for j in range(s):
+                        ph, pl = two_prod(a[i * s + j], f[j * n + k])
+                        wh, se = two_sum(wh, ph)
+                        wl += se + pl
+                    w, we = two_prod(h, wh)
+                    zz[zn + i * n + k] = ((zz[zo + i * n + k] - w) - (we + h * wl)) - r
         # f'(Y_i) d_i by a finite difference along d_i.
         for i in range(s):
             for k in range(n):
@@ -236,18 +273,18 @@ def gauss_steps(
         finite = True
         for k in range(n):
             if compensated:
-                # The increment h sum_i b_i F_i as ih + il exactly (up to the last bits of il),
-                # then y + comp + ih + il = yk + cnew exactly: TwoSum, which is exact whatever
-                # |y_k| against the increment (Kahan's shortcut needs |y_k| >= |x|, which fails
-                # near every zero crossing of a quaternion component).
-                sh = 0.0
-                sl = 0.0
+                # The increment sum_i W_i, W_i = h (b_hi_i + b_lo_i) F_i, as ih + il exactly
+                # (up to the last bits of il), then y + comp + ih + il = yk + cnew exactly:
+                # TwoSum, which is exact whatever |y_k| against the increment (Kahan's shortcut
+                # needs |y_k| >= |x|, which fails near every zero crossing of a quaternion
+                # component).
+                ih = 0.0
+                il = 0.0
                 for i in range(s):
-                    ph, pl = two_prod(b[i], f[i * n + k])
-                    sh, se = two_sum(sh, ph)
-                    sl += se + pl
-                ih, il = two_prod(h, sh)
-                il += h * sl
+                    fi = f[i * n + k]
+                    vh, vl = two_prod(hb[i], fi)
+                    ih, se = two_sum(ih, vh)
+                    il += se + (vl + hb[s + i] * fi)
                 s1, e1 = two_sum(y[k], ih)
                 yk, ck = two_sum(s1, e1 + (il + comp[k]))
                 cnew[k] = ck

@@ -115,6 +115,9 @@ class GaussStepper(Stepper):
             self.tab.b,
             self.tab.c,
             self.tab.e,
+            self.tab.mu,
+            self.tab.b_hi,
+            self.tab.b_lo,
             self.compensated,
             self.max_iter,
             self.comp,
@@ -196,7 +199,9 @@ class GaussMethod(Method):
         self.tableau = Tableau(table)
         s = self.tableau.stages
         summation = (
-            "the update added with Kahan's compensated summation"
+            "the stages in ratio form with each weight as two doubles (summing to 1 within "
+            "1e-32, still exactly symplectic), the update added with Kahan's compensated "
+            "summation"
             if compensated
             else "plain summation of the update"
         )

@@ -144,6 +144,42 @@ def symplectic_doubles(b: list[Fraction], a: list[list[Fraction]]):
     return [float(x) for x in bf], [[float(x) for x in row] for row in af]
 
 
+def weight_pairs(b: list[Fraction]) -> tuple[list[float], list[float]]:
+    """Each weight as an unevaluated sum of two doubles, hi + lo, hi the double nearest b_i and
+    lo the double nearest the rest: hi + lo is b_i to about 2^-106 relative, so the weights sum
+    to 1 within about 1e-32 whatever their ratios."""
+    hi = [float(x) for x in b]
+    lo = [float(x - Fraction(h)) for x, h in zip(b, hi, strict=True)]
+    return hi, lo
+
+
+def ratio_doubles(b: list[Fraction], a: list[list[Fraction]]) -> list[list[float]]:
+    """The ratios mu_ij = a_ij / b_j as doubles with mu_ii = 1/2 and mu_ij + mu_ji = 1 exactly.
+
+    In the form Y_i = y_n + sum_j mu_ij W_j, y_{n+1} = y_n + sum_j W_j with W_j = h b_j f(Y_j),
+    the symplecticity condition b_i a_ij + b_j a_ji = b_i b_j is mu_ij + mu_ji = 1 (divide by
+    b_i b_j), which no longer involves b: the weights may then be carried to any precision and
+    the method stays exactly symplectic. For i < j the ratio in [1/2, 2] is rounded to nearest
+    and its partner is 1 minus it, exact by Sterbenz's lemma (checked in rationals)."""
+    s = len(b)
+    mu = [[Fraction(0)] * s for _ in range(s)]
+    for i in range(s):
+        if a[i][i] != b[i] / 2:
+            raise ValueError(f"a_{i}{i} is not b_{i} / 2")
+        mu[i][i] = Fraction(1, 2)
+        for j in range(i + 1, s):
+            r = a[i][j] / b[j]
+            u, v = (i, j) if Fraction(1, 2) <= r <= 2 else (j, i)
+            big = Fraction(float(a[u][v] / b[v]))
+            if not Fraction(1, 2) <= big <= 2:
+                raise ValueError(f"neither mu_{i}{j} nor mu_{j}{i} is in [1/2, 2]")
+            mu[u][v] = big
+            mu[v][u] = Fraction(1.0 - float(big))
+            if mu[u][v] + mu[v][u] != 1:
+                raise ValueError(f"mu_{i}{j} + mu_{j}{i} is not exactly 1")
+    return [[float(x) for x in row] for row in mu]
+
+
 class Tableau:
     """Float arrays of one table: a (s*s, row major), b (s), c (s), and the matrix e (s*s) that
     extrapolates the previous step's collocation polynomial to a starting guess for the next
@@ -167,6 +203,14 @@ class Tableau:
             rows = [[_value(e, root) for e in row] for row in table["a"]]
         self.b = np.array(b)
         self.stages = len(self.b)
+        # The compensated methods' form (ratio_doubles, weight_pairs): mu (s*s, row major) and
+        # the weights as hi + lo. The plain update keeps a and b above.
+        b_exact = [_exact(e, root) for e in table["b"]]
+        a_exact = [[_exact(e, root) for e in row] for row in table["a"]]
+        self.mu = np.ascontiguousarray(np.array(ratio_doubles(b_exact, a_exact)).reshape(-1))
+        hi, lo = weight_pairs(b_exact)
+        self.b_hi = np.array(hi)
+        self.b_lo = np.array(lo)
         self.a = np.ascontiguousarray(np.array(rows).reshape(-1))
         self.e = np.ascontiguousarray(extrapolation_matrix(self.c, self.b).reshape(-1))
 
