@@ -136,6 +136,8 @@ class FixedStepStepper(Stepper):
         }
 
     def snapshot(self) -> dict:
+        """The stepper's state as plain numbers and arrays, named by method, form and settings
+        (the Stepper contract); `restore` of another method's snapshot is refused."""
         snap = snapshot_identity(self.method.name, self.form, self.settings)
         snap.update(
             t=self.t,
@@ -149,6 +151,8 @@ class FixedStepStepper(Stepper):
         return snap
 
     def restore(self, snap: dict) -> None:
+        """Take back a snapshot of this method, form and settings: every field is checked for
+        kind, dtype and shape (validation.check_snapshot) before anything is assigned."""
         check_snapshot(
             snap,
             method=self.method.name,
@@ -182,6 +186,8 @@ class FixedStepMethod(Method):
         self.step = step
 
     def start(self, form, params, t0, y0, settings) -> FixedStepStepper:
+        """A stepper at (t0, y0) in the state form given, its settings validated; a form the
+        method does not list is refused (MethodRefused)."""
         form = int(form)
         if form not in range(len(FORM_NAMES)) or FORM_NAMES[form] not in self.info.forms:
             raise MethodRefused(f"{self.name}: cannot run in state form code {form!r}")
