@@ -214,6 +214,14 @@ def render(info: dict) -> str:
             out += [f"  not built yet: {r['how']} (cache {r['cache']})"]
         else:
             a, c = r["accuracy"], r["cost"]
+            # a closed form is evaluated at each time (two precisions), an integration steps
+            stepped = c["steps"] or c["check_steps"]
+            two = "integrations" if stepped else "evaluations"
+            steps = (
+                f"{int(c['steps'])} + {int(c['check_steps'])} steps"
+                if stepped
+                else "no steps (evaluated at each time)"
+            )
             out += [f"  {r['method']}"]
             out += _table(
                 [
@@ -221,13 +229,8 @@ def render(info: dict) -> str:
                     ("verified accuracy, figure axis", f"{a['axis']:.2g}", "rad"),
                     ("verified accuracy, attitude", f"{a['attitude']:.2g}", "rad"),
                     ("verified accuracy, momentum", f"{a['momentum']:.2g}", "(relative)"),
-                    ("parting of the two integrations", f"{r['parting']['axis']:.2g}", "rad"),
-                    (
-                        "cost",
-                        f"{int(c['steps'])} + {int(c['check_steps'])} steps, "
-                        f"{c['wall_s'] + c['check_wall_s']:.2g} s",
-                        "",
-                    ),
+                    (f"parting of the two {two}", f"{r['parting']['axis']:.2g}", "rad"),
+                    ("cost", f"{steps}, {c['wall_s'] + c['check_wall_s']:.2g} s", ""),
                     ("cache", r["cache"] + (" (read)" if r["cached"] else " (built now)"), ""),
                 ]
             )

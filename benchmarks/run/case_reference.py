@@ -1,13 +1,14 @@
-"""The reference of a case with no closed form: built in extended precision by a provider
-(today the double-double Taylor integration of integrators/extended), with its own error
-estimate, cached on disk (reference_cache.py) and built with a progress line.
+"""The reference of a case with no closed form in the runs: built in extended precision by a
+provider (the exact free flow in closed form for a body with no torque, else the double-double
+Taylor integration, both in integrators/extended), with its own error estimate, cached on disk
+(reference_cache.py) and built with a progress line.
 
 Providers are tried in order; the first that takes the case builds its reference. A provider
 is a name, the settings that decide its numbers (they key the cache) and two functions: why it
 does not take a body (None when it does) and the build (body, body-form start, sample times,
 progress) -> an object with times, states (n, 7 body-form rows), accuracy and parting (dicts of
-ACCURACY_KEYS), cost (dict of COST_KEYS) and method (text). An exact flow of the free
-asymmetric body would go first in PROVIDERS, refusing every body with a torque.
+ACCURACY_KEYS), cost (dict of COST_KEYS) and method (text). The exact free flow goes first,
+refusing every body with a torque; the Taylor integration takes every other body.
 """
 
 from __future__ import annotations
@@ -22,6 +23,7 @@ import numpy as np
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run import reference_cache
 from topdrift.benchmarks.run.runner import samples_for_horizon
+from topdrift.integrators.extended import free_closed_form
 from topdrift.integrators.extended import reference as extended
 from topdrift.models.quaternion import figure_axis
 
@@ -34,6 +36,8 @@ class Provider:
     build: Callable  # (body, y0, times, progress) -> a reference (see the module docstring)
     # The method family it belongs to: a candidate of that family is not judged against it.
     family: str = ""
+    # What its progress line counts, filled with the count done: "integration: {n} steps".
+    progress_words: str = "integration: {n} steps"
 
 
 TAYLOR_DD = Provider(
@@ -49,7 +53,27 @@ TAYLOR_DD = Provider(
     build=lambda body, y0, times, progress: extended.verified_reference(body, y0, times, progress),
 )
 
-PROVIDERS: list[Provider] = [TAYLOR_DD]
+# The exact motion of a torque-free body (models/free_exact_mp.py), evaluated at every sample time
+# at two precisions. It is no integration method, so it belongs to a family of its own that no
+# candidate is of; it keys the cache by its own name and precisions.
+FREE_CLOSED_FORM = Provider(
+    name="free-closed-form",
+    settings={
+        "name": "free-closed-form",
+        "version": 1,
+        "main_dps": free_closed_form.MAIN_DPS,
+        "check_dps": free_closed_form.CHECK_DPS,
+        "estimate_factor": repr(extended.ESTIMATE_FACTOR),
+    },
+    refuses=free_closed_form.refuses,
+    build=lambda body, y0, times, progress: free_closed_form.verified_reference(
+        body, y0, times, progress
+    ),
+    family="closed-form-free-flow",
+    progress_words="evaluation: {n} times",
+)
+
+PROVIDERS: list[Provider] = [FREE_CLOSED_FORM, TAYLOR_DD]
 
 
 @dataclass
@@ -78,6 +102,9 @@ class CaseReference:
 
     def cost_text(self) -> str:
         c = self.cost
+        if not c["steps"] and not c["check_steps"]:
+            wall = c["wall_s"] + c["check_wall_s"]
+            return f"no steps (evaluated at each time), {wall:.2g} s to build"
         return (
             f"{int(c['steps'])} + {int(c['check_steps'])} steps, "
             f"{c['wall_s'] + c['check_wall_s']:.2g} s to build"
@@ -92,11 +119,15 @@ def sample_times(horizon: float, samples: int) -> np.ndarray:
 
 
 class BuildProgress:
-    """One line on stderr while a reference builds (its two integrations one after the other,
-    each half of the work): redrawn in place on a terminal, a line at each quarter otherwise."""
+    """One line on stderr while a reference builds (its two integrations or evaluations one after
+    the other, each half of the work): redrawn in place on a terminal, a line at each quarter
+    otherwise."""
 
-    def __init__(self, label: str, stream=None, quiet: bool = False):
+    def __init__(
+        self, label: str, stream=None, quiet: bool = False, words: str = "integration: {n} steps"
+    ):
         self.label = label
+        self.words = words
         self.stream = stream if stream is not None else sys.stderr
         self.tty = self.stream.isatty()
         self.quiet = quiet
@@ -107,7 +138,7 @@ class BuildProgress:
             return
         done = 0.5 * frac if which == "reference" else 0.5 + 0.5 * frac
         line = (
-            f"{self.label}: building, {100 * done:3.0f}% ({which} integration: {steps} steps "
+            f"{self.label}: building, {100 * done:3.0f}% ({which} {self.words.format(n=steps)} "
             f"in {seconds:.1f} s)"
         )
         if self.tty:
@@ -159,7 +190,7 @@ def case_reference(
         )  # fmt: skip
     if not build:
         return None
-    progress = BuildProgress(f"reference for {case.name}", stream, quiet)
+    progress = BuildProgress(f"reference for {case.name}", stream, quiet, provider.progress_words)
     t0 = time.perf_counter()
     try:
         ref = provider.build(case.body, y0, times, progress)
