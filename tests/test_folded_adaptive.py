@@ -98,6 +98,25 @@ def test_snapshot_restore_continues_to_identical_bits(name, unfolded):
         assert np.array_equal(getattr(a, k), getattr(b, k)), k
 
 
+@pytest.mark.parametrize("name", ADAPTIVE)
+def test_an_unfolded_state_taken_back_is_folded_at_the_next_step(name):
+    # What a version-1 checkpoint gives (docs/run-files.md): unfolded angles, no turns counted.
+    # The first accepted step folds them by many turns at once, yold with them; from then on
+    # the run follows the unfolded one within that run's own rounding, steps one for one.
+    b = _run(name, [0.73], unfolded=True)
+    snap = b.snapshot()
+    snap["turns"] = np.zeros(2, dtype=np.int64)
+    a = get(name).start(FORM_EULER, P, 0.0, Y0, dict(SETTINGS))
+    a.restore(snap)
+    assert abs(a.yi[2]) > 4 * math.pi
+    for t in (1.0, 1.5, 2.25):
+        assert a.advance_to(t) == ST_OK and b.advance_to(t) == ST_OK
+        bound = 4.0 * int(b.counters[C_STEPS]) * np.spacing(np.abs(b.y).max())
+        assert np.abs(a.unfolded_y() - b.y).max() <= bound, t
+    assert abs(a.yi[2]) <= math.pi and a.turns[1] > 40
+    assert a.counters[C_STEPS] == b.counters[C_STEPS]
+
+
 # The runner's top of tests/test_runner.py, in the Euler form: psi passes 300 rpm.
 TOP_TOML = top_toml(
     "folded-rk-top",
