@@ -13,7 +13,11 @@ from the dense output.)
 advance_to(t_out) steps while the internal time is below t_out, never shortening a step for an
 output time, then evaluates the dense output at t_out: the step sequence does not depend on how
 often the run is sampled. The controller (internal t, y, f, the proposed step, the last step's
-stages and dense coefficients) lives in the stepper and is part of its snapshot.
+stages and dense coefficients) lives in the stepper and is part of its snapshot, with the whole
+turns of phi and psi: the Euler form folds them after every accepted step (embedded_kernel.py,
+models/turns.py), and keep_angles_unfolded() lets them grow. The state handed out at an output
+time comes from the dense output between the last step's ends, so its folded angles may lie up
+to that step's movement past pi; the samples fold them exactly on the way to the file.
 
 Counters (kept by the kernels): steps = accepted steps; rejected = rejected attempts; evals =
 every right-hand-side evaluation: 1 for f(t0), 1 for the starting-step heuristic (none with
@@ -233,6 +237,7 @@ class EmbeddedStepper(Stepper):
                 self.counters,
                 t_end,
                 y_out,
+                self.turns,
             )
         )
         if status != ST_OK:
@@ -254,7 +259,7 @@ class EmbeddedStepper(Stepper):
     def step_proposed(self) -> float:
         return float(self.ctrl[CT_H])
 
-    _ARRAYS = ("y", "yi", "f", "K", "yold", "dense", "ctrl", "counters")
+    _ARRAYS = ("y", "yi", "f", "K", "yold", "dense", "ctrl", "counters", "turns")
 
     def _fields(self) -> dict:
         n = self.yi.shape[0]
@@ -269,6 +274,7 @@ class EmbeddedStepper(Stepper):
             "K": (np.float64, self.K.shape, FINITE_WHILE_OK),
             "dense": (np.float64, self.dense.shape),
             "ctrl": (np.float64, self.ctrl.shape),
+            "turns": (np.int64, self.turns.shape),
         }
 
     def snapshot(self) -> dict:

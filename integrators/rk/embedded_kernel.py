@@ -19,6 +19,15 @@ than ST_STEP_UNDERFLOW. The FSAL stage is evaluated before the error test only w
 estimate weighs it (Dormand-Prince 5(4)); DOP853 evaluates it after acceptance, as Hairer's
 code does, so a rejected DOP853 step costs 11 evaluations, not 12.
 
+In the Euler form phi and psi are folded into (-pi, pi] after every accepted step, the whole
+turns counted in `turns` (models/turns.py; an empty array keeps them unfolded). The fold comes
+after the error test, on the accepted state only, so the error estimate never sees a jump of
+2 pi; its scale max(|y|, |y_new|) takes phi and psi with their turns put back, so the step
+control is the one of the unfolded angles (and scipy's): folded magnitudes would tighten the
+tolerance of an angle to atol alone each time it passes zero. The start of the last step
+(yold) is moved by the same whole turns as the state, so that the dense output interpolates
+between two ends of one unfolded local pair.
+
 Work arrays are allocated once by the stepper; nothing is allocated inside the loop.
 """
 
@@ -47,7 +56,8 @@ from topdrift.integrators.rk.packed import (
     CFG_N_STAGES,
 )
 from topdrift.models.dynamics import rhs, singular
-from topdrift.models.forms import FORM_BODY, FORM_EULER
+from topdrift.models.forms import E_PHI, E_PSI, FORM_BODY, FORM_EULER
+from topdrift.models.turns import N_TURNS, T_PHI, T_PSI, TURN, fold_euler
 
 SAFETY = 0.9
 MIN_FACTOR = 0.2
@@ -184,6 +194,18 @@ def weighted_pair(n, m, w, K, out):
         k0 += 4
 
 
+@njit(cache=True, inline="always")
+def unfolded_size(form, k, v, off_phi, off_psi):
+    """|v| for component k, with the turns put back into phi and psi (rounded once: it only
+    scales the tolerance). In the body form, and with no turns counted, |v| itself."""
+    if form == FORM_EULER:
+        if k == E_PHI:
+            return abs(v + off_phi)
+        if k == E_PSI:
+            return abs(v + off_psi)
+    return abs(v)
+
+
 @njit(cache=True)
 def first_derivative(form, p, y, f, counters):
     """f = rhs(y) at the start of a run, counted like every other evaluation."""
@@ -281,9 +303,27 @@ def _advance(form, work):
     One function on purpose: the trial stages, the error norm and the commit read as parts, but
     as inline helpers they cost 4-18 % per step in reference counting of their array arguments
     (docs/design-notes.md)."""
-    (p, a, e, d, cfg, tol, y, f, K, yold, ynew, ytmp, etmp, dense, ctrl, counters, t_out, y_out) = (
-        work
-    )
+    (
+        p,
+        a,
+        e,
+        d,
+        cfg,
+        tol,
+        y,
+        f,
+        K,
+        yold,
+        ynew,
+        ytmp,
+        etmp,
+        dense,
+        ctrl,
+        counters,
+        t_out,
+        y_out,
+        turns,
+    ) = work
     n = y.shape[0]
     ns = cfg[CFG_N_STAGES]
     err_kind = cfg[CFG_ERR_KIND]
@@ -297,6 +337,9 @@ def _advance(form, work):
     knew = (ns * n) & NONNEG
     t = ctrl[CT_T]
     h_abs = ctrl[CT_H]
+    folding = form == FORM_EULER and turns.shape[0] == N_TURNS
+    off_phi = TURN * float(turns[T_PHI]) if folding else 0.0
+    off_psi = TURN * float(turns[T_PSI]) if folding else 0.0
     while t < t_out:
         min_step = 10.0 * (np.nextafter(t, np.inf) - t)
         if h_abs < min_step:
@@ -334,7 +377,14 @@ def _advance(form, work):
                     yn = ynew[k]
                     if not math.isfinite(yn):
                         finite = False
-                    sc = atol + max(abs(y[k]), abs(yn)) * rtol
+                    sc = (
+                        atol
+                        + max(
+                            unfolded_size(form, k, y[k], off_phi, off_psi),
+                            unfolded_size(form, k, yn, off_phi, off_psi),
+                        )
+                        * rtol
+                    )
                     ek = h * etmp[k] / sc
                     s += ek * ek
                 err = math.sqrt(s / n)
@@ -346,7 +396,14 @@ def _advance(form, work):
                     yn = ynew[k]
                     if not math.isfinite(yn):
                         finite = False
-                    sc = atol + max(abs(y[k]), abs(yn)) * rtol
+                    sc = (
+                        atol
+                        + max(
+                            unfolded_size(form, k, y[k], off_phi, off_psi),
+                            unfolded_size(form, k, yn, off_phi, off_psi),
+                        )
+                        * rtol
+                    )
                     e5 = etmp[k] / sc
                     e3 = etmp[n + k] / sc
                     s5 += e5 * e5
@@ -385,6 +442,18 @@ def _advance(form, work):
             yold[k] = y[k]
             y[k] = ynew[k]
             f[k] = K[knew + k]
+        if folding:
+            k_phi = turns[T_PHI]
+            k_psi = turns[T_PSI]
+            fold_euler(y, turns)
+            # yold by the same turns (exact by Sterbenz for a step that moved the angle less
+            # than about 0.86 rad): the dense output's pair stays one local unfolded pair.
+            if turns[T_PHI] != k_phi:
+                yold[E_PHI] -= TURN * float(turns[T_PHI] - k_phi)
+                off_phi = TURN * float(turns[T_PHI])
+            if turns[T_PSI] != k_psi:
+                yold[E_PSI] -= TURN * float(turns[T_PSI] - k_psi)
+                off_psi = TURN * float(turns[T_PSI])
         ctrl[CT_T_OLD] = t
         ctrl[CT_H_PREV] = h
         ctrl[CT_DENSE_OK] = 0.0
@@ -434,5 +503,7 @@ def advance_body(work):
 
 def advance_kernel(form: int):
     """The entry for a form. It takes the tuple (p, a, e, d, cfg, tol, y, f, K, yold, ynew,
-    ytmp, etmp, dense, ctrl, counters, t_out, y_out) and returns a status code."""
+    ytmp, etmp, dense, ctrl, counters, t_out, y_out, turns) and returns a status code; an
+    Euler-form run folds phi and psi after every accepted step, counting whole turns in turns
+    (two int64; an empty array keeps them unfolded)."""
     return advance_euler if form == FORM_EULER else advance_body
