@@ -34,6 +34,9 @@ FREE_COMPOSED = 1
 # What both are for I1 = I2: a kernel that knows the body is symmetric passes this constant so
 # that the dispatch folds away and the closed-form flow is compiled in place (flow_a_fixed).
 FREE_SYMMETRIC = 2
+# The free rotation split into exact rotations about the principal axes (free_body_axes): a
+# different method on every body, symmetric ones included, so it never becomes FREE_SYMMETRIC.
+FREE_AXES = 3
 
 
 @njit(cache=True, error_model="numpy")
@@ -155,6 +158,62 @@ def free_body_composed(h, y, p):
 
 
 @njit(cache=True, error_model="numpy")
+def turn_principal(k, h, y, p):
+    """Exact flow of T_k = m_k^2 / (2 I_k) alone: m_k fixed, the body turns about its axis k by
+    alpha = h m_k / I_k (q <- q (cos alpha/2, sin alpha/2 e_k)) and m turns by -alpha about e_k
+    in the body frame (m' = m x w_k, w_k = (m_k / I_k) e_k). Written as q + q (factor - 1) and
+    m + (m (cos - 1) + m' sin), cos - 1 = -2 sin^2 of the half angle, as free_symmetric does, so
+    that the factor's rounding enters at the increment's size."""
+    q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
+    mk = y[4 + k]
+    alpha = h * mk * p[P_INV1 + k]
+    t = math.sin(0.25 * alpha)
+    c = math.cos(0.25 * alpha)
+    sh = 2.0 * t * c  # sin(alpha / 2)
+    e0 = -2.0 * t * t  # cos(alpha / 2) - 1
+    if k == 0:
+        d0, d1, d2, d3 = qmul(q0, q1, q2, q3, e0, sh, 0.0, 0.0)
+    elif k == 1:
+        d0, d1, d2, d3 = qmul(q0, q1, q2, q3, e0, 0.0, sh, 0.0)
+    else:
+        d0, d1, d2, d3 = qmul(q0, q1, q2, q3, e0, 0.0, 0.0, sh)
+    y[0] = q0 + d0
+    y[1] = q1 + d1
+    y[2] = q2 + d2
+    y[3] = q3 + d3
+    cb1 = -2.0 * sh * sh  # cos(alpha) - 1
+    sb = 2.0 * sh * (1.0 + e0)  # sin(alpha)
+    # the two components transverse to e_k, (a, b) cyclic after k: (a, b) <- R(-alpha) (a, b)
+    ia = 4 + (k + 1) % 3
+    ib = 4 + (k + 2) % 3
+    a = y[ia]
+    b = y[ib]
+    y[ia] = a + (a * cb1 + b * sb)
+    y[ib] = b + (b * cb1 - a * sb)
+
+
+@njit(cache=True, error_model="numpy")
+def free_body_axes(h, y, p):
+    """The free rotation as the symmetric sequence of exact rotations about the principal axes,
+    3 (h/2), 2 (h/2), 1 (h), 2 (h/2), 3 (h/2) (Miller, Eleftheriou, Pattnaik, Ndirango, Newns and
+    Martyna, J. Chem. Phys. 116 (2002) 8649, there on the quaternion and its conjugate momentum
+    p = 2 q (0, m), the same map; the sequence as we recall it from that paper). Second order,
+    symmetric, a Poisson map; exact for no body with two or more non-zero components of m. One
+    division-free Newton step back to |q| = 1 at the end, as the other free flows take."""
+    turn_principal(2, 0.5 * h, y, p)
+    turn_principal(1, 0.5 * h, y, p)
+    turn_principal(0, h, y, p)
+    turn_principal(1, 0.5 * h, y, p)
+    turn_principal(2, 0.5 * h, y, p)
+    q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
+    g = 0.5 * (1.0 - (q0 * q0 + q1 * q1 + q2 * q2 + q3 * q3))
+    y[0] = q0 + q0 * g
+    y[1] = q1 + q1 * g
+    y[2] = q2 + q2 * g
+    y[3] = q3 + q3 * g
+
+
+@njit(cache=True, error_model="numpy")
 def free_body(h, y, p):
     """The exact free flow of any body: the closed form for I1 = I2, else the elliptic one."""
     if p[P_I1] == p[P_I2]:
@@ -173,11 +232,14 @@ def flow_a(form, h, y, p):
 
 @njit(cache=True, error_model="numpy")
 def flow_a_with(form, free, h, y, p):
-    """flow_a with the body form's free flow chosen by `free` (FREE_EXACT, FREE_COMPOSED).
-    For I1 = I2 both are free_symmetric, called from here directly: one call level less on the
-    hot path of the symmetric tops (free_body and free_body_composed decide the same way)."""
+    """flow_a with the body form's free flow chosen by `free` (FREE_EXACT, FREE_COMPOSED,
+    FREE_AXES). For I1 = I2 the first two are free_symmetric, called from here directly: one call
+    level less on the hot path of the symmetric tops (free_body and free_body_composed decide the
+    same way); FREE_AXES is its own map on every body."""
     if form == FORM_EULER:
         drift_euler(h, y, p)
+    elif free == FREE_AXES:
+        free_body_axes(h, y, p)
     elif p[P_I1] == p[P_I2]:
         free_symmetric(h, y, p)
     elif free == FREE_COMPOSED:

@@ -20,7 +20,7 @@ from topdrift.integrators import (
 from topdrift.integrators.splitting.methods import METHODS
 from topdrift.models import RigidBody, body_state, euler_state, invariants_of
 from topdrift.models.exact import LagrangeTop
-from topdrift.models.forms import FORM_BODY, FORM_EULER
+from topdrift.models.forms import FORM_BODY, FORM_EULER, FORM_NAMES
 
 TOP = RigidBody(1.0, (0.05, 0.05, 0.02), com=(0.0, 0.0, 0.1))
 ASYMMETRIC = RigidBody(1.0, (0.05, 0.046, 0.02), com=(0.01, -0.005, 0.1))
@@ -33,6 +33,16 @@ KOVALEVSKAYA = RigidBody(1.0, (0.04, 0.04, 0.02), com=(0.06, 0.0, 0.0))
 START = (0.3, 0.9, 0.2, 1.0, 0.5, 40.0)  # phi, theta, psi and their rates
 BY_NAME = {m.name: m for m in METHODS}
 PLAIN = [m for m in METHODS if not m.info.compensated]
+# The -axes twins split the free rotation itself and run in the body form only.
+AXES = [m.name for m in METHODS if m.name.endswith("-axes")]
+PLAIN_EULER = [m for m in PLAIN if "euler" in m.info.forms]
+# (name, form) for every method in every form it has
+METHOD_FORMS = [
+    pytest.param(m.name, f, id=f"{m.name}-{FORM_NAMES[f]}")
+    for m in METHODS
+    for f in (FORM_EULER, FORM_BODY)
+    if FORM_NAMES[f] in m.info.forms
+]
 EXACT_SUBFLOWS_ONLY = {m.name for m in METHODS if m.table.kind != "composition"}
 
 
@@ -152,6 +162,8 @@ KNOWN_GAPS = {("leapfrog-kl8", "asymmetric-body")}
 def order_params():
     for case in CASES:
         for m in METHODS:
+            if CASES[case][1] == FORM_EULER and "euler" not in m.info.forms:
+                continue
             marks = ()
             if (m.name, case) in KNOWN_GAPS:
                 marks = pytest.mark.xfail(strict=True, reason="pre-asymptotic in double: fit 8.66")
@@ -187,15 +199,16 @@ def test_direct_splittings_run_on_any_body():
 COMPOSED = [m.name for m in METHODS if m.name.endswith("-composed")]
 
 
-@pytest.mark.parametrize("name", COMPOSED)
+@pytest.mark.parametrize("name", COMPOSED + AXES)
 def test_measured_order_composed_twin_on_a_free_asymmetric_body(name):
+    # The -axes twins too: neither splits the free flow exactly for I1 != I2 != I3.
     slope, errs = measured_order(BY_NAME[name], ASYMMETRIC_FREE, FORM_BODY)
     p = BY_NAME[name].info.order
     optimised = name.split("-")[1:2] in (["m8"], ["kl8"])
     assert abs(slope - p) < (0.6 if optimised else 0.2), (slope, errs)
 
 
-@pytest.mark.parametrize("name", [m.name for m in METHODS if m.name not in COMPOSED])
+@pytest.mark.parametrize("name", [m.name for m in METHODS if m.name not in COMPOSED + AXES])
 def test_exact_free_flow_makes_every_table_exact_on_a_free_body(name):
     # Reference: the 34-digit Taylor series of tests/independent_references.py. Errors stay at
     # round-off (3e-13: E_LO of the body form) from 5 to 3620 steps over T_ORDER.
@@ -243,13 +256,18 @@ def test_momenta_and_norm_over_a_million_steps(name, form):
     assert relative_change(form, y0, st.y, "p_phi") < 1e-12
 
 
-@pytest.mark.parametrize("form", [FORM_EULER, FORM_BODY])
-@pytest.mark.parametrize("name", [m.name for m in METHODS])
+@pytest.mark.parametrize(("name", "form"), METHOD_FORMS)
 def test_momenta_kept_by_every_method(name, form):
+    method = BY_NAME[name]
     y0 = start_state(TOP, form)
-    st = run(BY_NAME[name], TOP, form, 2e-3, 10**4, y0)
+    st = run(method, TOP, form, 2e-3, 10**4, y0)
     assert relative_change(form, y0, st.y, "p_phi") < 1e-12
-    assert relative_change(form, y0, st.y, "p_psi") == 0.0
+    if "p_psi" in method.info.keeps_by_form[FORM_NAMES[form]][0]:
+        assert relative_change(form, y0, st.y, "p_psi") == 0.0
+    else:
+        # the -axes twins: the turns about axes 1 and 2 move m3, so they do not claim it
+        # (measured here: 7.2e-8 leapfrog-axes, 6.8e-12 -s4-axes, 1.0e-14 -kl6-axes: truncation)
+        assert relative_change(form, y0, st.y, "p_psi") > 0.0
     if form == FORM_BODY:
         assert abs(np.linalg.norm(st.y[:4]) - 1.0) < 1e-14
 
@@ -263,8 +281,7 @@ def test_norm_of_an_asymmetric_body_over_a_million_steps():
 # --- time reversibility and symplecticity -------------------------------------------------
 
 
-@pytest.mark.parametrize("form", [FORM_EULER, FORM_BODY])
-@pytest.mark.parametrize("name", [m.name for m in METHODS])
+@pytest.mark.parametrize(("name", "form"), METHOD_FORMS)
 def test_time_reversible(name, form):
     # a symmetric method: Phi(-h) = Phi(h)^-1 (common practice; Hairer, Lubich and Wanner V.1)
     method = BY_NAME[name]
@@ -302,7 +319,7 @@ def _one_step(method, y, h):
     return st.y
 
 
-@pytest.mark.parametrize("name", [m.name for m in PLAIN])
+@pytest.mark.parametrize("name", [m.name for m in PLAIN_EULER])
 def test_euler_form_step_is_symplectic(name):
     # M^T J M = J for the Jacobian M of one step in the canonical variables
     # (q = phi, theta, psi; p = p_phi, p_theta, p_psi), by central differences
@@ -379,7 +396,7 @@ def energy_envelope_drift(method, body, form, n_steps, samples=200, windows=20):
     return slope * (windows - 1) / env.mean(), env
 
 
-@pytest.mark.parametrize("name", [m.name for m in PLAIN])
+@pytest.mark.parametrize("name", [m.name for m in PLAIN_EULER])
 def test_energy_bounded_euler_million_steps(name):
     drift, env = energy_envelope_drift(BY_NAME[name], TOP, FORM_EULER, 10**6)
     assert abs(drift) < ENVELOPE_CHANGE, env
@@ -396,7 +413,13 @@ def test_energy_bounded_body(name, case):
         # to 6e-11 with a period of about 2e5 steps (measured over 4e5); 1e5 steps saw half a
         # beat as a trend (-0.33), 4e5 steps see none (-0.11).
         n = max(n, 4 * 10**5)
-    drift, env = energy_envelope_drift(BY_NAME[name], body, form, n)
+    samples, windows = 200, 20
+    if name in AXES:
+        # The split free rotation beats against the spin: leapfrog-axes on the symmetric body,
+        # 1e6 steps sampled every 5000 steps, saw its envelope fall from 1.7e-7 to 6e-8 (-0.83);
+        # 8e6 steps sampled every 1e4 see it flat between 1.4e-7 and 1.9e-7 (+0.014).
+        n, samples, windows = 4 * 10**6, 800, 40
+    drift, env = energy_envelope_drift(BY_NAME[name], body, form, n, samples, windows)
     assert abs(drift) < ENVELOPE_CHANGE, env
     assert env.max() < 1e-4
 
@@ -529,16 +552,29 @@ def test_bad_settings_are_refused():
         m.start(FORM_EULER, TOP.params(), 0.0, np.zeros(7), {"step": 1e-3})
 
 
+def test_axes_twins_refuse_the_euler_form():
+    for name in AXES:
+        with pytest.raises(MethodRefused, match="form"):
+            BY_NAME[name].start(
+                FORM_EULER, TOP.params(), 0.0, start_state(TOP, FORM_EULER), {"step": 1e-3}
+            )
+
+
 def test_registry_metadata():
     names = [m.name for m in METHODS]
-    # 11 tables, each plain and -kahan; the 9 compositions also -composed
-    assert len(set(names)) == len(names) == 22 + 9
+    # 11 tables, each plain and -kahan; the 9 compositions also -composed; 3 -axes twins
+    assert len(set(names)) == len(names) == 22 + 9 + 3
+    assert sorted(AXES) == ["leapfrog-axes", "leapfrog-kl6-axes", "leapfrog-s4-axes"]
     for m in METHODS:
         i = m.info
         assert i.family == "splitting" and i.symplectic and i.control == "step"
-        assert i.forms == ("euler", "body")
         assert "energy" not in i.keeps
-        assert i.keeps == ("p_psi",) and i.keeps_roundoff == ("p_phi", "norm")
+        if m.name in AXES:
+            assert i.forms == ("body",)
+            assert i.keeps == () and i.keeps_roundoff == ("p_phi", "norm")
+        else:
+            assert i.forms == ("euler", "body")
+            assert i.keeps == ("p_psi",) and i.keeps_roundoff == ("p_phi", "norm")
         assert i.compensated == i.name.endswith("-kahan")
         assert i.source
 

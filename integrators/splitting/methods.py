@@ -52,8 +52,8 @@ from topdrift.integrators.splitting.kernels import (
 )
 from topdrift.integrators.validation import check_snapshot, snapshot_identity, stepper_fields
 from topdrift.models import FORM_SIZE
-from topdrift.models.flows import FREE_COMPOSED, FREE_EXACT
-from topdrift.models.forms import FORM_EULER
+from topdrift.models.flows import FREE_AXES, FREE_COMPOSED, FREE_EXACT
+from topdrift.models.forms import FORM_EULER, FORM_NAMES
 
 # What every splitting here keeps by construction (the rule: integrators/base.py). euler: p_phi
 # and p_psi are never written (the same bits after any number of steps), |q| is 1 trivially.
@@ -63,6 +63,12 @@ from topdrift.models.forms import FORM_EULER
 # test_splitting.py), and the free flow renormalises q every step: to round-off. Energy is
 # kept by no splitting, only bounded.
 KEEPS_BY_FORM = {"euler": (("p_phi", "p_psi", "norm"), ()), "body": (("p_psi",), ("p_phi", "norm"))}
+# The -axes twins (body form only): the rotations about axes 1 and 2 move m3, so p_psi is not
+# kept even for a symmetric top; every piece is invariant under turns about the vertical, so
+# L.e_z (p_phi) is kept to round-off, and q is renormalised every step.
+KEEPS_AXES = {"body": ((), ("p_phi", "norm"))}
+# The tables that get an -axes twin: the Strang step and one composition of order 4 and of 6.
+AXES_TABLES = ("", "s4", "kl6")
 
 
 @dataclass
@@ -235,20 +241,51 @@ class SplittingStepper(Stepper):
 class SplittingMethod(Method):
     """A splitting method from a coefficient table (compositions.py), in both forms."""
 
-    def __init__(self, table: SplittingTable, compensated: bool, composed: bool = False) -> None:
-        if composed and table.kind != "composition":
+    def __init__(
+        self, table: SplittingTable, compensated: bool, composed: bool = False, axes: bool = False
+    ) -> None:
+        if (composed or axes) and table.kind != "composition":
             raise ValueError(f"{table.key}: only compositions of the Strang step have a twin")
+        if axes and (composed or compensated):
+            raise ValueError(f"{table.key}: the -axes twin has no composed or compensated variant")
         self.table = table
         self.compensated = compensated
-        self.free = FREE_COMPOSED if composed else FREE_EXACT
+        self.free = FREE_AXES if axes else FREE_COMPOSED if composed else FREE_EXACT
         # The coefficients of one step in order (compositions.py), before scaling by the step.
         self.kick_table, self.drift_table = table.sequence()
         name = "leapfrog" + (f"-{table.key}" if table.key else "")
         if composed:
             name += "-composed"
+        if axes:
+            name += "-axes"
         if compensated:
             name += "-kahan"
         evals = 2 * table.stages
+        if axes:
+            self.info = MethodInfo(
+                name=name,
+                family="splitting",
+                order=table.order,
+                symplectic=True,
+                forms=("body",),
+                control="step",
+                keeps=(),
+                keeps_roundoff=("p_phi", "norm"),
+                keeps_by_form=KEEPS_AXES,
+                compensated=False,
+                description=(
+                    f"{table.title}; body form only: the free rotation split into exact "
+                    "rotations about the principal axes 3, 2, 1, 2, 3 (the quaternion splitting "
+                    "of rigid-molecule codes) / gravity kick on (q, m); "
+                    f"{table.stages} free rotations of 5 axis turns and {table.stages + 1} "
+                    "kicks per step"
+                ),
+                source=(
+                    "axis sequence: Miller, Eleftheriou, Pattnaik, Ndirango, Newns and Martyna, "
+                    f"J. Chem. Phys. 116 (2002) 8649; composition: {table.source}"
+                ),
+            )
+            return
         self.info = MethodInfo(
             name=name,
             family="splitting",
@@ -280,6 +317,8 @@ class SplittingMethod(Method):
         checked = self.settings(settings)
         h = checked["step"]
         form = int(form)
+        if form not in range(len(FORM_NAMES)) or FORM_NAMES[form] not in self.info.forms:
+            raise MethodRefused(f"{self.name}: cannot run in state form code {form!r}")
         n = FORM_SIZE[form]
         y = np.array(y0, dtype=np.float64)
         if y.shape != (n,):
@@ -305,6 +344,8 @@ class SplittingMethod(Method):
         )
 
 
-METHODS = [SplittingMethod(t, c) for t in TABLES for c in (False, True)] + [
-    SplittingMethod(t, False, composed=True) for t in TABLES if t.kind == "composition"
-]
+METHODS = (
+    [SplittingMethod(t, c) for t in TABLES for c in (False, True)]
+    + [SplittingMethod(t, False, composed=True) for t in TABLES if t.kind == "composition"]
+    + [SplittingMethod(t, False, axes=True) for t in TABLES if t.key in AXES_TABLES]
+)
