@@ -188,6 +188,7 @@ def test_describe_states_the_reference_of_a_case_with_no_exact_solution(
     assert info["exact"] is None
     assert info["reference"] == {
         "built": False,
+        "exact": False,  # its provider integrates (taylor-dd): no closed form for this top
         "cache": str(tmp_path),
         "how": "built on first use by `topdrift pick`, or by `topdrift describe CASE --reference`",
     }

@@ -208,6 +208,21 @@ def test_the_reference_of_free_asymmetric_is_the_closed_form(tmp_path, monkeypat
     # its own cache entry, beside (never mixed with) a Taylor reference of the same case
     assert len(list(tmp_path.glob("reference-*.npz"))) == 1
     assert cr.case_reference(case, horizon=3.0, samples=7, build=False).cached
+    assert ref.exact and not cr.TAYLOR_DD.exact  # said to be the exact motion, not a stand-in
+
+
+def test_describe_and_pick_call_it_the_exact_motion(tmp_path, monkeypatch, capsys):
+    from topdrift.benchmarks.cli.entry import main
+
+    monkeypatch.setenv("TOPDRIFT_REFERENCE_CACHE", str(tmp_path))
+    assert main(["describe", "free-asymmetric"]) == 0  # not built: the provider says it
+    out = capsys.readouterr().out
+    assert "reference (exact motion in closed form)" in out and "no exact solution" not in out
+    args = ["pick", "free-asymmetric", "--target", "1e-4", "--methods", "dop853"]
+    assert main([*args, "--horizon", "3", "--samples", "7"]) == 0
+    out = capsys.readouterr().out
+    assert "note: free-asymmetric: the axis error is measured against its exact motion (" in out
+    assert "no exact solution" not in out
 
 
 def test_a_gravity_body_is_refused_in_one_line():

@@ -149,11 +149,17 @@ class Picker:
         self.reference_quaternions = np.ascontiguousarray(ref.states[:, :4])
         self.reference_accuracy = dict(ref.accuracy)
         self.reference_family = ref.family
-        self.reference_note = (
-            f"{why or 'no exact solution'} for {self.case.name}: the {self.metric} error is "
-            f"measured against its extended-precision reference ({ref.method}), "
-            f"{ref.accuracy_text()}"
-        )
+        if ref.exact:  # the exact motion at high precision, where the runs carry none
+            self.reference_note = (
+                f"{self.case.name}: the {self.metric} error is measured against its exact "
+                f"motion ({ref.method}), {ref.accuracy_text()}"
+            )
+        else:
+            self.reference_note = (
+                f"{why or 'no exact solution'} for {self.case.name}: the {self.metric} error is "
+                f"measured against its extended-precision reference ({ref.method}), "
+                f"{ref.accuracy_text()}"
+            )
         acc = ref.accuracy[self.metric]
         what = "figure axis" if self.metric == "axis" else "attitude"
         if self.target is not None and self.target < acc:

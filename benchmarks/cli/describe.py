@@ -57,19 +57,22 @@ def reference_summary(case, build: bool, quiet: bool) -> dict:
     """What a case with no exact solution is measured against: its extended-precision reference
     over the case's horizon, read from the cache (or built, when asked), with its verified
     accuracy; {"built": False, ...} when it is not cached and not asked for."""
-    from topdrift.benchmarks.run.case_reference import case_reference
+    from topdrift.benchmarks.run.case_reference import case_reference, provider_for
     from topdrift.benchmarks.run.reference_cache import cache_dir
 
     ref = case_reference(case, build=build, quiet=quiet)
     if ref is None:
+        provider, _ = provider_for(case.body)
         return {
             "built": False,
+            "exact": bool(provider is not None and provider.exact),
             "cache": str(cache_dir()),
             "how": "built on first use by `topdrift pick`, or by `topdrift describe CASE "
             "--reference`",
         }
     return {
         "built": True,
+        "exact": ref.exact,
         "cached": ref.cached,
         "cache": str(cache_dir()),
         "provider": ref.provider,
@@ -209,7 +212,9 @@ def render(info: dict) -> str:
         out += ["", f"exact motion  unavailable: {info['exact_unavailable']}"]
     r = info.get("reference")
     if r is not None:
-        out += ["", "reference (no exact solution)"]
+        # a closed form evaluated at high precision is the exact motion, not a stand-in for it
+        head = "exact motion in closed form" if r["exact"] else "no exact solution"
+        out += ["", f"reference ({head})"]
         if not r["built"]:
             out += [f"  not built yet: {r['how']} (cache {r['cache']})"]
         else:

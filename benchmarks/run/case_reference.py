@@ -38,6 +38,9 @@ class Provider:
     family: str = ""
     # What its progress line counts, filled with the count done: "integration: {n} steps".
     progress_words: str = "integration: {n} steps"
+    # True for a provider that evaluates the body's exact motion (a closed form), not an
+    # integration: what is said of the case is then "exact motion", not "no exact solution".
+    exact: bool = False
 
 
 TAYLOR_DD = Provider(
@@ -71,6 +74,7 @@ FREE_CLOSED_FORM = Provider(
     ),
     family="closed-form-free-flow",
     progress_words="evaluation: {n} times",
+    exact=True,
 )
 
 PROVIDERS: list[Provider] = [FREE_CLOSED_FORM, TAYLOR_DD]
@@ -89,6 +93,7 @@ class CaseReference:
     cached: bool
     family: str = ""
     notes: list[str] = field(default_factory=list)
+    exact: bool = False  # the provider's flag: the exact motion itself, at high precision
 
     def axes(self) -> np.ndarray:
         return np.array([figure_axis(*row[:4]) for row in self.states])
@@ -187,6 +192,7 @@ def case_reference(
         return CaseReference(
             case.name, provider.name, hit["method"], hit["times"], hit["states"],
             hit["accuracy"], hit["parting"], hit["cost"], cached=True, family=provider.family,
+            exact=provider.exact,
         )  # fmt: skip
     if not build:
         return None
@@ -199,6 +205,7 @@ def case_reference(
     out = CaseReference(
         case.name, provider.name, ref.method, ref.times, ref.states, dict(ref.accuracy),
         dict(ref.parting), dict(ref.cost), cached=False, family=provider.family,
+        exact=provider.exact,
     )  # fmt: skip
     note = reference_cache.store(key, ref)
     if note:
