@@ -67,3 +67,52 @@ def test_resume_continues_a_version_1_run(command_json, tmp_path):
         assert f.attrs["format_version"] == 1
         assert "euler_turns" not in g and "exact/euler_turns" not in g
         assert "units" not in g["euler"].attrs
+
+
+def test_a_version_1_run_stopped_twice_resumes_each_time(
+    command_line, command_json, monkeypatch, tmp_path
+):
+    # The first resume writes a checkpoint with the turn counts (the kernels fold the angles
+    # now) into the version-1 group; a second stop and resume must read that one too.
+    import os
+    import signal
+
+    from topdrift.integrators.gauss.methods import GaussStepper
+
+    out = _copy(tmp_path)
+    real = GaussStepper.advance_to
+    calls = {"n": 0}
+
+    def stop_at_the_fifth(self, t):
+        calls["n"] += 1
+        if calls["n"] == 5:
+            os.kill(os.getpid(), signal.SIGINT)  # a user's ^C, handled as the command does
+        return real(self, t)
+
+    with h5py.File(out, "r") as f:
+        (g,) = [g for g in f["runs"].values() if g.attrs["status"] == "interrupted"]
+        run_id, before = g.name.rsplit("/", 1)[1], g["t"].shape[0]
+    monkeypatch.setattr(GaussStepper, "advance_to", stop_at_the_fifth)
+    rc, _, err = command_line("run", "looping-nutation", *STOPPED, "--out", str(out), "--resume")
+    assert rc == 130, err
+    with h5py.File(out, "r") as f:
+        g = f["runs"][run_id]
+        mid = g["t"].shape[0]
+        assert g.attrs["status"] == "interrupted" and before < mid < 201
+        assert "turns" in g["checkpoint/stepper"]  # the checkpoint this code writes
+    monkeypatch.setattr(GaussStepper, "advance_to", real)
+    args = ["run", "looping-nutation", *STOPPED, "--out", str(out), "--resume"]
+    rc, _, err = command_line(*args)
+    assert rc == 0, err
+    rc, doc, err = command_json(*args)  # now a reuse of the finished run
+    assert rc == 0, err
+    (r,) = doc["runs"]
+    assert r["run_id"] == run_id and r["status"] == "ok"
+    # the same bits as a single resume of the fixture's run
+    once = tmp_path / "once.h5"
+    shutil.copyfile(FIXTURE, once)
+    rc, _, err = command_json("run", "looping-nutation", *STOPPED, "--out", str(once), "--resume")
+    assert rc == 0, err
+    with h5py.File(out, "r") as a, h5py.File(once, "r") as b:
+        for name in ("t", "euler", "state", "invariants/energy"):
+            assert np.array_equal(a["runs"][run_id][name][()], b["runs"][run_id][name][()]), name

@@ -35,6 +35,7 @@ from topdrift.benchmarks.run.loop import (
 from topdrift.benchmarks.run.metrics import Accumulator, finish
 from topdrift.benchmarks.run.sampling import N_SCALARS, S_ENERGY, SampleBuffers
 from topdrift.benchmarks.stopping import StopFlag
+from topdrift.benchmarks.store.checkpoint import GROUP as CHECKPOINT_GROUP
 from topdrift.benchmarks.store.checkpoint import entry_layout
 from topdrift.benchmarks.store.failures import NoRoom, damage_is_an_error, ensure_room
 from topdrift.benchmarks.store.format import (
@@ -482,6 +483,20 @@ class _Run(SampledRun):
             checkpoint_parts(self.k, self.wall, self.cpu, self.stepper, self.acc)
         )
 
+    def _read_checkpoint_v1(self, template: dict) -> dict | None:
+        """The checkpoint of a run in a version-1 group: in the layout of that version (no turn
+        counts: zeros, the angles unfolded) or, failing that, in today's layout."""
+        # Which of the two: by the name alone (links were refused when the file was opened);
+        # the read then checks every entry as it checks any checkpoint.
+        if self.group.g.get(f"{CHECKPOINT_GROUP}/stepper/turns", getlink=True) is not None:
+            return self.group.read_checkpoint(template)
+        without = {part: dict(entries) for part, entries in template.items()}
+        turns = without["stepper"].pop("turns")
+        cp = self.group.read_checkpoint(without)
+        if cp is not None:
+            cp["stepper"]["turns"] = np.zeros_like(turns)
+        return cp
+
     def restore(self, truncate: bool = True) -> None:
         """Everything a resume reads, read and checked before anything is written: the
         checkpoint, the stored samples up to it (read through, so that a damaged chunk refuses
@@ -494,13 +509,14 @@ class _Run(SampledRun):
         template = checkpoint_parts(1, 0.0, 0.0, self.fresh_stepper(), start_accumulator(p))
         # A version-1 checkpoint predates the turn counts: its angles are unfolded, which is
         # the same state with no turns taken off (the kernels fold them at the next step).
+        # A version-1 run resumed by this code and stopped again has a checkpoint of today's
+        # layout, turns included: either of the two layouts is read, nothing else.
         old = not self.group.keeps_turns and "turns" in template["stepper"]
-        if old:
-            no_turns = template["stepper"].pop("turns")
         with damage_is_an_error(self.group.f.filename):
-            cp = self.group.read_checkpoint(template)
-        if old and cp is not None:
-            cp["stepper"]["turns"] = np.zeros_like(no_turns)
+            if old:
+                cp = self._read_checkpoint_v1(template)
+            else:
+                cp = self.group.read_checkpoint(template)
         if cp is None:
             raise UserError(f"{where}: no checkpoint to resume from; use --force")
         try:
