@@ -35,6 +35,7 @@ DEFAULT_CANDIDATES = (
     "dop853",
     "leapfrog",
     "leapfrog-s4",
+    "leapfrog-s4-axes",
     "leapfrog-kl6",
     "leapfrog-kl8",
     "gauss4",
