@@ -171,6 +171,11 @@ def test_roundoff_command(capsys, tmp_path):
     assert len(r["rms_phase_error"]) == len(r["n"]) and r["phase_exponent"] is not None
     assert r["phase_fit_range"][1] == r["n"][-1] == 5000
     assert "1/I1" in r["phase_note"]  # looping-nutation's moments have no exact inverse
+    # At this step the phase error is truncation (exponent about 1), nearly the same for starts
+    # 1e-6 apart: the spread about the members' mean keeps only what differs between them.
+    spread = r["rms_phase_spread"]
+    assert len(spread) == len(r["n"]) and r["phase_spread_exponent"] is not None
+    assert spread[-1] < 1e-4 * r["rms_phase_error"][-1]
     assert png.stat().st_size > 10_000
 
 

@@ -147,6 +147,32 @@ def member_quaternions(form: int, Y: np.ndarray, low: np.ndarray | None) -> np.n
     return Y[:, :4].copy()
 
 
+def space_error_vectors(q: np.ndarray, qe: np.ndarray) -> np.ndarray:
+    """(starts, 3) the small rotation from each exact attitude qe to the member's q, as a vector
+    in space axes: twice the vector part of q conj(qe), sign-fixed by its scalar part (the
+    rotation angle times the axis, to first order). In space axes the members' vectors can be
+    averaged: what they share (the truncation error of nearby starts, the exact solution's own
+    smooth error) is their mean, their round-off is what is left."""
+    a0, a1, a2, a3 = q.T
+    b0, b1, b2, b3 = qe[:, 0], -qe[:, 1], -qe[:, 2], -qe[:, 3]
+    w = a0 * b0 - a1 * b1 - a2 * b2 - a3 * b3
+    v = np.column_stack(
+        (
+            a0 * b1 + a1 * b0 + a2 * b3 - a3 * b2,
+            a0 * b2 - a1 * b3 + a2 * b0 + a3 * b1,
+            a0 * b3 + a1 * b2 - a2 * b1 + a3 * b0,
+        )
+    )
+    return 2.0 * np.where(w < 0.0, -1.0, 1.0)[:, None] * v
+
+
+def spread_about_mean(vectors: np.ndarray) -> float:
+    """RMS distance of the members' error vectors from their mean, with K - 1 in the divisor
+    (unbiased for K independent members)."""
+    d = vectors - vectors.mean(axis=0)
+    return math.sqrt(float(np.sum(d * d)) / (vectors.shape[0] - 1))
+
+
 def exact_quaternions(tops: list, k: int, step: float) -> np.ndarray:
     """(starts, 4) exact attitudes after k steps, at the time k * step taken exactly (as the
     double-double of the product: t = k h rounded would move the phase by ulp(t) times the spin
@@ -210,23 +236,27 @@ def roundoff_study(
     # as |mean| close to the RMS, a random walk as |mean| about RMS / sqrt(starts).
     mean: list[float] = []
     phase: list[float] = []
+    phase_spread: list[float] = []
     piece = max(1, CHUNK_MEMBER_STEPS // starts)
     try:
         for k in n_at:
             _take_point(case, ens, int(k), step, piece, code, p, e0, rms, mean)
             if tops is not None:
                 q = member_quaternions(code, ens.y, ens.low_parts())
-                err = attitude_angle(q, exact_quaternions(tops, int(k), step))
+                qe = exact_quaternions(tops, int(k), step)
+                err = attitude_angle(q, qe)
                 phase.append(math.sqrt(float(np.mean(err * err))))
+                phase_spread.append(spread_about_mean(space_error_vectors(q, qe)))
     except Interrupted as exc:
         raise exc.saying(
             f"at step {ens.n} of {steps} ({len(rms)} of {len(n_at)} points taken); nothing written"
         ) from None
     rms = np.array(rms)
     exponent, fit_range = fit_exponent(n_at.astype(float), rms)
-    phase_exponent = phase_range = None
+    phase_exponent = phase_range = spread_exponent = spread_range = None
     if tops is not None:
         phase_exponent, phase_range = fit_exponent(n_at.astype(float), np.array(phase))
+        spread_exponent, spread_range = fit_exponent(n_at.astype(float), np.array(phase_spread))
         if phase_exponent is None:
             phase_unknown = "too few points above zero for a fit"
     rounded = rounded_inverses(case.body) if tops is not None else []
@@ -255,6 +285,13 @@ def roundoff_study(
         "phase_fit_range": phase_range,
         "phase_error": "attitude angle of each member from its own start's exact solution (rad)",
         "rms_phase_error": phase if tops is not None else None,
+        "phase_spread_exponent": spread_exponent,
+        "phase_spread_fit_range": spread_range,
+        "phase_spread": (
+            "RMS distance of the members' attitude errors (space-axes rotation vectors) from "
+            "their mean (rad): their round-off, without what nearby starts share (truncation)"
+        ),
+        "rms_phase_spread": phase_spread if tops is not None else None,
         "phase_unknown": phase_unknown,
         "phase_note": phase_note,
     }
@@ -341,14 +378,20 @@ def _phase_panel(ax, results: list[dict]) -> None:
         label = r["method"]
         if r.get("phase_exponent") is not None:
             label = f"{r['method']} ({r['form']}): exponent {r['phase_exponent']:.2f}"
-        ax.loglog(n, e, "o-", ms=3, label=label)
-        drawn = drawn if drawn is not None else (n, e)
+        (line,) = ax.loglog(n, e, "o-", ms=3, label=label)
+        spread = r.get("rms_phase_spread")
+        if spread:
+            label = f"{r['method']}: spread about the mean"
+            if r.get("phase_spread_exponent") is not None:
+                label += f", exponent {r['phase_spread_exponent']:.2f}"
+            ax.loglog(n, spread, "s--", ms=3, color=line.get_color(), label=label)
+        drawn = drawn if drawn is not None else (n, np.array(spread) if spread else e)
     n, e = drawn
     mid = len(n) // 2
     for slope, style in ((1.5, ":"), (1.0, "--")):
         ax.loglog(n, e[mid] * (n / n[mid]) ** slope, "k" + style, lw=0.8, label=f"slope {slope:g}")
     ax.set_xlabel("steps N")
-    ax.set_ylabel("RMS attitude error from each start's exact solution (rad)")
+    ax.set_ylabel("attitude error from each start's exact solution (rad)")
     ax.set_title("phase: Brouwer's law for an angle is slope 3/2")
     ax.grid(True, which="both", alpha=0.3)
     ax.legend(fontsize=8, loc="upper left")

@@ -18,10 +18,12 @@ def add_parser(sub) -> None:
         "arithmetic), and fit its growth exponent over the last two decades: 1/2 is Brouwer's "
         "law of random round-off, 1 a systematic drift. For a Lagrange top the same for the "
         "phase, the RMS attitude error against each start's exact solution: 3/2 is Brouwer's "
-        "law for an angle. The phase needs a step at which its truncation error, too, is below "
-        "round-off. Use a step at which truncation is below "
-        "round-off (for Gauss-Legendre methods in the body form, energy has no truncation "
-        "error at all).",
+        "law for an angle. That error holds the truncation of the phase too, which grows "
+        "like N; the members' spread about their mean error leaves it out (nearby starts share "
+        "it) and keeps their round-off: with --spread 1e-12 its exponent is the phase's "
+        "round-off law at any step where the members stay that close. For the energy use a "
+        "step at which truncation is below round-off (for Gauss-Legendre methods in the body "
+        "form, energy has no truncation error at all).",
     )
     p.add_argument("case", metavar="CASE", help="case file or library case name")
     p.add_argument("--method", required=True, help="a splitting or Gauss-Legendre method")
@@ -37,7 +39,8 @@ def add_parser(sub) -> None:
         "--spread",
         type=float,
         default=1e-6,
-        help="standard deviation of the start-angle perturbations (rad)",
+        help="standard deviation of the start-angle perturbations (rad); 1e-12 for the "
+        "phase spread",
     )
     p.add_argument(
         "--form",
@@ -101,9 +104,13 @@ def run(args) -> int:
         f"{r['case']}: {r['method']} ({r['form']}), h = {r['step']:g} s, {r['starts']} starts,"
         f" {r['steps']:g} steps"
     )
-    phase = r["rms_phase_error"]
+    phase, spread = r["rms_phase_error"], r["rms_phase_spread"]
     for k in table_rows(len(r["n"])):
-        angle = "" if phase is None else f"   RMS attitude error = {phase[k]:.3e} rad"
+        angle = (
+            ""
+            if phase is None
+            else f"   RMS attitude error = {phase[k]:.3e} rad, spread {spread[k]:.3e}"
+        )
         print(f"  N = {r['n'][k]:>10d}   RMS |dE/E| = {r['rms_energy_error'][k]:.3e}{angle}")
     if r["exponent"] is None:
         print("too few points above zero for a fit")
@@ -118,6 +125,12 @@ def run(args) -> int:
         print(
             f"phase growth exponent {r['phase_exponent']:.3f} (attitude error, fit over N = {lo} "
             f".. {hi}); Brouwer's law: 1.5"
+        )
+    if r["phase_spread_exponent"] is not None:
+        lo, hi = r["phase_spread_fit_range"]
+        print(
+            f"phase round-off exponent {r['phase_spread_exponent']:.3f} (the members' spread "
+            f"about their mean error, fit over N = {lo} .. {hi}); Brouwer's law: 1.5"
         )
     else:
         print(f"phase: not fitted: {r['phase_unknown']}")
