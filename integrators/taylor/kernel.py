@@ -29,6 +29,7 @@ import math
 from numba import njit
 
 from topdrift.integrators.base import C_EVALS, C_FORCE_EVALS, C_STEPS, ST_DIVERGED, ST_OK
+from topdrift.integrators.eft import two_sum
 from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 
 P_MIN = 4  # below this the two-coefficient step rule has too little to go on
@@ -41,7 +42,8 @@ N_WORK = 6 * STRIDE  # w (3 rows) and Gamma (3 rows), coefficient k at row * STR
 CT_T = 0  # the time of the series' centre (the end of the last step taken)
 CT_H = 1  # the step the series at CT_T will take
 CT_ORDER = 2  # the order of that series
-N_CTRL = 3
+CT_T_LO = 3  # the rounding error of CT_T: the time is the sum of the steps, kept compensated
+N_CTRL = 4
 
 # Slots of the tolerance array.
 TL_RTOL = 0
@@ -174,7 +176,7 @@ def advance(params, tol, yi, c, w, ctrl, counters, t_end, y_out):
     """Take steps while the current step ends before t_end, then evaluate the series at t_end
     into y_out. yi is the state at ctrl[CT_T], c its series. Returns an ST_ code; on failure yi
     and ctrl[CT_T] are the last good step's end."""
-    while ctrl[CT_T] + ctrl[CT_H] < t_end:
+    while (ctrl[CT_T] + ctrl[CT_H]) + ctrl[CT_T_LO] < t_end:
         h = ctrl[CT_H]
         evaluate(c, int(ctrl[CT_ORDER]), h, y_out)
         for i in range(7):
@@ -187,7 +189,11 @@ def advance(params, tol, yi, c, w, ctrl, counters, t_end, y_out):
             return status
         for i in range(7):
             yi[i] = y_out[i]
-        ctrl[CT_T] += h
+        # CT_T + CT_T_LO is the exact sum of the steps (TwoSum, Knuth; common practice): a
+        # rounded time would drift by ulp(t) per step and shift the phase of a fast spin.
+        t, e = two_sum(ctrl[CT_T], h)
+        ctrl[CT_T] = t
+        ctrl[CT_T_LO] += e
         counters[C_STEPS] += 1
-    evaluate(c, int(ctrl[CT_ORDER]), t_end - ctrl[CT_T], y_out)
+    evaluate(c, int(ctrl[CT_ORDER]), (t_end - ctrl[CT_T]) - ctrl[CT_T_LO], y_out)
     return ST_OK

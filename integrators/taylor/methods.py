@@ -33,6 +33,7 @@ from topdrift.integrators.taylor.kernel import (
     CT_H,
     CT_ORDER,
     CT_T,
+    CT_T_LO,
     N_COEF,
     N_CTRL,
     N_TOL,
@@ -154,8 +155,8 @@ class TaylorStepper(Stepper):
 
     @property
     def t_internal(self) -> float:
-        """The centre of the current series (at or before self.t)."""
-        return float(self.ctrl[CT_T])
+        """The centre of the current series (at or before self.t), rounded to a double."""
+        return float(self.ctrl[CT_T] + self.ctrl[CT_T_LO])
 
     _ARRAYS = ("y", "yi", "coef", "ctrl", "counters", "turns")
 
@@ -191,7 +192,8 @@ class TaylorStepper(Stepper):
         p = ctrl[CT_ORDER]
         if not (
             ctrl[CT_H] > 0.0
-            and ctrl[CT_T] <= t <= ctrl[CT_T] + ctrl[CT_H]
+            and -4.0 * EPS * max(1.0, abs(t)) <= (t - ctrl[CT_T]) - ctrl[CT_T_LO] <= ctrl[CT_H]
+            and abs(ctrl[CT_T_LO]) <= EPS * max(1.0, abs(ctrl[CT_T]))
             and p == int(p)
             and P_MIN <= p <= P_MAX
             and all(coef[i * STRIDE] == yi[i] for i in range(N_BODY))
