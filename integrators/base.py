@@ -59,6 +59,7 @@ FAMILIES = (
     "splitting",
     "gauss-legendre",
     "first-order-engine",
+    "taylor",
     "reference",
     "external",
 )
