@@ -21,6 +21,7 @@ _BUILTIN_MODULES = (
     "topdrift.integrators.splitting.methods",
     "topdrift.integrators.gauss.methods",
     "topdrift.integrators.engine.methods",
+    "topdrift.integrators.liegroup.methods",
     "topdrift.integrators.reference.scipy_methods",
 )
 
