@@ -52,6 +52,7 @@ FAMILIES = {
         ("engine-semi-implicit", {"step": 0.01}),
         ("engine-implicit-gyro", {"step": 0.01}),
     ),
+    "lie-group-rk": (("lie-rkmk4", {"step": 0.01}), ("lie-cf4", {"step": 0.01})),
     "scipy-rk45": (("scipy-rk45", {"rtol": 1e-6}), ("scipy-rk45", {"rtol": 1e-7})),
     "scipy-dop853": (("scipy-dop853", {"rtol": 1e-6}), ("scipy-rk45", {"rtol": 1e-6})),
     "scipy-radau": (("scipy-radau", {"rtol": 1e-6}), ("scipy-radau", {"rtol": 1e-7})),

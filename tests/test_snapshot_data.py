@@ -43,6 +43,7 @@ BUILTIN_FAMILIES = (
     "splitting",
     "gauss-legendre",
     "first-order-engine",
+    "lie-group-rk",
     "reference",
 )
 

@@ -224,8 +224,6 @@ def step_cf4(p, h, q0, q1, q2, q3, m1, m2, m3):
     return a0, a1, a2, a3, n1, n2, n3
 
 
-
-
 @njit(cache=True)
 def liegroup_steps(scheme, y, p, h, nsteps, counters):
     """Take up to nsteps steps of h in place on the body state y. Returns (status, steps

@@ -12,7 +12,8 @@ quaternion exponentials (turns), so |q| = 1 by construction, with no renormalisa
 kernel.py has the equations. None is symplectic (explicit Runge-Kutta methods are not; common
 practice). What each keeps (the rule of integrators/base.py; checked in tests/test_keeps.py):
 |q| to round-off in all three (a product of unit quaternions), and p_psi on a Lagrange top (every
-stage's m3 rate m1 w2 - m2 w1 vanishes there in exact arithmetic, and the turns do not touch m). None keeps the energy; none keeps anything to the bit.
+stage's m3 rate m1 w2 - m2 w1 vanishes there in exact arithmetic, and the turns do not touch
+m). None keeps the energy; none keeps anything to the bit.
 """
 
 from __future__ import annotations
@@ -64,7 +65,9 @@ class LieGroupStepper(Stepper):
             )
         if k == 0:
             return ST_OK
-        status, done = liegroup_steps(self.scheme, self.y, self.params, self.h, int(k), self.counters)
+        status, done = liegroup_steps(
+            self.scheme, self.y, self.params, self.h, int(k), self.counters
+        )
         self.steps_done += int(done)
         if status != ST_OK:
             self.status = int(status)
