@@ -1,6 +1,7 @@
 """Lie-group Runge-Kutta methods (integrators/liegroup/): measured orders against references
-that share nothing with them, |q| = 1 without renormalisation, and the Crouch-Grossman
-coefficients against their order conditions in exact rationals."""
+that share nothing with them, |q| = 1 without renormalisation, the Crouch-Grossman
+coefficients against their order conditions in exact rationals, and the Crouch-Grossman and
+commutator-free coefficients' local order in 40-digit mpmath."""
 
 from fractions import Fraction as F
 
@@ -126,3 +127,85 @@ def test_resume_from_snapshot_gives_the_same_bits(name):
     assert three.advance_to(2.0) == ST_OK
     assert np.array_equal(three.y, one.y)
     assert np.array_equal(three.counters, one.counters)
+
+
+# --- the Crouch-Grossman and commutator-free coefficients in 40 digits ------------------------
+# A nonlinear equation on SO(3) of our own, Y' = Y hat(w(Y)) with w depending on the third row of
+# Y (like a heavy top's vertical in body axes) so that the frozen rates of different stages do not
+# commute. One step of each method, written here in mpmath with the coefficients of
+# integrators/liegroup/methods.py, against mpmath's own Taylor integrator (mpmath.odefun) at 40
+# digits: the local error of a method of order p falls as h^(p+1) (common practice). The swapped
+# update of the commutator-free method is the control: its two factors do not commute, and the
+# order falls (measured: local order 3).
+
+
+def _so3_problem():
+    import mpmath as mp
+
+    chi = [mp.mpf("0.3"), mp.mpf("-0.2"), mp.mpf("0.5")]
+    w0 = [mp.mpf("0.7"), mp.mpf("1.1"), mp.mpf("-0.4")]
+
+    def rate(y):
+        g = [y[2, 0], y[2, 1], y[2, 2]]
+        c = [g[1] * chi[2] - g[2] * chi[1], g[2] * chi[0] - g[0] * chi[2]]
+        c.append(g[0] * chi[1] - g[1] * chi[0])
+        v = [c[0] + w0[0] + g[0] ** 2 / 2, c[1] + w0[1] + g[1] * g[2] / 2]
+        v.append(c[2] + w0[2] + g[0] * g[2] / 2)
+        return mp.matrix([[0, -v[2], v[1]], [v[2], 0, -v[0]], [-v[1], v[0], 0]])
+
+    return mp, rate
+
+
+def _cf4(mp, rate, y, h, swapped=False):
+    e = mp.expm
+    f1 = h * rate(y)
+    y2 = y * e(f1 / 2)
+    f2 = h * rate(y2)
+    f3 = h * rate(y * e(f2 / 2))
+    f4 = h * rate(y2 * e(f3 - f1 / 2))
+    first, second = (3 * f1 + 2 * f2 + 2 * f3 - f4) / 12, (-f1 + 2 * f2 + 2 * f3 + 3 * f4) / 12
+    if swapped:
+        first, second = second, first
+    return y * e(first) * e(second)
+
+
+def _cg3(mp, rate, y, h):
+    e, a21, a31, a32 = mp.expm, F(3, 4), F(119, 216), F(17, 108)
+    b1, b2, b3 = F(13, 51), F(-2, 3), F(24, 17)
+
+    def r(x):
+        return mp.mpf(x.numerator) / x.denominator
+
+    f1 = h * rate(y)
+    f2 = h * rate(y * e(r(a21) * f1))
+    f3 = h * rate(y * e(r(a31) * f1) * e(r(a32) * f2))
+    return y * e(r(b1) * f1) * e(r(b2) * f2) * e(r(b3) * f3)
+
+
+@pytest.mark.parametrize(
+    "which,local_order",
+    [("cf4", 5), ("cg3", 4), ("cf4-swapped", 3)],
+)
+def test_local_order_in_40_digits(which, local_order):
+    mp, rate = _so3_problem()
+    with mp.workdps(40):
+
+        def flat(m):
+            return [m[i, j] for i in range(3) for j in range(3)]
+
+        def f(t, y):
+            m = mp.matrix([y[0:3], y[3:6], y[6:9]])
+            return flat(m * rate(m))
+
+        y0 = mp.eye(3)
+        ref = mp.odefun(f, 0, flat(y0))
+        errors = []
+        for k in range(4):
+            h = mp.mpf(1) / (10 * 2**k)
+            if which == "cg3":
+                y1 = _cg3(mp, rate, y0, h)
+            else:
+                y1 = _cf4(mp, rate, y0, h, swapped=which == "cf4-swapped")
+            errors.append(mp.norm(mp.matrix(flat(y1)) - mp.matrix(ref(h))))
+        slopes = [float(mp.log(errors[i] / errors[i + 1], 2)) for i in range(3)]
+    assert abs(slopes[-1] - local_order) < 0.2, slopes
