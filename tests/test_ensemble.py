@@ -48,8 +48,18 @@ def test_members_match_single_runs_bit_for_bit(name, form):
         assert np.array_equal(ens.y[j], s.y)
 
 
-@pytest.mark.parametrize("name", ["engine-euler", "engine-semi-implicit", "engine-implicit-gyro"])
-def test_engine_members_match_single_runs_bit_for_bit(name):
+@pytest.mark.parametrize(
+    "name",
+    [
+        "engine-euler",
+        "engine-semi-implicit",
+        "engine-implicit-gyro",
+        "lie-rkmk4",
+        "lie-cg3",
+        "lie-cf4",
+    ],
+)
+def test_engine_and_lie_group_members_match_single_runs_bit_for_bit(name):
     y0 = starts(1)
     m = get(name)
     ens = EnsembleStepper(m, 1, TOP.params(), 0.0, y0, 1e-3)

@@ -38,6 +38,7 @@ FORMS = {"euler": FORM_EULER, "body": FORM_BODY}
 STEP = {
     1: 0.01,
     2: 0.02,
+    3: 0.05,
     4: 0.1,
     6: 0.2,
     8: 0.3,

@@ -44,6 +44,7 @@ BUILTIN_FAMILIES = (
     "gauss-legendre",
     "first-order-engine",
     "taylor",
+    "lie-group-rk",
     "reference",
 )
 

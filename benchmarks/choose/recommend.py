@@ -44,6 +44,7 @@ DEFAULT_CANDIDATES = (
     "engine-euler",
     "engine-semi-implicit",
     "engine-implicit-gyro",
+    "lie-rkmk4",
 )
 METRICS = ("axis", "attitude", "energy")
 # The trajectory metrics (against the exact solution, or else the case's reference) by run metric.

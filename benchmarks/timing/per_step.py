@@ -32,6 +32,9 @@ DEFAULT = (
     "engine-euler",
     "engine-semi-implicit",
     "engine-implicit-gyro",
+    "lie-rkmk4",
+    "lie-cg3",
+    "lie-cf4",
 )
 
 

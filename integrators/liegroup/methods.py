@@ -1,0 +1,176 @@
+"""Lie-group Runge-Kutta methods at a fixed step, body form: the attitude moves only by
+quaternion exponentials (turns), so |q| = 1 by construction, with no renormalisation step.
+
+  lie-rkmk4  Runge-Kutta-Munthe-Kaas, classical RK4 tableau (Munthe-Kaas, BIT 38 (1998) 92).
+  lie-cg3    Crouch-Grossman of order 3 (Crouch and Grossman, J. Nonlinear Sci. 3 (1993) 1):
+             a = (3/4; 119/216, 17/108), b = (13/51, -2/3, 24/17), c = (0, 3/4, 17/24), the
+             coefficients as given by Owren and Marthinsen, BIT 39 (1999) 116 (from memory;
+             their order conditions checked in rationals in tests/test_liegroup.py).
+  lie-cf4    commutator-free of order 4 (Celledoni, Marthinsen and Owren, Future Gener.
+             Comput. Syst. 19 (2003) 341; from memory; local order 5 checked in 40 digits and the
+             global order measured in tests/test_liegroup.py).
+
+kernel.py has the equations. None is symplectic (explicit Runge-Kutta methods are not; common
+practice). What each keeps (the rule of integrators/base.py; checked in tests/test_keeps.py):
+|q| to round-off in all three (a product of unit quaternions), and p_psi on a Lagrange top (every
+stage's m3 rate m1 w2 - m2 w1 vanishes there in exact arithmetic, and the turns do not touch
+m). None keeps the energy; none keeps anything to the bit.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from topdrift.integrators.base import (
+    N_COUNTERS,
+    ST_OK,
+    Method,
+    MethodInfo,
+    MethodRefused,
+    Stepper,
+    grid_steps,
+)
+from topdrift.integrators.liegroup.kernel import (
+    FORM,
+    SCHEME_CF4,
+    SCHEME_CG3,
+    SCHEME_RKMK4,
+    liegroup_steps,
+)
+from topdrift.integrators.validation import check_snapshot, snapshot_identity, stepper_fields
+
+FAMILY = "lie-group-rk"
+
+
+class LieGroupStepper(Stepper):
+    """A run of a Lie-group method: steps of h on the grid t0 + n h, forward only (the methods
+    are not symmetric, a step back is no inverse of a step forward)."""
+
+    def __init__(self, method, params, t0, y0, settings):
+        super().__init__(form=FORM, params=params, t=t0, y=y0)
+        self.method_name = method.name
+        self.scheme = method.scheme
+        self.settings = settings
+        self.h = settings["step"]
+        self.t0 = float(t0)
+        self.steps_done = 0
+
+    def advance_to(self, t_end: float) -> int:
+        if self.status != ST_OK:
+            return self.status
+        t_end = float(t_end)
+        k = grid_steps(self.method_name, self.t, t_end, self.h)
+        if k < 0:
+            raise MethodRefused(
+                f"{self.method_name}: asked for t = {t_end!r}, before the current time {self.t!r}"
+            )
+        if k == 0:
+            return ST_OK
+        status, done = liegroup_steps(
+            self.scheme, self.y, self.params, self.h, int(k), self.counters
+        )
+        self.steps_done += int(done)
+        if status != ST_OK:
+            self.status = int(status)
+            self.t_fail = self.t0 + self.steps_done * self.h
+            self.t = self.t_fail
+            return self.status
+        self.t = t_end
+        return ST_OK
+
+    def _fields(self) -> dict:
+        return {
+            **stepper_fields(N_COUNTERS),
+            "y": (np.float64, self.y.shape),
+            "t0": (float, ()),
+            "steps_done": (int, ()),
+        }
+
+    def snapshot(self) -> dict:
+        snap = snapshot_identity(self.method_name, self.form, self.settings)
+        snap.update(
+            t=self.t,
+            y=self.y.copy(),
+            counters=self.counters.copy(),
+            t0=self.t0,
+            steps_done=self.steps_done,
+            status=self.status,
+            t_fail=self.t_fail,
+        )
+        return snap
+
+    def restore(self, snap: dict) -> None:
+        check_snapshot(
+            snap,
+            method=self.method_name,
+            form=self.form,
+            settings=self.settings,
+            fields=self._fields(),
+        )
+        self.y = np.array(snap["y"], dtype=np.float64)  # states already handed out stay
+        self.counters[:] = snap["counters"]
+        self.t = float(snap["t"])
+        self.t0 = float(snap["t0"])
+        self.steps_done = int(snap["steps_done"])
+        self.status = int(snap["status"])
+        self.t_fail = float(snap["t_fail"])
+
+
+class LieGroupMethod(Method):
+    """One of the methods of kernel.py at a fixed step, body form."""
+
+    def __init__(self, name, scheme, order, keeps_roundoff, description, source):
+        self.scheme = scheme
+        self.info = MethodInfo(
+            name=name,
+            family=FAMILY,
+            order=order,
+            symplectic=False,
+            forms=("body",),
+            control="step",
+            keeps=(),
+            keeps_roundoff=keeps_roundoff,
+            compensated=False,
+            description=description,
+            source=source,
+        )
+
+    def start(self, form, params, t0, y0, settings) -> Stepper:
+        if int(form) != FORM:
+            raise MethodRefused(f"{self.name}: runs in the body form only (form code {form!r})")
+        checked = self.settings(settings)
+        y = self.start_state(FORM, y0)
+        p = np.ascontiguousarray(params, dtype=np.float64)
+        return LieGroupStepper(self, p, float(t0), y, checked)
+
+
+METHODS = [
+    LieGroupMethod(
+        "lie-rkmk4",
+        SCHEME_RKMK4,
+        4,
+        ("norm", "p_psi"),
+        "Runge-Kutta-Munthe-Kaas, classical RK4 tableau in the algebra with the dexpinv terms to "
+        "u^2; attitude by quaternion exponentials; order 4, 4 evaluations a step",
+        "Munthe-Kaas, BIT 38 (1998) 92",
+    ),
+    LieGroupMethod(
+        "lie-cg3",
+        SCHEME_CG3,
+        3,
+        ("norm", "p_psi"),
+        "Crouch-Grossman, three stages, a product of turns per stage; order 3, 3 evaluations a "
+        "step",
+        "Crouch and Grossman, J. Nonlinear Sci. 3 (1993) 1; coefficients and order conditions "
+        "of Owren and Marthinsen, BIT 39 (1999) 116",
+    ),
+    LieGroupMethod(
+        "lie-cf4",
+        SCHEME_CF4,
+        4,
+        ("norm", "p_psi"),
+        "commutator-free, classical RK4 stages, two turns in the fourth stage and in the "
+        "update; order 4, 4 evaluations a step",
+        "Celledoni, Marthinsen and Owren, Future Gener. Comput. Syst. 19 (2003) 341",
+    ),
+]
