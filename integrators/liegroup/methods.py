@@ -22,13 +22,10 @@ from __future__ import annotations
 import numpy as np
 
 from topdrift.integrators.base import (
-    N_COUNTERS,
-    ST_OK,
     Method,
     MethodInfo,
     MethodRefused,
     Stepper,
-    grid_steps,
 )
 from topdrift.integrators.liegroup.kernel import (
     FORM,
@@ -37,83 +34,16 @@ from topdrift.integrators.liegroup.kernel import (
     SCHEME_RKMK4,
     liegroup_steps,
 )
-from topdrift.integrators.validation import check_snapshot, snapshot_identity, stepper_fields
+from topdrift.integrators.scheme_stepper import SchemeStepper
 
 FAMILY = "lie-group-rk"
 
 
-class LieGroupStepper(Stepper):
-    """A run of a Lie-group method: steps of h on the grid t0 + n h, forward only (the methods
-    are not symmetric, a step back is no inverse of a step forward)."""
+class LieGroupStepper(SchemeStepper):
+    """A run of a Lie-group method (the grid, snapshots: integrators/scheme_stepper.py)."""
 
     def __init__(self, method, params, t0, y0, settings):
-        super().__init__(form=FORM, params=params, t=t0, y=y0)
-        self.method_name = method.name
-        self.scheme = method.scheme
-        self.settings = settings
-        self.h = settings["step"]
-        self.t0 = float(t0)
-        self.steps_done = 0
-
-    def advance_to(self, t_end: float) -> int:
-        if self.status != ST_OK:
-            return self.status
-        t_end = float(t_end)
-        k = grid_steps(self.method_name, self.t, t_end, self.h)
-        if k < 0:
-            raise MethodRefused(
-                f"{self.method_name}: asked for t = {t_end!r}, before the current time {self.t!r}"
-            )
-        if k == 0:
-            return ST_OK
-        status, done = liegroup_steps(
-            self.scheme, self.y, self.params, self.h, int(k), self.counters
-        )
-        self.steps_done += int(done)
-        if status != ST_OK:
-            self.status = int(status)
-            self.t_fail = self.t0 + self.steps_done * self.h
-            self.t = self.t_fail
-            return self.status
-        self.t = t_end
-        return ST_OK
-
-    def _fields(self) -> dict:
-        return {
-            **stepper_fields(N_COUNTERS),
-            "y": (np.float64, self.y.shape),
-            "t0": (float, ()),
-            "steps_done": (int, ()),
-        }
-
-    def snapshot(self) -> dict:
-        snap = snapshot_identity(self.method_name, self.form, self.settings)
-        snap.update(
-            t=self.t,
-            y=self.y.copy(),
-            counters=self.counters.copy(),
-            t0=self.t0,
-            steps_done=self.steps_done,
-            status=self.status,
-            t_fail=self.t_fail,
-        )
-        return snap
-
-    def restore(self, snap: dict) -> None:
-        check_snapshot(
-            snap,
-            method=self.method_name,
-            form=self.form,
-            settings=self.settings,
-            fields=self._fields(),
-        )
-        self.y = np.array(snap["y"], dtype=np.float64)  # states already handed out stay
-        self.counters[:] = snap["counters"]
-        self.t = float(snap["t"])
-        self.t0 = float(snap["t0"])
-        self.steps_done = int(snap["steps_done"])
-        self.status = int(snap["status"])
-        self.t_fail = float(snap["t_fail"])
+        super().__init__(method, FORM, params, t0, y0, settings, liegroup_steps)
 
 
 class LieGroupMethod(Method):
