@@ -8,8 +8,17 @@ from __future__ import annotations
 
 import numpy as np
 
-from topdrift.integrators.base import N_COUNTERS, ST_OK, MethodRefused, Stepper, grid_steps
+from topdrift.integrators.base import (
+    N_COUNTERS,
+    ST_OK,
+    Method,
+    MethodInfo,
+    MethodRefused,
+    Stepper,
+    grid_steps,
+)
 from topdrift.integrators.validation import check_snapshot, snapshot_identity, stepper_fields
+from topdrift.models.forms import FORM_BODY
 
 
 class SchemeStepper(Stepper):
@@ -82,3 +91,35 @@ class SchemeStepper(Stepper):
         self.steps_done = int(snap["steps_done"])
         self.status = int(snap["status"])
         self.t_fail = float(snap["t_fail"])
+
+
+class SchemeMethod(Method):
+    """A method of such a family: one scheme number of its kernel, at a fixed step, body form.
+    A family subclasses it with its own `family`, `kernel` and (for ensembles) its own type."""
+
+    family = ""
+    kernel = None  # the family's k-step kernel, as a staticmethod
+
+    def __init__(self, name, scheme, order, keeps_roundoff, description, source):
+        self.scheme = scheme
+        self.info = MethodInfo(
+            name=name,
+            family=self.family,
+            order=order,
+            symplectic=False,
+            forms=("body",),
+            control="step",
+            keeps=(),
+            keeps_roundoff=keeps_roundoff,
+            compensated=False,
+            description=description,
+            source=source,
+        )
+
+    def start(self, form, params, t0, y0, settings) -> Stepper:
+        if int(form) != FORM_BODY:
+            raise MethodRefused(f"{self.name}: runs in the body form only (form code {form!r})")
+        checked = self.settings(settings)
+        y = self.start_state(FORM_BODY, y0)
+        p = np.ascontiguousarray(params, dtype=np.float64)
+        return SchemeStepper(self, FORM_BODY, p, float(t0), y, checked, type(self).kernel)

@@ -27,60 +27,26 @@ All to round-off, none to the bit; none keeps the energy.
 
 from __future__ import annotations
 
-import numpy as np
-
-from topdrift.integrators.base import (
-    Method,
-    MethodInfo,
-    MethodRefused,
-    Stepper,
-)
 from topdrift.integrators.engine.kernel import (
-    FORM,
     SCHEME_EXPLICIT,
     SCHEME_IMPLICIT_GYRO,
     SCHEME_SEMI_IMPLICIT,
     engine_steps,
 )
-from topdrift.integrators.scheme_stepper import SchemeStepper
+from topdrift.integrators.scheme_stepper import SchemeMethod
 
 FAMILY = "first-order-engine"
 SOURCE = "common practice of real-time and robotics engines (no single source)"
 
 
-class EngineStepper(SchemeStepper):
-    """A run of an engine scheme (the grid, snapshots: integrators/scheme_stepper.py)."""
+class EngineMethod(SchemeMethod):
+    """One of the schemes of kernel.py at a fixed step (integrators/scheme_stepper.py)."""
 
-    def __init__(self, method, params, t0, y0, settings):
-        super().__init__(method, FORM, params, t0, y0, settings, engine_steps)
-
-
-class EngineMethod(Method):
-    """One of the schemes of kernel.py at a fixed step, body form."""
+    family = FAMILY
+    kernel = staticmethod(engine_steps)
 
     def __init__(self, name: str, scheme: int, keeps_roundoff: tuple, description: str):
-        self.scheme = scheme
-        self.info = MethodInfo(
-            name=name,
-            family=FAMILY,
-            order=1,
-            symplectic=False,
-            forms=("body",),
-            control="step",
-            keeps=(),
-            keeps_roundoff=keeps_roundoff,
-            compensated=False,
-            description=description,
-            source=SOURCE,
-        )
-
-    def start(self, form, params, t0, y0, settings) -> Stepper:
-        if int(form) != FORM:
-            raise MethodRefused(f"{self.name}: runs in the body form only (form code {form!r})")
-        checked = self.settings(settings)
-        y = self.start_state(FORM, y0)
-        p = np.ascontiguousarray(params, dtype=np.float64)
-        return EngineStepper(self, p, float(t0), y, checked)
+        super().__init__(name, scheme, 1, keeps_roundoff, description, SOURCE)
 
 
 METHODS = [

@@ -19,59 +19,22 @@ m). None keeps the energy; none keeps anything to the bit.
 
 from __future__ import annotations
 
-import numpy as np
-
-from topdrift.integrators.base import (
-    Method,
-    MethodInfo,
-    MethodRefused,
-    Stepper,
-)
 from topdrift.integrators.liegroup.kernel import (
-    FORM,
     SCHEME_CF4,
     SCHEME_CG3,
     SCHEME_RKMK4,
     liegroup_steps,
 )
-from topdrift.integrators.scheme_stepper import SchemeStepper
+from topdrift.integrators.scheme_stepper import SchemeMethod
 
 FAMILY = "lie-group-rk"
 
 
-class LieGroupStepper(SchemeStepper):
-    """A run of a Lie-group method (the grid, snapshots: integrators/scheme_stepper.py)."""
+class LieGroupMethod(SchemeMethod):
+    """One of the methods of kernel.py at a fixed step (integrators/scheme_stepper.py)."""
 
-    def __init__(self, method, params, t0, y0, settings):
-        super().__init__(method, FORM, params, t0, y0, settings, liegroup_steps)
-
-
-class LieGroupMethod(Method):
-    """One of the methods of kernel.py at a fixed step, body form."""
-
-    def __init__(self, name, scheme, order, keeps_roundoff, description, source):
-        self.scheme = scheme
-        self.info = MethodInfo(
-            name=name,
-            family=FAMILY,
-            order=order,
-            symplectic=False,
-            forms=("body",),
-            control="step",
-            keeps=(),
-            keeps_roundoff=keeps_roundoff,
-            compensated=False,
-            description=description,
-            source=source,
-        )
-
-    def start(self, form, params, t0, y0, settings) -> Stepper:
-        if int(form) != FORM:
-            raise MethodRefused(f"{self.name}: runs in the body form only (form code {form!r})")
-        checked = self.settings(settings)
-        y = self.start_state(FORM, y0)
-        p = np.ascontiguousarray(params, dtype=np.float64)
-        return LieGroupStepper(self, p, float(t0), y, checked)
+    family = FAMILY
+    kernel = staticmethod(liegroup_steps)
 
 
 METHODS = [
