@@ -24,6 +24,7 @@ from topdrift.benchmarks.gate.compare import (
     compare,
     judge_timing,
     machine_drift,
+    undecided_timings,
 )
 from topdrift.benchmarks.gate.machine import differences, fingerprint
 from topdrift.benchmarks.gate.shift_interval import lower_rank, mann_whitney_counts, shift_interval
@@ -184,3 +185,57 @@ def test_another_reference_unit_is_not_compared():
     now["reference"]["version"] = 2
     r = compare(base, now, Thresholds())
     assert not r.failed and any("reference workload changed" in n for n in r.notes)
+
+
+def test_only_timings_too_loose_to_tell_get_more_rounds():
+    # The gate's test for measure_timings' extra rounds: a loose interval that straddles the band
+    # asks for more; a tight one (either verdict) does not, and neither does a machine whose
+    # state moved so far that the drift widening alone reaches past the band.
+    ref = {"kernel": "k", "version": 1, "clock": "c", "scalar_steps": 1, "stages_steps": 1}
+    ref.update(scalar_ns=50.0, stages_ns=40.0)
+    base = {
+        "loose": _timing(2.0, 0.01),
+        "tight": _timing(2.0, 0.01),
+        "slow": _timing(2.0, 0.01),
+    }
+    now = {"loose": _timing(2.1, 0.3), "tight": _timing(2.02, 0.01), "slow": _timing(6.0, 0.01)}
+    undecided = undecided_timings(base, ref, Thresholds())
+    assert undecided(now, dict(ref)) == {"loose"}
+    moved = {**ref, "scalar_ns": 60.0}  # 20 % against the stages kernel: 3 x 18 % either way
+    assert undecided(now, moved) == set()
+
+
+def test_undecided_timings_are_measured_again():
+    # measure_timings itself: the timing the test names gets EXTRA_BLOCK more rounds (each still
+    # between two reference passes), the others keep theirs; a test that never lets go stops
+    # at EXTRA_FACTOR times the rounds.
+    from topdrift.benchmarks.gate import measure
+    from topdrift.benchmarks.sweep.spec import parse_sweep
+
+    spec = parse_sweep(
+        'name = "t"\ncases = ["looping-nutation"]\nmethods = ["leapfrog", "rk4"]\n'
+        "horizon = 0.2\nsamples = 3\nsteps = [0.005]\n",
+        "t",
+    )
+    jobs, _ = measure.grid_jobs(spec)
+    runs = measure.measure_grid(jobs, report=lambda _: None)
+    plans = measure.timing_plans(runs, jobs)
+    asked = []
+
+    def once(out, _ref):
+        asked.append({tk: r["rounds"] for tk, r in out.items()})
+        return {"leapfrog euler"} if len(asked) == 1 else set()
+
+    quiet = {"report": lambda _: None}
+    out, ref = measure.measure_timings(plans, jobs, rounds=10, undecided=once, **quiet)
+    assert out["leapfrog euler"]["rounds"] == 10 + measure.EXTRA_BLOCK
+    assert out["rk4 body"]["rounds"] == 10 and len(out["leapfrog euler"]["per_round"]) == 30
+    assert asked[0]["leapfrog euler"] == 10
+    assert ref["passes"] == 10 * 3 + measure.EXTRA_BLOCK * 2  # R m1 R m2 R, then R m1 R
+
+    def always(out, _ref):
+        return set(out)
+
+    out, _ = measure.measure_timings(plans, jobs, rounds=10, undecided=always, **quiet)
+    cap = 10 + measure.EXTRA_BLOCK * ((measure.EXTRA_FACTOR - 1) * 10 // measure.EXTRA_BLOCK)
+    assert {r["rounds"] for r in out.values()} == {cap}

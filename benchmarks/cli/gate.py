@@ -79,7 +79,12 @@ def run(args) -> int:
     import sys
 
     from topdrift.benchmarks.gate.baseline_file import DEFAULT_FILE, encode_nonfinite, read_baseline
-    from topdrift.benchmarks.gate.compare import Thresholds, compare, format_report
+    from topdrift.benchmarks.gate.compare import (
+        Thresholds,
+        compare,
+        format_report,
+        undecided_timings,
+    )
     from topdrift.benchmarks.gate.machine import differences, fingerprint
     from topdrift.benchmarks.gate.record import record, sweep_of
     from topdrift.benchmarks.gate.reference_workload import CLOCK, WORKLOAD, WORKLOAD_VERSION
@@ -107,6 +112,7 @@ def run(args) -> int:
         reference_from=ref,
         timings=timed,
         rounds=rounds,
+        undecided=undecided_timings(baseline["timings"], ref, thresholds),
     )
     # None: compare decides by the fingerprints, and says why when it does not compare them.
     mode = False if not same_unit else (True if args.timings_anyway else None)

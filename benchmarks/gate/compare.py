@@ -381,6 +381,32 @@ def judge_timing(tk: str, a: dict, b: dict, t: Thresholds, drift: float = 0.0) -
     return TimingVerdict(tk, x, y, change, low, high, T_UNMEASURABLE, why)
 
 
+def undecided_timings(base: dict, base_ref: dict | None, t: Thresholds):
+    """The gate's test, for measure.measure_timings, of which timings of a rerun need more rounds:
+    those judge_timing calls not measurable for want of tight rounds. A timing whose interval is
+    wide because the machine's state moved (the drift widening alone reaches past the band) is
+    left as it is: more rounds cannot narrow that."""
+
+    def undecided(now: dict, now_ref: dict) -> set[str]:
+        if not same_unit(base_ref, now_ref):
+            return set()
+        drift = machine_drift(base_ref, now_ref)
+        if math.exp(MIX_FACTOR * drift) > 1.0 + t.time_band:
+            return set()
+        out = set()
+        for tk, a in base.items():
+            b = now.get(tk)
+            if b is None or a["status"] != b["status"] or b["ns_per_step_norm"] is None:
+                continue
+            if a["ns_per_step_norm"] is None:
+                continue
+            if judge_timing(tk, a, b, t, drift).verdict == T_UNMEASURABLE:
+                out.add(tk)
+        return out
+
+    return undecided
+
+
 def compare_timings(
     base: dict,
     now: dict,

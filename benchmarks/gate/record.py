@@ -98,11 +98,13 @@ def record(
     timings: bool = True,
     rounds: int | None = None,
     report: Callable[[str], None] | None = None,
+    undecided: Callable[[dict, dict], set[str]] | None = None,
 ) -> Recording:
     """Measure the sweep's grid and (unless `timings` is false) its timings. `timing_from`: timing
     plans to reuse, `reference_from`: the reference record whose pass sizes to reuse (the gate
     passes the baseline's, so that both time the same runs over the same horizons in the same
-    unit); methods and forms without a plan get one of their own, as when recording."""
+    unit); methods and forms without a plan get one of their own, as when recording.
+    `undecided`: the gate's test of which timings need more rounds (measure.measure_timings)."""
     jobs, skipped, unstarted = grid_cells(spec)
     runs = measure_grid(jobs, report)
     timing_records: dict[str, dict] = {}
@@ -116,7 +118,13 @@ def record(
             plans = {**reused, **{tk: p for tk, p in plans.items() if tk not in reused}}
         own = frozenset(tk for tk in plans if timing_from is None or tk not in timing_from)
         timing_records, reference = measure_timings(
-            plans, jobs, rounds=rounds, report=report, settle=own, reference=reference_from
+            plans,
+            jobs,
+            rounds=rounds,
+            report=report,
+            settle=own,
+            reference=reference_from,
+            undecided=undecided,
         )
     if reference is not None:
         normalise_grid(runs, reference)
