@@ -31,6 +31,7 @@ import contextlib
 import io
 import json
 import math
+import os
 import subprocess
 import sys
 import tempfile
@@ -184,6 +185,7 @@ def main(argv: list[str] | None = None) -> int:
             tk = methods[k % len(methods)]
             name = tk.split(" ")[0]
             entry = {"run": k + 1, "at_s": round(time.monotonic() - start, 1), "planted": tk}
+            entry["load_1min"] = round(os.getloadavg()[0], 2)  # what else the machine ran
             entry["clean"] = run_trial(baseline, None, 1.0)
             for label, factor, _ in PLANTS:
                 entry[label] = run_trial(baseline, name, factor)
@@ -216,7 +218,8 @@ def _line(e: dict) -> str:
     clean = e["clean"]["timings"]
     worst = max(clean, key=lambda t: abs(t["change"] - 1.0), default=None)
     unm = sum(t["verdict"] == "not measurable" for t in clean)
-    parts = [f"run {e['run']} at {e['at_s']:.0f} s: clean rc {e['clean']['rc']}"]
+    load = f" (load {e['load_1min']:.1f})" if "load_1min" in e else ""
+    parts = [f"run {e['run']} at {e['at_s']:.0f} s{load}: clean rc {e['clean']['rc']}"]
     if worst is not None:  # which timing, and whether its interval saw the noise
         span = ""
         if worst.get("low") is not None:
