@@ -60,6 +60,8 @@ FAMILIES = (
     "gauss-legendre",
     "first-order-engine",
     "taylor",
+    "lie-group-rk",
+    "constrained",
     "reference",
     "external",
 )

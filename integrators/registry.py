@@ -23,6 +23,7 @@ _BUILTIN_MODULES = (
     "topdrift.integrators.engine.methods",
     "topdrift.integrators.taylor.methods",
     "topdrift.integrators.liegroup.methods",
+    "topdrift.integrators.constrained.methods",
     "topdrift.integrators.reference.scipy_methods",
 )
 

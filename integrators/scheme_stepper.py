@@ -99,6 +99,7 @@ class SchemeMethod(Method):
 
     family = ""
     kernel = None  # the family's k-step kernel, as a staticmethod
+    symplectic = False  # True for a family whose every scheme is a symplectic map
 
     def __init__(self, name, scheme, order, keeps_roundoff, description, source):
         self.scheme = scheme
@@ -106,7 +107,7 @@ class SchemeMethod(Method):
             name=name,
             family=self.family,
             order=order,
-            symplectic=False,
+            symplectic=self.symplectic,
             forms=("body",),
             control="step",
             keeps=(),

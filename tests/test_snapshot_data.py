@@ -45,6 +45,7 @@ BUILTIN_FAMILIES = (
     "first-order-engine",
     "taylor",
     "lie-group-rk",
+    "constrained",
     "reference",
 )
 
