@@ -10,7 +10,14 @@ import pytest
 from demo_bodies import GENERAL, LAGRANGE, state
 from independent_references import attitude_error, exact_attitude, taylor_states
 
-from topdrift.integrators import C_FORCE_EVALS, C_STEPS, ST_NO_CONVERGENCE, ST_OK, get
+from topdrift.integrators import (
+    C_FORCE_EVALS,
+    C_STEPS,
+    ST_NO_CONVERGENCE,
+    ST_OK,
+    MethodRefused,
+    get,
+)
 from topdrift.integrators.constrained import kernel
 from topdrift.models import FORM_BODY, RigidBody
 from topdrift.models.exact import LagrangeTop
@@ -298,14 +305,22 @@ def test_measured_order_two(body):
     assert abs(slope - 2.0) < 0.2, (slope, errors)
 
 
-def test_a_step_with_no_solution_stops_with_no_convergence():
-    # vee(W D - D W^T) has components bounded by d_j + d_k for W orthogonal (|W_ij| <= 1), so a
-    # step with h |m3| > d1 + d2 has no position solution (common practice: an orthogonal
-    # matrix's entries are at most 1): the run stops there, the state left as it was.
+def test_a_step_with_no_solution_is_refused_or_stops_the_run():
+    # vee(W D - D W^T) has components bounded by d_j + d_k = I_i for W orthogonal (|W_ij| <= 1;
+    # common practice), so a step with h |w_i| > 1 has no position solution. At the start it
+    # is refused with the reason; when a later step loses its solution, the run stops there
+    # with ST_NO_CONVERGENCE and the last good state.
     body = RigidBody(mass=1.0, inertia=(1.0, 0.8, 0.6), com=(0.0, 0.0, 0.1))
     y0 = state(FORM_BODY, body, (0.0, 1.0, 0.0, 0.0, 0.0, 5.0))
-    h = 1.0  # h m3 = 3.0 > d1 + d2 = 0.6
+    with pytest.raises(MethodRefused, match="no solution at h = 1.0 s"):
+        get("rattle").start(FORM_BODY, body.params(), 0.0, y0, {"step": 1.0})
+    # released at rest nearly upright (tilt 0.1 rad), the body falls over; its rate at the
+    # bottom, sqrt(2 M g l (1 + cos 0.1) / I1) = 1.97 rad/s (energy, common practice), takes
+    # h |w| past 1 at h = 0.6 s: that step has no solution (measured: the seventh)
+    y0 = state(FORM_BODY, body, (0.0, 0.1, 0.0, 0.0, 0.0, 0.0))
+    h = 0.6
     st = get("rattle").start(FORM_BODY, body.params(), 0.0, y0, {"step": h})
-    assert st.advance_to(2.0) == ST_NO_CONVERGENCE
-    assert st.t_fail == 0.0 and np.array_equal(st.y, y0)
-    assert st.counters[C_STEPS] == 0
+    status = st.advance_to(60.0)
+    assert status == ST_NO_CONVERGENCE
+    assert 0.0 < st.t_fail < 60.0 and np.all(np.isfinite(st.y))
+    assert st.counters[C_STEPS] == round(st.t_fail / h)

@@ -45,6 +45,7 @@ DEFAULT_CANDIDATES = (
     "engine-semi-implicit",
     "engine-implicit-gyro",
     "lie-rkmk4",
+    "rattle",
 )
 METRICS = ("axis", "attitude", "energy")
 # The trajectory metrics (against the exact solution, or else the case's reference) by run metric.

@@ -172,5 +172,21 @@ def rattle_steps(scheme, y, p, h, nsteps, counters):
     return ST_OK, done
 
 
+@njit(cache=True)
+def first_solve(y, p, h):
+    """The position solve of a first step from y: (iterations or -1, h max_i |w*_i|)."""
+    i1, i2, i3 = p[P_I1], p[P_I2], p[P_I3]
+    half = 0.5 * (i1 + i2 + i3)
+    hh = 0.5 * h
+    t1, t2, t3 = _torque(p, y[0], y[1], y[2], y[3])
+    k1, k2, k3 = y[4] + hh * t1, y[5] + hh * t2, y[6] + hh * t3
+    x1, x2, x3 = hh * k1 / i1, hh * k2 / i2, hh * k3 / i3
+    s = 1.0 / math.sqrt(1.0 + x1 * x1 + x2 * x2 + x3 * x3)
+    its, _, _, _, _ = position_step(
+        half - i1, half - i2, half - i3, h * k1, h * k2, h * k3, s, s * x1, s * x2, s * x3
+    )
+    return its, 2.0 * max(abs(x1), abs(x2), abs(x3))
+
+
 # The form this scheme runs in (kept here so that the methods module need not know it).
 FORM = FORM_BODY

@@ -17,8 +17,9 @@ discrete Noether momentum is m3). The energy is not kept, only bounded.
 
 from __future__ import annotations
 
-from topdrift.integrators.constrained.kernel import SCHEME_RATTLE, rattle_steps
+from topdrift.integrators.constrained.kernel import SCHEME_RATTLE, first_solve, rattle_steps
 from topdrift.integrators.scheme_stepper import SchemeMethod
+from topdrift.integrators.validation import MethodRefused
 
 FAMILY = "constrained"
 SOURCE = (
@@ -34,6 +35,21 @@ class ConstrainedMethod(SchemeMethod):
     family = FAMILY
     kernel = staticmethod(rattle_steps)
     symplectic = True
+
+    def start(self, form, params, t0, y0, settings):
+        stepper = super().start(form, params, t0, y0, settings)
+        # The position equations vee(W D - D W^T) = h m* have, about each body axis, the term
+        # I_i sin(turn) (d_j + d_k = I_i), so they have no solution once h |w_i| > 1: refuse a
+        # first step with none, with the reason, before anything runs. Later steps that lose
+        # their solution stop the run with ST_NO_CONVERGENCE.
+        its, worst = first_solve(stepper.y, stepper.params, stepper.h)
+        if its < 0:
+            raise MethodRefused(
+                f"{self.name}: the first step's position equations have no solution at h = "
+                f"{stepper.h!r} s (h |w_i| = {worst:.3g} about the fastest axis, and they have "
+                f"none above 1); take a step below {stepper.h / max(worst, 1.0) / 2:.3g} s"
+            )
+        return stepper
 
 
 METHODS = [
