@@ -62,6 +62,7 @@ FAMILIES = (
     "taylor",
     "lie-group-rk",
     "constrained",
+    "generalized-alpha",
     "reference",
     "external",
 )

@@ -24,6 +24,7 @@ _BUILTIN_MODULES = (
     "topdrift.integrators.taylor.methods",
     "topdrift.integrators.liegroup.methods",
     "topdrift.integrators.constrained.methods",
+    "topdrift.integrators.galpha.methods",
     "topdrift.integrators.reference.scipy_methods",
 )
 

@@ -46,6 +46,7 @@ BUILTIN_FAMILIES = (
     "taylor",
     "lie-group-rk",
     "constrained",
+    "generalized-alpha",
     "reference",
 )
 
