@@ -46,6 +46,7 @@ DEFAULT_CANDIDATES = (
     "engine-implicit-gyro",
     "lie-rkmk4",
     "rattle",
+    "lie-galpha",
 )
 METRICS = ("axis", "attitude", "energy")
 # The trajectory metrics (against the exact solution, or else the case's reference) by run metric.

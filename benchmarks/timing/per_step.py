@@ -36,6 +36,7 @@ DEFAULT = (
     "lie-cg3",
     "lie-cf4",
     "rattle",
+    "lie-galpha",
 )
 
 
