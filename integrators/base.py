@@ -60,6 +60,9 @@ FAMILIES = (
     "gauss-legendre",
     "first-order-engine",
     "taylor",
+    "lie-group-rk",
+    "constrained",
+    "generalized-alpha",
     "reference",
     "external",
 )

@@ -1,7 +1,7 @@
 """Ensembles: one kernel advances many starts of the same body at once, in parallel.
 
-The step kernels of the splitting, Gauss-Legendre, first-order engine and Lie-group Runge-Kutta
-methods run once per
+The step kernels of the splitting, Gauss-Legendre, first-order engine, Lie-group Runge-Kutta and
+constrained (RATTLE) methods run once per
 start inside a numba `prange` loop over the starts, so an ensemble is the same arithmetic as N
 separate runs (member j gives the same bits as a single run from start j) spread over the cores.
 Used for spread-of-outcome studies (the chaotic top) and for the round-off study (Brouwer's
@@ -13,6 +13,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit, prange
 
+from topdrift.integrators.constrained.kernel import rattle_steps
+from topdrift.integrators.constrained.methods import ConstrainedMethod
 from topdrift.integrators.engine.kernel import engine_steps
 from topdrift.integrators.engine.methods import EngineMethod
 from topdrift.integrators.gauss.kernel import N_ITERS, N_MEMO, gauss_steps, work_size
@@ -142,6 +144,14 @@ def _advance_liegroup(scheme, p, h, nsteps, Y, counters, status):
             status[j] = st
 
 
+@njit(cache=True, parallel=True)
+def _advance_constrained(scheme, p, h, nsteps, Y, counters, status):
+    for j in prange(Y.shape[0]):
+        if status[j] == ST_OK:
+            st, _ = rattle_steps(scheme, Y[j], p, h, nsteps, counters[j])
+            status[j] = st
+
+
 class EnsembleStepper:
     """N starts of one body advanced together on the step grid of one splitting method.
 
@@ -165,12 +175,13 @@ class EnsembleStepper:
         step: float,
         lanes: bool | None = None,
     ):
-        if not isinstance(method, (SplittingMethod, GaussMethod, EngineMethod, LieGroupMethod)):
+        scalar_families = (EngineMethod, LieGroupMethod, ConstrainedMethod)
+        if not isinstance(method, (SplittingMethod, GaussMethod, *scalar_families)):
             raise MethodRefused(
                 f"{method.name}: ensembles run on the splitting methods (leapfrog and its "
                 f"compositions), the Gauss-Legendre methods, plain or -kahan, the "
-                f"first-order engine schemes and the Lie-group Runge-Kutta methods; this "
-                f"method has no ensemble kernel"
+                f"first-order engine schemes, the Lie-group Runge-Kutta methods and rattle; "
+                f"this method has no ensemble kernel"
             )
         Y0 = np.ascontiguousarray(Y0, dtype=np.float64)
         n = FORM_SIZE[form]
@@ -181,9 +192,15 @@ class EnsembleStepper:
         self.form = int(form)
         self.params = single.params
         self.gauss = isinstance(method, GaussMethod)
-        self.liegroup = isinstance(method, LieGroupMethod)
-        # Both scalar body-form kernels: (scheme, y, p, h, nsteps, counters), nothing else kept.
-        self.engine = isinstance(method, EngineMethod) or self.liegroup
+        # The scalar body-form kernels: (scheme, y, p, h, nsteps, counters), nothing else kept.
+        self.engine = isinstance(method, scalar_families)
+        self.advance_scalar = (
+            _advance_liegroup
+            if isinstance(method, LieGroupMethod)
+            else _advance_constrained
+            if isinstance(method, ConstrainedMethod)
+            else _advance_engine
+        )
         self.step = float(step)
         self.compensated = method.info.compensated
         self.t0 = float(t0)
@@ -279,8 +296,7 @@ class EnsembleStepper:
         if self.uses_lanes:
             self._advance_lanes(k)
         elif self.engine:
-            advance = _advance_liegroup if self.liegroup else _advance_engine
-            advance(
+            self.advance_scalar(
                 self.method.scheme,
                 self.params,
                 self.step,

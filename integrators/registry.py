@@ -23,6 +23,8 @@ _BUILTIN_MODULES = (
     "topdrift.integrators.engine.methods",
     "topdrift.integrators.taylor.methods",
     "topdrift.integrators.liegroup.methods",
+    "topdrift.integrators.constrained.methods",
+    "topdrift.integrators.galpha.methods",
     "topdrift.integrators.reference.scipy_methods",
 )
 

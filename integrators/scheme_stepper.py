@@ -99,17 +99,18 @@ class SchemeMethod(Method):
 
     family = ""
     kernel = None  # the family's k-step kernel, as a staticmethod
+    symplectic = False  # True for a family whose every scheme is a symplectic map
 
-    def __init__(self, name, scheme, order, keeps_roundoff, description, source):
+    def __init__(self, name, scheme, order, keeps_roundoff, description, source, keeps=()):
         self.scheme = scheme
         self.info = MethodInfo(
             name=name,
             family=self.family,
             order=order,
-            symplectic=False,
+            symplectic=self.symplectic,
             forms=("body",),
             control="step",
-            keeps=(),
+            keeps=tuple(keeps),
             keeps_roundoff=keeps_roundoff,
             compensated=False,
             description=description,

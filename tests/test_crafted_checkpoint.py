@@ -54,6 +54,8 @@ FAMILIES = {
     ),
     "taylor": (("taylor-adaptive", {"rtol": 1e-8}), ("taylor-adaptive", {"rtol": 1e-7})),
     "lie-group-rk": (("lie-rkmk4", {"step": 0.01}), ("lie-cf4", {"step": 0.01})),
+    "constrained": (("rattle", {"step": 0.01}), ("rattle", {"step": 0.005})),
+    "generalized-alpha": (("lie-galpha", {"step": 0.01}), ("lie-galpha-undamped", {"step": 0.01})),
     "scipy-rk45": (("scipy-rk45", {"rtol": 1e-6}), ("scipy-rk45", {"rtol": 1e-7})),
     "scipy-dop853": (("scipy-dop853", {"rtol": 1e-6}), ("scipy-rk45", {"rtol": 1e-6})),
     "scipy-radau": (("scipy-radau", {"rtol": 1e-6}), ("scipy-radau", {"rtol": 1e-7})),

@@ -57,6 +57,7 @@ def test_members_match_single_runs_bit_for_bit(name, form):
         "lie-rkmk4",
         "lie-cg3",
         "lie-cf4",
+        "rattle",
     ],
 )
 def test_engine_and_lie_group_members_match_single_runs_bit_for_bit(name):

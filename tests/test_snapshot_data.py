@@ -45,6 +45,8 @@ BUILTIN_FAMILIES = (
     "first-order-engine",
     "taylor",
     "lie-group-rk",
+    "constrained",
+    "generalized-alpha",
     "reference",
 )
 

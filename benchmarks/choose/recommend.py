@@ -45,6 +45,8 @@ DEFAULT_CANDIDATES = (
     "engine-semi-implicit",
     "engine-implicit-gyro",
     "lie-rkmk4",
+    "rattle",
+    "lie-galpha",
 )
 METRICS = ("axis", "attitude", "energy")
 # The trajectory metrics (against the exact solution, or else the case's reference) by run metric.

@@ -122,7 +122,7 @@ def plan_ensemble(
     if "step" not in plan.stepper_settings:
         raise UserError(
             f"{plan.method.name}: ensembles run on fixed-step methods (splittings, "
-            f"Gauss-Legendre, the first-order engine schemes and the Lie-group methods)"
+            f"Gauss-Legendre, the first-order engine schemes, the Lie-group methods, rattle)"
         )
     check_size(plan, members)
     # The stepper decides whether the lanes cover this method, form and body.

@@ -35,6 +35,8 @@ DEFAULT = (
     "lie-rkmk4",
     "lie-cg3",
     "lie-cf4",
+    "rattle",
+    "lie-galpha",
 )
 
 
