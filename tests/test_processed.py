@@ -172,3 +172,16 @@ def test_output_at_the_start_is_the_start():
     st = m.start(FORM_BODY, TOP.params(), 0.0, y0, {"step": 1e-2})
     assert st.advance_to(0.0) == ST_OK
     assert np.array_equal(st.y, y0)
+
+
+def test_registry_metadata():
+    from topdrift.integrators import get as get_method
+
+    assert sorted(BY_NAME) == ["leapfrog-proc4", "leapfrog-proc6"]
+    for name, m in BY_NAME.items():
+        i = get_method(name).info
+        assert get_method(name) is m
+        assert i.family == "splitting" and i.symplectic and i.control == "step"
+        assert i.order == m.table.order and i.forms == ("euler", "body")
+        assert i.keeps == ("p_psi",) and i.keeps_roundoff == ("p_phi", "norm")
+        assert not i.compensated and "Blanes, Casas and Ros" in i.source
