@@ -2,10 +2,10 @@
 sequence B(y_0 h) A(z_1 h) ... A(z_m h) B(y_m h) once, in place. It runs only at the start
 (P^-1) and at output times (P), never inside the step loop. One entry per form with the form a
 constant, as for the step loops (kernels.py): an Euler-form run then never compiles the body
-form's free flows, the elliptic one included (measured: a cold Euler-form run of
-leapfrog-proc4 took 42.5 s with one entry taking the form as data, against 30.2 s for
-leapfrog-tj4). Phi and psi are not folded here: the stepper's turn count belongs to the kernel
-state, and the processor moves the angles by O(h^2) only."""
+form's free flows, the elliptic one included. Measured cold (fresh cache, a whole
+`topdrift run demo-wheel`): leapfrog-proc4 11.8 s Euler form, 20.1 s body form, against
+leapfrog-tj4's 11.1 and 19.2 s. Phi and psi are not folded here: the stepper's turn count
+belongs to the kernel state, and the processor moves the angles by O(h^2) only."""
 
 from __future__ import annotations
 
