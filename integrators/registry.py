@@ -19,6 +19,7 @@ _BUILTIN_MODULES = (
     "topdrift.integrators.rk.fixed",
     "topdrift.integrators.rk.adaptive",
     "topdrift.integrators.splitting.methods",
+    "topdrift.integrators.splitting.processed",
     "topdrift.integrators.gauss.methods",
     "topdrift.integrators.engine.methods",
     "topdrift.integrators.taylor.methods",

@@ -38,10 +38,18 @@ CHECKED = [
             "test_rk_explicit.py::test_measured_order_is_four",
             "test_splitting.py::test_measured_order",
             "test_gauss.py::test_measured_order",
+            "test_processed.py::test_processed_output_has_the_effective_order",
             "test_adaptive_orders.py::test_our_tableaux_at_fixed_steps",
             "test_adaptive_orders.py::test_scipy_tableaux_at_fixed_steps",
             "test_adaptive_orders.py::test_scipy_error_against_tolerance",
             "test_independent_references.py::test_taylor_reference_agrees_with_mpmath_odefun",
+        ],
+    ),
+    (
+        "The processed splittings' coefficients meet their effective-order conditions",
+        [
+            "test_processed.py::test_effective_order_on_matrices",
+            "test_processed.py::test_kernel_alone_has_order_two",
         ],
     ),
     (

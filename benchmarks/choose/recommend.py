@@ -37,6 +37,9 @@ DEFAULT_CANDIDATES = (
     "leapfrog-s4",
     "leapfrog-s4-axes",
     "leapfrog-kl6",
+    # effective order 6 from a 6-stage kernel: ahead of leapfrog-kl6 and -y6 on looping-nutation
+    # (100 s, 1e-8) and chaotic-asymmetric (2 s, 1e-8) with few samples (CHANGELOG)
+    "leapfrog-proc6",
     "leapfrog-kl8",
     "gauss4",
     "gauss6",
