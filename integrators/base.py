@@ -305,7 +305,7 @@ class Method(ABC):
                 return f
         raise MethodRefused(
             f"{self.name}: works only in the Euler-angle form, which needs a symmetric body "
-            f"(I1 = I2) with its centre of mass on axis 3; this body is not one"
+            f"(I1 = I2) with its centre of mass and any rotor on axis 3; this body is not one"
         )
 
     def check(self, body: RigidBody, form: str, settings: dict) -> None:
@@ -318,7 +318,7 @@ class Method(ABC):
         if form == "euler" and not body.lagrange_top:
             raise MethodRefused(
                 f"{self.name}: the Euler-angle form needs a symmetric body (I1 = I2) with its "
-                f"centre of mass on axis 3; use the body form"
+                f"centre of mass and any rotor on axis 3; use the body form"
             )
         self.settings(settings)
 

@@ -19,7 +19,20 @@ P_INV3 = 5
 P_MGX = 6  # M g chi_1: weight times centre-of-mass coordinates in body axes
 P_MGY = 7
 P_MGZ = 8  # M g l for a top with its centre of mass on axis 3
-NPARAM = 9
+# A gyrostat's rotors: their constant momentum h relative to the body, in body axes, so that the
+# total body momentum is m = I w + h. Kernels need h only through w = I^-1 m - I^-1 h, so the
+# rate offset I^-1 h is kept beside it (zero for a plain body: m * inv - 0.0 is m * inv, bit
+# for bit, which keeps every rotor-free result unchanged).
+P_H1 = 9
+P_H2 = 10
+P_H3 = 11
+P_HW1 = 12  # h1 / I1
+P_HW2 = 13
+P_HW3 = 14
+# 1.0 when the rotor is not on the figure axis of a symmetric body (h1 or h2 non-zero, or
+# I1 != I2 with any rotor): the rigid free flow and the rotor's turn then do not commute.
+P_ROTOR_GENERAL = 15
+NPARAM = 16
 
 # Relative tolerance for "symmetric" and "on the axis": bodies built from geometry carry
 # round-off in their moments, and an exactly solvable case should still be recognised.
@@ -56,12 +69,15 @@ class RigidBody:
 
     inertia: principal moments (I1, I2, I3) about the fixed point, kg m^2.
     com: centre of mass in the principal body axes, m (zero for a free body).
+    rotor: the constant momentum of internal rotors relative to the body, in body axes, kg m^2/s
+    (a gyrostat; zero for a rigid body). The body's momentum is then m = I w + h.
     """
 
     mass: float
     inertia: tuple[float, float, float]
     com: tuple[float, float, float] = (0.0, 0.0, 0.0)
     gravity: float = STANDARD_GRAVITY
+    rotor: tuple[float, float, float] = (0.0, 0.0, 0.0)
 
     def __post_init__(self) -> None:
         mass = _positive_finite("mass", self.mass)
@@ -71,6 +87,9 @@ class RigidBody:
             raise BodyError(f"com: expected 3 coordinates, got {len(self.com)}")
         inertia = tuple(_positive_finite(f"inertia[{i}]", v) for i, v in enumerate(self.inertia))
         com = tuple(_finite(f"com[{i}]", v) for i, v in enumerate(self.com))
+        if len(self.rotor) != 3:
+            raise BodyError(f"rotor: expected 3 components, got {len(self.rotor)}")
+        rotor = tuple(_finite(f"rotor[{i}]", v) for i, v in enumerate(self.rotor))
         gravity = _finite("gravity", self.gravity)
         if gravity < 0.0:
             raise BodyError(f"gravity: must not be negative, got {gravity}")
@@ -86,6 +105,7 @@ class RigidBody:
         object.__setattr__(self, "inertia", inertia)
         object.__setattr__(self, "com", com)
         object.__setattr__(self, "gravity", gravity)
+        object.__setattr__(self, "rotor", rotor)
 
     @property
     def weight(self) -> float:
@@ -104,10 +124,28 @@ class RigidBody:
         return abs(c1) <= SYMMETRY_RTOL * scale and abs(c2) <= SYMMETRY_RTOL * scale
 
     @property
+    def has_rotor(self) -> bool:
+        return any(v != 0.0 for v in self.rotor)
+
+    @property
+    def rotor_on_axis(self) -> bool:
+        """No rotor, or one whose momentum lies along the figure axis 3 (h1 = h2 = 0)."""
+        h1, h2, _ = self.rotor
+        return h1 == 0.0 and h2 == 0.0
+
+    @property
     def lagrange_top(self) -> bool:
-        """Symmetric with its centre of mass on the figure axis: the exactly solvable heavy top,
-        the only body the canonical Euler-angle form describes."""
-        return self.symmetric and self.com_on_axis
+        """Symmetric with its centre of mass on the figure axis, and any rotor on that axis: the
+        exactly solvable heavy top (or gyrostat), the only body the canonical Euler-angle form
+        describes. An off-axis rotor turns m3 (m3' = (h1 m2 - h2 m1) / I1), so p_psi is then no
+        momentum of the motion."""
+        return self.symmetric and self.com_on_axis and self.rotor_on_axis
+
+    @property
+    def rotor_commutes(self) -> bool:
+        """The rotor's turn about I^-1 h commutes with the rigid free flow: no rotor, or one on
+        the figure axis of a symmetric body, where the two combine into one exact flow."""
+        return not self.has_rotor or (self.symmetric and self.rotor_on_axis)
 
     @property
     def kovalevskaya(self) -> bool:
@@ -141,6 +179,10 @@ class RigidBody:
         if self.com_on_axis:
             c1 = c2 = 0.0
         p[P_MGX], p[P_MGY], p[P_MGZ] = w * c1, w * c2, w * c3
+        h1, h2, h3 = self.rotor
+        p[P_H1], p[P_H2], p[P_H3] = h1, h2, h3
+        p[P_HW1], p[P_HW2], p[P_HW3] = h1 * p[P_INV1], h2 * p[P_INV2], h3 * p[P_INV3]
+        p[P_ROTOR_GENERAL] = 0.0 if self.rotor_commutes else 1.0
         return p
 
     def as_dict(self) -> dict:
@@ -149,4 +191,6 @@ class RigidBody:
             "inertia": list(self.inertia),
             "com": list(self.com),
             "gravity": self.gravity,
+            # only a gyrostat says so: a rigid body's record stays what it was
+            **({"rotor": list(self.rotor)} if self.has_rotor else {}),
         }

@@ -10,14 +10,15 @@ import math
 
 from numba import njit
 
-from .body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from .body import P_H3, P_HW1, P_HW2, P_HW3, P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 from .forms import FORM_EULER
 from .quaternion import vertical_in_body
 
 
 @njit(cache=True)
 def rhs_euler(y, p, dy):
-    """Hamilton's equations of the symmetric heavy top, canonical Euler-angle variables."""
+    """Hamilton's equations of the symmetric heavy top, canonical Euler-angle variables. A rotor
+    on the figure axis (h3) only slows the shell's spin: psidot = (p_psi - h3) / I3 - c phidot."""
     theta = y[1]
     p_phi = y[3]
     p_theta = y[4]
@@ -29,7 +30,7 @@ def rhs_euler(y, p, dy):
     r = a * inv1 / (s * s)  # phidot
     dy[0] = r
     dy[1] = p_theta * inv1
-    dy[2] = p_psi * p[P_INV3] - c * r
+    dy[2] = (p_psi - p[P_H3]) * p[P_INV3] - c * r  # p_psi - 0.0 is p_psi, bit for bit
     dy[3] = 0.0
     dy[4] = r * (a * c / s - p_psi * s) + p[P_MGZ] * s
     dy[5] = 0.0
@@ -37,12 +38,14 @@ def rhs_euler(y, p, dy):
 
 @njit(cache=True)
 def rhs_body(y, p, dy):
-    """Euler-Poisson equations: m' = m x w + M g (Gamma x chi), q' = q (0, w) / 2."""
+    """Euler-Poisson equations: m' = m x w + M g (Gamma x chi), q' = q (0, w) / 2. For a
+    gyrostat m is the total body momentum I w + h and w = I^-1 m - I^-1 h (the offset is zero,
+    and x - 0.0 is x, for a rigid body: its bits are unchanged)."""
     q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
     m1, m2, m3 = y[4], y[5], y[6]
-    w1 = m1 * p[P_INV1]
-    w2 = m2 * p[P_INV2]
-    w3 = m3 * p[P_INV3]
+    w1 = m1 * p[P_INV1] - p[P_HW1]
+    w2 = m2 * p[P_INV2] - p[P_HW2]
+    w3 = m3 * p[P_INV3] - p[P_HW3]
     g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
     cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
     dy[0] = 0.5 * (-q1 * w1 - q2 * w2 - q3 * w3)

@@ -8,7 +8,7 @@ u(t) = u1 + (u2 - u1) sn^2(tau | m),  tau = lambda (t - t1),  m = (u2 - u1) / (u
 lambda = sqrt(beta (u3 - u1)) / 2, nutation period 2 K(m) / lambda. The rates split into
 partial fractions,
     phidot = (b - a u) / (1 - u^2) = (b - a) / (2 (1 - u)) + (b + a) / (2 (1 + u))
-    psidot = p_psi / I3 - a - (b - a) / (2 (1 - u)) + (b + a) / (2 (1 + u)),
+    psidot = (p_psi - h3) / I3 - a - (b - a) / (2 (1 - u)) + (b + a) / (2 (1 + u)),
 and 1 -/+ u = (1 -/+ u1)(1 - n sn^2) turns each term into an incomplete elliptic integral of the
 third kind Pi(n; am(tau) | m) = F + n/3 sn^3 R_J(cn^2, dn^2, 1, 1 - n sn^2) for |tau| <= K
 (Carlson, Numerical Algorithms 10 (1995); DLMF 19.25.14), with F = tau exactly. Over a whole
@@ -37,6 +37,12 @@ R(phi + pi, theta, psi - pi); phi gains +pi and psi -pi at each pass (counted ex
 instant of the pass the angles are those just after it), so the rotation stays continuous. A
 sleeping top (axis on the vertical, no transverse momentum) keeps phi at its start and turns psi
 at the spin rate.
+
+A gyrostat with its rotor on the figure axis (momentum h3 relative to the body, p_psi = I3 w3 +
+h3) has H = p_theta^2 / (2 I1) + A^2 / (2 I1 s^2) + (p_psi - h3)^2 / (2 I3) + M g l c: the rotor
+enters only the term in p_psi alone, so u(t) and phi(t) are the top's with the total p_psi (in a,
+b, alpha) and psidot loses the constant h3 / I3 (docs/exact-solution.md). The sleeping margin is
+p_psi^2 - 4 I1 M g l with that total, the rotor's share included.
 """
 
 from __future__ import annotations
@@ -48,7 +54,7 @@ import numpy as np
 from scipy.special import elliprc, elliprj
 
 from . import double_double as dd
-from .body import P_I1, P_I3, P_MGZ, RigidBody
+from .body import P_H3, P_I1, P_I3, P_MGZ, RigidBody
 from .exact_arith import DOUBLE
 from .exact_constants import (
     BASE_DIGITS,
@@ -184,7 +190,8 @@ class LagrangeTop:
     momentum), euler(t) and axis(t) (arrays); t an array of doubles, taken as exact, with an
     optional second word t_lo (t + t_lo a double-double).
     A sleeping or hanging top (axis exactly on the vertical, no transverse momentum) keeps phi
-    at the start's value and turns psi at p_psi / I3: only phi + psi (or phi - psi) is defined.
+    at the start's value and turns psi at (p_psi - h3) / I3: only phi + psi (or phi - psi) is
+    defined.
     Refusals raise ExactUnavailable with the reason.
     """
 
@@ -199,7 +206,7 @@ class LagrangeTop:
         if not body.lagrange_top:
             raise ExactUnavailable(
                 "body: the exact solution needs a symmetric top (I1 == I2) with its centre of "
-                "mass on the figure axis"
+                "mass and any rotor on the figure axis"
             )
         if isinstance(form, str):
             try:
@@ -222,6 +229,7 @@ class LagrangeTop:
             i3=float(p[P_I3]),
             mgl=float(p[P_MGZ]),
             weight_by_norm=bool(weight_by_norm),
+            h3=float(p[P_H3]),
         )
         self = object.__new__(cls)
         self._build(inp)

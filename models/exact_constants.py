@@ -185,7 +185,7 @@ def periodic_motion(inp: ExactInput, flip: bool, digits: int) -> PeriodicMotion:
             st = st.reflected()
         beta = 2 * abs(mp.mpf(inp.mgl)) * weight_factor(inp, ar) / mp.mpf(inp.i1)
         roots = solve_roots(st, beta, ar)
-        ell = _elliptic(inp, st, roots, beta)
+        ell = _elliptic(inp, st, roots, beta, flip)
         tau0, pi1, pi2 = _start_phase(roots, ell, st.udot0)
         phase = Phase(
             lam=_td(ell.lam),
@@ -202,7 +202,7 @@ def periodic_motion(inp: ExactInput, flip: bool, digits: int) -> PeriodicMotion:
     return PeriodicMotion(phase, advances, shape, numbers)
 
 
-def _elliptic(inp: ExactInput, st: Start, roots: Roots, beta) -> _Elliptic:
+def _elliptic(inp: ExactInput, st: Start, roots: Roots, beta, flip: bool) -> _Elliptic:
     import mpmath as mp
 
     from . import carlson
@@ -214,7 +214,10 @@ def _elliptic(inp: ExactInput, st: Start, roots: Roots, beta) -> _Elliptic:
     else:
         m, mc, kappa = mp.mpf(0), mp.mpf(1), st.k0 + st.a**2
     lam = mp.sqrt(kappa) / 2
-    w3 = st.a * mp.mpf(inp.i1) / mp.mpf(inp.i3)  # p_psi / I3 of the (reflected) problem
+    # (p_psi - h3) / I3 of the (reflected) problem, the shell's spin rate: the mirror turns the
+    # rotor's momentum with p_psi (h3 -> -h3); h3 = 0 leaves the rigid top's value exactly.
+    h3 = -mp.mpf(inp.h3) if flip else mp.mpf(inp.h3)
+    w3 = (st.a * mp.mpf(inp.i1) - h3) / mp.mpf(inp.i3)
     zero = mp.mpf(0)
     # 1 - u = om1 (1 - n1 sn^2) and 1 + u = op1 (1 - n2 sn^2), with 1 - n as a ratio of
     # distances; a term whose numerator b -/+ a is exactly zero (a pole pass) is absent.
@@ -341,16 +344,16 @@ def _start_phase(roots: Roots, ell: _Elliptic, udot0):
 
 
 def steady_motion(inp: ExactInput, flip: bool, pole: int, beta_zero: bool) -> SteadyMotion:
-    """The constants of an axis at rest: phi0, psi0 and the spin rate p_psi / I3 (true problem),
-    and the small-oscillation period about it where there is one (reflected problem: pole = +1
-    is the axis up against gravity)."""
+    """The constants of an axis at rest: phi0, psi0 and the spin rate (p_psi - h3) / I3 (true
+    problem), and the small-oscillation period about it where there is one (reflected problem:
+    pole = +1 is the axis up against gravity)."""
     import mpmath as mp
 
     ar = multiprecision()
     with mp.workdps(BASE_DIGITS):
         st = start_of(inp, ar)
         i1, i3 = mp.mpf(inp.i1), mp.mpf(inp.i3)
-        spin = st.p_psi / i3
+        spin = (st.p_psi - mp.mpf(inp.h3)) / i3  # the shell's spin; h3 = 0 is the rigid top's
         a = st.p_psi / i1
         beta = 2 * abs(mp.mpf(inp.mgl)) * weight_factor(inp, ar) / i1
         period = mp.inf

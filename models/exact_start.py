@@ -34,6 +34,9 @@ class ExactInput:
     # A start whose |q| is 1 only to rounding then moves as the unit-quaternion top with that
     # weight; False gives the top the start describes (the quaternion normalised, M g l as is).
     weight_by_norm: bool = False
+    # A rotor on the figure axis (a gyrostat), kg m^2/s: p_psi = I3 w3 + h3. The u-equation is
+    # the top's with this p_psi; only the shell's own spin rate (p_psi - h3) / I3 moves.
+    h3: float = 0.0
 
 
 def weight_factor(inp: ExactInput, ar: Arithmetic):
@@ -173,7 +176,8 @@ def _from_body(inp: ExactInput, ar: Arithmetic) -> Start:
             if pole == 1
             else (ar.real(2.0), ar.real(0.0), ar.real(-1.0))
         )
-        wx, wy = _space_rate(q0, q1, q2, q3, m1 / i1, m2 / i1, m3 / i3)
+        w3 = (m3 - ar.real(inp.h3)) / i3  # the shell's rate: a rotor's momentum is no turn
+        wx, wy = _space_rate(q0, q1, q2, q3, m1 / i1, m2 / i1, w3)
         if wx == 0 and wy == 0:
             pass  # sleeping: only phi + psi (or phi - psi) matters, keep the split above
         elif pole == 1:

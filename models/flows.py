@@ -4,12 +4,20 @@ Both forms split the same way: a "drift" part A and a "kick" part B whose flows 
 explicit. `flow_a(form, h, y, p)` and `flow_b(form, h, y, p)` are the entry points integrator
 kernels call by name.
 
-euler: A = p_theta^2/(2 I1) + p_psi^2/(2 I3)           (theta, psi move linearly)
+euler: A = p_theta^2/(2 I1) + (p_psi - h3)^2/(2 I3)    (theta, psi move linearly)
        B = (p_phi - p_psi cos theta)^2/(2 I1 sin^2 theta) + M g l cos theta
                                                        (theta fixed: kick p_theta, move phi, psi)
 body:  A = kinetic energy, the exact free flow          (I1 = I2: a closed form in two turns;
            I1 != I2: Jacobi elliptic functions, free_asymmetric.py)
        B = potential, M g chi.Gamma                    (q fixed: kick m)
+
+A gyrostat (rotor momentum h, m = I w + h) has the free part (m - h).I^-1 (m - h) / 2: the rigid
+free flow and the flow of -(I^-1 h).m, a turn of the body about the fixed body direction I^-1 h.
+On the figure axis of a symmetric body the two commute and free_symmetric takes the turn into its
+rotation about e3 (rate (1/I3 - 1/I1) m3 - h3/I3), still one exact flow; any other rotor is
+refused by the splittings with these free flows (the two flows do not commute there); the
+free rotation split into exact turns about the principal axes (FREE_AXES) takes any rotor, since
+each turn's T_k = (m_k - h_k)^2 / (2 I_k) depends on m_k alone.
 
 The body form has a second, cheaper free flow for I1 != I2: the symmetric part and one rotation
 about body axis 2, composed symmetrically (second order in the step, exact for I1 = I2). A
@@ -23,7 +31,7 @@ import math
 
 from numba import njit
 
-from .body import P_I1, P_I2, P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from .body import P_H3, P_HW1, P_HW3, P_I1, P_I2, P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 from .forms import FORM_EULER
 from .free_asymmetric import free_asymmetric, free_asymmetric_increment
 from .quaternion import qmul, rotate, vertical_in_body
@@ -42,7 +50,7 @@ FREE_AXES = 3
 @njit(cache=True, error_model="numpy")
 def drift_euler(h, y, p):
     y[1] += h * y[4] * p[P_INV1]
-    y[2] += h * y[5] * p[P_INV3]
+    y[2] += h * (y[5] - p[P_H3]) * p[P_INV3]  # y[5] - 0.0 is y[5]: a rigid top's bits stay
 
 
 @njit(cache=True, error_model="numpy")
@@ -74,7 +82,8 @@ def free_symmetric(h, y, p):
     """Exact free flow of a body with I1 = I2 = p[P_I1].
 
     R(h) = Rot(L/|L|, |L| h / I1) R(0) Rot(e3, c3 h), m(h) = Rot(e3, -c3 h) m(0),
-    c3 = (1/I3 - 1/I1) m3. m is turned about e3 directly, so m3 is never touched.
+    c3 = (1/I3 - 1/I1) m3. m is turned about e3 directly, so m3 is never touched. A rotor on
+    axis 3 adds its own turn about e3, c3 = (1/I3 - 1/I1) m3 - h3/I3 (it commutes with the rest).
 
     Round-off without a bias. The two quaternion factors are nearly the same every step (m3 is
     constant, |L| nearly so), so whatever a factor rounds the same way every step adds up
@@ -107,7 +116,8 @@ def free_symmetric(h, y, p):
         q1 = q1 + d1
         q2 = q2 + d2
         q3 = q3 + d3
-    qb = 0.25 * h * (p[P_INV3] - p[P_INV1]) * m3
+    # minus 0.25 h h3/I3, which is exactly 0.0 for a rigid body (x - 0.0 is x: bits unchanged)
+    qb = 0.25 * h * (p[P_INV3] - p[P_INV1]) * m3 - 0.25 * h * p[P_HW3]
     t3 = math.sin(qb)
     e0 = -2.0 * t3 * t3
     sh3 = 2.0 * t3 * math.cos(qb)
@@ -166,7 +176,9 @@ def turn_principal(k, h, y, p):
     that the factor's rounding enters at the increment's size."""
     q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
     mk = y[4 + k]
-    alpha = h * mk * p[P_INV1 + k]
+    # A gyrostat's T_k = (m_k - h_k)^2 / (2 I_k) turns at (m_k - h_k) / I_k, still exactly:
+    # every rotor is exact in this split (minus h * 0.0 for a rigid body: its bits stay).
+    alpha = h * mk * p[P_INV1 + k] - h * p[P_HW1 + k]
     t = math.sin(0.25 * alpha)
     c = math.cos(0.25 * alpha)
     sh = 2.0 * t * c  # sin(alpha / 2)
@@ -280,7 +292,7 @@ def flow_b(form, h, y, p):
 def drift_euler_increment(h, y, p, d):
     d[0] = 0.0
     d[1] = h * y[4] * p[P_INV1]
-    d[2] = h * y[5] * p[P_INV3]
+    d[2] = h * (y[5] - p[P_H3]) * p[P_INV3]
     d[3] = 0.0
     d[4] = 0.0
     d[5] = 0.0
@@ -325,7 +337,7 @@ def _free_symmetric_increment(h, q0, q1, q2, q3, m1, m2, m3, p):
     lx, ly, lz = rotate(q0, q1, q2, q3, m1, m2, m3)
     lnorm = math.sqrt(lx * lx + ly * ly + lz * lz)
     # qe3 = (cos hb, 0, 0, sin hb); qe3 - 1 = (-2 sin^2(hb/2), 0, 0, sin hb)
-    beta = h * (p[P_INV3] - p[P_INV1]) * m3
+    beta = h * (p[P_INV3] - p[P_INV1]) * m3 - h * p[P_HW3]  # a rotor on axis 3 (else - 0.0)
     hb = 0.5 * beta
     s_hb = math.sin(hb)
     s_qb = math.sin(0.5 * hb)

@@ -3,7 +3,8 @@
 euler: (phi, theta, psi, p_phi, p_theta, p_psi), the canonical variables of a symmetric top with
        its centre of mass on axis 3; singular where sin(theta) = 0.
 body:  (q0, q1, q2, q3, m1, m2, m3), the body-to-space unit quaternion and the angular momentum
-       about the fixed point in body axes; valid for every body and attitude.
+       about the fixed point in body axes (a gyrostat's total, I w + h); valid for every body
+       and attitude.
 
 The map between the momenta is inertia-free: with n = (cos psi, -sin psi, 0) the line of nodes,
 k = e3 x n = (sin psi, cos psi, 0) and Gamma the vertical, all in body axes,
@@ -18,7 +19,7 @@ import math
 import numpy as np
 from numba import njit
 
-from .body import P_I1, P_I2, P_I3, RigidBody
+from .body import P_H1, P_H2, P_H3, P_I1, P_I2, P_I3, RigidBody
 from .quaternion import from_euler, to_euler, vertical_in_body
 
 FORM_EULER = 0
@@ -104,6 +105,11 @@ def body_state(body: RigidBody, phi, theta, psi, phidot, thetadot, psidot) -> np
     y[B_M1] = p[P_I1] * w[0]
     y[B_M2] = p[P_I2] * w[1]
     y[B_M3] = p[P_I3] * w[2]
+    # A gyrostat's momentum m = I w + h; added only where h is non-zero, since -0.0 + 0.0 is
+    # +0.0 and a rigid body's start must keep its bits.
+    for i, k in ((B_M1, P_H1), (B_M2, P_H2), (B_M3, P_H3)):
+        if p[k] != 0.0:
+            y[i] += p[k]
     return y
 
 
@@ -142,9 +148,10 @@ def to_euler_form(y_body: np.ndarray) -> np.ndarray:
 
 def euler_rates(body: RigidBody, y_euler: np.ndarray) -> tuple[float, float, float]:
     """(phidot, thetadot, psidot) of a canonical state of a symmetric top (DESIGN relations)."""
-    i1, _, i3 = body.params()[:3]
+    p = body.params()
+    i1, i3 = p[P_I1], p[P_I3]
     theta = y_euler[E_THETA]
     s, c = math.sin(theta), math.cos(theta)
     a = y_euler[E_PPHI] - y_euler[E_PPSI] * c
     phidot = a / (i1 * s * s)
-    return phidot, y_euler[E_PTHETA] / i1, y_euler[E_PPSI] / i3 - c * phidot
+    return phidot, y_euler[E_PTHETA] / i1, (y_euler[E_PPSI] - p[P_H3]) / i3 - c * phidot

@@ -1,8 +1,10 @@
 """Conserved quantities in both forms.
 
-energy  H = T + V                      (every body)
+energy  H = T + V                      (every body; a gyrostat's T is the shell's,
+                                        (m - h).I^-1 (m - h) / 2 with m = I w + h)
 p_phi   L.e_z, vertical momentum        (every body: gravity exerts no torque about e_z)
-p_psi   L.e3, spin momentum             (exact when I1 = I2 and the centre of mass is on axis 3)
+p_psi   L.e3, spin momentum             (exact when I1 = I2 and the centre of mass and any rotor
+                                        are on axis 3; it is then I3 w3 + h3)
 norm    |q|                             (body form; 1 in the Euler form)
 kov     Kovalevskaya's integral |(w1 + i w2)^2 - c (G1 + i G2)|^2, c = M g |chi| / I3, in body
         axes turned so that chi lies on axis 1 (a first integral when I1 = I2 = 2 I3 and chi is
@@ -16,7 +18,7 @@ import math
 import numpy as np
 from numba import njit
 
-from .body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from .body import P_H1, P_H2, P_H3, P_HW1, P_HW2, P_HW3, P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 from .forms import FORM_EULER
 from .quaternion import vertical_in_body
 
@@ -45,10 +47,11 @@ def invariants(form, y, p, out):
         s = math.sin(theta)
         c = math.cos(theta)
         a = y[3] - y[5] * c
+        spin = y[5] - p[P_H3]  # I3 w3 (x - 0.0 is x: a rigid top's bits are unchanged)
         out[INV_ENERGY] = (
             0.5 * y[4] * y[4] * p[P_INV1]
             + 0.5 * a * a * p[P_INV1] / (s * s)
-            + 0.5 * y[5] * y[5] * p[P_INV3]
+            + 0.5 * spin * spin * p[P_INV3]
             + p[P_MGZ] * c
         )
         out[INV_P_PHI] = y[3]
@@ -58,17 +61,20 @@ def invariants(form, y, p, out):
         return
     g1, g2, g3, nq = _unit_vertical(y)
     m1, m2, m3 = y[4], y[5], y[6]
-    w1 = m1 * p[P_INV1]
-    w2 = m2 * p[P_INV2]
-    w3 = m3 * p[P_INV3]
-    out[INV_ENERGY] = 0.5 * (m1 * w1 + m2 * w2 + m3 * w3) + (
+    # The shell's rate and momentum I w = m - h (a gyrostat); x - 0.0 is x for a rigid body.
+    w1 = m1 * p[P_INV1] - p[P_HW1]
+    w2 = m2 * p[P_INV2] - p[P_HW2]
+    w3 = m3 * p[P_INV3] - p[P_HW3]
+    s1, s2, s3 = m1 - p[P_H1], m2 - p[P_H2], m3 - p[P_H3]
+    out[INV_ENERGY] = 0.5 * (s1 * w1 + s2 * w2 + s3 * w3) + (
         p[P_MGX] * g1 + p[P_MGY] * g2 + p[P_MGZ] * g3
     )
     out[INV_P_PHI] = m1 * g1 + m2 * g2 + m3 * g3
     out[INV_P_PSI] = m3
     out[INV_NORM] = nq
     r = math.hypot(p[P_MGX], p[P_MGY])
-    if r > 0.0:
+    rotor = p[P_H1] != 0.0 or p[P_H2] != 0.0 or p[P_H3] != 0.0
+    if r > 0.0 and not rotor:  # no integral of a gyrostat
         ca = p[P_MGX] / r
         sa = p[P_MGY] / r
         x1 = w1 * ca + w2 * sa

@@ -6,11 +6,14 @@
   arithmetic (a method of no family here: not Runge-Kutta, not splitting, not collocation). The
   equations are polynomial of degree 2 in (q, m),
 
-      q' = q (0, w) / 2,   m' = m x w + M g (Gamma(q) x chi),   w = I^-1 m,
+      q' = q (0, w) / 2,   m' = m x w + M g (Gamma(q) x chi),   w = I^-1 (m - h),
       Gamma(q) = (2 (q1 q3 - q0 q2), 2 (q2 q3 + q0 q1), q0^2 - q1^2 - q2^2 + q3^2),
 
-  (Euler-Poisson with a quaternion; common practice), so the Taylor coefficients follow from
-  the Cauchy products of the series (Moore's recurrences, common practice): (k + 1) y_(k+1) =
+  (Euler-Poisson with a quaternion, common practice; h is the constant rotor momentum of a
+  gyrostat, zero for a rigid body, with m the total body momentum I w + h, as in Hughes,
+  Spacecraft Attitude Dynamics, 1986, on gyrostats, from memory), so the Taylor coefficients
+  follow from the Cauchy products of the series (Moore's recurrences, common practice):
+  (k + 1) y_(k+1) =
   [f(y)]_k. Each step takes ORDER terms and a step h with |y_ORDER| h^ORDER below 1e-32 (from the
   decay of the last two coefficients, times a safety factor). It is checked against mpmath's own
   integrator, mpmath.odefun (a Taylor method too, but with its own derivatives, by finite
@@ -42,7 +45,7 @@ def _mpf(x: float):
 _decimal = _mpf
 
 
-def _series_step(c, inv, mgc, order):
+def _series_step(c, inv, mgc, order, rotor=(0, 0, 0)):
     """Extend the Taylor coefficients c (7 lists holding y_0) to `order` terms in place."""
     for k in range(order):
 
@@ -53,6 +56,10 @@ def _series_step(c, inv, mgc, order):
         w1 = [x * inv[0] for x in m1]
         w2 = [x * inv[1] for x in m2]
         w3 = [x * inv[2] for x in m3]
+        # w = I^-1 (m - h): the constant h moves only the zeroth coefficient
+        w1[0] -= rotor[0] * inv[0]
+        w2[0] -= rotor[1] * inv[1]
+        w3[0] -= rotor[2] * inv[2]
         g1 = 2 * (conv(q1, q3) - conv(q0, q2))
         g2 = 2 * (conv(q2, q3) + conv(q0, q1))
         g3 = conv(q0, q0) - conv(q1, q1) - conv(q2, q2) + conv(q3, q3)
@@ -78,7 +85,7 @@ def _horner(coefficients, h):
 
 @functools.cache
 def _taylor(body_key, y0, times, dps, order, binary=False):
-    mass, gravity, inertia, com = body_key
+    mass, gravity, inertia, com, rotor = body_key
     # binary: the exact values of the doubles (the reference of the double start), else the
     # decimal each double prints as
     _mpf = (lambda x: mp.mpf(float(x))) if binary else _decimal
@@ -86,6 +93,7 @@ def _taylor(body_key, y0, times, dps, order, binary=False):
         inv = [1 / _mpf(v) for v in inertia]
         mg = _mpf(mass) * _mpf(gravity)
         mgc = [mg * _mpf(v) for v in com]
+        hr = [_mpf(v) for v in rotor]
         y = [_mpf(v) for v in y0]
         tol = mp.mpf(10) ** (-(dps - 2))
         tiny = mp.mpf(10) ** (-300)
@@ -95,7 +103,7 @@ def _taylor(body_key, y0, times, dps, order, binary=False):
             target = _mpf(target)
             while t < target:
                 c = [[v] for v in y]
-                _series_step(c, inv, mgc, order)
+                _series_step(c, inv, mgc, order, hr)
                 last = max(max(abs(ci[-1]) for ci in c), tiny)
                 prev = max(max(abs(ci[-2]) for ci in c), tiny)
                 h = min(
@@ -110,10 +118,15 @@ def _taylor(body_key, y0, times, dps, order, binary=False):
         return out if binary else np.array(out)
 
 
+def _body_key(body) -> tuple:
+    rotor = tuple(getattr(body, "rotor", (0.0, 0.0, 0.0)))
+    return (float(body.mass), float(body.gravity), tuple(body.inertia), tuple(body.com), rotor)
+
+
 def taylor_states(body, y0, times, dps: int = DPS, order: int = ORDER) -> np.ndarray:
     """Body-form states (len(times), 7) of `body` from the body-form start y0, by the 34-digit
     Taylor integration above, rounded to doubles."""
-    key = (float(body.mass), float(body.gravity), tuple(body.inertia), tuple(body.com))
+    key = _body_key(body)
     return _taylor(
         key, tuple(float(v) for v in y0), tuple(float(t) for t in times), int(dps), int(order)
     )
@@ -122,7 +135,7 @@ def taylor_states(body, y0, times, dps: int = DPS, order: int = ORDER) -> np.nda
 def taylor_states_mp(body, y0, times, dps: int = 50, order: int = 55) -> list:
     """As taylor_states, from the exact binary values of the double start and parameters, the
     states left as mpmath numbers (rows of 7) at `dps` digits."""
-    key = (float(body.mass), float(body.gravity), tuple(body.inertia), tuple(body.com))
+    key = _body_key(body)
     return _taylor(
         key, tuple(float(v) for v in y0), tuple(float(t) for t in times), int(dps), int(order),
         True,
@@ -137,10 +150,13 @@ def odefun_solution(body, y0, dps: int = DPS, binary: bool = False):
     inertia = [_mpf(v) for v in body.inertia]
     mg = _mpf(body.mass) * _mpf(body.gravity)
     chi = [_mpf(v) for v in body.com]
+    hr = [_mpf(v) for v in getattr(body, "rotor", (0.0, 0.0, 0.0))]
 
     def f(_t, y):
         q0, q1, q2, q3, m1, m2, m3 = y
-        w1, w2, w3 = m1 / inertia[0], m2 / inertia[1], m3 / inertia[2]
+        w1 = (m1 - hr[0]) / inertia[0]
+        w2 = (m2 - hr[1]) / inertia[1]
+        w3 = (m3 - hr[2]) / inertia[2]
         g1 = 2 * (q1 * q3 - q0 * q2)
         g2 = 2 * (q2 * q3 + q0 * q1)
         g3 = q0 * q0 - q1 * q1 - q2 * q2 + q3 * q3

@@ -14,7 +14,9 @@ EULER_KEYS = ("phi", "theta", "psi", "p_phi", "p_theta", "p_psi")
 def body_kind(case: Case) -> str:
     b = case.body
     if b.lagrange_top:
-        return "lagrange"
+        return "lagrange-gyrostat" if b.has_rotor else "lagrange"
+    if b.has_rotor:
+        return "gyrostat"
     if b.kovalevskaya:
         return "kovalevskaya"
     if all(c == 0.0 for c in b.com):
@@ -54,7 +56,7 @@ def summarise(case: Case) -> dict:
         euler_reason = (
             "the figure axis starts on the vertical, where the Euler angles are singular"
             if case.body.lagrange_top
-            else "the euler form needs I1 = I2 and the centre of mass on axis 3"
+            else "the euler form needs I1 = I2 and the centre of mass and any rotor on axis 3"
         )
     inv = invariants_of(FORM_BODY, yb, case.body.params())
     wheel = None
@@ -88,7 +90,8 @@ def summarise(case: Case) -> dict:
         "invariants": {
             "energy": inv["energy"],
             "p_phi": inv["p_phi"],
-            "p_psi": inv["p_psi"],
+            # an off-axis rotor turns m3: p_psi is then no momentum of the motion (null)
+            "p_psi": None if case.body.has_rotor and not case.body.lagrange_top else inv["p_psi"],
             "kovalevskaya": inv["kovalevskaya"] if case.body.kovalevskaya else None,
         },
         "exact": exact,

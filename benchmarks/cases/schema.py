@@ -3,6 +3,7 @@ turned into a `Case`. Every problem is one UserError line, `<file>: <key>: <what
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import re
 import tomllib
@@ -36,8 +37,9 @@ SMALLEST = 1e-100
 LARGEST = 1e100
 
 TOP_KEYS = ("format_version", "name", "description", "horizon", "samples")
-TOP_TABLES = ("body", "wheel", "start", "run")
+TOP_TABLES = ("body", "wheel", "rotor", "start", "run")
 BODY_KEYS = ("mass", "inertia", "com", "gravity")
+ROTOR_KEYS = ("momentum",)
 START_ANGLES = ("theta", "phi", "psi")
 START_RATES = ("theta_rate", "phi_rate", "psi_rate")
 RUN_KEYS = ("method", "form", "step", "rtol", "atol")
@@ -90,7 +92,7 @@ class Case:
         if not self.body.lagrange_top:
             raise UserError(
                 f"{self.name}: the euler form needs a symmetric body (I1 = I2) with its centre of "
-                "mass on axis 3; use the body form"
+                "mass and any rotor on axis 3; use the body form"
             )
         s = self.start
         try:
@@ -256,6 +258,8 @@ class _Reader:
             body = self.body(self.table(data, "body"))
         else:
             wheel, body = self.wheel(self.table(data, "wheel"))
+        if "rotor" in data:
+            body = self.rotor(self.table(data, "rotor"), body)
         start = self.start(self.table(data, "start"))
         run = self.run(self.table(data, "run")) if "run" in data else {}
         return Case(
@@ -283,6 +287,17 @@ class _Reader:
         except BodyError as exc:
             key, _, what = str(exc).partition(": ")
             self.fail(f"body.{key}", what)
+
+    def rotor(self, t: dict, body: RigidBody) -> RigidBody:
+        """[rotor] momentum = [h1, h2, h3]: the rotors' constant momentum relative to the body,
+        body axes, kg m^2/s (a plain number each: no unit strings)."""
+        self.keys(t, ROTOR_KEYS, ROTOR_KEYS, "rotor.")
+        h = self.triple(t["momentum"], "rotor.momentum")
+        try:
+            return dataclasses.replace(body, rotor=h)
+        except BodyError as exc:
+            _, _, what = str(exc).partition(": ")
+            self.fail("rotor.momentum", what)
 
     def gravity(self, t: dict, key: str) -> float:
         if "gravity" not in t:

@@ -40,7 +40,17 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from topdrift.models.body import (
+    P_HW1,
+    P_HW2,
+    P_HW3,
+    P_INV1,
+    P_INV2,
+    P_INV3,
+    P_MGX,
+    P_MGY,
+    P_MGZ,
+)
 from topdrift.models.free_body import free_body_period
 
 
@@ -48,7 +58,8 @@ def body_rates(case) -> np.ndarray:
     """|w_i| about each body axis at the start, rad/s."""
     p = case.body.params()
     y = case.body_state()
-    return np.abs(y[4:7] * p[[P_INV1, P_INV2, P_INV3]])
+    # the shell's rates, w = I^-1 m - I^-1 h (a gyrostat's offset is zero for a rigid body)
+    return np.abs(y[4:7] * p[[P_INV1, P_INV2, P_INV3]] - p[[P_HW1, P_HW2, P_HW3]])
 
 
 def gravity_rate(case) -> float:
@@ -116,7 +127,7 @@ def timescales(case) -> Timescales:
     torque = body.mass * body.gravity * float(np.linalg.norm(np.asarray(body.com, dtype=float)))
     if nutation is not None:
         return Timescales(fastest, fastest_what, nutation, "nutation", True)
-    if torque == 0.0:
+    if torque == 0.0 and not body.has_rotor:  # the rigid free period; a gyrostat has its own
         y = np.asarray(case.body_state(), dtype=np.float64)
         period = free_body_period(body.inertia, y[4:7])
         return Timescales(fastest, fastest_what, period, "free motion", True)

@@ -9,6 +9,9 @@ import textwrap
 
 KIND_TEXT = {
     "lagrange": "Lagrange top: symmetric, centre of mass on the figure axis (exactly solvable)",
+    "lagrange-gyrostat": "Lagrange gyrostat: symmetric, centre of mass and rotor on the figure "
+    "axis (exactly solvable)",
+    "gyrostat": "gyrostat: a heavy body carrying a rotor off the figure axis of a symmetric body",
     "kovalevskaya": "Kovalevskaya top: I1 = I2 = 2 I3, centre of mass in the equatorial plane",
     "free": "free body: centre of mass at the pivot, no gravity torque",
     "symmetric": "symmetric heavy top with its centre of mass off the figure axis",
@@ -130,6 +133,11 @@ def render(info: dict) -> str:
             ("com", _vec(b["com"]), "m  (body axes)"),
             ("gravity", _g(b["gravity"]), "m/s^2"),
         ]
+        + (
+            [("rotor", _vec(b["rotor"]), "kg m^2/s  (body axes, relative to the body)")]
+            if "rotor" in b
+            else []
+        )
     )
 
     w = info["wheel"]
@@ -176,16 +184,22 @@ def render(info: dict) -> str:
         out.append(f"  euler form  none: {s['euler_unavailable']}")
 
     inv = info["invariants"]
-    conserved_psi = info["kind"] == "lagrange"
+    conserved_psi = info["kind"] in ("lagrange", "lagrange-gyrostat")
+    gyro = "rotor" in b
     rows = [
-        ("energy", _g(inv["energy"], 10), "J"),
+        ("energy", _g(inv["energy"], 10), "J" + ("  (shell kinetic + potential)" if gyro else "")),
         ("p_phi", _g(inv["p_phi"], 10), "kg m^2/s  (L . e_z)"),
-        (
-            "p_psi",
-            _g(inv["p_psi"], 10),
-            "kg m^2/s  (L . e3)" + ("" if conserved_psi else ", not conserved for this body"),
-        ),
     ]
+    if inv["p_psi"] is not None:
+        rows.append(
+            (
+                "p_psi",
+                _g(inv["p_psi"], 10),
+                "kg m^2/s  (L . e3"
+                + (" = I3 w3 + h3)" if gyro else ")")
+                + ("" if conserved_psi else ", not conserved for this body"),
+            )
+        )
     if inv.get("kovalevskaya") is not None:
         rows.append(("kovalevskaya", _g(inv["kovalevskaya"], 10), "s^-4  (Kovalevskaya integral)"))
     out += ["", "invariants"] + _table(rows)
@@ -202,6 +216,18 @@ def render(info: dict) -> str:
                 ("precession per period", _g(x["precession_per_period"]), "rad"),
                 ("mean precession rate", _g(x["mean_precession_rate"]), "rad/s"),
             ]
+            + (
+                # p_psi^2 - 4 I1 M g l with the rotor's share in p_psi: > 0, stable upright
+                [
+                    (
+                        "sleeping margin",
+                        _g(x["sleeping_margin"]),
+                        "kg^2 m^4/s^2  (p_psi^2 - 4 I1 M g l)",
+                    )
+                ]
+                if gyro and x.get("sleeping_margin") is not None
+                else []
+            )
             + (
                 [("mean spin rate", _g(x["mean_spin_rate"]), "rad/s")]
                 if "mean_spin_rate" in x

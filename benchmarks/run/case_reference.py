@@ -52,7 +52,9 @@ TAYLOR_DD = Provider(
         "check": extended.CHECK.as_dict(),
         "estimate_factor": repr(extended.ESTIMATE_FACTOR),
     },
-    refuses=lambda body: None,  # the body-form equations hold for every body in uniform gravity
+    # the body-form equations hold for every body in uniform gravity; its double-double series
+    # (integrators/extended/taylor_dd.py) has no rotor terms
+    refuses=lambda body: "its series has no rotor terms" if body.has_rotor else None,
     build=lambda body, y0, times, progress: extended.verified_reference(body, y0, times, progress),
 )
 

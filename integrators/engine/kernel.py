@@ -24,7 +24,23 @@ import math
 from numba import njit
 
 from topdrift.integrators.base import C_EVALS, C_FORCE_EVALS, C_STEPS, ST_DIVERGED, ST_OK
-from topdrift.models.body import P_I1, P_I2, P_I3, P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from topdrift.models.body import (
+    P_H1,
+    P_H2,
+    P_H3,
+    P_HW1,
+    P_HW2,
+    P_HW3,
+    P_I1,
+    P_I2,
+    P_I3,
+    P_INV1,
+    P_INV2,
+    P_INV3,
+    P_MGX,
+    P_MGY,
+    P_MGZ,
+)
 from topdrift.models.forms import FORM_BODY
 from topdrift.models.quaternion import qmul, rotate_inverse, vertical_in_body
 
@@ -62,13 +78,18 @@ def engine_steps(scheme, y, p, h, nsteps, counters):
     taken); a step that comes out non-finite is not committed (ST_DIVERGED)."""
     inv1, inv2, inv3 = p[P_INV1], p[P_INV2], p[P_INV3]
     i1, i2, i3 = p[P_I1], p[P_I2], p[P_I3]
+    # A gyrostat: w = I^-1 m - I^-1 h and m = I v + h (all offsets 0.0 for a rigid body, where
+    # x - 0.0 is x; the momentum offset is added only when non-zero, since -0.0 + 0.0 is +0.0).
+    hw1, hw2, hw3 = p[P_HW1], p[P_HW2], p[P_HW3]
+    hr1, hr2, hr3 = p[P_H1], p[P_H2], p[P_H3]
+    rotor = hr1 != 0.0 or hr2 != 0.0 or hr3 != 0.0
     done = 0
     for _ in range(nsteps):
         q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
         m1, m2, m3 = y[4], y[5], y[6]
         t1, t2, t3 = _torque(p, q0, q1, q2, q3)
         if scheme == SCHEME_EXPLICIT:
-            w1, w2, w3 = m1 * inv1, m2 * inv2, m3 * inv3
+            w1, w2, w3 = m1 * inv1 - hw1, m2 * inv2 - hw2, m3 * inv3 - hw3
             a0 = q0 + h * 0.5 * (-q1 * w1 - q2 * w2 - q3 * w3)
             a1 = q1 + h * 0.5 * (q0 * w1 + q2 * w3 - q3 * w2)
             a2 = q2 + h * 0.5 * (q0 * w2 - q1 * w3 + q3 * w1)
@@ -80,13 +101,15 @@ def engine_steps(scheme, y, p, h, nsteps, counters):
             a0, a1, a2, a3 = a0 * r, a1 * r, a2 * r, a3 * r
         elif scheme == SCHEME_SEMI_IMPLICIT:
             k1, k2, k3 = m1 + h * t1, m2 + h * t2, m3 + h * t3
-            e0, e1, e2, e3 = _exp_turn(h, k1 * inv1, k2 * inv2, k3 * inv3)
+            e0, e1, e2, e3 = _exp_turn(h, k1 * inv1 - hw1, k2 * inv2 - hw2, k3 * inv3 - hw3)
             a0, a1, a2, a3 = qmul(q0, q1, q2, q3, e0, e1, e2, e3)
             n1, n2, n3 = rotate_inverse(e0, e1, e2, e3, k1, k2, k3)
         else:
             # Newton on g(v) = I (v - w) + h v x I v - h tau at v = w: g(w) = h (w x I w - tau),
             # g'(w) = I + h (skew(w) I - skew(I w)); solve g'(w) dv = -g(w) by Cramer's rule.
-            w1, w2, w3 = m1 * inv1, m2 * inv2, m3 * inv3
+            # A gyrostat: g(v) = I (v - w) + h v x (I v + h_r) - h tau, the same with m = I w +
+            # h_r the total momentum in g(w) and in skew(m), and the new m = I v + h_r.
+            w1, w2, w3 = m1 * inv1 - hw1, m2 * inv2 - hw2, m3 * inv3 - hw3
             r1 = -h * (w2 * m3 - w3 * m2 - t1)
             r2 = -h * (w3 * m1 - w1 * m3 - t2)
             r3 = -h * (w1 * m2 - w2 * m1 - t3)
@@ -109,6 +132,8 @@ def engine_steps(scheme, y, p, h, nsteps, counters):
             d3 = (r1 * c13 + r2 * (j12 * j31 - j11 * j32) + r3 * (j11 * j22 - j12 * j21)) / det
             v1, v2, v3 = w1 + d1, w2 + d2, w3 + d3
             n1, n2, n3 = i1 * v1, i2 * v2, i3 * v3
+            if rotor:
+                n1, n2, n3 = n1 + hr1, n2 + hr2, n3 + hr3
             e0, e1, e2, e3 = _exp_turn(h, v1, v2, v3)
             a0, a1, a2, a3 = qmul(q0, q1, q2, q3, e0, e1, e2, e3)
         counters[C_EVALS] += 1

@@ -31,7 +31,17 @@ import math
 from numba import njit
 
 from topdrift.integrators.base import C_EVALS, C_FORCE_EVALS, C_STEPS, ST_DIVERGED, ST_OK
-from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from topdrift.models.body import (
+    P_HW1,
+    P_HW2,
+    P_HW3,
+    P_INV1,
+    P_INV2,
+    P_INV3,
+    P_MGX,
+    P_MGY,
+    P_MGZ,
+)
 from topdrift.models.forms import FORM_BODY
 from topdrift.models.quaternion import qmul, vertical_in_body
 
@@ -74,8 +84,11 @@ def turned(q0, q1, q2, q3, u1, u2, u3):
 
 @njit(cache=True, inline="always")
 def rates(p, q0, q1, q2, q3, m1, m2, m3):
-    """(w, m') at (q, m): the body rate and the momentum's rate."""
-    w1, w2, w3 = m1 * p[P_INV1], m2 * p[P_INV2], m3 * p[P_INV3]
+    """(w, m') at (q, m): the body rate and the momentum's rate (a gyrostat's w = I^-1 m -
+    I^-1 h; minus 0.0 for a rigid body, which leaves its bits)."""
+    w1 = m1 * p[P_INV1] - p[P_HW1]
+    w2 = m2 * p[P_INV2] - p[P_HW2]
+    w3 = m3 * p[P_INV3] - p[P_HW3]
     g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
     cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
     return (

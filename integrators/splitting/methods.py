@@ -52,6 +52,7 @@ from topdrift.integrators.splitting.kernels import (
 )
 from topdrift.integrators.validation import check_snapshot, snapshot_identity, stepper_fields
 from topdrift.models import FORM_SIZE
+from topdrift.models.body import P_ROTOR_GENERAL
 from topdrift.models.flows import FREE_AXES, FREE_COMPOSED, FREE_EXACT
 from topdrift.models.forms import FORM_EULER, FORM_NAMES
 
@@ -323,6 +324,13 @@ class SplittingMethod(Method):
         y = np.array(y0, dtype=np.float64)
         if y.shape != (n,):
             raise MethodRefused(f"{self.name}: a state of this form has {n} entries, not {y.size}")
+        if self.free != FREE_AXES and params[P_ROTOR_GENERAL] != 0.0:
+            # models/flows.py: the rigid free flow and the rotor's turn do not commute here, so
+            # no exact free flow of this gyrostat is at hand; the -axes split is exact for it.
+            raise MethodRefused(
+                f"{self.name}: a rotor off the figure axis of a symmetric body has no exact free "
+                "flow here; use a leapfrog-*-axes method or another family"
+            )
         return SplittingStepper(
             form=form,
             params=np.ascontiguousarray(params, dtype=np.float64),

@@ -30,7 +30,17 @@ from numba import njit
 
 from topdrift.integrators.base import C_EVALS, C_FORCE_EVALS, C_STEPS, ST_DIVERGED, ST_OK
 from topdrift.integrators.eft import two_sum
-from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from topdrift.models.body import (
+    P_HW1,
+    P_HW2,
+    P_HW3,
+    P_INV1,
+    P_INV2,
+    P_INV3,
+    P_MGX,
+    P_MGY,
+    P_MGZ,
+)
 
 P_MIN = 4  # below this the two-coefficient step rule has too little to go on
 P_MAX = 32  # the order at eps = 1e-27; double precision ends well before (rtol >= eps)
@@ -86,10 +96,20 @@ def series(params, c, w, order):
     cx = params[P_MGX]
     cy = params[P_MGY]
     cz = params[P_MGZ]
+    # A gyrostat: w = I^-1 m - I^-1 h, a constant off the first coefficient, and m x w gains
+    # the linear terms -m x (I^-1 h); a rigid body skips both (its bits stay).
+    hw0 = params[P_HW1]
+    hw1 = params[P_HW2]
+    hw2 = params[P_HW3]
+    rotor = hw0 != 0.0 or hw1 != 0.0 or hw2 != 0.0
     for k in range(order):
         w[k] = c[4 * STRIDE + k] * inv0
         w[STRIDE + k] = c[5 * STRIDE + k] * inv1
         w[2 * STRIDE + k] = c[6 * STRIDE + k] * inv2
+        if rotor and k == 0:
+            w[0] -= hw0
+            w[STRIDE] -= hw1
+            w[2 * STRIDE] -= hw2
         g0 = 2.0 * (_conv(c, 1, 3, k) - _conv(c, 0, 2, k))
         g1 = 2.0 * (_conv(c, 2, 3, k) + _conv(c, 0, 1, k))
         g2 = _conv(c, 0, 0, k) - _conv(c, 1, 1, k) - _conv(c, 2, 2, k) + _conv(c, 3, 3, k)
@@ -111,6 +131,11 @@ def series(params, c, w, order):
         b0 = e0 * _conv(c, 5, 6, k) + (g1 * cz - g2 * cy)
         b1 = e1 * _conv(c, 6, 4, k) + (g2 * cx - g0 * cz)
         b2 = e2 * _conv(c, 4, 5, k) + (g0 * cy - g1 * cx)
+        if rotor:
+            m0k, m1k, m2k = c[4 * STRIDE + k], c[5 * STRIDE + k], c[6 * STRIDE + k]
+            b0 += m2k * hw1 - m1k * hw2
+            b1 += m0k * hw2 - m2k * hw0
+            b2 += m1k * hw0 - m0k * hw1
         c[4 * STRIDE + k + 1] = b0 * r
         c[5 * STRIDE + k + 1] = b1 * r
         c[6 * STRIDE + k + 1] = b2 * r
