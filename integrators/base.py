@@ -280,6 +280,10 @@ class Method(ABC):
     group ENTRY_POINT_GROUP. A method holds no run state: one instance starts any number of
     steppers. Its settings are declared in `settings_spec` and checked by `settings`."""
 
+    # Whether the method's kernels carry a gyrostat's rotor momentum h (omega = I^-1 (m - h)).
+    # A plug-in that does not say so is trusted to use models.dynamics, which carries it.
+    carries_rotors: bool = True
+
     info: MethodInfo
 
     @property
@@ -319,6 +323,11 @@ class Method(ABC):
             raise MethodRefused(
                 f"{self.name}: the Euler-angle form needs a symmetric body (I1 = I2) with its "
                 f"centre of mass and any rotor on axis 3; use the body form"
+            )
+        if body.has_rotor and not self.carries_rotors:
+            raise MethodRefused(
+                f"{self.name}: its kernel has no rotor term (omega = I^-1 m, not I^-1 (m - h)); "
+                f"this case carries a rotor"
             )
         self.settings(settings)
 

@@ -32,6 +32,9 @@ SOURCE = (
 class ConstrainedMethod(SchemeMethod):
     """A scheme of kernel.py at a fixed step (integrators/scheme_stepper.py), symplectic."""
 
+    # its kernel writes omega = I^-1 m: a gyrostat's rotor is refused, not ignored
+    carries_rotors = False
+
     family = FAMILY
     kernel = staticmethod(rattle_steps)
     symplectic = True

@@ -81,6 +81,9 @@ class GenAlphaStepper(SchemeStepper):
 class GenAlphaMethod(SchemeMethod):
     """Lie-group generalized-alpha with a default rho_inf."""
 
+    # its kernel writes omega = I^-1 m: a gyrostat's rotor is refused, not ignored
+    carries_rotors = False
+
     family = FAMILY
 
     def __init__(self, name, rho_default, description):
