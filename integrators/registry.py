@@ -22,6 +22,7 @@ _BUILTIN_MODULES = (
     "topdrift.integrators.gauss.methods",
     "topdrift.integrators.engine.methods",
     "topdrift.integrators.taylor.methods",
+    "topdrift.integrators.extrapolation.methods",
     "topdrift.integrators.liegroup.methods",
     "topdrift.integrators.reference.scipy_methods",
 )

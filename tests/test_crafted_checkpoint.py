@@ -53,6 +53,7 @@ FAMILIES = {
         ("engine-implicit-gyro", {"step": 0.01}),
     ),
     "taylor": (("taylor-adaptive", {"rtol": 1e-8}), ("taylor-adaptive", {"rtol": 1e-7})),
+    "extrapolation": (("gbs", {"rtol": 1e-8}), ("gbs", {"rtol": 1e-7})),
     "lie-group-rk": (("lie-rkmk4", {"step": 0.01}), ("lie-cf4", {"step": 0.01})),
     "scipy-rk45": (("scipy-rk45", {"rtol": 1e-6}), ("scipy-rk45", {"rtol": 1e-7})),
     "scipy-dop853": (("scipy-dop853", {"rtol": 1e-6}), ("scipy-rk45", {"rtol": 1e-6})),
