@@ -63,6 +63,7 @@ FAMILIES = (
     "lie-group-rk",
     "constrained",
     "generalized-alpha",
+    "extrapolation",
     "reference",
     "external",
 )
@@ -258,7 +259,9 @@ class Stepper(ABC):
         self.status is not ST_OK, self.t == self.t_fail and self.y is the last good state.
         Returns self.status; once failed, stays failed and does nothing. Refuses
         (MethodRefused) a time it cannot reach: off the step grid, or in a direction the method
-        does not go. The step sequence never depends on the times asked for."""
+        does not go. The step sequence never depends on the times asked for, except in a
+        method whose description says that its steps end on the output times (gbs: no dense
+        output)."""
 
     @abstractmethod
     def snapshot(self) -> dict:

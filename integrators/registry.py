@@ -23,6 +23,7 @@ _BUILTIN_MODULES = (
     "topdrift.integrators.gauss.methods",
     "topdrift.integrators.engine.methods",
     "topdrift.integrators.taylor.methods",
+    "topdrift.integrators.extrapolation.methods",
     "topdrift.integrators.liegroup.methods",
     "topdrift.integrators.constrained.methods",
     "topdrift.integrators.galpha.methods",

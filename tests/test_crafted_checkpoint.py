@@ -53,6 +53,7 @@ FAMILIES = {
         ("engine-implicit-gyro", {"step": 0.01}),
     ),
     "taylor": (("taylor-adaptive", {"rtol": 1e-8}), ("taylor-adaptive", {"rtol": 1e-7})),
+    "extrapolation": (("gbs", {"rtol": 1e-8}), ("gbs", {"rtol": 1e-7})),
     "lie-group-rk": (("lie-rkmk4", {"step": 0.01}), ("lie-cf4", {"step": 0.01})),
     "constrained": (("rattle", {"step": 0.01}), ("rattle", {"step": 0.005})),
     "generalized-alpha": (("lie-galpha", {"step": 0.01}), ("lie-galpha-undamped", {"step": 0.01})),

@@ -57,6 +57,14 @@ CHECKED = [
         ["test_compositions.py::test_local_error_order_on_random_matrices"],
     ),
     (
+        "a step that would pass an output time is shortened to end on it",
+        [
+            "test_gbs.py::test_error_is_proportional_to_the_tolerance_lagrange_top",
+            "test_gbs.py::test_error_is_proportional_to_the_tolerance_asymmetric_body",
+            "test_gbs.py::test_samples_land_on_the_output_times_and_cost_about_one_step_each",
+        ],
+    ),
+    (
         "scipy's step-size control and initial step",
         [
             "test_rk_adaptive.py::test_steps_and_end_state_match_scipy",

@@ -44,6 +44,7 @@ BUILTIN_FAMILIES = (
     "gauss-legendre",
     "first-order-engine",
     "taylor",
+    "extrapolation",
     "lie-group-rk",
     "constrained",
     "generalized-alpha",

@@ -33,6 +33,7 @@ DEFAULT_CANDIDATES = (
     "rk4",
     "rk45",
     "dop853",
+    "gbs",
     "leapfrog",
     "leapfrog-s4",
     "leapfrog-s4-axes",
