@@ -202,3 +202,17 @@ def test_a_backward_run_returns_to_the_start_to_the_effective_order(name):
         assert back.advance_to(0.0) == ST_OK
         miss.append(float(np.max(np.abs(back.y - y0))))
     assert miss[0] / miss[1] > 0.9 * 2**m.info.order, miss
+
+
+@pytest.mark.parametrize("name", ["leapfrog-proc4", "leapfrog-proc6"])
+def test_an_off_axis_rotor_is_refused_as_by_the_other_exact_flow_splittings(name):
+    # The kernel's free flow is the exact one, which has no form for a rotor off the figure axis
+    # (models/flows.py): refused with the reason, as leapfrog itself refuses it, not run wrong.
+    from topdrift.integrators import MethodRefused, get
+    from topdrift.models import FORM_BODY, RigidBody, body_state
+
+    body = RigidBody(mass=1.0, inertia=(1.0, 1.0, 0.6), com=(0.0, 0.0, 0.1), rotor=(0.1, 0.0, 0.8))
+    y0 = body_state(body, 0.0, 0.3, 0.0, 0.5, 0.0, 10.0)
+    for method in (get("leapfrog"), get(name)):
+        with pytest.raises(MethodRefused, match="rotor off the figure axis"):
+            method.start(FORM_BODY, body.params(), 0.0, y0, {"step": 1e-3})

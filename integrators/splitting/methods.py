@@ -317,20 +317,8 @@ class SplittingMethod(Method):
     ) -> Stepper:
         checked = self.settings(settings)
         h = checked["step"]
-        form = int(form)
-        if form not in range(len(FORM_NAMES)) or FORM_NAMES[form] not in self.info.forms:
-            raise MethodRefused(f"{self.name}: cannot run in state form code {form!r}")
-        n = FORM_SIZE[form]
-        y = np.array(y0, dtype=np.float64)
-        if y.shape != (n,):
-            raise MethodRefused(f"{self.name}: a state of this form has {n} entries, not {y.size}")
-        if self.free != FREE_AXES and params[P_ROTOR_GENERAL] != 0.0:
-            # models/flows.py: the rigid free flow and the rotor's turn do not commute here, so
-            # no exact free flow of this gyrostat is at hand; the -axes split is exact for it.
-            raise MethodRefused(
-                f"{self.name}: a rotor off the figure axis of a symmetric body has no exact free "
-                "flow here; use a leapfrog-*-axes method or another family"
-            )
+        form, y = checked_start(self, self.free, form, params, y0)
+        n = y.shape[0]
         return SplittingStepper(
             form=form,
             params=np.ascontiguousarray(params, dtype=np.float64),
@@ -357,3 +345,26 @@ METHODS = (
     + [SplittingMethod(t, False, composed=True) for t in TABLES if t.kind == "composition"]
     + [SplittingMethod(t, False, axes=True) for t in TABLES if t.key in AXES_TABLES]
 )
+
+
+def checked_start(
+    method: Method, free: int, form, params: np.ndarray, y0
+) -> tuple[int, np.ndarray]:
+    """(form code, a float64 copy of y0) for a splitting's start, or MethodRefused with the
+    reason: a form the method lacks, a state of the wrong size, or a rotor off the figure axis
+    under an exact free flow."""
+    form = int(form)
+    if form not in range(len(FORM_NAMES)) or FORM_NAMES[form] not in method.info.forms:
+        raise MethodRefused(f"{method.name}: cannot run in state form code {form!r}")
+    n = FORM_SIZE[form]
+    y = np.array(y0, dtype=np.float64)
+    if y.shape != (n,):
+        raise MethodRefused(f"{method.name}: a state of this form has {n} entries, not {y.size}")
+    if free != FREE_AXES and params[P_ROTOR_GENERAL] != 0.0:
+        # models/flows.py: the rigid free flow and the rotor's turn do not commute here, so
+        # no exact free flow of this gyrostat is at hand; the -axes split is exact for it.
+        raise MethodRefused(
+            f"{method.name}: a rotor off the figure axis of a symmetric body has no exact free "
+            "flow here; use a leapfrog-*-axes method or another family"
+        )
+    return form, y

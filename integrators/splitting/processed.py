@@ -23,13 +23,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from topdrift.integrators.base import Method, MethodInfo, MethodRefused, Stepper
-from topdrift.integrators.splitting.methods import KEEPS_BY_FORM, SplittingStepper
+from topdrift.integrators.base import Method, MethodInfo, Stepper
+from topdrift.integrators.splitting.methods import KEEPS_BY_FORM, SplittingStepper, checked_start
 from topdrift.integrators.splitting.processed_tables import TABLES, ProcessedTable
 from topdrift.integrators.splitting.processor_kernel import apply_sequence
-from topdrift.models import FORM_SIZE
 from topdrift.models.flows import FREE_EXACT
-from topdrift.models.forms import FORM_NAMES
 
 
 @dataclass
@@ -119,13 +117,10 @@ class ProcessedMethod(Method):
     ) -> Stepper:
         checked = self.settings(settings)
         h = checked["step"]
-        form = int(form)
-        if form not in range(len(FORM_NAMES)) or FORM_NAMES[form] not in self.info.forms:
-            raise MethodRefused(f"{self.name}: cannot run in state form code {form!r}")
-        n = FORM_SIZE[form]
-        y = np.array(y0, dtype=np.float64)
-        if y.shape != (n,):
-            raise MethodRefused(f"{self.name}: a state of this form has {n} entries, not {y.size}")
+        # the splittings' own start checks, the off-axis rotor's refusal included (the kernel's
+        # free flow is the exact one)
+        form, y = checked_start(self, self.free, form, params, y0)
+        n = y.shape[0]
         params = np.ascontiguousarray(params, dtype=np.float64)
         pk, pd = self.table.post()
         stepper = ProcessedStepper(
