@@ -3,6 +3,9 @@ built-in and plug-in methods (registry.py), a base for fixed-step plug-ins (fixe
 one sub-package per family, each a coefficient table plus a small numba kernel family. Imports
 the models' kernels; knows nothing of cases or files."""
 
+# The models first: they point numba's kernel cache at this code's folder (kernel_cache.py).
+import topdrift.models  # noqa: F401, I001
+
 from .base import (
     C_EVALS,
     C_FORCE_EVALS,
