@@ -22,12 +22,11 @@ import numpy as np
 
 from topdrift.integrators.base import (
     N_COUNTERS,
-    ST_OK,
     Method,
     MethodInfo,
     MethodRefused,
-    Stepper,
 )
+from topdrift.integrators.controlled_stepper import ControlledStepper
 from topdrift.integrators.extrapolation.kernel import (
     CT_H,
     CT_K,
@@ -49,9 +48,6 @@ from topdrift.integrators.validation import (
     EPS,
     FINITE_WHILE_OK,
     Setting,
-    SnapshotRefused,
-    check_snapshot,
-    snapshot_identity,
     stepper_fields,
 )
 from topdrift.models import FORM_SIZE
@@ -113,7 +109,7 @@ class GraggBulirschStoer(Method):
         return GBSStepper.begin(self, int(form), params, float(t0), y0, s)
 
 
-class GBSStepper(Stepper):
+class GBSStepper(ControlledStepper):
     """A run of gbs: y is the state at ctrl[CT_T], f = rhs(y)."""
 
     method: GraggBulirschStoer
@@ -154,16 +150,11 @@ class GBSStepper(Stepper):
         st.ctrl[CT_REJECTED] = 0.0
         return st
 
-    def advance_to(self, t_end: float) -> int:
-        if self.status != ST_OK:
-            return self.status
-        t_end = float(t_end)
-        if not t_end >= self.t:
-            raise MethodRefused(
-                f"{self.method.name}: asked for t = {t_end!r}, before the current time {self.t!r}"
-            )
-        y_out = np.empty_like(self.yi)
-        status = self.kernel(
+    CT_T = CT_T
+    ARRAYS = ("y", "yi", "f", "ctrl", "counters", "turns")
+
+    def call_kernel(self, t_end: float, y_out: np.ndarray) -> int:
+        return self.kernel(
             (
                 self.params,
                 self.tol,
@@ -181,15 +172,6 @@ class GBSStepper(Stepper):
                 self.turns,
             )
         )
-        if status != ST_OK:
-            self.status = int(status)
-            self.t_fail = float(self.ctrl[CT_T])
-            self.t = self.t_fail
-            self.y = self.yi.copy()
-            return self.status
-        self.t = t_end
-        self.y = y_out
-        return ST_OK
 
     @property
     def t_internal(self) -> float:
@@ -200,9 +182,7 @@ class GBSStepper(Stepper):
     def step_proposed(self) -> float:
         return float(self.ctrl[CT_H])
 
-    _ARRAYS = ("y", "yi", "f", "ctrl", "counters", "turns")
-
-    def _fields(self) -> dict:
+    def snapshot_fields(self) -> dict:
         n = self.yi.shape[0]
         state = (np.float64, (n,))
         return {
@@ -215,41 +195,18 @@ class GBSStepper(Stepper):
             "turns": (np.int64, self.turns.shape),
         }
 
-    def snapshot(self) -> dict:
-        """Plain numbers, strings and arrays, with the identity (method, form, tolerances)."""
-        snap = snapshot_identity(self.method.name, self.form, self.settings)
-        snap.update({k: getattr(self, k).copy() for k in self._ARRAYS})
-        snap.update(t=self.t, status=self.status, t_fail=self.t_fail)
-        return snap
-
-    def restore(self, snap: dict) -> None:
-        check_snapshot(
-            snap,
-            method=self.method.name,
-            form=self.form,
-            settings=self.settings,
-            fields=self._fields(),
-        )
-        ctrl, t = snap["ctrl"], snap["t"]
+    def controller_sound(self, snap: dict) -> bool:
         # What advance_to relies on: the internal state at the output time (steps end on it),
         # a step to try, a line the table holds, and a rejection flag.
+        ctrl, t = snap["ctrl"], snap["t"]
         k = ctrl[CT_K]
-        if not (
+        return bool(
             ctrl[CT_T] == t
             and ctrl[CT_H] > 0.0
             and k == int(k)
             and K_MIN <= k <= K_MAX - 1
             and ctrl[CT_REJECTED] in (0.0, 1.0)
-        ):
-            raise SnapshotRefused(f"{self.method.name}: snapshot field 'ctrl' is not a controller")
-        for k in self._ARRAYS:
-            if k == "y":
-                self.y = np.array(snap[k], dtype=np.float64)  # outputs already handed out stay
-            else:
-                getattr(self, k)[...] = snap[k]
-        self.t = float(snap["t"])
-        self.status = int(snap["status"])
-        self.t_fail = float(snap["t_fail"])
+        )
 
 
 GBS = GraggBulirschStoer()

@@ -39,12 +39,11 @@ import numpy as np
 
 from topdrift.integrators.base import (
     N_COUNTERS,
-    ST_OK,
     Method,
     MethodInfo,
     MethodRefused,
-    Stepper,
 )
+from topdrift.integrators.controlled_stepper import ControlledStepper
 from topdrift.integrators.rk.embedded_kernel import (
     CT_DENSE_OK,
     CT_H,
@@ -67,9 +66,6 @@ from topdrift.integrators.validation import (
     EPS,
     FINITE_WHILE_OK,
     Setting,
-    SnapshotRefused,
-    check_snapshot,
-    snapshot_identity,
     stepper_fields,
 )
 from topdrift.models import FORM_SIZE
@@ -104,7 +100,7 @@ class EmbeddedRK(Method):
     def __init__(self, tab: Tableau, description: str) -> None:
         self.tableau = tab
         self.packed = pack(tab)
-        self._kernel_args = self.packed.args()
+        self.kernel_args = self.packed.args()
         self.info = MethodInfo(
             name=tab.name,
             family="adaptive-rk",
@@ -143,7 +139,7 @@ class EmbeddedRK(Method):
         return EmbeddedStepper.begin(self, int(form), params, float(t0), y0, s)
 
 
-class EmbeddedStepper(Stepper):
+class EmbeddedStepper(ControlledStepper):
     """A run of an embedded pair; the controller's state is in the arrays below."""
 
     method: EmbeddedRK
@@ -206,24 +202,22 @@ class EmbeddedStepper(Stepper):
         st.ctrl[CT_DENSE_OK] = 0.0
         return st
 
-    def advance_to(self, t_end: float) -> int:
-        if self.status != ST_OK:
-            return self.status
-        t_end = float(t_end)
-        if not t_end >= self.t:
-            raise MethodRefused(
-                f"{self.method.name}: asked for t = {t_end!r}, before the current time {self.t!r}"
-            )
+    CT_T = CT_T
+    ARRAYS = ("y", "yi", "f", "K", "yold", "dense", "ctrl", "counters", "turns")
+
+    def check_target(self, t_end: float) -> None:
+        super().check_target(t_end)
         if self.horizon is not None and t_end > self.horizon:
             raise MethodRefused(
                 f"{self.method.name}: asked for t = {t_end!r}, past the horizon {self.horizon!r} "
                 f"the run was started with"
             )
-        y_out = np.empty_like(self.yi)
-        status = self.kernel(
+
+    def call_kernel(self, t_end: float, y_out: np.ndarray) -> int:
+        return self.kernel(
             (
                 self.params,
-                *self.method._kernel_args,
+                *self.method.kernel_args,
                 self.tol,
                 self.yi,
                 self.f,
@@ -240,15 +234,6 @@ class EmbeddedStepper(Stepper):
                 self.turns,
             )
         )
-        if status != ST_OK:
-            self.status = int(status)
-            self.t_fail = float(self.ctrl[CT_T])
-            self.t = self.t_fail
-            self.y = self.yi.copy()
-            return self.status
-        self.t = t_end
-        self.y = y_out
-        return ST_OK
 
     @property
     def t_internal(self) -> float:
@@ -259,9 +244,7 @@ class EmbeddedStepper(Stepper):
     def step_proposed(self) -> float:
         return float(self.ctrl[CT_H])
 
-    _ARRAYS = ("y", "yi", "f", "K", "yold", "dense", "ctrl", "counters", "turns")
-
-    def _fields(self) -> dict:
+    def snapshot_fields(self) -> dict:
         n = self.yi.shape[0]
         state = (np.float64, (n,))
         return {
@@ -277,41 +260,17 @@ class EmbeddedStepper(Stepper):
             "turns": (np.int64, self.turns.shape),
         }
 
-    def snapshot(self) -> dict:
-        """Plain numbers, strings and arrays; the identity (method, form, settings with the
-        tolerances and horizon) refuses a snapshot of other settings or of the other method."""
-        snap = snapshot_identity(self.method.name, self.form, self.settings)
-        snap.update({k: getattr(self, k).copy() for k in self._ARRAYS})
-        snap.update(t=self.t, status=self.status, t_fail=self.t_fail)
-        return snap
-
-    def restore(self, snap: dict) -> None:
-        check_snapshot(
-            snap,
-            method=self.method.name,
-            form=self.form,
-            settings=self.settings,
-            fields=self._fields(),
-        )
-        ctrl, t = snap["ctrl"], snap["t"]
+    def controller_sound(self, snap: dict) -> bool:
         # What advance_to relies on (the kernel divides by the last step for dense output): the
         # internal time at or past the output time, the last step ending there, a step to try.
-        if not (
+        ctrl, t = snap["ctrl"], snap["t"]
+        return bool(
             ctrl[CT_T_OLD] <= t <= ctrl[CT_T]
             and ctrl[CT_H] > 0.0
             and ctrl[CT_H_PREV] >= 0.0
             and (ctrl[CT_H_PREV] > 0.0 or ctrl[CT_T] == t)
             and ctrl[CT_DENSE_OK] in (0.0, 1.0)
-        ):
-            raise SnapshotRefused(f"{self.method.name}: snapshot field 'ctrl' is not a controller")
-        for k in self._ARRAYS:
-            if k == "y":
-                self.y = np.array(snap[k], dtype=np.float64)  # outputs already handed out stay
-            else:
-                getattr(self, k)[...] = snap[k]
-        self.t = float(snap["t"])
-        self.status = int(snap["status"])
-        self.t_fail = float(snap["t_fail"])
+        )
 
 
 RK45 = EmbeddedRK(

@@ -27,8 +27,8 @@ from topdrift.integrators.base import (
     Method,
     MethodInfo,
     MethodRefused,
-    Stepper,
 )
+from topdrift.integrators.controlled_stepper import ControlledStepper
 from topdrift.integrators.taylor.kernel import (
     CT_H,
     CT_ORDER,
@@ -49,9 +49,6 @@ from topdrift.integrators.taylor.kernel import (
 from topdrift.integrators.validation import (
     EPS,
     Setting,
-    SnapshotRefused,
-    check_snapshot,
-    snapshot_identity,
     stepper_fields,
 )
 from topdrift.models.forms import FORM_BODY, N_BODY
@@ -103,7 +100,7 @@ class TaylorAdaptive(Method):
         return TaylorStepper.begin(self, params, float(t0), y0, s)
 
 
-class TaylorStepper(Stepper):
+class TaylorStepper(ControlledStepper):
     """A run of taylor-adaptive: yi is the state at ctrl[CT_T], coef its series."""
 
     method: TaylorAdaptive
@@ -130,37 +127,21 @@ class TaylorStepper(Stepper):
             raise MethodRefused(f"{method.name}: no finite step from the start state")
         return st
 
-    def advance_to(self, t_end: float) -> int:
-        if self.status != ST_OK:
-            return self.status
-        t_end = float(t_end)
-        if not t_end >= self.t:
-            raise MethodRefused(
-                f"{self.method.name}: asked for t = {t_end!r}, before the current time {self.t!r}"
-            )
-        y_out = np.empty(N_BODY)
-        status = advance(
+    CT_T = CT_T
+    ARRAYS = ("y", "yi", "coef", "ctrl", "counters", "turns")
+
+    def call_kernel(self, t_end: float, y_out: np.ndarray) -> int:
+        return advance(
             self.params, self.tol, self.yi, self.coef, self.work, self.ctrl, self.counters,
             t_end, y_out,
         )  # fmt: skip
-        if status != ST_OK:
-            self.status = int(status)
-            self.t_fail = float(self.ctrl[CT_T])
-            self.t = self.t_fail
-            self.y = self.yi.copy()
-            return self.status
-        self.t = t_end
-        self.y = y_out
-        return ST_OK
 
     @property
     def t_internal(self) -> float:
         """The centre of the current series (at or before self.t), rounded to a double."""
         return float(self.ctrl[CT_T] + self.ctrl[CT_T_LO])
 
-    _ARRAYS = ("y", "yi", "coef", "ctrl", "counters", "turns")
-
-    def _fields(self) -> dict:
+    def snapshot_fields(self) -> dict:
         state = (np.float64, (N_BODY,))
         return {
             **stepper_fields(N_COUNTERS),
@@ -171,42 +152,19 @@ class TaylorStepper(Stepper):
             "turns": (np.int64, self.turns.shape),
         }
 
-    def snapshot(self) -> dict:
-        """Plain numbers, strings and arrays, with the identity (method, form, tolerances)."""
-        snap = snapshot_identity(self.method.name, self.form, self.settings)
-        snap.update({k: getattr(self, k).copy() for k in self._ARRAYS})
-        snap.update(t=self.t, status=self.status, t_fail=self.t_fail)
-        return snap
-
-    def restore(self, snap: dict) -> None:
-        check_snapshot(
-            snap,
-            method=self.method.name,
-            form=self.form,
-            settings=self.settings,
-            fields=self._fields(),
-        )
-        ctrl, t, coef, yi = snap["ctrl"], snap["t"], snap["coef"], snap["yi"]
+    def controller_sound(self, snap: dict) -> bool:
         # What advance_to relies on: an output time inside the current step, an order the
         # coefficient array holds, and a series centred on the internal state.
+        ctrl, t, coef, yi = snap["ctrl"], snap["t"], snap["coef"], snap["yi"]
         p = ctrl[CT_ORDER]
-        if not (
+        return bool(
             ctrl[CT_H] > 0.0
             and -4.0 * EPS * max(1.0, abs(t)) <= (t - ctrl[CT_T]) - ctrl[CT_T_LO] <= ctrl[CT_H]
             and abs(ctrl[CT_T_LO]) <= EPS * max(1.0, abs(ctrl[CT_T]))
             and p == int(p)
             and P_MIN <= p <= P_MAX
             and all(coef[i * STRIDE] == yi[i] for i in range(N_BODY))
-        ):
-            raise SnapshotRefused(f"{self.method.name}: snapshot field 'ctrl' is not a controller")
-        for k in self._ARRAYS:
-            if k == "y":
-                self.y = np.array(snap[k], dtype=np.float64)  # outputs already handed out stay
-            else:
-                getattr(self, k)[...] = snap[k]
-        self.t = float(snap["t"])
-        self.status = int(snap["status"])
-        self.t_fail = float(snap["t_fail"])
+        )
 
 
 TAYLOR_ADAPTIVE = TaylorAdaptive()
