@@ -26,6 +26,10 @@ it incomparable in its timings (the gate says so and compares the rest).
 
 from __future__ import annotations
 
+# The models first: they point numba's kernel cache at this code's folder (kernel_cache.py).
+import topdrift.models  # noqa: F401
+
+# isort: split
 import math
 import time
 

@@ -8,6 +8,10 @@ benchmarks/timing/test_time_runner.py).
 
 from __future__ import annotations
 
+# The models first: they point numba's kernel cache at this code's folder (kernel_cache.py).
+import topdrift.models  # noqa: F401
+
+# isort: split
 import math
 
 import numpy as np
