@@ -5,11 +5,10 @@ and the stepper contract (grid, direction, form, resume to the same bits)."""
 import numpy as np
 import pytest
 from demo_bodies import GENERAL, LAGRANGE, state
-from independent_references import attitude_error, exact_attitude, taylor_states
+from measured_order import measured_order
 
 from topdrift.integrators import C_EVALS, C_FORCE_EVALS, C_STEPS, ST_OK, MethodRefused, get
 from topdrift.models import FORM_BODY, FORM_EULER, RigidBody
-from topdrift.models.exact import LagrangeTop
 from topdrift.models.invariants import invariants_of
 
 ENGINES = ["engine-euler", "engine-semi-implicit", "engine-implicit-gyro"]
@@ -31,28 +30,7 @@ def test_measured_order_is_one(name, body):
     # here (tests/independent_references.py): the exact solution of the Lagrange top (compared in
     # the quaternion), a 34-digit mpmath Taylor series for the asymmetric heavy body.
     y0 = state(FORM_BODY, body, ORDER_START)
-    if body.lagrange_top:
-        angles = exact_attitude(LagrangeTop.from_state(body, FORM_BODY, y0), ORDER_TIMES)
-
-        def error(y, k):
-            return attitude_error(FORM_BODY, y, angles[k])
-    else:
-        ref = taylor_states(body, y0, ORDER_TIMES)
-
-        def error(y, k):
-            return float(np.max(np.abs(y - ref[k])))
-
-    t_end = ORDER_TIMES[-1]
-    errors = []
-    for n in ORDER_STEPS:
-        st = get(name).start(FORM_BODY, body.params(), 0.0, y0, {"step": t_end / n})
-        worst = 0.0
-        for k, t in enumerate(ORDER_TIMES):
-            assert st.advance_to(t) == ST_OK
-            worst = max(worst, error(st.y, k))
-        assert st.counters[C_STEPS] == n
-        errors.append(worst)
-    slope = np.polyfit(np.log(t_end / ORDER_STEPS), np.log(errors), 1)[0]
+    slope, errors = measured_order(name, FORM_BODY, body, y0, ORDER_TIMES, ORDER_STEPS)
     assert abs(slope - 1.0) < 0.2, (slope, errors)
 
 

@@ -8,7 +8,7 @@ import mpmath
 import numpy as np
 import pytest
 from demo_bodies import CASE_IDS, CASES, GENERAL, LAGRANGE, state
-from independent_references import attitude_error, exact_attitude, taylor_states
+from measured_order import measured_order
 from run_files import through_hdf5
 from scipy_reference import dop853
 
@@ -28,7 +28,6 @@ from topdrift.integrators.gauss.tableau import GAUSS1, GAUSS2, GAUSS3, Tableau
 from topdrift.models import FORM_BODY, FORM_EULER, body_state
 from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
 from topdrift.models.dynamics import rhs
-from topdrift.models.exact import LagrangeTop
 from topdrift.models.invariants import invariants_of
 
 
@@ -136,28 +135,7 @@ def test_measured_order(name, order, form, body):
     # family (tests/independent_references.py): the exact solution of the Lagrange top in the
     # Euler form (compared in the angles), a 34-digit Taylor series for the general body.
     y0 = state(form, body, ORDER_START)
-    if body.lagrange_top:
-        angles = exact_attitude(LagrangeTop.from_state(body, form, y0), ORDER_TIMES)
-
-        def error(y, k):
-            return attitude_error(form, y, angles[k])
-    else:
-        ref = taylor_states(body, y0, ORDER_TIMES)
-
-        def error(y, k):
-            return float(np.max(np.abs(y - ref[k])))
-
-    t_end = ORDER_TIMES[-1]
-    errors = []
-    for n in ORDER_STEPS:
-        st = get(name).start(form, body.params(), 0.0, y0, {"step": t_end / n})
-        worst = 0.0
-        for k, t in enumerate(ORDER_TIMES):
-            assert st.advance_to(t) == ST_OK
-            worst = max(worst, error(st.y, k))
-        assert st.counters[C_STEPS] == n
-        errors.append(worst)
-    slope = np.polyfit(np.log(t_end / ORDER_STEPS), np.log(errors), 1)[0]
+    slope, errors = measured_order(name, form, body, y0, ORDER_TIMES, ORDER_STEPS)
     assert abs(slope - order) < 0.2, (slope, errors)
 
 

@@ -19,13 +19,12 @@ import mpmath as mp
 import numpy as np
 import pytest
 from independent_references import (
-    attitude_error,
-    exact_attitude,
     odefun_solution,
     taylor_states,
 )
+from measured_order import measured_order
 
-from topdrift.integrators import C_STEPS, ST_OK, MethodRefused, get
+from topdrift.integrators import ST_OK, MethodRefused, get
 from topdrift.models import FORM_BODY, FORM_EULER, RigidBody, body_state, euler_state
 from topdrift.models import invariants_of as invariants
 from topdrift.models.exact import ExactUnavailable, LagrangeTop
@@ -164,29 +163,7 @@ ORDERS = [
 
 def _measured_order(name, form, body, steps):
     y0 = euler_state(body, *START) if form == FORM_EULER else body_state(body, *START)
-    if body.lagrange_top:
-        angles = exact_attitude(LagrangeTop.from_state(body, form, y0), ORDER_TIMES)
-
-        def error(y, k):
-            return attitude_error(form, y, angles[k])
-    else:
-        ref = taylor_states(body, y0, ORDER_TIMES)
-
-        def error(y, k):
-            return float(np.max(np.abs(y - ref[k])))
-
-    t_end = ORDER_TIMES[-1]
-    errors = []
-    for n in steps:
-        st = get(name).start(form, body.params(), 0.0, y0, {"step": t_end / n})
-        worst = 0.0
-        for k, t in enumerate(ORDER_TIMES):
-            assert st.advance_to(t) == ST_OK
-            worst = max(worst, error(st.y, k))
-        assert st.counters[C_STEPS] == n
-        errors.append(worst)
-    slope = np.polyfit(np.log(t_end / np.array(steps)), np.log(errors), 1)[0]
-    return slope, errors
+    return measured_order(name, form, body, y0, ORDER_TIMES, steps)
 
 
 @pytest.mark.parametrize(("name", "order", "steps"), ORDERS, ids=[o[0] for o in ORDERS])

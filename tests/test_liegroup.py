@@ -8,12 +8,11 @@ from fractions import Fraction as F
 import numpy as np
 import pytest
 from demo_bodies import GENERAL, LAGRANGE, state
-from independent_references import attitude_error, exact_attitude, taylor_states
+from measured_order import measured_order
 
-from topdrift.integrators import C_EVALS, C_STEPS, ST_OK, MethodRefused, get
+from topdrift.integrators import C_STEPS, ST_OK, MethodRefused, get
 from topdrift.integrators.liegroup import kernel
 from topdrift.models import FORM_BODY, FORM_EULER
-from topdrift.models.exact import LagrangeTop
 
 ORDERS = {"lie-rkmk4": 4, "lie-cg3": 3, "lie-cf4": 4}
 STAGES = {"lie-rkmk4": 4, "lie-cg3": 3, "lie-cf4": 4}
@@ -33,29 +32,9 @@ def test_measured_order(name, body):
     # the quaternion), a 34-digit mpmath Taylor series for the asymmetric heavy body. The slope
     # of log error against log h must be the nominal order within 0.2.
     y0 = state(FORM_BODY, body, ORDER_START)
-    if body.lagrange_top:
-        angles = exact_attitude(LagrangeTop.from_state(body, FORM_BODY, y0), ORDER_TIMES)
-
-        def error(y, k):
-            return attitude_error(FORM_BODY, y, angles[k])
-    else:
-        ref = taylor_states(body, y0, ORDER_TIMES)
-
-        def error(y, k):
-            return float(np.max(np.abs(y - ref[k])))
-
-    t_end = ORDER_TIMES[-1]
-    errors = []
-    for n in ORDER_STEPS:
-        st = get(name).start(FORM_BODY, body.params(), 0.0, y0, {"step": t_end / n})
-        worst = 0.0
-        for k, t in enumerate(ORDER_TIMES):
-            assert st.advance_to(t) == ST_OK
-            worst = max(worst, error(st.y, k))
-        assert st.counters[C_STEPS] == n
-        assert st.counters[C_EVALS] == STAGES[name] * n
-        errors.append(worst)
-    slope = np.polyfit(np.log(t_end / ORDER_STEPS), np.log(errors), 1)[0]
+    slope, errors = measured_order(
+        name, FORM_BODY, body, y0, ORDER_TIMES, ORDER_STEPS, evals_per_step=STAGES[name]
+    )
     assert abs(slope - ORDERS[name]) < 0.2, (slope, errors)
 
 
