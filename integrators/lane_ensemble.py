@@ -104,7 +104,10 @@ def _check_all(form, W, live, status, done, turns) -> int:
     """After a step: stop the members that failed it, count a good step for the others and,
     in the Euler form, fold their phi and psi by whole turns into turns (2 x members; none
     when it has no columns: the unfolded variant), as the scalar kernel does after a good step.
-    Returns how many are still live."""
+    Returns how many are still live. turns is float64 here (whole numbers, exact below 2^53):
+    adding a double to an int64 needs a conversion that has no vector instruction before
+    AVX-512, which kept this loop scalar on AVX2; run_lanes adds them to the int64 turns once
+    per call."""
     fold = form == FORM_EULER and turns.shape[1] == W.shape[1]
     n = W.shape[1]
     k = 6 if form == FORM_EULER else 7  # a constant once the form is: the sum unrolls
@@ -131,8 +134,8 @@ def _check_all(form, W, live, status, done, turns) -> int:
             go = live[j] != 0
             w0[j] = a if go else w0[j]
             w2[j] = b if go else w2[j]
-            tp[j] += int(ka) if go else 0
-            ts[j] += int(kb) if go else 0
+            tp[j] += ka if go else 0.0
+            ts[j] += kb if go else 0.0
     return alive
 
 
@@ -172,10 +175,14 @@ def run_lanes(form, p, kick, drift, nsteps, W, fresh, counters, turns, status, l
     for j in range(n):
         done[j] = 0
         was[j] = live[j]
+    taken = np.zeros((2, turns.shape[1]))  # the turns of this call, as doubles (see _check_all)
     if form == FORM_EULER:
-        _lane_steps(FORM_EULER, p, kick, drift, nsteps, W, first, live, status, done, turns)
+        _lane_steps(FORM_EULER, p, kick, drift, nsteps, W, first, live, status, done, taken)
     else:
-        _lane_steps(FORM_BODY, p, kick, drift, nsteps, W, first, live, status, done, turns)
+        _lane_steps(FORM_BODY, p, kick, drift, nsteps, W, first, live, status, done, taken)
+    for i in range(taken.shape[0]):
+        for j in range(taken.shape[1]):
+            turns[i, j] += int(taken[i, j])
     for j in range(n):
         attempted = done[j] + (1 if (was[j] != 0 and live[j] == 0) else 0)
         counters[j, C_STEPS] += done[j]

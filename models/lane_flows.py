@@ -18,6 +18,7 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
 from numba import njit
 
 from .double_double import two_prod
@@ -100,7 +101,11 @@ def fold_lane(a):
     """turns.fold_one for one angle in a lane: (folded angle, whole turns T taken off, as a
     double). The same operations with selects for its branch, so the same bits: for an angle
     already in (-fl(pi), fl(pi)], k = 0 and the angle comes back as it was."""
-    k = math.floor(a / TURN + 0.5)
+    # np.floor, not math.floor: numba's math.floor returns an integer, and the conversion to
+    # int64 and back has no vector instruction before AVX-512, so the loop over lanes stayed
+    # scalar on AVX2 machines (measured on a family 25 model 1 EPYC: 19 ns per member per step
+    # for the fold against 1.5 for the rest of the check). Same value: floor is exact.
+    k = np.floor(a / TURN + 0.5)
     ph, pl = two_prod(k, TURN)
     r = (a - ph) - pl
     up = r > HALF_TURN

@@ -36,6 +36,7 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
 from numba import njit
 
 # fdlibm e_rem_pio2.c: 2/pi to 53 bits; pi/2 = PIO2_1 + PIO2_2 + PIO2_3 + PIO2_3T, the first
@@ -77,7 +78,9 @@ def two_sum(a, b):
 
 @njit(cache=True, inline="always")
 def reduce_pio2(x):
-    """(n, y0, y1): x = n pi/2 + y0 + y1 with |y0 + y1| <= pi/4 (about), for |x| <= REDUCE_MAX."""
+    """(n, y0, y1): x = n pi/2 + y0 + y1 with |y0 + y1| <= pi/4 (about), for |x| <= REDUCE_MAX.
+    n is a double holding a whole number: a conversion to int64 has no vector instruction
+    before AVX-512 and would be done lane by lane on AVX2."""
     fn = (x * INVPIO2 + _ROUNDER) - _ROUNDER
     # x - fn PIO2_1 is exact (the product has at most 53 bits, and the two are within a factor
     # of two of each other unless fn is 0); the next two pieces are taken off with their
@@ -89,7 +92,7 @@ def reduce_pio2(x):
     tail = (ea + eb) - fn * PIO2_3T
     y0 = b + tail
     y1 = (b - y0) + tail
-    return int(fn), y0, y1
+    return fn, y0, y1
 
 
 @njit(cache=True, inline="always")
@@ -119,12 +122,15 @@ def sincos(x):
     n, y0, y1 = reduce_pio2(x)
     s = kernel_sin(y0, y1)
     c = kernel_cos(y0, y1)
-    q = n & 3
+    # The quadrant n mod 4 in doubles (exact: n is a whole number below 2^20), compared rather
+    # than masked as integers, so that the whole function stays in vector registers on AVX2.
+    q = n - 4.0 * np.floor(n * 0.25)  # np.floor: numba's math.floor returns an int
+    odd = (q == 1.0) | (q == 3.0)
     # quadrant q: (sin, cos) = (s, c), (c, -s), (-s, -c), (-c, s)
-    sn = c if (q & 1) else s
-    cs = s if (q & 1) else c
-    sn = -sn if (q & 2) else sn
-    cs = -cs if ((q + 1) & 2) else cs
+    sn = c if odd else s
+    cs = s if odd else c
+    sn = -sn if q >= 2.0 else sn
+    cs = -cs if ((q == 1.0) | (q == 2.0)) else cs
     sn = x if x == 0.0 else sn  # sin(-0) = -0: the reduction's sums would give +0
     return sn, cs
 
