@@ -34,6 +34,8 @@ DEFAULT_CANDIDATES = (
     "rk45",
     "dop853",
     "gbs",
+    # the series method: first on looping-nutation at 1e-10 and 1e-12 in the body form (README)
+    "taylor-adaptive",
     "leapfrog",
     "leapfrog-s4",
     "leapfrog-s4-axes",
