@@ -239,3 +239,60 @@ def test_undecided_timings_are_measured_again():
     out, _ = measure.measure_timings(plans, jobs, rounds=10, undecided=always, **quiet)
     cap = 10 + measure.EXTRA_BLOCK * ((measure.EXTRA_FACTOR - 1) * 10 // measure.EXTRA_BLOCK)
     assert {r["rounds"] for r in out.values()} == {cap}
+
+
+def test_a_moved_machine_state_is_waited_out_and_the_nearest_state_kept():
+    # measure_timings with the gate's `moved`: past WAIT_DRIFT the rounds are done again after a
+    # pause, at most `waits` times, and the measurement whose witness is nearest the baseline's
+    # state is the one returned; within WAIT_DRIFT nothing waits. The drifts are scripted here
+    # (the witness itself is compare.machine_drift, tested above); the clock is not.
+    from topdrift.benchmarks.gate import measure
+    from topdrift.benchmarks.gate.timing_settings import WAIT_DRIFT
+    from topdrift.benchmarks.sweep.spec import parse_sweep
+
+    spec = parse_sweep(
+        'name = "t"\ncases = ["looping-nutation"]\nmethods = ["leapfrog"]\n'
+        "horizon = 0.2\nsamples = 3\nsteps = [0.005]\n",
+        "t",
+    )
+    jobs, _ = measure.grid_jobs(spec)
+    runs = measure.measure_grid(jobs, report=lambda _: None)
+    plans = measure.timing_plans(runs, jobs)
+
+    def scripted(drifts):
+        seen = []
+
+        def moved(ref):
+            seen.append(ref)
+            return drifts[len(seen) - 1]
+
+        return moved, seen
+
+    pauses, lines = [], []
+    quiet = {"report": lines.append, "sleep": pauses.append, "pause_s": 7.0}
+    # moved, then further, then back near the baseline: three measurements, the third kept
+    moved, seen = scripted([0.04, 0.05, 0.005])
+    out, ref = measure.measure_timings(plans, jobs, rounds=5, moved=moved, waits=3, **quiet)
+    assert pauses == [7.0, 7.0] and len(seen) == 3
+    assert ref is seen[2] and out["leapfrog euler"]["rounds"] == 5
+    assert sum("waiting 7 s to time again" in line for line in lines) == 2
+    # never back: `waits` pauses, then the nearest of all (here the second)
+    pauses.clear()
+    moved, seen = scripted([0.04, 0.03, 0.05])
+    _, ref = measure.measure_timings(plans, jobs, rounds=5, moved=moved, waits=2, **quiet)
+    assert pauses == [7.0, 7.0] and ref is seen[1]
+    # within WAIT_DRIFT, or with no waits asked for: no pause
+    pauses.clear()
+    moved, _ = scripted([WAIT_DRIFT * 0.9])
+    measure.measure_timings(plans, jobs, rounds=5, moved=moved, waits=3, **quiet)
+    moved, _ = scripted([0.5])
+    measure.measure_timings(plans, jobs, rounds=5, moved=moved, waits=0, **quiet)
+    assert pauses == []
+
+
+def test_wait_out_must_not_be_negative(capsys):
+    from topdrift.benchmarks.cli.entry import main
+
+    assert main(["gate", "--wait-out", "-1"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "--wait-out must be 0 or more" in err[0]

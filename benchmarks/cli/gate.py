@@ -1,6 +1,6 @@
 """`topdrift gate [--baseline FILE] [--error-factor F] [--error-floor A] [--steps-tolerance R]
-[--time-band B] [--accept-missing NAME ...] [--timings-anyway] [--json]`: rerun a baseline's
-grid and fail (exit 1) on a regression."""
+[--time-band B] [--accept-missing NAME ...] [--timings-anyway] [--wait-out N] [--json]`: rerun
+a baseline's grid and fail (exit 1) on a regression."""
 
 from __future__ import annotations
 
@@ -13,6 +13,7 @@ from topdrift.benchmarks.gate.compare import (
     DEFAULT_STEPS_TOLERANCE,
     DEFAULT_TIME_BAND,
 )
+from topdrift.benchmarks.gate.timing_settings import WAIT_DRIFT, WAIT_PAUSE_S
 
 
 def add_parser(sub) -> None:
@@ -71,6 +72,16 @@ def add_parser(sub) -> None:
         help="time and compare the timings even when the machine's fingerprint differs from "
         "the baseline's",
     )
+    p.add_argument(
+        "--wait-out",
+        type=int,
+        default=0,
+        metavar="N",
+        help=f"when the machine's state has moved more than {WAIT_DRIFT:.0%} since the "
+        f"baseline (its reference workload's two kernels against each other), pause "
+        f"{WAIT_PAUSE_S:g} s and time again, up to N times, keeping the timing nearest the "
+        "baseline's state (default 0: no waiting)",
+    )
     p.add_argument("--json", action="store_true", help="print the comparison as JSON")
     p.set_defaults(func=run)
 
@@ -78,11 +89,13 @@ def add_parser(sub) -> None:
 def run(args) -> int:
     import sys
 
+    from topdrift.benchmarks.errors import UserError
     from topdrift.benchmarks.gate.baseline_file import DEFAULT_FILE, encode_nonfinite, read_baseline
     from topdrift.benchmarks.gate.compare import (
         Thresholds,
         compare,
         format_report,
+        machine_drift,
         undecided_timings,
     )
     from topdrift.benchmarks.gate.machine import differences, fingerprint
@@ -93,6 +106,8 @@ def run(args) -> int:
         args.error_factor, args.error_floor, args.steps_tolerance, args.time_band
     )
     thresholds.check()
+    if args.wait_out < 0:
+        raise UserError(f"gate: --wait-out must be 0 or more, not {args.wait_out}")
     path = Path(args.baseline) if args.baseline else DEFAULT_FILE
     baseline = read_baseline(path)
     spec, source = sweep_of(baseline, path)
@@ -113,6 +128,8 @@ def run(args) -> int:
         timings=timed,
         rounds=rounds,
         undecided=undecided_timings(baseline["timings"], ref, thresholds),
+        moved=lambda now_ref: machine_drift(ref, now_ref),
+        waits=args.wait_out,
     )
     # None: compare decides by the fingerprints, and says why when it does not compare them.
     mode = False if not same_unit else (True if args.timings_anyway else None)

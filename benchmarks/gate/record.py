@@ -99,12 +99,15 @@ def record(
     rounds: int | None = None,
     report: Callable[[str], None] | None = None,
     undecided: Callable[[dict, dict], set[str]] | None = None,
+    moved: Callable[[dict], float] | None = None,
+    waits: int = 0,
 ) -> Recording:
     """Measure the sweep's grid and (unless `timings` is false) its timings. `timing_from`: timing
     plans to reuse, `reference_from`: the reference record whose pass sizes to reuse (the gate
     passes the baseline's, so that both time the same runs over the same horizons in the same
     unit); methods and forms without a plan get one of their own, as when recording.
-    `undecided`: the gate's test of which timings need more rounds (measure.measure_timings)."""
+    `undecided`: the gate's test of which timings need more rounds, `moved` and `waits` how it
+    waits out a machine state (both measure.measure_timings)."""
     jobs, skipped, unstarted = grid_cells(spec)
     runs = measure_grid(jobs, report)
     timing_records: dict[str, dict] = {}
@@ -125,6 +128,8 @@ def record(
             settle=own,
             reference=reference_from,
             undecided=undecided,
+            moved=moved,
+            waits=waits,
         )
     if reference is not None:
         normalise_grid(runs, reference)

@@ -1,7 +1,7 @@
 """Does the gate's timing half hold? Clean reruns spread over time, and planted slowdowns.
 
     python benchmarks/timing/gate_stability.py [--runs 10] [--over-minutes 60]
-        [--baseline FILE] [--sweep quick] [--out FILE]
+        [--baseline FILE] [--sweep quick] [--out FILE] [--wait-out N]
 
 Records a baseline (or takes the one given), then, `--runs` times spread evenly over
 `--over-minutes`, runs three gates, each in a fresh process as CI would:
@@ -96,7 +96,7 @@ def slowed_method(inner, factor: float):
     return Slowed()
 
 
-def trial(baseline: str, plant: str | None, factor: float) -> dict:
+def trial(baseline: str, plant: str | None, factor: float, wait_out: int = 0) -> dict:
     """One gate in this process, the named method slowed by `factor` first."""
     from topdrift.benchmarks.cli.entry import main
     from topdrift.integrators import get, register
@@ -105,7 +105,7 @@ def trial(baseline: str, plant: str | None, factor: float) -> dict:
         register(slowed_method(get(plant), factor), replace=True)
     buf = io.StringIO()
     with contextlib.redirect_stdout(buf), contextlib.redirect_stderr(io.StringIO()):
-        rc = main(["gate", "--baseline", baseline, "--json"])
+        rc = main(["gate", "--baseline", baseline, "--json", "--wait-out", str(wait_out)])
     doc = json.loads(buf.getvalue())
     work = 1.0 + TALLY["shadow"] / TALLY["real"] if TALLY["real"] else None
     return {
@@ -118,8 +118,9 @@ def trial(baseline: str, plant: str | None, factor: float) -> dict:
     }
 
 
-def run_trial(baseline: str, plant: str | None, factor: float) -> dict:
+def run_trial(baseline: str, plant: str | None, factor: float, wait_out: int = 0) -> dict:
     cmd = [sys.executable, __file__, "--trial", baseline, "--factor", str(factor)]
+    cmd += ["--wait-out", str(wait_out)]
     if plant:
         cmd += ["--plant", plant]
     proc = subprocess.run(cmd, capture_output=True, text=True)
@@ -152,12 +153,15 @@ def main(argv: list[str] | None = None) -> int:
     ap.add_argument("--baseline", help="a baseline to gate against (default: record one)")
     ap.add_argument("--sweep", default="quick")
     ap.add_argument("--out", default=str(Path("results") / "gate_stability.json"))
+    ap.add_argument(
+        "--wait-out", type=int, default=0, help="passed to every gate (topdrift gate --wait-out)"
+    )
     ap.add_argument("--trial", help=argparse.SUPPRESS)
     ap.add_argument("--plant", help=argparse.SUPPRESS)
     ap.add_argument("--factor", type=float, default=1.0, help=argparse.SUPPRESS)
     args = ap.parse_args(argv)
     if args.trial:
-        print(json.dumps(trial(args.trial, args.plant, args.factor)))
+        print(json.dumps(trial(args.trial, args.plant, args.factor, args.wait_out)))
         return 0
 
     from topdrift.benchmarks.gate.baseline_file import read_baseline
@@ -186,9 +190,9 @@ def main(argv: list[str] | None = None) -> int:
             name = tk.split(" ")[0]
             entry = {"run": k + 1, "at_s": round(time.monotonic() - start, 1), "planted": tk}
             entry["load_1min"] = round(os.getloadavg()[0], 2)  # what else the machine ran
-            entry["clean"] = run_trial(baseline, None, 1.0)
+            entry["clean"] = run_trial(baseline, None, 1.0, args.wait_out)
             for label, factor, _ in PLANTS:
-                entry[label] = run_trial(baseline, name, factor)
+                entry[label] = run_trial(baseline, name, factor, args.wait_out)
             log.append(entry)
             print(_line(entry), flush=True)
             # Written after every run: an hour-long study stopped early keeps what it measured.
