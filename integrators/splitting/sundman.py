@@ -236,6 +236,7 @@ class SundmanMethod(Method):
         )
 
     def check(self, body, form: str, settings: dict) -> None:
+        self.settings(settings)  # bad settings first, as every family refuses them
         if form == "body":
             raise MethodRefused(
                 f"{self.name}: euler form only: its step control watches the pole of the Euler "
