@@ -1,7 +1,8 @@
 """What the time-reversible variable steps buy: cost at equal error against the fixed-step twin.
 
     python benchmarks/timing/variable_steps.py [--cases pole-passage,sleeping-below,cusped-release]
-                                               [--ladder 9]
+                                               [--ladder N]
+    python benchmarks/timing/variable_steps.py --per-step 1000000 [--cases pole-passage]
 
 For each case (Euler form, the case's horizon and sample times) and each pair (leapfrog,
 leapfrog-s4, leapfrog-kl6 against their -sundman twins): a ladder of steps, halving from the
@@ -24,7 +25,7 @@ import time
 import numpy as np
 
 from topdrift.benchmarks.cases.library import load_case
-from topdrift.integrators import C_FORCE_EVALS, ST_OK, get
+from topdrift.integrators import C_FORCE_EVALS, C_STEPS, ST_OK, get
 from topdrift.models.exact import LagrangeTop
 from topdrift.models.forms import FORM_EULER
 
@@ -110,11 +111,44 @@ def error_ratios(fixed: list, variable: list, order: int) -> list[float]:
     return out
 
 
+def per_step(case, steps: int, rounds: int) -> None:
+    """ns per step of each pair, interleaved round by round in this process, best round; one
+    sample at the end (the variable-step run's side step is a single step of the table)."""
+    body, y0 = case.body, case.euler_state()
+    eps = 1e-4
+    best = {}
+    for _ in range(rounds):
+        for pair in PAIRS:
+            for name in pair:
+                st = get(name).start(FORM_EULER, body.params(), 0.0, y0, {"step": eps})
+                st.advance_to(eps)  # compiled and loaded before the clock starts
+                t0 = time.perf_counter()
+                st.advance_to(eps * steps)
+                wall = time.perf_counter() - t0
+                n = int(st.counters[C_STEPS])
+                best[name] = min(best.get(name, math.inf), wall / max(n, 1) * 1e9)
+    print(f"\nns per step, Euler form, {case.name}, best of {rounds} rounds (CPU: {cpu()}):")
+    for fixed_name, var_name in PAIRS:
+        f, v = best[fixed_name], best[var_name]
+        print(f"  {fixed_name:14s} {f:7.1f}   {var_name:22s} {v:7.1f}   ratio {v / f:.2f}")
+
+
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--cases", default="pole-passage,sleeping-below,cusped-release")
     ap.add_argument("--ladder", type=int, default=0, help="halvings per ladder (0: LADDER)")
+    ap.add_argument(
+        "--per-step",
+        type=int,
+        default=0,
+        metavar="N",
+        help="instead: ns per step over about N steps of each method, interleaved",
+    )
+    ap.add_argument("--rounds", type=int, default=5)
     args = ap.parse_args()
+    if args.per_step:
+        per_step(load_case(args.cases.split(",")[0]), args.per_step, args.rounds)
+        return
     print(f"CPU: {cpu()}")
     for spec in args.cases.split(","):
         case = load_case(spec)
