@@ -192,6 +192,18 @@ def test_samples_do_not_feed_back():
     assert a.counters[C_FORCE_EVALS] - b.counters[C_FORCE_EVALS] == 5 * 99
 
 
+def test_the_unfolded_variant_does_not_fold():
+    # Stepper.keep_angles_unfolded: phi and psi grow without bound, the step points' too
+    m = BY_NAME["leapfrog-sundman"]
+    a = m.start(FORM_EULER, POLE_TOP.params(), 0.0, pole_state(), {"step": 1e-3})
+    b = m.start(FORM_EULER, POLE_TOP.params(), 0.0, pole_state(), {"step": 1e-3})
+    b.keep_angles_unfolded()
+    assert a.advance_to(0.2) == ST_OK and b.advance_to(0.2) == ST_OK
+    assert abs(b.y[2]) > 4 * math.pi  # psi has turned at 157 rad/s for 0.2 s
+    assert abs(a.y[2]) <= math.pi
+    assert np.allclose(a.unfolded_y(), b.y, rtol=1e-12, atol=1e-12)
+
+
 def test_snapshot_restore_is_bit_exact():
     m = BY_NAME["leapfrog-kl6-sundman"]
     a = m.start(FORM_EULER, POLE_TOP.params(), 0.0, pole_state(), {"step": 1e-3})

@@ -124,6 +124,9 @@ class SundmanStepper(Stepper):
             raise MethodRefused(f"{self.method.name}: t = {t_end!r} is not a finite time")
         if t_end == self.t:
             return ST_OK
+        if self.turns.shape[0] == 0 and self.w_turns.shape[0] != 0:
+            # keep_angles_unfolded() was called: the step points do not fold either
+            self.w_turns = np.zeros(0, dtype=np.int64)
         # The direction of the steps is that of t_end from the step point; turning back is
         # allowed (the state is a closed point with its rho): it retraces the steps taken.
         ahead = (t_end - self.clock[0]) - self.clock[1]
