@@ -20,6 +20,7 @@ _BUILTIN_MODULES = (
     "topdrift.integrators.rk.adaptive",
     "topdrift.integrators.splitting.methods",
     "topdrift.integrators.splitting.processed",
+    "topdrift.integrators.splitting.sundman",
     "topdrift.integrators.gauss.methods",
     "topdrift.integrators.engine.methods",
     "topdrift.integrators.taylor.methods",

@@ -66,6 +66,43 @@ def kick_euler(h, y, p):
     y[4] += h * (r * (a * c / s - p_psi * s) + p[P_MGZ] * s)
 
 
+# The Euler-form kick split in two: its rates, then their application. The kick holds theta
+# fixed, so its rates depend on theta (and the invariants p_phi, p_psi) alone and stay constant
+# over the kick: a kernel that kicks twice at one theta (the variable-step splittings close a
+# step and open the next with steps of different length) evaluates the torque once. kick_euler
+# is kick_euler_apply(h, y, kick_euler_rates(y)) to round-off (tests/test_sundman.py).
+KR_PHI = 0  # phi' under H_b: A / (I1 s^2), A = p_phi - p_psi cos(theta)
+KR_PSI = 1  # psi' under H_b: -cos(theta) A / (I1 s^2)
+KR_PTHETA = 2  # p_theta' = -dH/dtheta: the torque
+KR_SIN = 3  # sin(theta), cos(theta): for a caller that needs them at the same point
+KR_COS = 4
+N_KICK_RATES = 5
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def kick_euler_rates(y, p, out):
+    """The Euler-form kick's rates at y's theta, into out[KR_*] (length N_KICK_RATES)."""
+    theta = y[1]
+    p_psi = y[5]
+    s = math.sin(theta)
+    c = math.cos(theta)
+    a = y[3] - p_psi * c
+    r = a * p[P_INV1] / (s * s)
+    out[KR_PHI] = r
+    out[KR_PSI] = -(c * r)
+    out[KR_PTHETA] = r * (a * c / s - p_psi * s) + p[P_MGZ] * s
+    out[KR_SIN] = s
+    out[KR_COS] = c
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def kick_euler_apply(h, y, rates):
+    """The Euler-form kick of time h with rates from kick_euler_rates at the same theta."""
+    y[0] += h * rates[KR_PHI]
+    y[2] += h * rates[KR_PSI]
+    y[4] += h * rates[KR_PTHETA]
+
+
 @njit(cache=True, error_model="numpy")
 def kick_body(h, y, p):
     """Potential flow: q fixed, m += h M g (Gamma x chi); m3 untouched when chi is on axis 3."""

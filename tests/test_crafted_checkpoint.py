@@ -1,15 +1,16 @@
 """A run file is data: a crafted checkpoint never runs code and never gets past the reader.
 
-For each family that writes a checkpoint (explicit RK, adaptive RK, splitting, Gauss-Legendre,
-the scipy references that resume), an interrupted run's checkpoint is replaced by what a hostile
-or careless sender could put there: a pickle (as bytes in a dataset, inside a field, as an
-opaque attribute), an object dtype, a huge or mis-shaped array, NaN, a wrong dtype, a missing
-field, a link out of the group, or the snapshot of another method or setting. `topdrift run
---resume` on it exits 2 with one line naming the run and the entry, leaves the file byte for byte
-as it was, creates nothing (the pickle's payload would touch a sentinel file), and a clean copy of
-the same file still resumes. LSODA (never resumed from a file), an ensemble run (keeps no
-checkpoint) and a sweep (runs unfinished runs again, never resumes them) do not read the crafted
-checkpoint at all: they run again from the start, and the payload stays inert.
+For each family that writes a checkpoint (explicit RK, adaptive RK, splitting and its variable-
+step twins, Gauss-Legendre, the scipy references that resume), an interrupted run's checkpoint
+is replaced by what a hostile or careless sender could put there: a pickle (as bytes in a
+dataset, inside a field, as an opaque attribute), an object dtype, a huge or mis-shaped array,
+NaN, a wrong dtype, a missing field, a link out of the group, or the snapshot of another method
+or setting. `topdrift run --resume` on it exits 2 with one line naming the run and the entry,
+leaves the file byte for byte as it was, creates nothing (the pickle's payload would touch a
+sentinel file), and a clean copy of the same file still resumes. LSODA (never resumed from a
+file), an ensemble run (keeps no checkpoint) and a sweep (runs unfinished runs again, never
+resumes them) do not read the crafted checkpoint at all: they run again from the start, and the
+payload stays inert.
 
 The payload is pickle's documented behaviour (the Python docs, pickle module: "it is possible to
 construct malicious pickle data which will execute arbitrary code during unpickling");
@@ -47,6 +48,10 @@ FAMILIES = {
     "explicit-rk": (("rk4", {"step": 0.01}), ("rk4-kahan", {"step": 0.01})),
     "adaptive-rk": (("dop853", {"rtol": 1e-8}), ("dop853", {"rtol": 1e-7})),
     "splitting": (("leapfrog", {"step": 0.01}), ("leapfrog-s4", {"step": 0.01})),
+    "splitting-variable-step": (
+        ("leapfrog-sundman", {"step": 0.01}),
+        ("leapfrog-s4-sundman", {"step": 0.01}),
+    ),
     "gauss-legendre": (("gauss4", {"step": 0.01}), ("gauss4", {"step": 0.005})),
     "first-order-engine": (
         ("engine-semi-implicit", {"step": 0.01}),

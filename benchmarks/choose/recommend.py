@@ -43,6 +43,10 @@ DEFAULT_CANDIDATES = (
     # effective order 6 from a 6-stage kernel: ahead of leapfrog-kl6 and -y6 on looping-nutation
     # (100 s, 1e-8) and chaotic-asymmetric (2 s, 1e-8) with few samples (CHANGELOG)
     "leapfrog-proc6",
+    # variable steps, Euler form only: on pole-passage (--form euler, 1e-6) 153523 kicks
+    # against leapfrog-kl6's 1342000, second to dop853 (docs/variable-steps.md); refused, with
+    # its reason, where the Euler form is not the form asked for
+    "leapfrog-kl6-sundman",
     "leapfrog-kl8",
     "gauss4",
     "gauss6",

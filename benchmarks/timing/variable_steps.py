@@ -1,0 +1,183 @@
+"""What the time-reversible variable steps buy: cost at equal error against the fixed-step twin.
+
+    python benchmarks/timing/variable_steps.py [--cases pole-passage,sleeping-below,cusped-release]
+                                               [--ladder N]
+    python benchmarks/timing/variable_steps.py --per-step 1000000 [--cases pole-passage]
+
+For each case (Euler form, the case's horizon and sample times) and each pair (leapfrog,
+leapfrog-s4, leapfrog-kl6 against their -sundman twins): a ladder of steps, halving from the
+sample interval; for each run the largest attitude error over the samples against the exact
+Lagrange-top solution (models/exact.py) and the cost in force evaluations (the kicks, counted
+by the kernels: C_FORCE_EVALS, the samples' own steps included). The gain of a variable-step run
+is the fixed-step twin's cost at the same error (log-log interpolation between the two fixed-step
+runs around it) over its own cost; printed as a range over the runs whose errors lie inside the
+fixed-step twin's ladder and between 1e-11 (round-off) and 1e-2 (not yet asymptotic). Cost is
+counted, not timed: no CPU dependence, but the CPU is printed with the wall time of the runs.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import platform
+import time
+
+import numpy as np
+
+from topdrift.benchmarks.cases.library import load_case
+from topdrift.integrators import C_FORCE_EVALS, C_STEPS, ST_OK, get
+from topdrift.models.exact import LagrangeTop
+from topdrift.models.forms import FORM_EULER
+
+PAIRS = (("leapfrog", "leapfrog-sundman"), ("leapfrog-s4", "leapfrog-s4-sundman"),
+         ("leapfrog-kl6", "leapfrog-kl6-sundman"))  # fmt: skip
+E_LO, E_HI = 1e-10, 1e-2
+# Halvings of the step from the sample interval, per case: the fixed-step methods need steps
+# far below the sample interval to pass the pole (pole-passage); the others reach round-off
+# sooner. A ladder stops early once two runs in a row are at round-off (below E_LO).
+LADDER = {"pole-passage": 17, "sleeping-below": 10, "cusped-release": 10}
+
+
+def cpu() -> str:
+    try:
+        with open("/proc/cpuinfo", encoding="utf-8") as f:
+            for line in f:
+                if line.startswith("model name"):
+                    return line.split(":", 1)[1].strip()
+    except OSError:
+        pass
+    return platform.processor() or platform.machine()
+
+
+def attitude_error(y: np.ndarray, ref: np.ndarray) -> float:
+    """Largest Euler-angle error, phi and psi wrapped to (-pi, pi]."""
+    d = np.array([y[0] - ref[0], y[1] - ref[1], y[2] - ref[2]])
+    d[[0, 2]] = np.mod(d[[0, 2]] + math.pi, 2 * math.pi) - math.pi
+    return float(np.max(np.abs(d)))
+
+
+def one_run(name: str, case, step: float, times: np.ndarray, ref: np.ndarray):
+    """(largest attitude error over the samples, force evaluations); inf when the run fails."""
+    body = case.body
+    st = get(name).start(FORM_EULER, body.params(), 0.0, case.euler_state(), {"step": step})
+    err = 0.0
+    for t, r in zip(times[1:], ref[1:], strict=True):
+        if st.advance_to(t) != ST_OK:
+            return math.inf, int(st.counters[C_FORCE_EVALS])
+        err = max(err, attitude_error(st.y, r))
+    return err, int(st.counters[C_FORCE_EVALS])
+
+
+def asymptotic(rows: list, order: int) -> list:
+    """The runs of a ladder where truncation error dominates: below E_HI, above E_LO, and each
+    at least 2^(order - 1) times smaller than the one before (half the nominal halving
+    factor): past that point round-off or a pre-asymptotic bend decides the error."""
+    out = []
+    for e, c in rows:
+        if not E_LO < e < E_HI:
+            if out:
+                break
+            continue
+        if out and not e * 2 ** (order - 1) <= out[-1][0]:
+            break
+        out.append((e, c))
+    return out
+
+
+def gains(fixed: list, variable: list, order: int) -> list[float]:
+    """Fixed-step cost at each variable run's error, over the variable run's cost."""
+    ok = asymptotic(fixed, order)
+    out = []
+    for e, c in asymptotic(variable, order):
+        for (e1, c1), (e2, c2) in zip(ok, ok[1:], strict=False):
+            if e2 <= e <= e1:
+                x = math.log(e / e1) / math.log(e2 / e1)
+                out.append(math.exp(math.log(c1) + x * math.log(c2 / c1)) / c)
+                break
+    return out
+
+
+def error_ratios(fixed: list, variable: list, order: int) -> list[float]:
+    """Fixed-step error at each variable run's cost (log-log interpolation), over the variable
+    run's error: the other way to read "equal kicks" (about the gain to the power order)."""
+    ok = asymptotic(fixed, order)
+    out = []
+    for e, c in asymptotic(variable, order):
+        for (e1, c1), (e2, c2) in zip(ok, ok[1:], strict=False):
+            if c1 <= c <= c2:
+                x = math.log(c / c1) / math.log(c2 / c1)
+                out.append(math.exp(math.log(e1) + x * math.log(e2 / e1)) / e)
+                break
+    return out
+
+
+def per_step(case, steps: int, rounds: int) -> None:
+    """ns per step of each pair, interleaved round by round in this process, best round; one
+    sample at the end (the variable-step run's side step is a single step of the table)."""
+    body, y0 = case.body, case.euler_state()
+    eps = 1e-4
+    best = {}
+    for _ in range(rounds):
+        for pair in PAIRS:
+            for name in pair:
+                st = get(name).start(FORM_EULER, body.params(), 0.0, y0, {"step": eps})
+                st.advance_to(eps)  # compiled and loaded before the clock starts
+                t0 = time.perf_counter()
+                st.advance_to(eps * steps)
+                wall = time.perf_counter() - t0
+                n = int(st.counters[C_STEPS])
+                best[name] = min(best.get(name, math.inf), wall / max(n, 1) * 1e9)
+    print(f"\nns per step, Euler form, {case.name}, best of {rounds} rounds (CPU: {cpu()}):")
+    for fixed_name, var_name in PAIRS:
+        f, v = best[fixed_name], best[var_name]
+        print(f"  {fixed_name:14s} {f:7.1f}   {var_name:22s} {v:7.1f}   ratio {v / f:.2f}")
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--cases", default="pole-passage,sleeping-below,cusped-release")
+    ap.add_argument("--ladder", type=int, default=0, help="halvings per ladder (0: LADDER)")
+    ap.add_argument(
+        "--per-step",
+        type=int,
+        default=0,
+        metavar="N",
+        help="instead: ns per step over about N steps of each method, interleaved",
+    )
+    ap.add_argument("--rounds", type=int, default=5)
+    args = ap.parse_args()
+    if args.per_step:
+        per_step(load_case(args.cases.split(",")[0]), args.per_step, args.rounds)
+        return
+    print(f"CPU: {cpu()}")
+    for spec in args.cases.split(","):
+        case = load_case(spec)
+        times = case.times()
+        top = LagrangeTop.from_state(case.body, FORM_EULER, case.euler_state())
+        ref = np.asarray(top.euler(times), dtype=float).reshape(-1, 3)
+        interval = case.horizon / (case.samples - 1)
+        steps = [interval / 2**k for k in range(args.ladder or LADDER.get(case.name, 10))]
+        print(f"\n{case.name}: horizon {case.horizon} s, {case.samples} samples")
+        for fixed_name, var_name in PAIRS:
+            rows = {}
+            t0 = time.perf_counter()
+            for name in (fixed_name, var_name):
+                rows[name] = []
+                for h in steps:
+                    rows[name].append(one_run(name, case, h, times, ref))
+                    if len(rows[name]) > 1 and max(e for e, _ in rows[name][-2:]) < E_LO:
+                        break
+            wall = time.perf_counter() - t0
+            for name in (fixed_name, var_name):
+                cells = "  ".join(f"{e:.1e}/{c}" for e, c in rows[name])
+                print(f"  {name:22s} error/force evaluations: {cells}")
+            g = gains(rows[fixed_name], rows[var_name], get(var_name).info.order)
+            span = f"{min(g):.3g}-{max(g):.3g}x over {len(g)} runs" if g else "no overlap"
+            print(f"  gain of {var_name}, kicks at equal error: {span} ({wall:.1f} s)")
+            r = error_ratios(rows[fixed_name], rows[var_name], get(var_name).info.order)
+            span = f"{min(r):.3g}-{max(r):.3g}x over {len(r)} runs" if r else "no overlap"
+            print(f"  gain of {var_name}, error at equal kicks: {span}")
+
+
+if __name__ == "__main__":
+    main()
