@@ -8,7 +8,8 @@ is a name, the settings that decide its numbers (they key the cache) and two fun
 does not take a body (None when it does) and the build (body, body-form start, sample times,
 progress) -> an object with times, states (n, 7 body-form rows), accuracy and parting (dicts of
 ACCURACY_KEYS), cost (dict of COST_KEYS) and method (text). The exact free flow goes first,
-refusing every body with a torque; the Taylor integration takes every other body.
+refusing every body with a torque; the Taylor integration takes every other body in uniform
+gravity, and scipy's DOP853 at two tolerances a body in the gravity gradient.
 """
 
 from __future__ import annotations
@@ -23,7 +24,7 @@ import numpy as np
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run import reference_cache
 from topdrift.benchmarks.run.runner import samples_for_horizon
-from topdrift.integrators.extended import free_closed_form
+from topdrift.integrators.extended import field_reference, free_closed_form
 from topdrift.integrators.extended import reference as extended
 from topdrift.models.quaternion import figure_axis
 
@@ -54,7 +55,13 @@ TAYLOR_DD = Provider(
     },
     # the body-form equations hold for every body in uniform gravity; its double-double series
     # (integrators/extended/taylor_dd.py) has no rotor terms
-    refuses=lambda body: "its series has no rotor terms" if body.has_rotor else None,
+    refuses=lambda body: (
+        "its series has no rotor terms"
+        if body.has_rotor
+        else None
+        if body.uniform_gravity
+        else f"its series is of uniform gravity, not of the {body.field.kind} field"
+    ),
     build=lambda body, y0, times, progress: extended.verified_reference(body, y0, times, progress),
 )
 
@@ -79,7 +86,26 @@ FREE_CLOSED_FORM = Provider(
     exact=True,
 )
 
-PROVIDERS: list[Provider] = [FREE_CLOSED_FORM, TAYLOR_DD]
+# A body in another field than uniform gravity (the gravity gradient): scipy's DOP853 on the
+# body-form equations at two tolerances, in double precision (field_reference.py).
+FIELD_DOP853 = Provider(
+    name="field-dop853",
+    settings={
+        "name": "field-dop853",
+        "version": 1,
+        "main_rtol": repr(field_reference.MAIN_RTOL),
+        "check_rtol": repr(field_reference.CHECK_RTOL),
+        "estimate_factor": repr(extended.ESTIMATE_FACTOR),
+    },
+    refuses=field_reference.refuses,
+    build=lambda body, y0, times, progress: field_reference.verified_reference(
+        body, y0, times, progress
+    ),
+    family=field_reference.FAMILY,
+    progress_words="integration: {n} evaluations",
+)
+
+PROVIDERS: list[Provider] = [FREE_CLOSED_FORM, TAYLOR_DD, FIELD_DOP853]
 
 
 @dataclass
