@@ -285,10 +285,12 @@ class Accumulator:
             "has_exact": int(self.has_exact),
             "has_norm": int(self.has_norm),
             "has_p_psi": int(self.has_p_psi),
-            "has_p_phi": int(self.has_p_phi),
             "kov0": self.kov0,
             "kov_scale": self.kov_scale,
             "maxima": self.maxima.copy(),
+            # said only where p_phi is no invariant (another field than uniform gravity), so
+            # that a heavy top's checkpoint keeps the layout, and the bits, it always had
+            **({} if self.has_p_phi else {"has_p_phi": 0}),
         }
 
     @classmethod
