@@ -42,6 +42,8 @@ class Provider:
     # True for a provider that evaluates the body's exact motion (a closed form), not an
     # integration: what is said of the case is then "exact motion", not "no exact solution".
     exact: bool = False
+    # What the reference is called where it is used (pick's note).
+    label: str = "extended-precision reference"
 
 
 TAYLOR_DD = Provider(
@@ -103,6 +105,7 @@ FIELD_DOP853 = Provider(
     ),
     family=field_reference.FAMILY,
     progress_words="integration: {n} evaluations",
+    label="double-precision reference",
 )
 
 PROVIDERS: list[Provider] = [FREE_CLOSED_FORM, TAYLOR_DD, FIELD_DOP853]
@@ -122,6 +125,7 @@ class CaseReference:
     family: str = ""
     notes: list[str] = field(default_factory=list)
     exact: bool = False  # the provider's flag: the exact motion itself, at high precision
+    label: str = "extended-precision reference"  # the provider's name for it
 
     def axes(self) -> np.ndarray:
         return np.array([figure_axis(*row[:4]) for row in self.states])
@@ -220,7 +224,7 @@ def case_reference(
         return CaseReference(
             case.name, provider.name, hit["method"], hit["times"], hit["states"],
             hit["accuracy"], hit["parting"], hit["cost"], cached=True, family=provider.family,
-            exact=provider.exact,
+            exact=provider.exact, label=provider.label,
         )  # fmt: skip
     if not build:
         return None
@@ -233,7 +237,7 @@ def case_reference(
     out = CaseReference(
         case.name, provider.name, ref.method, ref.times, ref.states, dict(ref.accuracy),
         dict(ref.parting), dict(ref.cost), cached=False, family=provider.family,
-        exact=provider.exact,
+        exact=provider.exact, label=provider.label,
     )  # fmt: skip
     note = reference_cache.store(key, ref)
     if note:

@@ -95,7 +95,7 @@ def verified_reference(
             "check_wall_s": b.wall_s,
         },  # fmt: skip
         method=(
-            f"scipy DOP853 at rtol {MAIN_RTOL:g} (double precision), checked against rtol "
+            f"scipy DOP853 at rtol {MAIN_RTOL:g}, checked against rtol "
             f"{CHECK_RTOL:g}; its steps are counted as right-hand-side evaluations"
         ),
     )
