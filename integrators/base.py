@@ -325,6 +325,11 @@ class Method(ABC):
             raise MethodRefused(
                 f"{self.name}: has no {form!r} form (it runs in {', '.join(self.info.forms)})"
             )
+        if form == "euler" and not body.uniform_gravity:
+            raise MethodRefused(
+                f"{self.name}: the Euler-angle form needs uniform gravity (phi cyclic); this case "
+                f"is in the {body.field.kind} field, whose frame turns about e_y: use the body form"
+            )
         if form == "euler" and not body.lagrange_top:
             raise MethodRefused(
                 f"{self.name}: the Euler-angle form needs a symmetric body (I1 = I2) with its "

@@ -21,6 +21,7 @@
 
 from __future__ import annotations
 
+import json
 import math
 
 import gg_reference as ref
@@ -316,3 +317,19 @@ def test_bad_field_input_is_one_line(com, field, says):
         parse_case(BAD.format(com=com, field=field), "bad.toml")
     msg = str(exc.value)
     assert says in msg and "\n" not in msg, msg
+
+
+def test_an_ensemble_in_the_field_nulls_the_same_metrics(tmp_path):
+    import h5py
+
+    from topdrift.benchmarks.cli import entry as cli
+
+    out = tmp_path / "e.h5"
+    argv = ["run", "gg-pitch-libration", "--method", "leapfrog", "--step", "40", "--ensemble",
+            "4", "--horizon", "4000", "--out", str(out)]  # fmt: skip
+    assert cli.main(argv) == 0
+    with h5py.File(out, "r") as f:
+        (g,) = f["runs"].values()
+        m = json.loads(g.attrs["metrics"])
+    assert m["p_phi_rel_max"] is None and m["p_psi_rel_max"] is None
+    assert 0.0 < m["energy_rel_max"] < 1e-4
