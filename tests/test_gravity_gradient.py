@@ -333,3 +333,24 @@ def test_an_ensemble_in_the_field_nulls_the_same_metrics(tmp_path):
         m = json.loads(g.attrs["metrics"])
     assert m["p_phi_rel_max"] is None and m["p_psi_rel_max"] is None
     assert 0.0 < m["energy_rel_max"] < 1e-4
+
+
+@pytest.mark.parametrize(
+    "argv,says",
+    [
+        (["roundoff", "gg-pitch-libration", "--method", "leapfrog", "--step", "40"],
+         "no gravity-gradient field"),
+        (["run", "gg-pitch-libration", "--method", "rattle", "--step", "40", "--horizon", "400"],
+         "uniform-gravity torque"),
+        (["run", "gg-pitch-libration", "--method", "leapfrog", "--form", "euler", "--step", "40",
+          "--horizon", "400"], "needs uniform gravity"),
+    ],
+)  # fmt: skip
+def test_commands_that_cannot_take_the_field_refuse_it_in_one_line(tmp_path, capsys, argv, says):
+    from topdrift.benchmarks.cli import entry as cli
+
+    out = tmp_path / "r.h5"
+    rc = cli.main([*argv, *(["--out", str(out)] if argv[0] == "run" else [])])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert rc == 2 and len(err) == 1 and says in err[0], (rc, err)
+    assert not out.exists()
