@@ -74,7 +74,9 @@ def rhs_body(y, p, dy):
     dy[6] = m1 * w2 - m2 * w1 + (g1 * cy - g2 * cx)
 
 
-@njit(cache=True, inline="always")
+# Not inlined: the heavy top's path through rhs_body stays the size it was, and the call's cost
+# (reference counting of p and dy) falls on the field's runs alone.
+@njit(cache=True)
 def rhs_field(q0, q1, q2, q3, m1, m2, m3, w1, w2, w3, g1, g2, g3, p, dy):
     """The body form in a field other than uniform gravity (models/fields.py): the attitude
     turns at the rate relative to the field's frame, w + n R^T e_y, and the momentum feels the
