@@ -61,9 +61,6 @@ def rhs_body(y, p, dy):
     w2 = m2 * p[P_INV2] - p[P_HW2]
     w3 = m3 * p[P_INV3] - p[P_HW3]
     g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
-    if p[P_FIELD] != FIELD_UNIFORM:
-        rhs_field(q0, q1, q2, q3, m1, m2, m3, w1, w2, w3, g1, g2, g3, p, dy)
-        return
     cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
     dy[0] = 0.5 * (-q1 * w1 - q2 * w2 - q3 * w3)
     dy[1] = 0.5 * (q0 * w1 + q2 * w3 - q3 * w2)
@@ -74,13 +71,18 @@ def rhs_body(y, p, dy):
     dy[6] = m1 * w2 - m2 * w1 + (g1 * cy - g2 * cx)
 
 
-# Not inlined: the heavy top's path through rhs_body stays the size it was, and the call's cost
-# (reference counting of p and dy) falls on the field's runs alone.
 @njit(cache=True)
-def rhs_field(q0, q1, q2, q3, m1, m2, m3, w1, w2, w3, g1, g2, g3, p, dy):
+def rhs_field(y, p, dy):
     """The body form in a field other than uniform gravity (models/fields.py): the attitude
     turns at the rate relative to the field's frame, w + n R^T e_y, and the momentum feels the
-    gravity-gradient torque, m' = m x w + 3 n^2 Gamma x I Gamma."""
+    gravity-gradient torque, m' = m x w + 3 n^2 Gamma x I Gamma. A function of its own, chosen
+    by `rhs`, so that rhs_body, the heavy top's, is compiled exactly as before fields."""
+    q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
+    m1, m2, m3 = y[4], y[5], y[6]
+    w1 = m1 * p[P_INV1] - p[P_HW1]
+    w2 = m2 * p[P_INV2] - p[P_HW2]
+    w3 = m3 * p[P_INV3] - p[P_HW3]
+    g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
     f1, f2, f3 = frame_rate(p, q0, q1, q2, q3)
     t1, t2, t3 = gradient_torque(p, g1, g2, g3)
     r1, r2, r3 = w1 + f1, w2 + f2, w3 + f3
@@ -100,8 +102,10 @@ def rhs_field(q0, q1, q2, q3, m1, m2, m3, w1, w2, w3, g1, g2, g3, p, dy):
 def rhs(form, y, p, dy):
     if form == FORM_EULER:
         rhs_euler(y, p, dy)
-    else:
+    elif p[P_FIELD] == FIELD_UNIFORM:
         rhs_body(y, p, dy)
+    else:
+        rhs_field(y, p, dy)
 
 
 @njit(cache=True)

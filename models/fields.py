@@ -1,6 +1,8 @@
 """The field a body moves in: uniform gravity (the heavy top) or the gravity gradient of a
 circular orbit, as numba functions that switch on the parameter slot P_FIELD of the flat
-parameter array (the field as a value, `Field`, is in field_spec.py).
+parameter array (the field as a value, `Field`, is in field_spec.py). The entry points
+(models/dynamics.rhs, models/flows.flow_a/flow_b and their increments) choose between these and
+the heavy top's own functions, which stay as they were compiled before fields.
 
 uniform-gravity (FIELD_UNIFORM, code 0): V = M g chi.Gamma about the fixed point, the torque
 M g Gamma x chi; the reference frame is inertial. Every kernel that ran before this module

@@ -89,9 +89,6 @@ def kick_euler(h, y, p):
 @njit(cache=True, error_model="numpy")
 def kick_body(h, y, p):
     """Potential flow: q fixed, m += h M g (Gamma x chi); m3 untouched when chi is on axis 3."""
-    if p[P_FIELD] != FIELD_UNIFORM:
-        gradient_kick(h, y, p)
-        return
     g1, g2, g3 = vertical_in_body(y[0], y[1], y[2], y[3])
     cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
     y[4] += h * (g2 * cz - g3 * cy)
@@ -308,8 +305,10 @@ def flow_a_fixed(form, free, h, y, p):
 def flow_b(form, h, y, p):
     if form == FORM_EULER:
         kick_euler(h, y, p)
-    else:
+    elif p[P_FIELD] == FIELD_UNIFORM:
         kick_body(h, y, p)
+    else:
+        gradient_kick(h, y, p)
 
 
 # Increment forms of the sub-flows, for compensated summation: each writes d = flow(y) - y
@@ -346,9 +345,6 @@ def kick_euler_increment(h, y, p, d):
 
 @njit(cache=True, error_model="numpy")
 def kick_body_increment(h, y, p, d):
-    if p[P_FIELD] != FIELD_UNIFORM:
-        gradient_kick_increment(h, y, p, d)
-        return
     g1, g2, g3 = vertical_in_body(y[0], y[1], y[2], y[3])
     cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
     d[0] = 0.0
@@ -492,5 +488,7 @@ def increment_b(form, h, y, p, d):
     """flow_b(form, h, y, p) - y, written into d, y unchanged (compensated summation)."""
     if form == FORM_EULER:
         kick_euler_increment(h, y, p, d)
-    else:
+    elif p[P_FIELD] == FIELD_UNIFORM:
         kick_body_increment(h, y, p, d)
+    else:
+        gradient_kick_increment(h, y, p, d)
