@@ -286,6 +286,9 @@ class Method(ABC):
     # Whether the method's kernels carry a gyrostat's rotor momentum h (omega = I^-1 (m - h)).
     # A plug-in that does not say so is trusted to use models.dynamics, which carries it.
     carries_rotors: bool = True
+    # Whether its kernels evaluate the field through models (dynamics.rhs, flows, fields): a
+    # kernel that writes the uniform-gravity torque M g Gamma x chi itself cannot run another.
+    carries_fields: bool = True
 
     info: MethodInfo
 
@@ -322,6 +325,11 @@ class Method(ABC):
             raise MethodRefused(
                 f"{self.name}: has no {form!r} form (it runs in {', '.join(self.info.forms)})"
             )
+        if form == "euler" and not body.uniform_gravity:
+            raise MethodRefused(
+                f"{self.name}: the Euler-angle form needs uniform gravity (phi cyclic); this case "
+                f"is in the {body.field.kind} field, whose frame turns about e_y: use the body form"
+            )
         if form == "euler" and not body.lagrange_top:
             raise MethodRefused(
                 f"{self.name}: the Euler-angle form needs a symmetric body (I1 = I2) with its "
@@ -331,6 +339,11 @@ class Method(ABC):
             raise MethodRefused(
                 f"{self.name}: its kernel has no rotor term (omega = I^-1 m, not I^-1 (m - h)); "
                 f"this case carries a rotor"
+            )
+        if not body.uniform_gravity and not self.carries_fields:
+            raise MethodRefused(
+                f"{self.name}: its kernel writes the uniform-gravity torque itself; this case is "
+                f"in the {body.field.kind} field"
             )
         self.settings(settings)
 

@@ -27,7 +27,20 @@ import math
 import numpy as np
 from numba import njit, prange
 
-from topdrift.models.body import P_H1, P_H2, P_H3, P_I1, P_I2, P_INV1, P_INV3, P_MGX, P_MGY, P_MGZ
+from topdrift.models.body import (
+    P_FIELD,
+    P_H1,
+    P_H2,
+    P_H3,
+    P_I1,
+    P_I2,
+    P_INV1,
+    P_INV3,
+    P_MGX,
+    P_MGY,
+    P_MGZ,
+)
+from topdrift.models.field_spec import FIELD_UNIFORM
 from topdrift.models.forms import FORM_BODY, FORM_EULER
 from topdrift.models.lane_flows import (
     drift_euler_lane,
@@ -43,7 +56,9 @@ from .base import C_EVALS, C_FORCE_EVALS, C_STEPS, ST_DIVERGED, ST_OK, ST_SINGUL
 def lanes_apply(form: int, p: np.ndarray) -> bool:
     """Whether the lane kernels cover this form and body (else the scalar ensemble is used).
     Their twins of the flows (models/lane_flows.py) know no rotor: a gyrostat takes the scalar
-    ensemble, whose flows do."""
+    ensemble, whose flows do; nor any field but uniform gravity (the same)."""
+    if p[P_FIELD] != FIELD_UNIFORM:
+        return False
     if p[P_H1] != 0.0 or p[P_H2] != 0.0 or p[P_H3] != 0.0:
         return False
     return form == FORM_EULER or (form == FORM_BODY and p[P_I1] == p[P_I2])

@@ -7,6 +7,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .field_spec import UNIFORM_GRAVITY, Field
+
 STANDARD_GRAVITY = 9.80665  # m/s^2, the conventional standard value (CGPM 1901)
 
 # Named indices into the float64 parameter array every kernel receives.
@@ -32,7 +34,13 @@ P_HW3 = 14
 # 1.0 when the rotor is not on the figure axis of a symmetric body (h1 or h2 non-zero, or
 # I1 != I2 with any rotor): the rigid free flow and the rotor's turn then do not commute.
 P_ROTOR_GENERAL = 15
-NPARAM = 16
+# The field (models/fields.py): its code (0 uniform gravity, 1 the gravity gradient of a circular
+# orbit), the orbit's mean motion n and 3 n^2, the gradient's strength. All 0.0 in uniform
+# gravity, whose kernels never read the last two.
+P_FIELD = 16
+P_ORBIT_N = 17
+P_GG3N2 = 18
+NPARAM = 19
 
 # Relative tolerance for "symmetric" and "on the axis": bodies built from geometry carry
 # round-off in their moments, and an exactly solvable case should still be recognised.
@@ -65,12 +73,15 @@ def _finite(name: str, value: float) -> float:
 
 @dataclass(frozen=True)
 class RigidBody:
-    """A rigid body turning about a fixed point in uniform gravity -g e_z.
+    """A rigid body turning about a fixed point in uniform gravity -g e_z, or about its centre
+    of mass in another field (models/fields.py: the gravity gradient of a circular orbit).
 
     inertia: principal moments (I1, I2, I3) about the fixed point, kg m^2.
     com: centre of mass in the principal body axes, m (zero for a free body).
     rotor: the constant momentum of internal rotors relative to the body, in body axes, kg m^2/s
     (a gyrostat; zero for a rigid body). The body's momentum is then m = I w + h.
+    field: the field it moves in (uniform gravity unless said); a field other than uniform
+    gravity has no fixed point: the centre of mass is the origin and com must be zero.
     """
 
     mass: float
@@ -78,6 +89,7 @@ class RigidBody:
     com: tuple[float, float, float] = (0.0, 0.0, 0.0)
     gravity: float = STANDARD_GRAVITY
     rotor: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    field: Field = UNIFORM_GRAVITY
 
     def __post_init__(self) -> None:
         mass = _positive_finite("mass", self.mass)
@@ -106,6 +118,18 @@ class RigidBody:
         object.__setattr__(self, "com", com)
         object.__setattr__(self, "gravity", gravity)
         object.__setattr__(self, "rotor", rotor)
+        if not isinstance(self.field, Field):
+            raise BodyError(f"field: expected a Field, got {type(self.field).__name__}")
+        if not self.field.uniform and any(v != 0.0 for v in com):
+            raise BodyError(
+                f"com: must be zero in the {self.field.kind} field, where the centre of mass is "
+                f"the origin of the orbit frame (no fixed point), got {list(com)}"
+            )
+
+    @property
+    def uniform_gravity(self) -> bool:
+        """The heavy top's field: a fixed point in uniform gravity, inertial axes."""
+        return self.field.uniform
 
     @property
     def weight(self) -> float:
@@ -138,8 +162,9 @@ class RigidBody:
         """Symmetric with its centre of mass on the figure axis, and any rotor on that axis: the
         exactly solvable heavy top (or gyrostat), the only body the canonical Euler-angle form
         describes. An off-axis rotor turns m3 (m3' = (h1 m2 - h2 m1) / I1), so p_psi is then no
-        momentum of the motion."""
-        return self.symmetric and self.com_on_axis and self.rotor_on_axis
+        momentum of the motion. Only in uniform gravity: the gravity gradient's frame turns about
+        e_y, so phi is no longer cyclic."""
+        return self.uniform_gravity and self.symmetric and self.com_on_axis and self.rotor_on_axis
 
     @property
     def rotor_commutes(self) -> bool:
@@ -154,7 +179,8 @@ class RigidBody:
         c1, c2, c3 = self.com
         r = math.hypot(c1, c2)
         return (
-            self.symmetric
+            self.uniform_gravity
+            and self.symmetric
             and abs(i1 - 2.0 * i3) <= SYMMETRY_RTOL * i1
             and r > 0.0
             and abs(c3) <= SYMMETRY_RTOL * r
@@ -183,6 +209,10 @@ class RigidBody:
         p[P_H1], p[P_H2], p[P_H3] = h1, h2, h3
         p[P_HW1], p[P_HW2], p[P_HW3] = h1 * p[P_INV1], h2 * p[P_INV2], h3 * p[P_INV3]
         p[P_ROTOR_GENERAL] = 0.0 if self.rotor_commutes else 1.0
+        n = self.field.orbit_rate
+        p[P_FIELD] = float(self.field.code)
+        p[P_ORBIT_N] = n
+        p[P_GG3N2] = 3.0 * n * n
         return p
 
     def as_dict(self) -> dict:
@@ -193,4 +223,6 @@ class RigidBody:
             "gravity": self.gravity,
             # only a gyrostat says so: a rigid body's record stays what it was
             **({"rotor": list(self.rotor)} if self.has_rotor else {}),
+            # and only a body in another field names it
+            **({"field": self.field.as_dict()} if not self.field.uniform else {}),
         }

@@ -10,7 +10,21 @@ import math
 
 from numba import njit
 
-from .body import P_H3, P_HW1, P_HW2, P_HW3, P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from .body import (
+    P_FIELD,
+    P_H3,
+    P_HW1,
+    P_HW2,
+    P_HW3,
+    P_INV1,
+    P_INV2,
+    P_INV3,
+    P_MGX,
+    P_MGY,
+    P_MGZ,
+)
+from .field_spec import FIELD_UNIFORM
+from .fields import frame_rate, gradient_torque
 from .forms import FORM_EULER
 from .quaternion import vertical_in_body
 
@@ -57,6 +71,30 @@ def rhs_body(y, p, dy):
     dy[6] = m1 * w2 - m2 * w1 + (g1 * cy - g2 * cx)
 
 
+@njit(cache=True)
+def rhs_field(y, p, dy):
+    """The body form in a field other than uniform gravity (models/fields.py): the attitude
+    turns at the rate relative to the field's frame, w + n R^T e_y, and the momentum feels the
+    gravity-gradient torque, m' = m x w + 3 n^2 Gamma x I Gamma. A function of its own, chosen
+    by `rhs`, so that rhs_body, the heavy top's, is compiled exactly as before fields."""
+    q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
+    m1, m2, m3 = y[4], y[5], y[6]
+    w1 = m1 * p[P_INV1] - p[P_HW1]
+    w2 = m2 * p[P_INV2] - p[P_HW2]
+    w3 = m3 * p[P_INV3] - p[P_HW3]
+    g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
+    f1, f2, f3 = frame_rate(p, q0, q1, q2, q3)
+    t1, t2, t3 = gradient_torque(p, g1, g2, g3)
+    r1, r2, r3 = w1 + f1, w2 + f2, w3 + f3
+    dy[0] = 0.5 * (-q1 * r1 - q2 * r2 - q3 * r3)
+    dy[1] = 0.5 * (q0 * r1 + q2 * r3 - q3 * r2)
+    dy[2] = 0.5 * (q0 * r2 - q1 * r3 + q3 * r1)
+    dy[3] = 0.5 * (q0 * r3 + q1 * r2 - q2 * r1)
+    dy[4] = m2 * w3 - m3 * w2 + t1
+    dy[5] = m3 * w1 - m1 * w3 + t2
+    dy[6] = m1 * w2 - m2 * w1 + t3
+
+
 # inline="always": a plain call from another cached kernel is not inlined and costs about 30 ns
 # per evaluation in reference counting of its three arrays (measured, numba 0.68); inlined, the
 # switch folds away in kernels that pass the form as a constant.
@@ -64,8 +102,10 @@ def rhs_body(y, p, dy):
 def rhs(form, y, p, dy):
     if form == FORM_EULER:
         rhs_euler(y, p, dy)
-    else:
+    elif p[P_FIELD] == FIELD_UNIFORM:
         rhs_body(y, p, dy)
+    else:
+        rhs_field(y, p, dy)
 
 
 @njit(cache=True)

@@ -19,6 +19,11 @@ refused by the splittings with these free flows (the two flows do not commute th
 free rotation split into exact turns about the principal axes (FREE_AXES) takes any rotor, since
 each turn's T_k = (m_k - h_k)^2 / (2 I_k) depends on m_k alone.
 
+In a field other than uniform gravity (models/fields.py) A is T + n e_y.(R m), the free flow
+followed by the frame turn (the two commute), and B the field's potential, the gravity-gradient
+kick; the Euler form is refused there (phi is not cyclic). Uniform gravity takes the branches it
+always took, so a heavy top's bits are unchanged.
+
 The body form has a second, cheaper free flow for I1 != I2: the symmetric part and one rotation
 about body axis 2, composed symmetrically (second order in the step, exact for I1 = I2). A
 kernel picks it with the free-flow code FREE_COMPOSED (flow_a_with, increment_a_with); flow_a and
@@ -31,7 +36,22 @@ import math
 
 from numba import njit
 
-from .body import P_H3, P_HW1, P_HW3, P_I1, P_I2, P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from .body import (
+    P_FIELD,
+    P_H3,
+    P_HW1,
+    P_HW3,
+    P_I1,
+    P_I2,
+    P_INV1,
+    P_INV2,
+    P_INV3,
+    P_MGX,
+    P_MGY,
+    P_MGZ,
+)
+from .field_spec import FIELD_UNIFORM
+from .fields import frame_turn, frame_turn_increment, gradient_kick, gradient_kick_increment
 from .forms import FORM_EULER
 from .free_asymmetric import free_asymmetric, free_asymmetric_increment
 from .quaternion import qmul, rotate, vertical_in_body
@@ -277,6 +297,8 @@ def flow_a(form, h, y, p):
         drift_euler(h, y, p)
     else:
         free_body(h, y, p)
+        if p[P_FIELD] != FIELD_UNIFORM:
+            frame_turn(h, y, p)
 
 
 @njit(cache=True, error_model="numpy")
@@ -287,6 +309,7 @@ def flow_a_with(form, free, h, y, p):
     same way); FREE_AXES is its own map on every body."""
     if form == FORM_EULER:
         drift_euler(h, y, p)
+        return
     elif free == FREE_AXES:
         free_body_axes(h, y, p)
     elif p[P_I1] == p[P_I2]:
@@ -295,6 +318,8 @@ def flow_a_with(form, free, h, y, p):
         free_body_composed(h, y, p)
     else:
         free_asymmetric(h, y, p)
+    if p[P_FIELD] != FIELD_UNIFORM:
+        frame_turn(h, y, p)
 
 
 @njit(cache=True, error_model="numpy")
@@ -307,6 +332,8 @@ def flow_a_fixed(form, free, h, y, p):
         drift_euler(h, y, p)
     elif free == FREE_SYMMETRIC:
         free_symmetric(h, y, p)
+        if p[P_FIELD] != FIELD_UNIFORM:
+            frame_turn(h, y, p)
     else:
         flow_a_with(form, free, h, y, p)
 
@@ -315,8 +342,10 @@ def flow_a_fixed(form, free, h, y, p):
 def flow_b(form, h, y, p):
     if form == FORM_EULER:
         kick_euler(h, y, p)
-    else:
+    elif p[P_FIELD] == FIELD_UNIFORM:
         kick_body(h, y, p)
+    else:
+        gradient_kick(h, y, p)
 
 
 # Increment forms of the sub-flows, for compensated summation: each writes d = flow(y) - y
@@ -473,6 +502,8 @@ def increment_a(form, h, y, p, d):
         drift_euler_increment(h, y, p, d)
     else:
         free_body_increment(h, y, p, d)
+        if p[P_FIELD] != FIELD_UNIFORM:
+            frame_turn_increment(h, y, p, d)
 
 
 @njit(cache=True, error_model="numpy")
@@ -480,10 +511,13 @@ def increment_a_with(form, free, h, y, p, d):
     """increment_a with the body form's free flow chosen by `free` (as flow_a_with)."""
     if form == FORM_EULER:
         drift_euler_increment(h, y, p, d)
+        return
     elif free == FREE_COMPOSED:
         free_body_composed_increment(h, y, p, d)
     else:
         free_body_increment(h, y, p, d)
+    if p[P_FIELD] != FIELD_UNIFORM:
+        frame_turn_increment(h, y, p, d)
 
 
 @njit(cache=True, error_model="numpy")
@@ -491,5 +525,7 @@ def increment_b(form, h, y, p, d):
     """flow_b(form, h, y, p) - y, written into d, y unchanged (compensated summation)."""
     if form == FORM_EULER:
         kick_euler_increment(h, y, p, d)
-    else:
+    elif p[P_FIELD] == FIELD_UNIFORM:
         kick_body_increment(h, y, p, d)
+    else:
+        gradient_kick_increment(h, y, p, d)

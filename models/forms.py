@@ -19,8 +19,8 @@ import math
 import numpy as np
 from numba import njit
 
-from .body import P_H1, P_H2, P_H3, P_I1, P_I2, P_I3, RigidBody
-from .quaternion import from_euler, to_euler, vertical_in_body
+from .body import P_H1, P_H2, P_H3, P_I1, P_I2, P_I3, P_ORBIT_N, RigidBody
+from .quaternion import from_euler, rotate_inverse, to_euler, vertical_in_body
 
 FORM_EULER = 0
 FORM_BODY = 1
@@ -97,11 +97,17 @@ def _angular_velocity(phi, theta, psi, phidot, thetadot, psidot):
 
 
 def body_state(body: RigidBody, phi, theta, psi, phidot, thetadot, psidot) -> np.ndarray:
-    """Body-form state from Euler angles and their rates (rad, rad/s)."""
+    """Body-form state from Euler angles and their rates (rad, rad/s). In a field other than
+    uniform gravity the angles and rates are relative to the field's frame (the orbit frame,
+    turning at -n about e_y), and the momentum is inertial: w = w_rel - n R^T e_y."""
     p = body.params()
     w = _angular_velocity(phi, theta, psi, phidot, thetadot, psidot)
     y = np.empty(N_BODY)
     y[:4] = from_euler(phi, theta, psi)
+    if not body.uniform_gravity:
+        a = rotate_inverse(y[0], y[1], y[2], y[3], 0.0, 1.0, 0.0)
+        n = p[P_ORBIT_N]
+        w = (w[0] - n * a[0], w[1] - n * a[1], w[2] - n * a[2])
     y[B_M1] = p[P_I1] * w[0]
     y[B_M2] = p[P_I2] * w[1]
     y[B_M3] = p[P_I3] * w[2]

@@ -9,6 +9,10 @@ norm    |q|                             (body form; 1 in the Euler form)
 kov     Kovalevskaya's integral |(w1 + i w2)^2 - c (G1 + i G2)|^2, c = M g |chi| / I3, in body
         axes turned so that chi lies on axis 1 (a first integral when I1 = I2 = 2 I3 and chi is
         in the equatorial plane; derived from the Euler-Poisson equations, see Kovalevskaya 1889)
+
+In the gravity gradient (models/fields.py) "energy" is the Jacobi integral of the orbit frame,
+T + V + n e_y.(R m) with V = (3 n^2 / 2) Gamma.I Gamma; p_phi and p_psi are still L.e_z and m3
+(written so that a run can show them) but are no invariants there: the metrics null them.
 """
 
 from __future__ import annotations
@@ -18,7 +22,24 @@ import math
 import numpy as np
 from numba import njit
 
-from .body import P_H1, P_H2, P_H3, P_HW1, P_HW2, P_HW3, P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+from .body import (
+    P_FIELD,
+    P_H1,
+    P_H2,
+    P_H3,
+    P_HW1,
+    P_HW2,
+    P_HW3,
+    P_INV1,
+    P_INV2,
+    P_INV3,
+    P_MGX,
+    P_MGY,
+    P_MGZ,
+    P_ORBIT_N,
+)
+from .field_spec import FIELD_UNIFORM
+from .fields import gradient_potential, orbit_axis_in_body
 from .forms import FORM_EULER
 from .quaternion import vertical_in_body
 
@@ -66,9 +87,17 @@ def invariants(form, y, p, out):
     w2 = m2 * p[P_INV2] - p[P_HW2]
     w3 = m3 * p[P_INV3] - p[P_HW3]
     s1, s2, s3 = m1 - p[P_H1], m2 - p[P_H2], m3 - p[P_H3]
-    out[INV_ENERGY] = 0.5 * (s1 * w1 + s2 * w2 + s3 * w3) + (
-        p[P_MGX] * g1 + p[P_MGY] * g2 + p[P_MGZ] * g3
-    )
+    if p[P_FIELD] != FIELD_UNIFORM:
+        a1, a2, a3 = orbit_axis_in_body(y[0], y[1], y[2], y[3])
+        out[INV_ENERGY] = (
+            0.5 * (s1 * w1 + s2 * w2 + s3 * w3)
+            + gradient_potential(p, g1, g2, g3)
+            + p[P_ORBIT_N] * (a1 * m1 + a2 * m2 + a3 * m3) / (nq * nq)
+        )
+    else:
+        out[INV_ENERGY] = 0.5 * (s1 * w1 + s2 * w2 + s3 * w3) + (
+            p[P_MGX] * g1 + p[P_MGY] * g2 + p[P_MGZ] * g3
+        )
     out[INV_P_PHI] = m1 * g1 + m2 * g2 + m3 * g3
     out[INV_P_PSI] = m3
     out[INV_NORM] = nq

@@ -44,6 +44,11 @@ def test_every_sample_interval_of_the_library_is_on_the_grid(case):
                 span = tk - t_prev
                 assert whole_steps(span, h) == per == _span_rule(span, h)
                 for off in (0.5, 0.25, 1e-3):  # a fraction of a step off: refused by both
+                    if off <= 10.0 * GRID_RTOL * per:
+                        # below the rule's resolution of GRID_RTOL steps per step of the span:
+                        # 1e-3 of a 1e-5 s step in a gravity-gradient case's 36 s interval
+                        # (3.6e6 steps) is 3e-10 of the span, which the rule takes as noise
+                        continue
                     assert whole_steps(span + off * h, h) is None
                     assert _span_rule(span + off * h, h) is None
                 t_prev = tk

@@ -13,6 +13,8 @@ EULER_KEYS = ("phi", "theta", "psi", "p_phi", "p_theta", "p_psi")
 
 def body_kind(case: Case) -> str:
     b = case.body
+    if not b.uniform_gravity:
+        return b.field.kind
     if b.lagrange_top:
         return "lagrange-gyrostat" if b.has_rotor else "lagrange"
     if b.has_rotor:
@@ -56,6 +58,8 @@ def summarise(case: Case) -> dict:
         euler_reason = (
             "the figure axis starts on the vertical, where the Euler angles are singular"
             if case.body.lagrange_top
+            else "the euler form needs uniform gravity (phi cyclic)"
+            if not case.body.uniform_gravity
             else "the euler form needs I1 = I2 and the centre of mass and any rotor on axis 3"
         )
     inv = invariants_of(FORM_BODY, yb, case.body.params())
@@ -88,10 +92,15 @@ def summarise(case: Case) -> dict:
             "euler": euler,
         },
         "invariants": {
+            # in the gravity gradient: the Jacobi integral of the orbit frame
             "energy": inv["energy"],
-            "p_phi": inv["p_phi"],
-            # an off-axis rotor turns m3: p_psi is then no momentum of the motion (null)
-            "p_psi": None if case.body.has_rotor and not case.body.lagrange_top else inv["p_psi"],
+            # L.e_z is a momentum of the motion in uniform gravity only (null in another field)
+            "p_phi": inv["p_phi"] if case.body.uniform_gravity else None,
+            # an off-axis rotor turns m3, and so does the gravity gradient: p_psi is then no
+            # momentum of the motion (null)
+            "p_psi": None
+            if not case.body.uniform_gravity or (case.body.has_rotor and not case.body.lagrange_top)
+            else inv["p_psi"],
             "kovalevskaya": inv["kovalevskaya"] if case.body.kovalevskaya else None,
         },
         "exact": exact,

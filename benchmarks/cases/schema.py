@@ -25,6 +25,7 @@ from topdrift.models import (
     body_state,
     euler_state,
 )
+from topdrift.models.field_spec import FIELD_KINDS, Field, FieldError
 from topdrift.models.wheel import WheelSpec, demo_wheel
 
 FORMAT_VERSION = 1
@@ -37,9 +38,10 @@ SMALLEST = 1e-100
 LARGEST = 1e100
 
 TOP_KEYS = ("format_version", "name", "description", "horizon", "samples")
-TOP_TABLES = ("body", "wheel", "rotor", "start", "run")
+TOP_TABLES = ("body", "wheel", "rotor", "field", "start", "run")
 BODY_KEYS = ("mass", "inertia", "com", "gravity")
 ROTOR_KEYS = ("momentum",)
+FIELD_KEYS = ("kind", "orbit_rate")
 START_ANGLES = ("theta", "phi", "psi")
 START_RATES = ("theta_rate", "phi_rate", "psi_rate")
 RUN_KEYS = ("method", "form", "step", "rtol", "atol")
@@ -260,6 +262,8 @@ class _Reader:
             wheel, body = self.wheel(self.table(data, "wheel"))
         if "rotor" in data:
             body = self.rotor(self.table(data, "rotor"), body)
+        if "field" in data:
+            body = self.field(self.table(data, "field"), body)
         start = self.start(self.table(data, "start"))
         run = self.run(self.table(data, "run")) if "run" in data else {}
         return Case(
@@ -298,6 +302,43 @@ class _Reader:
         except BodyError as exc:
             _, _, what = str(exc).partition(": ")
             self.fail("rotor.momentum", what)
+
+    def field(self, t: dict, body: RigidBody) -> RigidBody:
+        """[field] kind = "uniform-gravity" (the default) or "gravity-gradient", with orbit_rate
+        (the orbit's mean motion, a rate: "0.0011 rad/s" or a number in rad/s) for the latter."""
+        self.keys(t, FIELD_KEYS, (), "field.")
+        kind = self.text(t.get("kind", "uniform-gravity"), "field.kind")
+        if kind not in FIELD_KINDS:
+            self.fail(
+                "field.kind", f"{kind!r}: no such field; expected one of {', '.join(FIELD_KINDS)}"
+            )
+        if kind == "uniform-gravity":
+            if "orbit_rate" in t:
+                self.fail("field.orbit_rate", "uniform gravity has no orbit; leave it out")
+            return body
+        if "orbit_rate" not in t:
+            self.fail(
+                "field.orbit_rate", f"missing: the {kind} field needs the orbit's mean motion"
+            )
+        try:
+            n = to_si(t["orbit_rate"], "rate")
+        except UnitProblem as exc:
+            self.fail("field.orbit_rate", str(exc))
+        self.in_range(n, "field.orbit_rate")
+        if n <= 0.0:
+            self.fail(
+                "field.orbit_rate", f"the orbit's mean motion must be positive, got {n:g} rad/s"
+            )
+        try:
+            field = Field(kind, n)
+        except FieldError as exc:
+            key, _, what = str(exc).partition(": ")
+            self.fail(f"field.{key}", what)
+        try:
+            return dataclasses.replace(body, field=field)
+        except BodyError as exc:
+            key, _, what = str(exc).partition(": ")
+            self.fail(f"body.{key}", what)
 
     def gravity(self, t: dict, key: str) -> float:
         if "gravity" not in t:

@@ -31,6 +31,10 @@ error grows, whatever the method.
     longest of 2 pi / |w|, the pendulum period and 2 pi |L| / (M g |chi|), the time in which the
     largest torque gravity can exert would turn L through a full turn. It is an estimate, and
     the drift law of such a case says so.
+  * a body in the gravity gradient of an orbit of mean motion n: no period either; the estimate
+    is the longest of 2 pi / |w|, the orbit period 2 pi / n, the libration period of the gradient
+    2 pi / (n sqrt(3 max|I_i - I_j| / I_min)) and 2 pi |L| over the gradient's largest torque
+    (3 n^2 / 2) max|I_i - I_j|; the libration period also joins the fastest candidates.
 """
 
 from __future__ import annotations
@@ -116,7 +120,35 @@ def _nutation_period(case) -> float | None:
     return period if math.isfinite(period) and period > 0.0 else None
 
 
+def gradient_rate(case) -> float:
+    """n sqrt(3 max|I_i - I_j| / I_min), the fastest libration rate the gravity gradient of an
+    orbit of mean motion n can drive (0 in uniform gravity), rad/s."""
+    n = case.body.field.orbit_rate
+    inertia = case.body.inertia
+    return n * math.sqrt(3.0 * (max(inertia) - min(inertia)) / min(inertia))
+
+
+def _field_timescales(case) -> Timescales:
+    spin, _, l_norm = _start_rates(case)
+    n = case.body.field.orbit_rate
+    libration = _period(gradient_rate(case))
+    candidates = [(_period(spin), "rotation 2 pi / |w|"), (libration, "libration in the gradient")]
+    fastest, fastest_what = min(candidates, key=lambda c: c[0])
+    torque = 1.5 * n * n * (max(case.body.inertia) - min(case.body.inertia))
+    turn = 2.0 * math.pi * l_norm / torque if torque > 0.0 else 0.0
+    slowest = max(_period(spin), _period(n), libration, turn)
+    return Timescales(
+        fastest,
+        fastest_what,
+        slowest,
+        "slowest time scale (an estimate: this motion has no period)",
+        False,
+    )
+
+
 def timescales(case) -> Timescales:
+    if not case.body.uniform_gravity:
+        return _field_timescales(case)
     spin, swing, l_norm = _start_rates(case)
     candidates = [(_period(spin), "rotation 2 pi / |w|"), (_period(swing), "pendulum of gravity")]
     nutation = _nutation_period(case)

@@ -19,7 +19,7 @@ import numpy as np  # noqa: E402
 
 from topdrift.benchmarks.choose import analysis  # noqa: E402
 from topdrift.benchmarks.choose.figure_files import save_png  # noqa: E402
-from topdrift.benchmarks.choose.reference_path import LABEL as REFERENCE_LABEL  # noqa: E402
+from topdrift.benchmarks.choose.reference_path import LABELS as REFERENCE_LABELS  # noqa: E402
 from topdrift.benchmarks.choose.reference_path import reference_axis  # noqa: E402
 
 DPI = 110
@@ -510,8 +510,8 @@ def error_path(a: np.ndarray, ref: np.ndarray) -> np.ndarray:
 
 
 def _is_truth(label: str) -> bool:
-    """The path drawn as the truth: the exact solution's, or the extended-precision reference's."""
-    return label == "exact" or label.startswith(REFERENCE_LABEL)
+    """The path drawn as the truth: the exact solution's, or the case reference's."""
+    return label == "exact" or label.startswith(REFERENCE_LABELS)
 
 
 def axis_path(runs: list[dict], case: str, out) -> Path:

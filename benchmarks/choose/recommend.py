@@ -171,7 +171,7 @@ class Picker:
         else:
             self.reference_note = (
                 f"{why or 'no exact solution'} for {self.case.name}: the {self.metric} error is "
-                f"measured against its extended-precision reference ({ref.method}), "
+                f"measured against its {ref.label} ({ref.method}), "
                 f"{ref.accuracy_text()}"
             )
         acc = ref.accuracy[self.metric]

@@ -12,6 +12,9 @@ from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run.case_reference import case_reference
 
 LABEL = "extended-precision reference"
+# Every name a reference provider gives its reference (run/case_reference.py), for the plots to
+# know the truth drawn: the field's reference is computed in double precision.
+LABELS = (LABEL, "double-precision reference")
 
 
 def reference_axis(runs: list[dict]) -> tuple[np.ndarray, str] | None:
@@ -37,4 +40,4 @@ def reference_axis(runs: list[dict]) -> tuple[np.ndarray, str] | None:
     for r in runs:  # the runs' own times, to the bit, or no reference
         if not np.array_equal(np.asarray(r["t"]), ref.times[: len(r["t"])]):
             return None
-    return ref.axes()[:longest], f"{LABEL} (verified to {ref.accuracy['axis']:.2g} rad)"
+    return ref.axes()[:longest], f"{ref.label} (verified to {ref.accuracy['axis']:.2g} rad)"

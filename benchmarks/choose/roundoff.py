@@ -216,6 +216,12 @@ def roundoff_study(
     # A method name, or a Method object (the round-off benchmark's unregistered contrast).
     m = get_method(method) if isinstance(method, str) else method
     method = m.name
+    if not case.body.uniform_gravity:
+        # energy_precise evaluates the uniform-gravity energy in 40 digits, not a field's
+        raise UserError(
+            f"{case.name}: the round-off study measures the heavy top's energy in 40 digits; "
+            f"it has no {case.body.field.kind} field (run the case with `topdrift run`)"
+        )
     step = positive("--step", step)
     spread = non_negative("--spread", spread)
     starts, steps = check_size(starts, steps)

@@ -16,6 +16,8 @@ KIND_TEXT = {
     "free": "free body: centre of mass at the pivot, no gravity torque",
     "symmetric": "symmetric heavy top with its centre of mass off the figure axis",
     "asymmetric": "asymmetric heavy top",
+    "gravity-gradient": "rigid body about its centre of mass in the gravity gradient of a circular "
+    "orbit (attitude relative to the orbit frame)",
 }
 
 
@@ -123,16 +125,25 @@ def render(info: dict) -> str:
         out.append("  run      " + ", ".join(f"{k} {v}" for k, v in c["run"].items()))
 
     b = info["body"]
+    field = b.get("field")
     out += ["", "body", f"  {KIND_TEXT[info['kind']]}"]
     out += _table(
         [
             ("mass", _g(b["mass"]), "kg"),
-            ("I1", _g(b["inertia"][0]), "kg m^2  (about the pivot)"),
+            (
+                "I1",
+                _g(b["inertia"][0]),
+                "kg m^2  (about the " + ("centre of mass)" if field else "pivot)"),
+            ),
             ("I2", _g(b["inertia"][1]), "kg m^2"),
             ("I3", _g(b["inertia"][2]), "kg m^2"),
             ("com", _vec(b["com"]), "m  (body axes)"),
-            ("gravity", _g(b["gravity"]), "m/s^2"),
         ]
+        + (
+            [("field", field["kind"], ""), ("orbit rate", _g(field["orbit_rate"]), "rad/s  (n)")]
+            if field
+            else [("gravity", _g(b["gravity"]), "m/s^2")]
+        )
         + (
             [("rotor", _vec(b["rotor"]), "kg m^2/s  (body axes, relative to the body)")]
             if "rotor" in b
@@ -187,9 +198,16 @@ def render(info: dict) -> str:
     conserved_psi = info["kind"] in ("lagrange", "lagrange-gyrostat")
     gyro = "rotor" in b
     rows = [
-        ("energy", _g(inv["energy"], 10), "J" + ("  (shell kinetic + potential)" if gyro else "")),
-        ("p_phi", _g(inv["p_phi"], 10), "kg m^2/s  (L . e_z)"),
+        (
+            "energy",
+            _g(inv["energy"], 10),
+            "J"
+            + ("  (shell kinetic + potential)" if gyro else "")
+            + ("  (Jacobi integral of the orbit frame)" if field else ""),
+        ),
     ]
+    if inv["p_phi"] is not None:
+        rows.append(("p_phi", _g(inv["p_phi"], 10), "kg m^2/s  (L . e_z)"))
     if inv["p_psi"] is not None:
         rows.append(
             (

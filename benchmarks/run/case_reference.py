@@ -8,7 +8,8 @@ is a name, the settings that decide its numbers (they key the cache) and two fun
 does not take a body (None when it does) and the build (body, body-form start, sample times,
 progress) -> an object with times, states (n, 7 body-form rows), accuracy and parting (dicts of
 ACCURACY_KEYS), cost (dict of COST_KEYS) and method (text). The exact free flow goes first,
-refusing every body with a torque; the Taylor integration takes every other body.
+refusing every body with a torque; the Taylor integration takes every other body in uniform
+gravity, and scipy's DOP853 at two tolerances a body in the gravity gradient.
 """
 
 from __future__ import annotations
@@ -23,7 +24,7 @@ import numpy as np
 from topdrift.benchmarks.errors import UserError
 from topdrift.benchmarks.run import reference_cache
 from topdrift.benchmarks.run.runner import samples_for_horizon
-from topdrift.integrators.extended import free_closed_form
+from topdrift.integrators.extended import field_reference, free_closed_form
 from topdrift.integrators.extended import reference as extended
 from topdrift.models.quaternion import figure_axis
 
@@ -41,6 +42,8 @@ class Provider:
     # True for a provider that evaluates the body's exact motion (a closed form), not an
     # integration: what is said of the case is then "exact motion", not "no exact solution".
     exact: bool = False
+    # What the reference is called where it is used (pick's note).
+    label: str = "extended-precision reference"
 
 
 TAYLOR_DD = Provider(
@@ -54,7 +57,13 @@ TAYLOR_DD = Provider(
     },
     # the body-form equations hold for every body in uniform gravity; its double-double series
     # (integrators/extended/taylor_dd.py) has no rotor terms
-    refuses=lambda body: "its series has no rotor terms" if body.has_rotor else None,
+    refuses=lambda body: (
+        "its series has no rotor terms"
+        if body.has_rotor
+        else None
+        if body.uniform_gravity
+        else f"its series is of uniform gravity, not of the {body.field.kind} field"
+    ),
     build=lambda body, y0, times, progress: extended.verified_reference(body, y0, times, progress),
 )
 
@@ -79,7 +88,27 @@ FREE_CLOSED_FORM = Provider(
     exact=True,
 )
 
-PROVIDERS: list[Provider] = [FREE_CLOSED_FORM, TAYLOR_DD]
+# A body in another field than uniform gravity (the gravity gradient): scipy's DOP853 on the
+# body-form equations at two tolerances, in double precision (field_reference.py).
+FIELD_DOP853 = Provider(
+    name="field-dop853",
+    settings={
+        "name": "field-dop853",
+        "version": 1,
+        "main_rtol": repr(field_reference.MAIN_RTOL),
+        "check_rtol": repr(field_reference.CHECK_RTOL),
+        "estimate_factor": repr(extended.ESTIMATE_FACTOR),
+    },
+    refuses=field_reference.refuses,
+    build=lambda body, y0, times, progress: field_reference.verified_reference(
+        body, y0, times, progress
+    ),
+    family=field_reference.FAMILY,
+    progress_words="integration: {n} evaluations",
+    label="double-precision reference",
+)
+
+PROVIDERS: list[Provider] = [FREE_CLOSED_FORM, TAYLOR_DD, FIELD_DOP853]
 
 
 @dataclass
@@ -96,6 +125,7 @@ class CaseReference:
     family: str = ""
     notes: list[str] = field(default_factory=list)
     exact: bool = False  # the provider's flag: the exact motion itself, at high precision
+    label: str = "extended-precision reference"  # the provider's name for it
 
     def axes(self) -> np.ndarray:
         return np.array([figure_axis(*row[:4]) for row in self.states])
@@ -194,7 +224,7 @@ def case_reference(
         return CaseReference(
             case.name, provider.name, hit["method"], hit["times"], hit["states"],
             hit["accuracy"], hit["parting"], hit["cost"], cached=True, family=provider.family,
-            exact=provider.exact,
+            exact=provider.exact, label=provider.label,
         )  # fmt: skip
     if not build:
         return None
@@ -207,7 +237,7 @@ def case_reference(
     out = CaseReference(
         case.name, provider.name, ref.method, ref.times, ref.states, dict(ref.accuracy),
         dict(ref.parting), dict(ref.cost), cached=False, family=provider.family,
-        exact=provider.exact,
+        exact=provider.exact, label=provider.label,
     )  # fmt: skip
     note = reference_cache.store(key, ref)
     if note:

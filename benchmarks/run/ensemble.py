@@ -201,6 +201,7 @@ class _EnsembleRun(SampledRun):
         self.scale: dict[str, np.ndarray] = {}
         body = plan.case.body
         self.p_psi = body.lagrange_top  # p_psi is an invariant of the body
+        self.p_phi = body.uniform_gravity  # p_phi one of uniform gravity only
         self.kovalevskaya = body.kovalevskaya  # and Kovalevskaya's integral is
         self.followed = dict(_FOLLOWED)
         if self.kovalevskaya:
@@ -314,8 +315,8 @@ class _EnsembleRun(SampledRun):
         member_steps = int(counters[:, C_STEPS].sum())
         return {
             "energy_rel_max": self.worst["energy"],
-            "p_phi_rel_max": self.worst["p_phi"],
             # only invariants of the body are metrics (run/metrics.py)
+            "p_phi_rel_max": self.worst["p_phi"] if self.p_phi else None,
             "p_psi_rel_max": self.worst["p_psi"] if self.p_psi else None,
             "kovalevskaya_rel_max": self.worst.get("kovalevskaya"),
             "axis_spread_final": self.spreads[-1],

@@ -10,7 +10,8 @@ value K0. A start with E0 = 0 (or L0 = 0, K0 = 0) falls back to a scale built fr
 kinetic and potential energy magnitudes (or to 1 kg m^2/s, or to (|w|^2 + M g |chi| / I3)^2), so
 that no metric is a division by zero.
 
-Only invariants of the body are metrics: energy and p_phi always (gravity is along e_z), p_psi
+Only invariants of the body are metrics: energy (in the gravity gradient, the Jacobi integral of
+the orbit frame) always, p_phi in uniform gravity (gravity is along e_z), p_psi
 only for a Lagrange top (I1 = I2, centre of mass on axis 3; for any other body L.e3 changes as
 the physics says, and its "error" would be a number that means nothing), Kovalevskaya's integral
 only for a Kovalevskaya top. A metric that is no invariant of the body is null.
@@ -156,6 +157,7 @@ class Accumulator:
         has_p_psi: bool = True,
         kov0: float = math.nan,
         kov_scale: float = math.nan,
+        has_p_phi: bool = True,
     ):
         self.e0 = float(e0)
         self.e_scale = float(e_scale)
@@ -165,6 +167,8 @@ class Accumulator:
         self.has_exact = bool(has_exact)
         self.has_norm = bool(has_norm)
         self.has_p_psi = bool(has_p_psi)  # p_psi is an invariant of the body (a Lagrange top)
+        # p_phi = L.e_z is one in uniform gravity only (the gravity gradient's frame turns)
+        self.has_p_phi = bool(has_p_phi)
         self.kov0 = float(kov0)  # NaN unless the body is a Kovalevskaya top
         self.kov_scale = float(kov_scale)
         self.maxima = np.zeros(len(MAX_NAMES))
@@ -187,7 +191,8 @@ class Accumulator:
     ) -> Accumulator:
         """scal0: the start sample's scalar row; mom0: its body angular momentum. has_p_psi and
         has_kovalevskaya say which of those are invariants of the body."""
-        from topdrift.models.body import P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+        from topdrift.models.body import P_FIELD, P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
+        from topdrift.models.field_spec import FIELD_UNIFORM
 
         e0 = float(scal0[S_ENERGY])
         l0 = float(np.linalg.norm(mom0))
@@ -220,6 +225,7 @@ class Accumulator:
             has_p_psi,
             kov0,
             kov_scale,
+            has_p_phi=bool(params[P_FIELD] == FIELD_UNIFORM),
         )
 
     def update(
@@ -282,6 +288,9 @@ class Accumulator:
             "kov0": self.kov0,
             "kov_scale": self.kov_scale,
             "maxima": self.maxima.copy(),
+            # said only where p_phi is no invariant (another field than uniform gravity), so
+            # that a heavy top's checkpoint keeps the layout, and the bits, it always had
+            **({} if self.has_p_phi else {"has_p_phi": 0}),
         }
 
     @classmethod
@@ -311,6 +320,8 @@ class Accumulator:
             bool(s["has_p_psi"]),
             float(s["kov0"]),
             float(s["kov_scale"]),
+            # a checkpoint from before fields is of uniform gravity, where p_phi is an invariant
+            has_p_phi=bool(s.get("has_p_phi", 1)),
         )
         acc.maxima[:] = maxima
         return acc
@@ -334,6 +345,8 @@ class Accumulator:
                 out[name] = None
             elif name == "norm_abs_max" and not self.has_norm:
                 out[name] = None  # the Euler form carries no quaternion to drift
+            elif name == "p_phi_rel_max" and not self.has_p_phi:
+                out[name] = None  # L.e_z is no invariant in this field
             elif name == "p_psi_rel_max" and not self.has_p_psi:
                 out[name] = None  # L.e3 is no invariant of this body
             elif name == "kovalevskaya_rel_max" and not self.has_kovalevskaya:

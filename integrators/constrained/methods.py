@@ -34,6 +34,7 @@ class ConstrainedMethod(SchemeMethod):
 
     # its kernel writes omega = I^-1 m: a gyrostat's rotor is refused, not ignored
     carries_rotors = False
+    carries_fields = False  # its kernel writes M g Gamma x chi (uniform gravity) itself
 
     family = FAMILY
     kernel = staticmethod(rattle_steps)

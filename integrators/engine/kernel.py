@@ -25,6 +25,7 @@ from numba import njit
 
 from topdrift.integrators.base import C_EVALS, C_FORCE_EVALS, C_STEPS, ST_DIVERGED, ST_OK
 from topdrift.models.body import (
+    P_FIELD,
     P_H1,
     P_H2,
     P_H3,
@@ -40,7 +41,10 @@ from topdrift.models.body import (
     P_MGX,
     P_MGY,
     P_MGZ,
+    P_ORBIT_N,
 )
+from topdrift.models.field_spec import FIELD_UNIFORM
+from topdrift.models.fields import field_torque, frame_rate
 from topdrift.models.forms import FORM_BODY
 from topdrift.models.quaternion import qmul, rotate_inverse, vertical_in_body
 
@@ -67,6 +71,8 @@ def _exp_turn(h, w1, w2, w3):
 
 @njit(cache=True, inline="always")
 def _torque(p, q0, q1, q2, q3):
+    if p[P_FIELD] != FIELD_UNIFORM:
+        return field_torque(p, q0, q1, q2, q3)
     g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
     cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
     return g2 * cz - g3 * cy, g3 * cx - g1 * cz, g1 * cy - g2 * cx
@@ -83,6 +89,13 @@ def engine_steps(scheme, y, p, h, nsteps, counters):
     hw1, hw2, hw3 = p[P_HW1], p[P_HW2], p[P_HW3]
     hr1, hr2, hr3 = p[P_H1], p[P_H2], p[P_H3]
     rotor = hr1 != 0.0 or hr2 != 0.0 or hr3 != 0.0
+    # A field with a turning frame (the gravity gradient): the explicit scheme turns q at the
+    # rate relative to the frame; the two semi-implicit ones turn the body at its inertial rate,
+    # as in uniform gravity, and then the frame turn of models/fields.py, exactly (first order
+    # either way).
+    turning = p[P_FIELD] != FIELD_UNIFORM
+    fc = math.cos(0.5 * h * p[P_ORBIT_N])
+    fs = math.sin(0.5 * h * p[P_ORBIT_N])
     done = 0
     for _ in range(nsteps):
         q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
@@ -90,13 +103,16 @@ def engine_steps(scheme, y, p, h, nsteps, counters):
         t1, t2, t3 = _torque(p, q0, q1, q2, q3)
         if scheme == SCHEME_EXPLICIT:
             w1, w2, w3 = m1 * inv1 - hw1, m2 * inv2 - hw2, m3 * inv3 - hw3
+            n1 = m1 + h * (m2 * w3 - m3 * w2 + t1)
+            n2 = m2 + h * (m3 * w1 - m1 * w3 + t2)
+            n3 = m3 + h * (m1 * w2 - m2 * w1 + t3)
+            if turning:
+                f1, f2, f3 = frame_rate(p, q0, q1, q2, q3)
+                w1, w2, w3 = w1 + f1, w2 + f2, w3 + f3
             a0 = q0 + h * 0.5 * (-q1 * w1 - q2 * w2 - q3 * w3)
             a1 = q1 + h * 0.5 * (q0 * w1 + q2 * w3 - q3 * w2)
             a2 = q2 + h * 0.5 * (q0 * w2 - q1 * w3 + q3 * w1)
             a3 = q3 + h * 0.5 * (q0 * w3 + q1 * w2 - q2 * w1)
-            n1 = m1 + h * (m2 * w3 - m3 * w2 + t1)
-            n2 = m2 + h * (m3 * w1 - m1 * w3 + t2)
-            n3 = m3 + h * (m1 * w2 - m2 * w1 + t3)
             r = 1.0 / math.sqrt(a0 * a0 + a1 * a1 + a2 * a2 + a3 * a3)
             a0, a1, a2, a3 = a0 * r, a1 * r, a2 * r, a3 * r
         elif scheme == SCHEME_SEMI_IMPLICIT:
@@ -136,6 +152,8 @@ def engine_steps(scheme, y, p, h, nsteps, counters):
                 n1, n2, n3 = n1 + hr1, n2 + hr2, n3 + hr3
             e0, e1, e2, e3 = _exp_turn(h, v1, v2, v3)
             a0, a1, a2, a3 = qmul(q0, q1, q2, q3, e0, e1, e2, e3)
+        if turning and scheme != SCHEME_EXPLICIT:
+            a0, a1, a2, a3 = qmul(fc, 0.0, fs, 0.0, a0, a1, a2, a3)
         counters[C_EVALS] += 1
         counters[C_FORCE_EVALS] += 1  # one torque per step, in every scheme
         total = a0 + a1 + a2 + a3 + n1 + n2 + n3

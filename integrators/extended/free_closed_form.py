@@ -37,6 +37,8 @@ CHECK_DPS = 32
 
 def refuses(body) -> str | None:
     """Why the closed form is not this body's motion (None when it is)."""
+    if not body.uniform_gravity:
+        return f"the {body.field.kind} field exerts a torque, so the free flow is not its motion"
     if body.has_rotor:
         return "a rotor turns the free flow (a gyrostat), which this closed form is not"
     if torque_free(body):

@@ -32,6 +32,7 @@ from numba import njit
 
 from topdrift.integrators.base import C_EVALS, C_FORCE_EVALS, C_STEPS, ST_DIVERGED, ST_OK
 from topdrift.models.body import (
+    P_FIELD,
     P_HW1,
     P_HW2,
     P_HW3,
@@ -42,6 +43,8 @@ from topdrift.models.body import (
     P_MGY,
     P_MGZ,
 )
+from topdrift.models.field_spec import FIELD_UNIFORM
+from topdrift.models.fields import frame_rate, gradient_torque
 from topdrift.models.forms import FORM_BODY
 from topdrift.models.quaternion import qmul, vertical_in_body
 
@@ -85,11 +88,25 @@ def turned(q0, q1, q2, q3, u1, u2, u3):
 @njit(cache=True, inline="always")
 def rates(p, q0, q1, q2, q3, m1, m2, m3):
     """(w, m') at (q, m): the body rate and the momentum's rate (a gyrostat's w = I^-1 m -
-    I^-1 h; minus 0.0 for a rigid body, which leaves its bits)."""
+    I^-1 h; minus 0.0 for a rigid body, which leaves its bits). w is the rate q turns at: in a
+    field with a turning frame, the rate relative to that frame."""
     w1 = m1 * p[P_INV1] - p[P_HW1]
     w2 = m2 * p[P_INV2] - p[P_HW2]
     w3 = m3 * p[P_INV3] - p[P_HW3]
     g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
+    if p[P_FIELD] != FIELD_UNIFORM:
+        # in the gravity gradient the attitude turns at the rate relative to the orbit frame
+        # and the torque is the gradient's (models/fields.py); the stages' q are unit
+        f1, f2, f3 = frame_rate(p, q0, q1, q2, q3)
+        t1, t2, t3 = gradient_torque(p, g1, g2, g3)
+        return (
+            w1 + f1,
+            w2 + f2,
+            w3 + f3,
+            m2 * w3 - m3 * w2 + t1,
+            m3 * w1 - m1 * w3 + t2,
+            m1 * w2 - m2 * w1 + t3,
+        )
     cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
     return (
         w1,

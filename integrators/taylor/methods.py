@@ -67,6 +67,8 @@ KEEPS_BY_FORM = {"body": (("p_psi",), ())}
 
 
 class TaylorAdaptive(Method):
+    # its series recurrences are those of the uniform-gravity torque (kernel.series)
+    carries_fields = False
     """Taylor series of adaptive order (P_MIN..P_MAX) and step, body form, tolerance control."""
 
     info = MethodInfo(
