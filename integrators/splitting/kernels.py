@@ -30,8 +30,9 @@ from topdrift.integrators.base import (
     ST_OK,
     ST_SINGULAR,
 )
-from topdrift.models.body import P_H3, P_I1, P_I2, P_INV1, P_INV3
+from topdrift.models.body import P_FIELD, P_H3, P_I1, P_I2, P_INV1, P_INV3
 from topdrift.models.dynamics import singular
+from topdrift.models.field_spec import FIELD_UNIFORM
 from topdrift.models.flows import (
     FREE_COMPOSED,
     FREE_EXACT,
@@ -40,6 +41,7 @@ from topdrift.models.flows import (
     flow_b,
     increment_a_with,
     increment_b,
+    kick_body,
 )
 from topdrift.models.forms import FORM_BODY, FORM_EULER
 from topdrift.models.turns import fold_euler
@@ -63,6 +65,17 @@ def _drift(form, free, h, w, p):
 
 
 @njit(cache=True, inline="always")
+def _kick(form, free, h, w, p):
+    """The B flow, for a caller whose form and free flow are constants: the symmetric body's
+    loop (FREE_SYMMETRIC, uniform gravity only) calls the heavy top's kick directly, the rest
+    go through flow_b, which branches on the field."""
+    if form == FORM_BODY and free == FREE_SYMMETRIC:
+        kick_body(h, w, p)
+    else:
+        flow_b(form, h, w, p)
+
+
+@njit(cache=True, inline="always")
 def _plain_steps(form, free, p, kick, drift, nsteps, w, first, counters, turns):
     s = drift.shape[0]
     n = w.shape[0]
@@ -70,11 +83,11 @@ def _plain_steps(form, free, p, kick, drift, nsteps, w, first, counters, turns):
     status = ST_OK
     done = 0
     for _ in range(nsteps):
-        flow_b(form, first, w, p)
+        _kick(form, free, first, w, p)
         first = wrap
         for i in range(s - 1):
             _drift(form, free, drift[i], w, p)
-            flow_b(form, kick[i + 1], w, p)
+            _kick(form, free, kick[i + 1], w, p)
         _drift(form, free, drift[s - 1], w, p)
         acc = 0.0
         for i in range(n):
@@ -123,8 +136,10 @@ def run_plain_body(free, p, kick, drift, nsteps, w, fresh, counters, turns):
     if nsteps <= 0:
         return ST_OK, 0
     first = _opening_kick(kick, fresh)
-    if (free == FREE_EXACT or free == FREE_COMPOSED) and p[P_I1] == p[P_I2]:
-        # both of these free flows are the closed form for I1 = I2
+    symmetric = p[P_I1] == p[P_I2] and p[P_FIELD] == FIELD_UNIFORM
+    if (free == FREE_EXACT or free == FREE_COMPOSED) and symmetric:
+        # both of these free flows are the closed form for I1 = I2; the loop knows the field is
+        # uniform gravity, so neither its free flow nor its kick branches on the field
         return _plain_steps(
             FORM_BODY, FREE_SYMMETRIC, p, kick, drift, nsteps, w, first, counters, turns
         )
