@@ -41,7 +41,6 @@ from topdrift.models.flows import (
     flow_b,
     increment_a_with,
     increment_b,
-    kick_body,
 )
 from topdrift.models.forms import FORM_BODY, FORM_EULER
 from topdrift.models.turns import fold_euler
@@ -65,17 +64,6 @@ def _drift(form, free, h, w, p):
 
 
 @njit(cache=True, inline="always")
-def _kick(form, free, h, w, p):
-    """The B flow, for a caller whose form and free flow are constants: the symmetric body's
-    loop (FREE_SYMMETRIC, uniform gravity only) calls the heavy top's kick directly, the rest
-    go through flow_b, which branches on the field."""
-    if form == FORM_BODY and free == FREE_SYMMETRIC:
-        kick_body(h, w, p)
-    else:
-        flow_b(form, h, w, p)
-
-
-@njit(cache=True, inline="always")
 def _plain_steps(form, free, p, kick, drift, nsteps, w, first, counters, turns):
     s = drift.shape[0]
     n = w.shape[0]
@@ -83,11 +71,11 @@ def _plain_steps(form, free, p, kick, drift, nsteps, w, first, counters, turns):
     status = ST_OK
     done = 0
     for _ in range(nsteps):
-        _kick(form, free, first, w, p)
+        flow_b(form, first, w, p)
         first = wrap
         for i in range(s - 1):
             _drift(form, free, drift[i], w, p)
-            _kick(form, free, kick[i + 1], w, p)
+            flow_b(form, kick[i + 1], w, p)
         _drift(form, free, drift[s - 1], w, p)
         acc = 0.0
         for i in range(n):
@@ -138,8 +126,8 @@ def run_plain_body(free, p, kick, drift, nsteps, w, fresh, counters, turns):
     first = _opening_kick(kick, fresh)
     symmetric = p[P_I1] == p[P_I2] and p[P_FIELD] == FIELD_UNIFORM
     if (free == FREE_EXACT or free == FREE_COMPOSED) and symmetric:
-        # both of these free flows are the closed form for I1 = I2; the loop knows the field is
-        # uniform gravity, so neither its free flow nor its kick branches on the field
+        # both of these free flows are the closed form for I1 = I2; the loop is taken for uniform
+        # gravity only, so its free flow (flow_a_fixed) does not branch on the field
         return _plain_steps(
             FORM_BODY, FREE_SYMMETRIC, p, kick, drift, nsteps, w, first, counters, turns
         )
