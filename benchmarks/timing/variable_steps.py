@@ -19,12 +19,12 @@ from __future__ import annotations
 
 import argparse
 import math
-import platform
 import time
 
 import numpy as np
 
 from topdrift.benchmarks.cases.library import load_case
+from topdrift.benchmarks.gate.machine import fingerprint
 from topdrift.integrators import C_FORCE_EVALS, C_STEPS, ST_OK, get
 from topdrift.models.exact import LagrangeTop
 from topdrift.models.forms import FORM_EULER
@@ -39,14 +39,9 @@ LADDER = {"pole-passage": 17, "sleeping-below": 10, "cusped-release": 10}
 
 
 def cpu() -> str:
-    try:
-        with open("/proc/cpuinfo", encoding="utf-8") as f:
-            for line in f:
-                if line.startswith("model name"):
-                    return line.split(":", 1)[1].strip()
-    except OSError:
-        pass
-    return platform.processor() or platform.machine()
+    """The CPU as the gate fingerprints it: model name, family and model."""
+    fp = fingerprint()
+    return f"{fp['cpu']} (family {fp['family']}, model {fp['model']})"
 
 
 def attitude_error(y: np.ndarray, ref: np.ndarray) -> float:
