@@ -106,7 +106,7 @@ def work_of(j):
 
 
 @njit(cache=True, inline="always")
-def _size(form, k, v, off_phi, off_psi):
+def scaled_size(form, k, v, off_phi, off_psi):
     """|v| of component k with the counted turns put back into phi and psi."""
     if form == FORM_EULER:
         if k == E_PHI:
@@ -165,18 +165,18 @@ def first_derivative(form, p, y, f, counters):
 
 
 @njit(cache=True, inline="always")
-def _line_step(j, h_big, err, hw):
-    """Store H_j and W_j of line j (error err) in hw."""
+def line_step(j, h_big, err, hw, work_j):
+    """Store H_j and W_j of line j (error err; A_j = work_j evaluations) in hw."""
     expo = 1.0 / (2.0 * j - 1.0)
     fmin = FAC1**expo
     fac = min(FAC2 / fmin, max(fmin, (err / SAFE1) ** expo / SAFE2))
     hj = h_big / fac
     hw[j] = hj
-    hw[K_MAX + 1 + j] = work_of(j) / hj
+    hw[K_MAX + 1 + j] = work_j / hj
 
 
 @njit(cache=True, inline="always")
-def _next_order(k, kc, hw):
+def next_order(k, kc, hw):
     """The line of least work after lines up to kc (k - 1, k or k + 1) were computed, by the
     rules of HNW II.9 (from memory): from the last line kc <= k, one down when its work is
     ORDER_DOWN below, one up when the work fell by ORDER_UP from the line below; after line
@@ -266,8 +266,8 @@ def _advance(form, work):
                     if not math.isfinite(tv):
                         bad = True
                     sc = atol + rtol * max(
-                        _size(form, i, y[i], off_phi, off_psi),
-                        _size(form, i, tv, off_phi, off_psi),
+                        scaled_size(form, i, y[i], off_phi, off_psi),
+                        scaled_size(form, i, tv, off_phi, off_psi),
                     )
                     e = (tv - table[n + i]) / sc
                     s2 += e * e
@@ -275,7 +275,7 @@ def _advance(form, work):
                 if bad or not math.isfinite(err):
                     bad = True
                     break
-                _line_step(j, h_big, err, hw)
+                line_step(j, h_big, err, hw, work_of(j))
                 last = j
                 if j == k - 1 and j >= 2:
                     if err <= 1.0:
@@ -302,7 +302,7 @@ def _advance(form, work):
             counters[C_REJECTED] += 1
             continue
         nonfinite = False
-        kn = _next_order(k, last, hw)
+        kn = next_order(k, last, hw)
         if kn <= last:
             hn = hw[kn]
         else:  # the line above the last one computed: H_k scaled by the work (HNW II.9)

@@ -27,6 +27,7 @@ from topdrift.integrators.base import (
     MethodRefused,
 )
 from topdrift.integrators.controlled_stepper import ControlledStepper
+from topdrift.integrators.extrapolation import dense_kernel as dk
 from topdrift.integrators.extrapolation.kernel import (
     CT_H,
     CT_K,
@@ -209,5 +210,182 @@ class GBSStepper(ControlledStepper):
         )
 
 
+# gbs-dense takes a horizon as rk45 and dop853 do: without one no step is ever clipped and the
+# last output comes from the dense output too.
+DENSE_SETTINGS = (*SETTINGS, Setting("horizon", required=False, positive=False))
+
+
+class GraggBulirschStoerDense(Method):
+    """gbs with the step numbers 2, 6, 10, ... and a dense output: steps never end on an output
+    time (dense_kernel.py)."""
+
+    info = MethodInfo(
+        name="gbs-dense",
+        family=FAMILY,
+        order=2 * K_MAX,
+        symplectic=False,
+        forms=("body", "euler"),
+        control="tolerance",
+        keeps=(),
+        keeps_roundoff=("p_psi",),
+        keeps_by_form=KEEPS_BY_FORM,
+        compensated=False,
+        description=(
+            f"Gragg-Bulirsch-Stoer with steps 2, 6, 10, ... (4 j - 2), Aitken-Neville in h^2, "
+            f"order {2 * K_MIN}-{2 * K_MAX} and step by work per unit time; dense output of "
+            "degree 2 k from the midpoint's extrapolated derivatives and both ends, so the steps "
+            "do not depend on the output times"
+        ),
+        source=(
+            "Hairer, Norsett and Wanner, Solving ODEs I, 2nd ed., sec. II.9 (dense output after "
+            "Hairer and Ostermann 1990)"
+        ),
+    )
+
+    @property
+    def settings_spec(self):
+        return DENSE_SETTINGS
+
+    def start(self, form, params, t0, y0, settings) -> GBSDenseStepper:
+        s = self.settings(settings)
+        horizon = s["horizon"]
+        if horizon is not None and not horizon > float(t0):
+            raise MethodRefused(
+                f"{self.name}: horizon {horizon!r} must be later than the start {float(t0)!r}"
+            )
+        return GBSDenseStepper.begin(self, int(form), params, float(t0), y0, s)
+
+
+class GBSDenseStepper(ControlledStepper):
+    """A run of gbs-dense: yi is the state at ctrl[CT_T] (at or past the last output time),
+    f = rhs(yi); dense holds the polynomial of the last accepted step when it served an output."""
+
+    method: GraggBulirschStoerDense
+    horizon: float | None
+
+    @classmethod
+    def begin(cls, method, form: int, params, t0: float, y0, s: dict):
+        y0 = np.ascontiguousarray(y0, dtype=np.float64).copy()
+        n = FORM_SIZE[form]
+        if y0.shape != (n,):
+            raise MethodRefused(f"{method.name}: state has shape {y0.shape}, the form needs {n}")
+        params = np.ascontiguousarray(params, dtype=np.float64)
+        st = cls(form=form, params=params, t=t0, y=y0.copy())
+        st.method = method
+        st.settings = s
+        st.horizon = s["horizon"]
+        st.kernel = dk.advance_kernel(form)
+        st.tol = np.empty(dk.N_TOL)
+        st.tol[dk.TL_RTOL] = s["rtol"]
+        st.tol[dk.TL_ATOL] = s["atol"]
+        st.tol[dk.TL_HORIZON] = np.inf if st.horizon is None else st.horizon
+        st.yi = y0
+        st.f = np.empty(n)
+        st.table = np.zeros(K_MAX * n)
+        st.za = np.empty(n)
+        st.zb = np.empty(n)
+        st.ft = np.empty(n)
+        st.fl = np.zeros((dk.N_MAX + 1) * n)
+        st.zm = np.zeros(n)
+        st.mid = np.zeros(K_MAX * (dk.M_MAX + 1) * n)
+        st.dtab = np.zeros(K_MAX * n)
+        st.dense = np.zeros(dk.N_COEF * n)
+        st.hw = np.zeros(dk.N_WORK)
+        st.ctrl = np.zeros(dk.N_CTRL)
+        st.counters = np.zeros(N_COUNTERS, dtype=np.int64)
+        first_derivative(form, params, st.yi, st.f, st.counters)
+        k = start_line(s["rtol"])
+        h0 = start_step(
+            form, params, st.yi, st.f, st.za, st.ft, s["rtol"], s["atol"], 2 * k, st.counters
+        )
+        if st.horizon is not None:
+            h0 = min(h0, st.horizon - t0)
+        if not (np.isfinite(h0) and h0 > 0.0):
+            raise MethodRefused(f"{method.name}: no finite step from the start state")
+        st.ctrl[dk.CT_T] = t0
+        st.ctrl[dk.CT_H] = h0
+        st.ctrl[dk.CT_K] = k
+        st.ctrl[dk.CT_T_OLD] = t0
+        return st
+
+    CT_T = dk.CT_T
+    ARRAYS = ("y", "yi", "f", "dense", "ctrl", "counters", "turns")
+
+    def check_target(self, t_end: float) -> None:
+        super().check_target(t_end)
+        if self.horizon is not None and t_end > self.horizon:
+            raise MethodRefused(
+                f"{self.method.name}: asked for t = {t_end!r}, past the horizon {self.horizon!r} "
+                f"the run was started with"
+            )
+
+    def call_kernel(self, t_end: float, y_out: np.ndarray) -> int:
+        return self.kernel(
+            (
+                self.params,
+                self.tol,
+                self.yi,
+                self.f,
+                self.table,
+                self.za,
+                self.zb,
+                self.ft,
+                self.fl,
+                self.zm,
+                self.mid,
+                self.dtab,
+                self.dense,
+                self.hw,
+                self.ctrl,
+                self.counters,
+                t_end,
+                y_out,
+                self.turns,
+            )
+        )
+
+    @property
+    def t_internal(self) -> float:
+        """End of the last accepted step (at or after self.t)."""
+        return float(self.ctrl[dk.CT_T])
+
+    @property
+    def step_proposed(self) -> float:
+        return float(self.ctrl[dk.CT_H])
+
+    def snapshot_fields(self) -> dict:
+        n = self.yi.shape[0]
+        state = (np.float64, (n,))
+        return {
+            **stepper_fields(N_COUNTERS),
+            "y": state,
+            "yi": state,
+            "f": (np.float64, (n,), FINITE_WHILE_OK),
+            "dense": (np.float64, self.dense.shape),
+            "ctrl": (np.float64, (dk.N_CTRL,)),
+            "turns": (np.int64, self.turns.shape),
+        }
+
+    def controller_sound(self, snap: dict) -> bool:
+        # The internal state at or past the output time, the last step reaching back to it
+        # with its polynomial built (unless it ends there), a step and a line to try.
+        ctrl, t = snap["ctrl"], snap["t"]
+        k = ctrl[dk.CT_K]
+        degree = ctrl[dk.CT_DEGREE]
+        landed = ctrl[dk.CT_T] == t
+        return bool(
+            ctrl[dk.CT_T_OLD] <= t <= ctrl[dk.CT_T]
+            and ctrl[dk.CT_H] > 0.0
+            and k == int(k)
+            and K_MIN <= k <= K_MAX - 1
+            and ctrl[dk.CT_REJECTED] in (0.0, 1.0)
+            and ctrl[dk.CT_DENSE_OK] in (0.0, 1.0)
+            and (landed or (ctrl[dk.CT_DENSE_OK] == 1.0 and ctrl[dk.CT_H_PREV] > 0.0))
+            and degree == int(degree)
+            and 0 <= degree < dk.N_COEF
+        )
+
+
 GBS = GraggBulirschStoer()
-METHODS = [GBS]
+GBS_DENSE = GraggBulirschStoerDense()
+METHODS = [GBS, GBS_DENSE]
