@@ -31,6 +31,8 @@ from pathlib import Path
 
 import numba.core.config as numba_config
 
+from . import field_plugins
+
 ENV_SWITCH = "TOPDRIFT_KERNEL_CACHE"
 STALE_DAYS = 14
 ROOTS = ("models", "integrators", "benchmarks")
@@ -46,7 +48,8 @@ def source_root() -> Path:
 
 def kernel_digest(root: Path | None = None) -> str:
     """A digest of the names and contents of every .py file under the three roots that mentions
-    numba, in a fixed order: it changes when any kernel's code, or code it can inline, does."""
+    numba, in a fixed order, and of the plug-in fields' dispatch module and sources: it changes
+    when any kernel's code, or code it can inline, does."""
     root = source_root() if root is None else root
     h = hashlib.sha256()
     for sub in ROOTS:
@@ -62,6 +65,8 @@ def kernel_digest(root: Path | None = None) -> str:
             h.update(data)
             h.update(b"\0")
     h.update(numba_config.__file__.encode())  # another numba install is another cache
+    # the plug-in fields: their dispatch module's text and their sources (field_plugins.py)
+    h.update(field_plugins.source_digest_bytes())
     return h.hexdigest()[:16]
 
 
