@@ -318,6 +318,11 @@ class Method(ABC):
         for f in self.info.forms:
             if f == "body" or body.lagrange_top:
                 return f
+        if not body.uniform_gravity:
+            raise MethodRefused(
+                f"{self.name}: works only in the Euler-angle form, which needs uniform gravity "
+                f"(phi cyclic); this case is in the {body.field.kind} field"
+            )
         raise MethodRefused(
             f"{self.name}: works only in the Euler-angle form, which needs a symmetric body "
             f"(I1 = I2) with its centre of mass and any rotor on axis 3; this body is not one"

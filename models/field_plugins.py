@@ -18,7 +18,7 @@ from __future__ import annotations
 
 import importlib.util
 import math
-from functools import lru_cache
+from functools import cache, lru_cache
 from importlib.metadata import entry_points
 from pathlib import Path
 
@@ -159,7 +159,7 @@ def _check(name: str, obj) -> None:
         raise PluginFieldError(f"field plug-in {name!r}: a conservative field needs a potential")
 
 
-@lru_cache(maxsize=None)
+@cache
 def loaded_or_none(name: str):
     """The plug-in object of that name, checked against the contract, or None when it cannot be
     loaded or breaks the contract (load_error says why): one broken plug-in must not stop
@@ -230,9 +230,7 @@ class PluginField:
     numba functions, potential None for a field that is no gradient), conservative, keeps (a
     set of "p_phi", "p_psi", or a function of the constants giving one)."""
 
-    def __init__(
-        self, name, description, keys, params, torque, potential, conservative, keeps=()
-    ):
+    def __init__(self, name, description, keys, params, torque, potential, conservative, keeps=()):
         self.name = name
         self.description = description
         self.keys = dict(keys)

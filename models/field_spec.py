@@ -45,8 +45,10 @@ class Field:
         if self.plugin:
             self._plugin_constants()
         elif self.table or self.constants:
-            raise FieldError(f"{self.table[0][0] if self.table else 'constants'}: the "
-                             f"{self.kind} field takes no such key")
+            raise FieldError(
+                f"{self.table[0][0] if self.table else 'constants'}: the "
+                f"{self.kind} field takes no such key"
+            )
         n = self.orbit_rate
         if isinstance(n, bool) or not isinstance(n, (int, float)):
             raise FieldError(f"orbit_rate: expected a number, got {type(n).__name__}")
