@@ -6,7 +6,9 @@ size). A kernel that inlines or calls one from another file keeps its old machin
 callee compiled in, after the callee's file changes; a stale cache once gave a wrong dop853 after
 the rotor change (measured: wrong end states, no error). A digest over the contents of all the
 files that hold kernels changes with any of them, and the kernels are then compiled again into a
-new folder: slower after an edit, never wrong.
+new folder: slower after an edit, never wrong. The plug-in fields' dispatch module and sources
+(field_plugins.py) are part of the digest for the same reason: the kernels inline the dispatch,
+which calls the plug-ins' functions.
 
 The folder: $NUMBA_CACHE_DIR/topdrift-<digest> when that variable is set, else
 $XDG_CACHE_HOME/topdrift/numba/<digest> (~/.cache/topdrift/numba/<digest>). Folders of other
