@@ -289,6 +289,11 @@ class Method(ABC):
     # Whether its kernels evaluate the field through models (dynamics.rhs, flows, fields): a
     # kernel that writes the uniform-gravity torque M g Gamma x chi itself cannot run another.
     carries_fields: bool = True
+    # Whether its step applies the field's torque as the kick m += h tau(q) with q held, the
+    # exact flow of a potential of the attitude: a splitting. It then cannot run a field whose
+    # torque is no gradient (a plug-in's damping or control law, models/field_plugins.py), whose
+    # kick would be no exact flow of anything; the others integrate such a torque as it is.
+    kicks_potential: bool = False
 
     info: MethodInfo
 
@@ -313,6 +318,11 @@ class Method(ABC):
         for f in self.info.forms:
             if f == "body" or body.lagrange_top:
                 return f
+        if not body.uniform_gravity:
+            raise MethodRefused(
+                f"{self.name}: works only in the Euler-angle form, which needs uniform gravity "
+                f"(phi cyclic); this case is in the {body.field.kind} field"
+            )
         raise MethodRefused(
             f"{self.name}: works only in the Euler-angle form, which needs a symmetric body "
             f"(I1 = I2) with its centre of mass and any rotor on axis 3; this body is not one"
@@ -344,6 +354,12 @@ class Method(ABC):
             raise MethodRefused(
                 f"{self.name}: its kernel writes the uniform-gravity torque itself; this case is "
                 f"in the {body.field.kind} field"
+            )
+        if self.kicks_potential and not body.field.conservative:
+            raise MethodRefused(
+                f"{self.name}: a splitting kicks m += h tau(q), the exact flow of a potential; "
+                f"the {body.field.kind} field's torque is no gradient (it depends on more than "
+                f"the attitude): use a Runge-Kutta, Gauss, extrapolation or Lie-group method"
             )
         self.settings(settings)
 

@@ -40,7 +40,11 @@ P_ROTOR_GENERAL = 15
 P_FIELD = 16
 P_ORBIT_N = 17
 P_GG3N2 = 18
-NPARAM = 19
+# A plug-in field's constants (models/field_plugins.py), in the order its params() gives them;
+# 0.0 for the built-in fields and for slots a plug-in leaves unused.
+P_FIELD_C0 = 19
+N_FIELD_CONSTANTS = 8
+NPARAM = P_FIELD_C0 + N_FIELD_CONSTANTS
 
 # Relative tolerance for "symmetric" and "on the axis": bodies built from geometry carry
 # round-off in their moments, and an exactly solvable case should still be recognised.
@@ -132,6 +136,24 @@ class RigidBody:
         return self.field.uniform
 
     @property
+    def keeps_energy(self) -> bool:
+        """Energy is an invariant: every field but a plug-in one whose torque is no gradient."""
+        return self.field.conservative
+
+    @property
+    def keeps_p_phi(self) -> bool:
+        """L.e_z is an invariant: uniform gravity, or a plug-in field that says so."""
+        return "p_phi" in self.field.keeps()
+
+    @property
+    def keeps_p_psi(self) -> bool:
+        """L.e3 is an invariant: a Lagrange top (or gyrostat) in uniform gravity, or a symmetric
+        body (any rotor on axis 3) in a plug-in field that says the field keeps it."""
+        if self.field.uniform:
+            return self.lagrange_top
+        return "p_psi" in self.field.keeps() and self.symmetric and self.rotor_on_axis
+
+    @property
     def weight(self) -> float:
         return self.mass * self.gravity
 
@@ -213,6 +235,9 @@ class RigidBody:
         p[P_FIELD] = float(self.field.code)
         p[P_ORBIT_N] = n
         p[P_GG3N2] = 3.0 * n * n
+        c = self.field.constants
+        p[P_FIELD_C0 : P_FIELD_C0 + N_FIELD_CONSTANTS] = 0.0
+        p[P_FIELD_C0 : P_FIELD_C0 + len(c)] = c
         return p
 
     def as_dict(self) -> dict:

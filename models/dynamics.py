@@ -24,7 +24,7 @@ from .body import (
     P_MGZ,
 )
 from .field_spec import FIELD_UNIFORM
-from .fields import frame_rate, gradient_torque
+from .fields import frame_rate, other_torque
 from .forms import FORM_EULER
 from .quaternion import vertical_in_body
 
@@ -75,16 +75,16 @@ def rhs_body(y, p, dy):
 def rhs_field(y, p, dy):
     """The body form in a field other than uniform gravity (models/fields.py): the attitude
     turns at the rate relative to the field's frame, w + n R^T e_y, and the momentum feels the
-    gravity-gradient torque, m' = m x w + 3 n^2 Gamma x I Gamma. A function of its own, chosen
-    by `rhs`, so that rhs_body, the heavy top's, is compiled exactly as before fields."""
+    gravity-gradient torque, m' = m x w + 3 n^2 Gamma x I Gamma; a plug-in field's frame does not
+    turn (n = 0) and its torque is its own. A function of its own, chosen by `rhs`, so that
+    rhs_body, the heavy top's, is compiled exactly as before fields."""
     q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
     m1, m2, m3 = y[4], y[5], y[6]
     w1 = m1 * p[P_INV1] - p[P_HW1]
     w2 = m2 * p[P_INV2] - p[P_HW2]
     w3 = m3 * p[P_INV3] - p[P_HW3]
-    g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
     f1, f2, f3 = frame_rate(p, q0, q1, q2, q3)
-    t1, t2, t3 = gradient_torque(p, g1, g2, g3)
+    t1, t2, t3 = other_torque(p, q0, q1, q2, q3, m1, m2, m3)
     r1, r2, r3 = w1 + f1, w2 + f2, w3 + f3
     dy[0] = 0.5 * (-q1 * r1 - q2 * r2 - q3 * r3)
     dy[1] = 0.5 * (q0 * r1 + q2 * r3 - q3 * r2)

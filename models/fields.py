@@ -28,6 +28,13 @@ of A = T + n L_y is the free flow followed by the frame turn, q <- Rot(e_y, n h)
 (an inertially fixed body seen from the orbit frame turns at +n about e_y). V depends on the
 attitude only, so its flow is the exact kick m += h tau. The splittings stay compositions of
 exact flows.
+
+plug-in fields (codes 2, 3, ...; models/field_plugins.py): torque and potential from the
+plug-in's own compiled functions, reached through the generated dispatch (plugin_dispatch.py).
+They are written in inertial axes (P_ORBIT_N is 0.0, so frame_rate is zero and frame_turn the
+identity, bit for bit) and their torque may depend on the momentum too (damping, a control
+law): the kick m += h tau(q, m) is then exact only for a conservative field, whose torque is of
+the attitude alone; the splittings refuse the others (integrators/splitting/methods.py).
 """
 
 from __future__ import annotations
@@ -37,7 +44,8 @@ import math
 from numba import njit
 
 from .body import P_FIELD, P_GG3N2, P_I1, P_I2, P_I3, P_MGX, P_MGY, P_MGZ, P_ORBIT_N
-from .field_spec import FIELD_UNIFORM
+from .field_spec import FIELD_GRAVITY_GRADIENT, FIELD_UNIFORM
+from .plugin_dispatch import plugin_potential, plugin_torque
 from .quaternion import qmul, vertical_in_body
 
 
@@ -63,14 +71,33 @@ def gradient_torque(p, g1, g2, g3):
 
 
 @njit(cache=True, inline="always")
-def field_torque(p, q0, q1, q2, q3):
-    """The field's torque in body axes at the attitude q (need not be unit for uniform gravity,
-    which uses the unnormalised vertical as every kernel did before fields)."""
-    g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
+def other_torque(p, q0, q1, q2, q3, m1, m2, m3):
+    """The torque in body axes of a field other than uniform gravity: the gravity gradient's
+    (of q alone) or a plug-in's (of q, and of m for a non-conservative one)."""
+    if p[P_FIELD] == FIELD_GRAVITY_GRADIENT:
+        g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
+        return gradient_torque(p, g1, g2, g3)
+    return plugin_torque(p, q0, q1, q2, q3, m1, m2, m3)
+
+
+@njit(cache=True, inline="always")
+def other_potential(p, q0, q1, q2, q3, g1, g2, g3):
+    """The potential of a field other than uniform gravity at a unit q (g: its nadir/vertical
+    R^T e_z, which the gravity gradient takes)."""
+    if p[P_FIELD] == FIELD_GRAVITY_GRADIENT:
+        return gradient_potential(p, g1, g2, g3)
+    return plugin_potential(p, q0, q1, q2, q3)
+
+
+@njit(cache=True, inline="always")
+def field_torque(p, q0, q1, q2, q3, m1, m2, m3):
+    """The field's torque in body axes at the state (q, m) (q need not be unit for uniform
+    gravity, which uses the unnormalised vertical as every kernel did before fields)."""
     if p[P_FIELD] == FIELD_UNIFORM:
+        g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
         cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
         return g2 * cz - g3 * cy, g3 * cx - g1 * cz, g1 * cy - g2 * cx
-    return gradient_torque(p, g1, g2, g3)
+    return other_torque(p, q0, q1, q2, q3, m1, m2, m3)
 
 
 @njit(cache=True, inline="always")
@@ -122,20 +149,19 @@ def frame_turn_increment(h, y, p, d):
 
 
 @njit(cache=True, error_model="numpy")
-def gradient_kick(h, y, p):
-    """Exact flow of V over h: q fixed, m += h tau(q). Gamma from a quaternion whose norm is 1
-    to round-off (the kernels renormalise it)."""
-    g1, g2, g3 = vertical_in_body(y[0], y[1], y[2], y[3])
-    t1, t2, t3 = gradient_torque(p, g1, g2, g3)
+def field_kick(h, y, p):
+    """Exact flow of V over h for a field other than uniform gravity: q fixed, m += h tau(q).
+    Gamma from a quaternion whose norm is 1 to round-off (the kernels renormalise it). Exact
+    for the gravity gradient and a conservative plug-in (torque of q alone)."""
+    t1, t2, t3 = other_torque(p, y[0], y[1], y[2], y[3], y[4], y[5], y[6])
     y[4] += h * t1
     y[5] += h * t2
     y[6] += h * t3
 
 
 @njit(cache=True, error_model="numpy")
-def gradient_kick_increment(h, y, p, d):
-    g1, g2, g3 = vertical_in_body(y[0], y[1], y[2], y[3])
-    t1, t2, t3 = gradient_torque(p, g1, g2, g3)
+def field_kick_increment(h, y, p, d):
+    t1, t2, t3 = other_torque(p, y[0], y[1], y[2], y[3], y[4], y[5], y[6])
     d[0] = 0.0
     d[1] = 0.0
     d[2] = 0.0

@@ -21,8 +21,9 @@ each turn's T_k = (m_k - h_k)^2 / (2 I_k) depends on m_k alone.
 
 In a field other than uniform gravity (models/fields.py) A is T + n e_y.(R m), the free flow
 followed by the frame turn (the two commute), and B the field's potential, the gravity-gradient
-kick; the Euler form is refused there (phi is not cyclic). Uniform gravity takes the branches it
-always took, so a heavy top's bits are unchanged.
+kick; the Euler form is refused there (phi is not cyclic). A plug-in field (fields.py) takes the
+same branches: its frame does not turn (the frame turn by n = 0 is the identity) and B is its
+kick. Uniform gravity takes the branches it always took, so a heavy top's bits are unchanged.
 
 The body form has a second, cheaper free flow for I1 != I2: the symmetric part and one rotation
 about body axis 2, composed symmetrically (second order in the step, exact for I1 = I2). A
@@ -51,7 +52,7 @@ from .body import (
     P_MGZ,
 )
 from .field_spec import FIELD_UNIFORM
-from .fields import frame_turn, frame_turn_increment, gradient_kick, gradient_kick_increment
+from .fields import field_kick, field_kick_increment, frame_turn, frame_turn_increment
 from .forms import FORM_EULER
 from .free_asymmetric import free_asymmetric, free_asymmetric_increment
 from .quaternion import qmul, rotate, vertical_in_body
@@ -345,7 +346,7 @@ def flow_b(form, h, y, p):
     elif p[P_FIELD] == FIELD_UNIFORM:
         kick_body(h, y, p)
     else:
-        gradient_kick(h, y, p)
+        field_kick(h, y, p)
 
 
 # Increment forms of the sub-flows, for compensated summation: each writes d = flow(y) - y
@@ -528,4 +529,4 @@ def increment_b(form, h, y, p, d):
     elif p[P_FIELD] == FIELD_UNIFORM:
         kick_body_increment(h, y, p, d)
     else:
-        gradient_kick_increment(h, y, p, d)
+        field_kick_increment(h, y, p, d)

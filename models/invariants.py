@@ -13,6 +13,9 @@ kov     Kovalevskaya's integral |(w1 + i w2)^2 - c (G1 + i G2)|^2, c = M g |chi|
 In the gravity gradient (models/fields.py) "energy" is the Jacobi integral of the orbit frame,
 T + V + n e_y.(R m) with V = (3 n^2 / 2) Gamma.I Gamma; p_phi and p_psi are still L.e_z and m3
 (written so that a run can show them) but are no invariants there: the metrics null them.
+A plug-in field's energy is T + its potential (zero for one without a potential); whether it,
+p_phi and p_psi are invariants the field says (models/field_plugins.py), and the metrics null
+those it breaks.
 """
 
 from __future__ import annotations
@@ -39,7 +42,7 @@ from .body import (
     P_ORBIT_N,
 )
 from .field_spec import FIELD_UNIFORM
-from .fields import gradient_potential, orbit_axis_in_body
+from .fields import orbit_axis_in_body, other_potential
 from .forms import FORM_EULER
 from .quaternion import vertical_in_body
 
@@ -91,7 +94,7 @@ def invariants(form, y, p, out):
         a1, a2, a3 = orbit_axis_in_body(y[0], y[1], y[2], y[3])
         out[INV_ENERGY] = (
             0.5 * (s1 * w1 + s2 * w2 + s3 * w3)
-            + gradient_potential(p, g1, g2, g3)
+            + other_potential(p, y[0] / nq, y[1] / nq, y[2] / nq, y[3] / nq, g1, g2, g3)
             + p[P_ORBIT_N] * (a1 * m1 + a2 * m2 + a3 * m3) / (nq * nq)
         )
     else:

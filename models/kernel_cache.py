@@ -6,7 +6,9 @@ size). A kernel that inlines or calls one from another file keeps its old machin
 callee compiled in, after the callee's file changes; a stale cache once gave a wrong dop853 after
 the rotor change (measured: wrong end states, no error). A digest over the contents of all the
 files that hold kernels changes with any of them, and the kernels are then compiled again into a
-new folder: slower after an edit, never wrong.
+new folder: slower after an edit, never wrong. The plug-in fields' dispatch module and sources
+(field_plugins.py) are part of the digest for the same reason: the kernels inline the dispatch,
+which calls the plug-ins' functions.
 
 The folder: $NUMBA_CACHE_DIR/topdrift-<digest> when that variable is set, else
 $XDG_CACHE_HOME/topdrift/numba/<digest> (~/.cache/topdrift/numba/<digest>). Folders of other
@@ -31,6 +33,8 @@ from pathlib import Path
 
 import numba.core.config as numba_config
 
+from . import field_plugins
+
 ENV_SWITCH = "TOPDRIFT_KERNEL_CACHE"
 STALE_DAYS = 14
 ROOTS = ("models", "integrators", "benchmarks")
@@ -46,7 +50,8 @@ def source_root() -> Path:
 
 def kernel_digest(root: Path | None = None) -> str:
     """A digest of the names and contents of every .py file under the three roots that mentions
-    numba, in a fixed order: it changes when any kernel's code, or code it can inline, does."""
+    numba, in a fixed order, and of the plug-in fields' dispatch module and sources: it changes
+    when any kernel's code, or code it can inline, does."""
     root = source_root() if root is None else root
     h = hashlib.sha256()
     for sub in ROOTS:
@@ -62,6 +67,8 @@ def kernel_digest(root: Path | None = None) -> str:
             h.update(data)
             h.update(b"\0")
     h.update(numba_config.__file__.encode())  # another numba install is another cache
+    # the plug-in fields: their dispatch module's text and their sources (field_plugins.py)
+    h.update(field_plugins.source_digest_bytes())
     return h.hexdigest()[:16]
 
 

@@ -155,7 +155,7 @@ def test_cases_json_lists_the_library(capsys):
     rows = {r["name"]: r for r in info["cases"]}
     assert set(rows) == set(library_paths())
     for r in rows.values():
-        assert set(r) == {"name", "description", "path", "exact"}
+        assert set(r) == {"name", "description", "path", "exact", "field"}
         assert isinstance(r["exact"], bool)
     assert rows["demo-wheel"]["exact"] and rows["pole-passage"]["exact"]
     assert not rows["kovalevskaya"]["exact"] and not rows["free-asymmetric"]["exact"]

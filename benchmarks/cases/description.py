@@ -13,6 +13,8 @@ EULER_KEYS = ("phi", "theta", "psi", "p_phi", "p_theta", "p_psi")
 
 def body_kind(case: Case) -> str:
     b = case.body
+    if b.field.plugin:
+        return "plugin-field"
     if not b.uniform_gravity:
         return b.field.kind
     if b.lagrange_top:
@@ -45,6 +47,32 @@ def exact_summary(case: Case) -> tuple[dict | None, str | None]:
     except ExactUnavailable as exc:
         return None, str(exc)
     return {k: _finite_or_none(v) for k, v in summary.items()}, None
+
+
+def _p_psi(case: Case, value: float) -> float | None:
+    b = case.body
+    if b.field.plugin:
+        return value if b.keeps_p_psi else None
+    if not b.uniform_gravity or (b.has_rotor and not b.lagrange_top):
+        return None
+    return value
+
+
+def plugin_summary(case: Case) -> dict | None:
+    """A plug-in field's own words: what it is, its keys, whether its torque is a gradient."""
+    f = case.body.field
+    if not f.plugin:
+        return None
+    from topdrift.models.field_plugins import load
+
+    plugin = load(f.kind)
+    return {
+        "kind": f.kind,
+        "description": str(plugin.description),
+        "keys": {k: str(v) for k, v in plugin.keys.items()},
+        "conservative": f.conservative,
+        "keeps": sorted(({"energy"} if f.conservative else set()) | set(f.keeps())),
+    }
 
 
 def summarise(case: Case) -> dict:
@@ -92,19 +120,22 @@ def summarise(case: Case) -> dict:
             "euler": euler,
         },
         "invariants": {
-            # in the gravity gradient: the Jacobi integral of the orbit frame
-            "energy": inv["energy"],
-            # L.e_z is a momentum of the motion in uniform gravity only (null in another field)
-            "p_phi": inv["p_phi"] if case.body.uniform_gravity else None,
+            # in the gravity gradient: the Jacobi integral of the orbit frame; null for a
+            # plug-in field whose torque is no gradient
+            "energy": inv["energy"] if case.body.keeps_energy else None,
+            # L.e_z is a momentum of the motion in uniform gravity only (null in another field,
+            # unless a plug-in field says it keeps it)
+            "p_phi": inv["p_phi"] if case.body.keeps_p_phi else None,
             # an off-axis rotor turns m3, and so does the gravity gradient: p_psi is then no
-            # momentum of the motion (null)
-            "p_psi": None
-            if not case.body.uniform_gravity or (case.body.has_rotor and not case.body.lagrange_top)
-            else inv["p_psi"],
+            # momentum of the motion (null); a plug-in field says
+            "p_psi": _p_psi(case, inv["p_psi"]),
             "kovalevskaya": inv["kovalevskaya"] if case.body.kovalevskaya else None,
         },
         "exact": exact,
     }
+    plugin = plugin_summary(case)
+    if plugin is not None:
+        out["plugin_field"] = plugin
     if euler_reason is not None:
         out["start"]["euler_unavailable"] = euler_reason
     if reason is not None:

@@ -25,7 +25,7 @@ from topdrift.models import (
     body_state,
     euler_state,
 )
-from topdrift.models.field_spec import FIELD_KINDS, Field, FieldError
+from topdrift.models.field_spec import FIELD_KINDS, Field, FieldError, known_kinds
 from topdrift.models.wheel import WheelSpec, demo_wheel
 
 FORMAT_VERSION = 1
@@ -305,13 +305,18 @@ class _Reader:
 
     def field(self, t: dict, body: RigidBody) -> RigidBody:
         """[field] kind = "uniform-gravity" (the default) or "gravity-gradient", with orbit_rate
-        (the orbit's mean motion, a rate: "0.0011 rad/s" or a number in rad/s) for the latter."""
-        self.keys(t, FIELD_KEYS, (), "field.")
+        (the orbit's mean motion, a rate: "0.0011 rad/s" or a number in rad/s) for the latter,
+        or the name of a plug-in field (entry-point group topdrift.fields) with its own keys."""
         kind = self.text(t.get("kind", "uniform-gravity"), "field.kind")
-        if kind not in FIELD_KINDS:
+        if kind not in known_kinds():
             self.fail(
-                "field.kind", f"{kind!r}: no such field; expected one of {', '.join(FIELD_KINDS)}"
+                "field.kind",
+                f"{kind!r}: no such field is built in or installed; expected one of "
+                f"{', '.join(known_kinds())}",
             )
+        if kind not in FIELD_KINDS:
+            return self.plugin_field(kind, t, body)
+        self.keys(t, FIELD_KEYS, (), "field.")
         if kind == "uniform-gravity":
             if "orbit_rate" in t:
                 self.fail("field.orbit_rate", "uniform gravity has no orbit; leave it out")
@@ -334,6 +339,33 @@ class _Reader:
         except FieldError as exc:
             key, _, what = str(exc).partition(": ")
             self.fail(f"field.{key}", what)
+        try:
+            return dataclasses.replace(body, field=field)
+        except BodyError as exc:
+            key, _, what = str(exc).partition(": ")
+            self.fail(f"body.{key}", what)
+
+    def plugin_field(self, kind: str, t: dict, body: RigidBody) -> RigidBody:
+        """A plug-in field's [field] table: every value a plain number (SI units, as the field's
+        keys say) or an array of them, range-checked here; what they mean the field's own
+        params() checks, its message naming the key."""
+        table = []
+        for key, value in t.items():
+            if key == "kind":
+                continue
+            where = f"field.{key}"
+            if isinstance(value, list):
+                value = tuple(self.number(v, f"{where}[{i}]") for i, v in enumerate(value))
+            else:
+                value = self.number(value, where)
+            table.append((key, value))
+        try:
+            field = Field(kind, 0.0, tuple(table))
+        except FieldError as exc:
+            key, _, what = str(exc).partition(": ")
+            self.fail(f"field.{key}", what)
+        for i, c in enumerate(field.constants):
+            self.in_range(c, f"field.{kind} constant {i}")
         try:
             return dataclasses.replace(body, field=field)
         except BodyError as exc:

@@ -23,11 +23,13 @@ def run(args) -> int:
             "description": c.description,
             "path": str(c.path),
             "exact": c.body.lagrange_top,  # the exact solution applies
+            "field": c.body.field.kind,
         }
         for c in cases
     ]
+    fields = field_rows()
     if args.json:
-        print(json.dumps({"cases": rows}, indent=2))
+        print(json.dumps({"cases": rows, "fields": fields}, indent=2))
         return 0
     width = max(60, min(shutil.get_terminal_size((100, 24)).columns, 120))
     name_w = max((len(r["name"]) for r in rows), default=4)
@@ -40,4 +42,41 @@ def run(args) -> int:
         for line in lines[1:]:
             print(indent + line)
     print(f"\n{len(rows)} cases in {library_dir()}")
+    plugins = [f for f in fields if f["plugin"]]
+    print(
+        "fields a case may name: "
+        + ", ".join(f["kind"] for f in fields if not f["plugin"])
+        + (", and the plug-ins " + ", ".join(_plugin_text(f) for f in plugins) if plugins else "")
+    )
     return 0
+
+
+def _plugin_text(f: dict) -> str:
+    if f.get("error"):
+        return f"{f['kind']} (broken: {f['error']})"
+    keys = ", ".join(f["keys"]) or "no keys"
+    return f"{f['kind']} ({keys}; {'a gradient' if f['conservative'] else 'no gradient'})"
+
+
+def field_rows() -> list[dict]:
+    """The built-in fields and the installed plug-in fields (topdrift.fields), with their keys."""
+    from topdrift.models.field_plugins import PluginFieldError, load, names
+    from topdrift.models.field_spec import FIELD_KINDS
+
+    rows = [{"kind": k, "plugin": False} for k in FIELD_KINDS]
+    for name in names():
+        try:
+            plugin = load(name)
+        except PluginFieldError as exc:
+            rows.append({"kind": name, "plugin": True, "error": str(exc)})
+            continue
+        rows.append(
+            {
+                "kind": name,
+                "plugin": True,
+                "description": str(plugin.description),
+                "keys": {k: str(v) for k, v in plugin.keys.items()},
+                "conservative": bool(plugin.conservative),
+            }
+        )
+    return rows

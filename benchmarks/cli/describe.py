@@ -18,6 +18,7 @@ KIND_TEXT = {
     "asymmetric": "asymmetric heavy top",
     "gravity-gradient": "rigid body about its centre of mass in the gravity gradient of a circular "
     "orbit (attitude relative to the orbit frame)",
+    "plugin-field": "rigid body about its centre of mass in a plug-in field (inertial axes)",
 }
 
 
@@ -114,6 +115,25 @@ def _rate(x: float) -> str:
     return f"{x:.6g} rad/s ({x * 60 / (2 * math.pi):.6g} rpm)"
 
 
+def _field_rows(field, plugin, b) -> list[tuple[str, str, str]]:
+    if plugin:
+        rows = [("field", plugin["kind"], plugin["description"])]
+        for key, value in field["table"].items():
+            shown = _vec(value) if isinstance(value, list) else _g(value)
+            rows.append((key, shown, plugin["keys"].get(key, "")))
+        rows.append(
+            (
+                "torque",
+                "a gradient" if plugin["conservative"] else "no gradient",
+                "keeps " + (", ".join(plugin["keeps"]) or "no invariant"),
+            )
+        )
+        return rows
+    if field:
+        return [("field", field["kind"], ""), ("orbit rate", _g(field["orbit_rate"]), "rad/s  (n)")]
+    return [("gravity", _g(b["gravity"]), "m/s^2")]
+
+
 def render(info: dict) -> str:
     c = info["case"]
     out = [f"case {c['name']}"]
@@ -139,11 +159,7 @@ def render(info: dict) -> str:
             ("I3", _g(b["inertia"][2]), "kg m^2"),
             ("com", _vec(b["com"]), "m  (body axes)"),
         ]
-        + (
-            [("field", field["kind"], ""), ("orbit rate", _g(field["orbit_rate"]), "rad/s  (n)")]
-            if field
-            else [("gravity", _g(b["gravity"]), "m/s^2")]
-        )
+        + _field_rows(field, info.get("plugin_field"), b)
         + (
             [("rotor", _vec(b["rotor"]), "kg m^2/s  (body axes, relative to the body)")]
             if "rotor" in b
@@ -195,17 +211,25 @@ def render(info: dict) -> str:
         out.append(f"  euler form  none: {s['euler_unavailable']}")
 
     inv = info["invariants"]
-    conserved_psi = info["kind"] in ("lagrange", "lagrange-gyrostat")
+    plugin = info.get("plugin_field")
+    conserved_psi = info["kind"] in ("lagrange", "lagrange-gyrostat") or bool(
+        plugin and "p_psi" in plugin["keeps"]
+    )
     gyro = "rotor" in b
-    rows = [
-        (
-            "energy",
-            _g(inv["energy"], 10),
-            "J"
-            + ("  (shell kinetic + potential)" if gyro else "")
-            + ("  (Jacobi integral of the orbit frame)" if field else ""),
-        ),
-    ]
+    rows = []
+    if inv["energy"] is None:
+        rows.append(("energy", "null", "(the field's torque is no gradient: not conserved)"))
+    else:
+        rows.append(
+            (
+                "energy",
+                _g(inv["energy"], 10),
+                "J"
+                + ("  (shell kinetic + potential)" if gyro else "")
+                + ("  (Jacobi integral of the orbit frame)" if field and not plugin else "")
+                + ("  (kinetic + the field's potential)" if plugin else ""),
+            )
+        )
     if inv["p_phi"] is not None:
         rows.append(("p_phi", _g(inv["p_phi"], 10), "kg m^2/s  (L . e_z)"))
     if inv["p_psi"] is not None:

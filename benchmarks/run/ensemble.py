@@ -200,8 +200,9 @@ class _EnsembleRun(SampledRun):
         self.first: dict[str, np.ndarray] = {}
         self.scale: dict[str, np.ndarray] = {}
         body = plan.case.body
-        self.p_psi = body.lagrange_top  # p_psi is an invariant of the body
-        self.p_phi = body.uniform_gravity  # p_phi one of uniform gravity only
+        self.p_psi = body.keeps_p_psi  # p_psi is an invariant of the body
+        self.p_phi = body.keeps_p_phi  # p_phi one of uniform gravity (or a plug-in's) only
+        self.energy = body.keeps_energy  # energy one unless the field is no gradient
         self.kovalevskaya = body.kovalevskaya  # and Kovalevskaya's integral is
         self.followed = dict(_FOLLOWED)
         if self.kovalevskaya:
@@ -314,7 +315,7 @@ class _EnsembleRun(SampledRun):
         counters = self.ens.counters
         member_steps = int(counters[:, C_STEPS].sum())
         return {
-            "energy_rel_max": self.worst["energy"],
+            "energy_rel_max": self.worst["energy"] if self.energy else None,
             # only invariants of the body are metrics (run/metrics.py)
             "p_phi_rel_max": self.worst["p_phi"] if self.p_phi else None,
             "p_psi_rel_max": self.worst["p_psi"] if self.p_psi else None,

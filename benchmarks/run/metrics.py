@@ -158,6 +158,7 @@ class Accumulator:
         kov0: float = math.nan,
         kov_scale: float = math.nan,
         has_p_phi: bool = True,
+        has_energy: bool = True,
     ):
         self.e0 = float(e0)
         self.e_scale = float(e_scale)
@@ -169,6 +170,8 @@ class Accumulator:
         self.has_p_psi = bool(has_p_psi)  # p_psi is an invariant of the body (a Lagrange top)
         # p_phi = L.e_z is one in uniform gravity only (the gravity gradient's frame turns)
         self.has_p_phi = bool(has_p_phi)
+        # energy is one unless a plug-in field's torque is no gradient (damping, a control law)
+        self.has_energy = bool(has_energy)
         self.kov0 = float(kov0)  # NaN unless the body is a Kovalevskaya top
         self.kov_scale = float(kov_scale)
         self.maxima = np.zeros(len(MAX_NAMES))
@@ -188,9 +191,12 @@ class Accumulator:
         has_norm: bool,
         has_p_psi: bool = True,
         has_kovalevskaya: bool = False,
+        has_p_phi: bool | None = None,
+        has_energy: bool = True,
     ) -> Accumulator:
-        """scal0: the start sample's scalar row; mom0: its body angular momentum. has_p_psi and
-        has_kovalevskaya say which of those are invariants of the body."""
+        """scal0: the start sample's scalar row; mom0: its body angular momentum. has_p_psi,
+        has_kovalevskaya, has_p_phi (None: from the field code, uniform gravity keeps it) and
+        has_energy say which of those are invariants of the body in its field."""
         from topdrift.models.body import P_FIELD, P_INV1, P_INV2, P_INV3, P_MGX, P_MGY, P_MGZ
         from topdrift.models.field_spec import FIELD_UNIFORM
 
@@ -225,7 +231,8 @@ class Accumulator:
             has_p_psi,
             kov0,
             kov_scale,
-            has_p_phi=bool(params[P_FIELD] == FIELD_UNIFORM),
+            has_p_phi=bool(params[P_FIELD] == FIELD_UNIFORM) if has_p_phi is None else has_p_phi,
+            has_energy=has_energy,
         )
 
     def update(
@@ -291,6 +298,7 @@ class Accumulator:
             # said only where p_phi is no invariant (another field than uniform gravity), so
             # that a heavy top's checkpoint keeps the layout, and the bits, it always had
             **({} if self.has_p_phi else {"has_p_phi": 0}),
+            **({} if self.has_energy else {"has_energy": 0}),
         }
 
     @classmethod
@@ -322,6 +330,7 @@ class Accumulator:
             float(s["kov_scale"]),
             # a checkpoint from before fields is of uniform gravity, where p_phi is an invariant
             has_p_phi=bool(s.get("has_p_phi", 1)),
+            has_energy=bool(s.get("has_energy", 1)),
         )
         acc.maxima[:] = maxima
         return acc
@@ -343,6 +352,8 @@ class Accumulator:
         for name, v in zip(MAX_NAMES, self.maxima, strict=True):
             if name in _EXACT_NAMES and not self.has_exact:
                 out[name] = None
+            elif name == "energy_rel_max" and not self.has_energy:
+                out[name] = None  # the field's torque is no gradient: no energy is kept
             elif name == "norm_abs_max" and not self.has_norm:
                 out[name] = None  # the Euler form carries no quaternion to drift
             elif name == "p_phi_rel_max" and not self.has_p_phi:
@@ -458,7 +469,11 @@ def finish(
     out["ns_per_step"] = float(wall_s * 1e9 / steps) if steps > 0 else None
     slowest = None if scales is None else scales.slowest
     what = "" if scales is None else scales.slowest_what
-    exponent, window, reason = drift_fit(t, acc.energy_rel(energy), slowest, what)
+    if acc.has_energy:
+        exponent, window, reason = drift_fit(t, acc.energy_rel(energy), slowest, what)
+    else:
+        exponent, window = None, None
+        reason = "the field's torque is no gradient: energy is no invariant"
     out["energy_drift_exponent"] = exponent
     out["energy_drift_window"] = window
     out["energy_drift_unknown"] = reason

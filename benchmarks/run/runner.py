@@ -615,8 +615,10 @@ class _Run(SampledRun):
             self.plan.params,
             self.has_exact,
             form != FORM_EULER,
-            has_p_psi=body.lagrange_top,
+            has_p_psi=body.keeps_p_psi,
             has_kovalevskaya=body.kovalevskaya,
+            has_p_phi=body.keeps_p_phi,
+            has_energy=body.keeps_energy,
         )
         self.k = 1
         return 1
@@ -645,6 +647,8 @@ class _Run(SampledRun):
 
     def check(self, j: int, tk: float) -> Outcome | None:
         e_rel = abs(self.buf.scal[j, S_ENERGY] - self.acc.e0) / self.acc.e_scale
+        if not self.acc.has_energy:
+            return None  # a field that is no gradient: energy leaves freely (record() checks NaN)
         if not e_rel <= 1.0:
             return Outcome(DIVERGED, f"relative energy error {e_rel:.3g} > 1 at t = {tk:.17g}", tk)
         return None
@@ -757,7 +761,16 @@ def start_accumulator(plan: RunPlan) -> Accumulator:
     b = SampleBuffers(1, FORM_SIZE[plan.form_code])
     b.record(plan.form_code, plan.y0, plan.params, 0)
     has_norm = plan.form_code != FORM_EULER
-    return Accumulator.at_start(b.scal[0], b.mom[0], plan.params, plan.exact is not None, has_norm)
+    body = plan.case.body
+    return Accumulator.at_start(
+        b.scal[0],
+        b.mom[0],
+        plan.params,
+        plan.exact is not None,
+        has_norm,
+        has_p_phi=body.keeps_p_phi,
+        has_energy=body.keeps_energy,
+    )
 
 
 def check_resume(plan: RunPlan, f, parent: str = RUNS) -> None:

@@ -70,9 +70,9 @@ def _exp_turn(h, w1, w2, w3):
 
 
 @njit(cache=True, inline="always")
-def _torque(p, q0, q1, q2, q3):
+def _torque(p, q0, q1, q2, q3, m1, m2, m3):
     if p[P_FIELD] != FIELD_UNIFORM:
-        return field_torque(p, q0, q1, q2, q3)
+        return field_torque(p, q0, q1, q2, q3, m1, m2, m3)
     g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
     cx, cy, cz = p[P_MGX], p[P_MGY], p[P_MGZ]
     return g2 * cz - g3 * cy, g3 * cx - g1 * cz, g1 * cy - g2 * cx
@@ -100,7 +100,7 @@ def engine_steps(scheme, y, p, h, nsteps, counters):
     for _ in range(nsteps):
         q0, q1, q2, q3 = y[0], y[1], y[2], y[3]
         m1, m2, m3 = y[4], y[5], y[6]
-        t1, t2, t3 = _torque(p, q0, q1, q2, q3)
+        t1, t2, t3 = _torque(p, q0, q1, q2, q3, m1, m2, m3)
         if scheme == SCHEME_EXPLICIT:
             w1, w2, w3 = m1 * inv1 - hw1, m2 * inv2 - hw2, m3 * inv3 - hw3
             n1 = m1 + h * (m2 * w3 - m3 * w2 + t1)

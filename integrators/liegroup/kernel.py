@@ -44,7 +44,7 @@ from topdrift.models.body import (
     P_MGZ,
 )
 from topdrift.models.field_spec import FIELD_UNIFORM
-from topdrift.models.fields import frame_rate, gradient_torque
+from topdrift.models.fields import frame_rate, other_torque
 from topdrift.models.forms import FORM_BODY
 from topdrift.models.quaternion import qmul, vertical_in_body
 
@@ -96,9 +96,10 @@ def rates(p, q0, q1, q2, q3, m1, m2, m3):
     g1, g2, g3 = vertical_in_body(q0, q1, q2, q3)
     if p[P_FIELD] != FIELD_UNIFORM:
         # in the gravity gradient the attitude turns at the rate relative to the orbit frame
-        # and the torque is the gradient's (models/fields.py); the stages' q are unit
+        # and the torque is the gradient's (models/fields.py; a plug-in field's own, its frame
+        # at rest); the stages' q are unit
         f1, f2, f3 = frame_rate(p, q0, q1, q2, q3)
-        t1, t2, t3 = gradient_torque(p, g1, g2, g3)
+        t1, t2, t3 = other_torque(p, q0, q1, q2, q3, m1, m2, m3)
         return (
             w1 + f1,
             w2 + f2,

@@ -242,6 +242,8 @@ class SplittingStepper(Stepper):
 class SplittingMethod(Method):
     """A splitting method from a coefficient table (compositions.py), in both forms."""
 
+    kicks_potential = True  # its B flow is the field's kick (base.Method says why)
+
     def __init__(
         self, table: SplittingTable, compensated: bool, composed: bool = False, axes: bool = False
     ) -> None:

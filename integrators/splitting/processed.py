@@ -67,6 +67,8 @@ class ProcessedStepper(SplittingStepper):
 class ProcessedMethod(Method):
     """A processed splitting from a ProcessedTable, in both forms."""
 
+    kicks_potential = True  # its B flow is the field's kick (base.Method says why)
+
     def __init__(self, table: ProcessedTable) -> None:
         self.table = table
         self.compensated = False

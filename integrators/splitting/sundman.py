@@ -210,6 +210,8 @@ class SundmanMethod(Method):
     """The variable-step twin of a splitting table (a palindromic composition of the Strang
     step: its step is symmetric, which the reversibility needs)."""
 
+    kicks_potential = True  # its B flow is the field's kick (base.Method says why)
+
     def __init__(self, table: SplittingTable) -> None:
         if table.kind != "composition":
             raise ValueError(f"{table.key}: only compositions of the Strang step here")
