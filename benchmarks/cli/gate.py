@@ -77,7 +77,7 @@ def add_parser(sub) -> None:
         type=int,
         default=0,
         metavar="N",
-        help=f"when the machine's state has moved more than {WAIT_DRIFT:.0%} since the "
+        help=f"when the machine's state has moved more than {WAIT_DRIFT * 100:.0f} %% since the "
         f"baseline (its reference workload's two kernels against each other), pause "
         f"{WAIT_PAUSE_S:g} s and time again, up to N times, keeping the timing nearest the "
         "baseline's state (default 0: no waiting)",
