@@ -59,12 +59,18 @@ from topdrift.integrators.base import (
     ST_STEP_UNDERFLOW,
 )
 from topdrift.integrators.extrapolation.kernel import (
+    DENSE,
     K_MAX,
     K_MIN,
     NONFINITE_FACTOR,
+    extrapolate_line,
+    line_error,
     line_step,
-    next_order,
+    line_verdict,
+    proposal,
     scaled_size,
+    steps_of,
+    work_for,
 )
 from topdrift.models.dynamics import rhs, singular
 from topdrift.models.forms import E_PHI, E_PSI, FORM_BODY, FORM_EULER
@@ -108,13 +114,13 @@ N_MAX = 4 * K_MAX - 2  # substeps of the highest line
 @njit(cache=True, inline="always")
 def n_seq(j):
     """Substeps of line j (1-based): 2, 6, 10, 14, ... (4 j - 2)."""
-    return 4 * j - 2
+    return steps_of(DENSE, j)
 
 
 @njit(cache=True, inline="always")
 def work_of(j):
     """A_j: evaluations of lines 1..j, f(y) counted once: 1 + sum (4 i - 2) = 1 + 2 j^2."""
-    return 1.0 + 2.0 * j * j
+    return work_for(DENSE, j)
 
 
 def _dense_inverse(m: int) -> np.ndarray:
@@ -345,47 +351,16 @@ def _advance(form, work):
             r = (j - 1) * n
             for i in range(n):
                 table[r + i] = 0.5 * (za[i] + zb[i] + h * ft[i])
-            for l in range(j - 1, 0, -1):
-                nl = n_seq(l)
-                c = 1.0 / ((nj / nl) ** 2 - 1.0)
-                lo = (l - 1) * n
-                hi = l * n
-                for i in range(n):
-                    table[lo + i] = table[hi + i] + (table[hi + i] - table[lo + i]) * c
+            extrapolate_line(table, j, n, DENSE)
             if j >= 2:
-                s2 = 0.0
-                for i in range(n):
-                    tv = table[i]
-                    if not math.isfinite(tv):
-                        bad = True
-                    sc = atol + rtol * max(
-                        scaled_size(form, i, y[i], off_phi, off_psi),
-                        scaled_size(form, i, tv, off_phi, off_psi),
-                    )
-                    e = (tv - table[n + i]) / sc
-                    s2 += e * e
-                err = math.sqrt(s2 / n)
-                if bad or not math.isfinite(err):
-                    bad = True
+                err, bad = line_error(form, table, y, n, rtol, atol, off_phi, off_psi)
+                if bad:
                     break
                 line_step(j, h_big, err, hw, work_of(j))
                 last = j
-                if j == k - 1 and j >= 2:
-                    if err <= 1.0:
-                        accepted = True
-                        break
-                    lim = n_seq(k + 1) * n_seq(k) / (n_seq(1) * n_seq(1))
-                    if err > lim * lim:
-                        break
-                elif j == k:
-                    if err <= 1.0:
-                        accepted = True
-                        break
-                    lim = n_seq(k + 1) / n_seq(1)
-                    if err > lim * lim:
-                        break
-                elif j == k + 1:
-                    accepted = err <= 1.0
+                verdict = line_verdict(j, k, err, DENSE)
+                if verdict != 0:
+                    accepted = verdict == 1
                     break
             j += 1
         if bad:
@@ -395,14 +370,7 @@ def _advance(form, work):
             counters[C_REJECTED] += 1
             continue
         nonfinite = False
-        kn = next_order(k, last, hw)
-        if kn <= last:
-            hn = hw[kn]
-        else:
-            hn = hw[last] * work_of(kn) / work_of(last)
-        if was_rejected:
-            kn = min(kn, k)
-            hn = min(hn, h_big)
+        kn, hn = proposal(k, last, hw, was_rejected, h_big, DENSE)
         if not accepted:
             counters[C_REJECTED] += 1
             was_rejected = True

@@ -93,16 +93,35 @@ N_TOL = 2
 N_WORK = 2 * (K_MAX + 1)
 
 
+# The two step-number sequences, as n_j = d j - (d - 2): d = 2 the double harmonic 2, 4, 6, ...
+# (gbs), d = 4 the sequence 2, 6, 10, ... of the dense output (gbs-dense, dense_kernel.py).
+HARMONIC = 2
+DENSE = 4
+
+
+@njit(cache=True, inline="always")
+def steps_of(d, j):
+    """n_j of line j (1-based) in sequence d."""
+    return d * j - (d - 2)
+
+
+@njit(cache=True, inline="always")
+def work_for(d, j):
+    """A_j: evaluations of lines 1..j, f(y) counted once: 1 + sum n_i (1 + j (j + 1) for d = 2,
+    1 + 2 j^2 for d = 4)."""
+    return 1.0 + float((d * j * (j + 1)) // 2 - (d - 2) * j)
+
+
 @njit(cache=True, inline="always")
 def n_seq(j):
     """Substeps of line j (1-based): the double harmonic sequence 2, 4, 6, ..."""
-    return 2 * j
+    return steps_of(HARMONIC, j)
 
 
 @njit(cache=True, inline="always")
 def work_of(j):
-    """A_j: evaluations of lines 1..j, f(y) counted once: A_j = 1 + sum n_i = 1 + j (j + 1)."""
-    return 1.0 + j * (j + 1.0)
+    """A_j of the double harmonic sequence: 1 + j (j + 1)."""
+    return work_for(HARMONIC, j)
 
 
 @njit(cache=True, inline="always")
@@ -199,6 +218,76 @@ def next_order(k, kc, hw):
     return max(K_MIN, min(K_MAX - 1, kn))
 
 
+@njit(cache=True, inline="always")
+def extrapolate_line(table, j, n, d):
+    """Aitken-Neville in h^2 after line j was stored in row j - 1: up to row 0, row l-1 = row l
+    + (row l - row l-1) c, so that row 0 ends as T_(j,j) and row 1 as T_(j,j-1)."""
+    nj = steps_of(d, j)
+    for l in range(j - 1, 0, -1):
+        nl = steps_of(d, l)
+        c = 1.0 / ((nj / nl) ** 2 - 1.0)
+        lo = (l - 1) * n
+        hi = l * n
+        for i in range(n):
+            table[lo + i] = table[hi + i] + (table[hi + i] - table[lo + i]) * c
+
+
+@njit(cache=True, inline="always")
+def line_error(form, table, y, n, rtol, atol, off_phi, off_psi):
+    """err_j = RMS |T_(j,j) - T_(j,j-1)| / scale, and whether T_(j,j) or err is not finite."""
+    bad = False
+    s2 = 0.0
+    for i in range(n):
+        tv = table[i]
+        if not math.isfinite(tv):
+            bad = True
+        sc = atol + rtol * max(
+            scaled_size(form, i, y[i], off_phi, off_psi),
+            scaled_size(form, i, tv, off_phi, off_psi),
+        )
+        e = (tv - table[n + i]) / sc
+        s2 += e * e
+    err = math.sqrt(s2 / n)
+    return err, bad or not math.isfinite(err)
+
+
+@njit(cache=True, inline="always")
+def line_verdict(j, k, err, d):
+    """The convergence monitor after line j with the current line k: 1 accept, -1 reject (the
+    lines above could not bring err below 1 either), 0 compute the next line."""
+    if j == k - 1 and j >= 2:
+        if err <= 1.0:
+            return 1
+        lim = steps_of(d, k + 1) * steps_of(d, k) / (steps_of(d, 1) * steps_of(d, 1))
+        if err > lim * lim:
+            return -1
+    elif j == k:
+        if err <= 1.0:
+            return 1
+        lim = steps_of(d, k + 1) / steps_of(d, 1)
+        if err > lim * lim:
+            return -1
+    elif j == k + 1:
+        return 1 if err <= 1.0 else -1
+    return 0
+
+
+@njit(cache=True, inline="always")
+def proposal(k, last, hw, was_rejected, h_big, d):
+    """The next line and step after lines up to `last` were computed (next_order's rule; the
+    line above the last one computed gets H_last scaled by the work, HNW II.9); after a
+    rejection neither may grow."""
+    kn = next_order(k, last, hw)
+    if kn <= last:
+        hn = hw[kn]
+    else:
+        hn = hw[last] * work_for(d, kn) / work_for(d, last)
+    if was_rejected:
+        kn = min(kn, k)
+        hn = min(hn, h_big)
+    return kn, hn
+
+
 @njit(cache=True)
 def _advance(form, work):
     """Step until t_out, landing on it; write the state there into y_out. Returns a status; on
@@ -251,48 +340,16 @@ def _advance(form, work):
             r = (j - 1) * n
             for i in range(n):
                 table[r + i] = 0.5 * (za[i] + zb[i] + h * ft[i])
-            # Aitken-Neville up to row 0: row l-1 = row l + (row l - row l-1) c.
-            for l in range(j - 1, 0, -1):
-                nl = n_seq(l)
-                c = 1.0 / ((nj / nl) ** 2 - 1.0)
-                lo = (l - 1) * n
-                hi = l * n
-                for i in range(n):
-                    table[lo + i] = table[hi + i] + (table[hi + i] - table[lo + i]) * c
+            extrapolate_line(table, j, n, HARMONIC)
             if j >= 2:
-                s2 = 0.0
-                for i in range(n):
-                    tv = table[i]
-                    if not math.isfinite(tv):
-                        bad = True
-                    sc = atol + rtol * max(
-                        scaled_size(form, i, y[i], off_phi, off_psi),
-                        scaled_size(form, i, tv, off_phi, off_psi),
-                    )
-                    e = (tv - table[n + i]) / sc
-                    s2 += e * e
-                err = math.sqrt(s2 / n)
-                if bad or not math.isfinite(err):
-                    bad = True
+                err, bad = line_error(form, table, y, n, rtol, atol, off_phi, off_psi)
+                if bad:
                     break
                 line_step(j, h_big, err, hw, work_of(j))
                 last = j
-                if j == k - 1 and j >= 2:
-                    if err <= 1.0:
-                        accepted = True
-                        break
-                    lim = n_seq(k + 1) * n_seq(k) / (n_seq(1) * n_seq(1))
-                    if err > lim * lim:
-                        break
-                elif j == k:
-                    if err <= 1.0:
-                        accepted = True
-                        break
-                    lim = n_seq(k + 1) / n_seq(1)
-                    if err > lim * lim:
-                        break
-                elif j == k + 1:
-                    accepted = err <= 1.0
+                verdict = line_verdict(j, k, err, HARMONIC)
+                if verdict != 0:
+                    accepted = verdict == 1
                     break
             j += 1
         if bad:
@@ -302,14 +359,7 @@ def _advance(form, work):
             counters[C_REJECTED] += 1
             continue
         nonfinite = False
-        kn = next_order(k, last, hw)
-        if kn <= last:
-            hn = hw[kn]
-        else:  # the line above the last one computed: H_k scaled by the work (HNW II.9)
-            hn = hw[last] * work_of(kn) / work_of(last)
-        if was_rejected:
-            kn = min(kn, k)
-            hn = min(hn, h_big)
+        kn, hn = proposal(k, last, hw, was_rejected, h_big, HARMONIC)
         if not accepted:
             # Retry no higher than the lines that failed, with no longer a step.
             counters[C_REJECTED] += 1
