@@ -192,13 +192,20 @@ def _midpoint_data(j, h, n, kmax, fl, zm, mid):
         r = k - 1
         scale = 1.0 / (2.0 * h) ** r
         base = (row + k) * n
+        # The binomial weights outside the component loop (a division each); the sum runs in
+        # the same order, q = 0..r, for every component (92 -> 70 ns per evaluation, measured
+        # on looping-nutation, body form, rtol 1e-12; weights in a scratch array and the sum in
+        # a register were slower, 75 ns).
         for i in range(n):
-            acc = 0.0
-            c = 1.0
-            for q in range(r + 1):
-                acc += c * fl[(m + r - 2 * q) * n + i]
-                c = -c * (r - q) / (q + 1.0)
-            mid[base + i] = acc * scale
+            mid[base + i] = 0.0
+        c = 1.0
+        for q in range(r + 1):
+            at = (m + r - 2 * q) * n
+            for i in range(n):
+                mid[base + i] += c * fl[at + i]
+            c = -c * (r - q) / (q + 1.0)
+        for i in range(n):
+            mid[base + i] *= scale
 
 
 @njit(cache=True)
