@@ -102,8 +102,9 @@ def _a_exact(p_phi, p_psi, s, c):
 def _g_dg(s, c, p, frozen):
     """(g, g') at the theta whose sine and cosine are s, c (module docstring)."""
     inv1 = p[P_INV1]
-    r0 = _a_exact(frozen[F_PPHI0], frozen[F_PPSI0], s, c) * inv1 / (s * s)
-    dr0 = (frozen[F_PPSI0] * inv1 - 2.0 * c * r0) / s
+    q = 1.0 / s  # one division where three would do (a division's latency dominates here)
+    r0 = _a_exact(frozen[F_PPHI0], frozen[F_PPSI0], s, c) * inv1 * (q * q)
+    dr0 = (frozen[F_PPSI0] * inv1 - 2.0 * c * r0) * q
     cc = 1.0 + c * c
     w2 = r0 * r0 * cc
     dw2 = 2.0 * r0 * dr0 * cc - 2.0 * r0 * r0 * c * s
