@@ -21,6 +21,7 @@ _BUILTIN_MODULES = (
     "topdrift.integrators.splitting.methods",
     "topdrift.integrators.splitting.processed",
     "topdrift.integrators.splitting.sundman",
+    "topdrift.integrators.splitting.sundman_sym",
     "topdrift.integrators.gauss.methods",
     "topdrift.integrators.engine.methods",
     "topdrift.integrators.taylor.methods",

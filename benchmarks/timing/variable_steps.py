@@ -1,18 +1,21 @@
-"""What the time-reversible variable steps buy: cost at equal error against the fixed-step twin.
+"""What the variable steps buy: cost at equal error against the fixed-step twin.
 
     python benchmarks/timing/variable_steps.py [--cases pole-passage,sleeping-below,cusped-release]
                                                [--ladder N]
     python benchmarks/timing/variable_steps.py --per-step 1000000 [--cases pole-passage]
 
-For each case (Euler form, the case's horizon and sample times) and each pair (leapfrog,
-leapfrog-s4, leapfrog-kl6 against their -sundman twins): a ladder of steps, halving from the
-sample interval; for each run the largest attitude error over the samples against the exact
-Lagrange-top solution (models/exact.py) and the cost in force evaluations (the kicks, counted
-by the kernels: C_FORCE_EVALS, the samples' own steps included). The gain of a variable-step run
-is the fixed-step twin's cost at the same error (log-log interpolation between the two fixed-step
-runs around it) over its own cost; printed as a range over the runs whose errors lie inside the
-fixed-step twin's ladder and between 1e-11 (round-off) and 1e-2 (not yet asymptotic). Cost is
-counted, not timed: no CPU dependence, but the CPU is printed with the wall time of the runs.
+For each case (Euler form, the case's horizon and sample times) and each table (leapfrog,
+leapfrog-s4, leapfrog-kl6) its three runs: the fixed-step method, the time-reversible twin
+(-sundman, Hairer-Soderlind step density) and the symplectic twin (-sundman-sym, extended phase
+space): a ladder of steps, halving from the sample interval, the three methods interleaved at
+each rung; for each run the largest attitude error over the samples against the exact
+Lagrange-top solution (models/exact.py), the cost in force evaluations (the torques, counted by
+the kernels: C_FORCE_EVALS, the samples' own steps included; the -sym twins' Newton iterations
+evaluate only the monitor and are not in it) and the wall time of the run (this process, the CPU
+printed). The gain of a variable-step run is the fixed-step method's cost at the same error
+(log-log interpolation between the two fixed-step runs around it) over its own cost, in kicks
+and in seconds; printed as a range over the runs whose errors lie inside the fixed-step ladder
+and between 1e-10 (round-off) and 1e-2 (not yet asymptotic).
 """
 
 from __future__ import annotations
@@ -29,8 +32,9 @@ from topdrift.integrators import C_FORCE_EVALS, C_STEPS, ST_OK, get
 from topdrift.models.exact import LagrangeTop
 from topdrift.models.forms import FORM_EULER
 
-PAIRS = (("leapfrog", "leapfrog-sundman"), ("leapfrog-s4", "leapfrog-s4-sundman"),
-         ("leapfrog-kl6", "leapfrog-kl6-sundman"))  # fmt: skip
+TRIPLES = (("leapfrog", "leapfrog-sundman", "leapfrog-sundman-sym"),
+           ("leapfrog-s4", "leapfrog-s4-sundman", "leapfrog-s4-sundman-sym"),
+           ("leapfrog-kl6", "leapfrog-kl6-sundman", "leapfrog-kl6-sundman-sym"))  # fmt: skip
 E_LO, E_HI = 1e-10, 1e-2
 # Halvings of the step from the sample interval, per case: the fixed-step methods need steps
 # far below the sample interval to pass the pole (pole-passage); the others reach round-off
@@ -52,18 +56,23 @@ def attitude_error(y: np.ndarray, ref: np.ndarray) -> float:
 
 
 def one_run(name: str, case, step: float, times: np.ndarray, ref: np.ndarray):
-    """(largest attitude error over the samples, force evaluations); inf when the run fails."""
+    """(largest attitude error over the samples, force evaluations, wall seconds of the
+    stepping); inf when the run fails."""
     body = case.body
     st = get(name).start(FORM_EULER, body.params(), 0.0, case.euler_state(), {"step": step})
     err = 0.0
+    wall = 0.0
     for t, r in zip(times[1:], ref[1:], strict=True):
-        if st.advance_to(t) != ST_OK:
-            return math.inf, int(st.counters[C_FORCE_EVALS])
+        t0 = time.perf_counter()
+        status = st.advance_to(t)
+        wall += time.perf_counter() - t0
+        if status != ST_OK:
+            return math.inf, int(st.counters[C_FORCE_EVALS]), wall
         err = max(err, attitude_error(st.y, r))
-    return err, int(st.counters[C_FORCE_EVALS])
+    return err, int(st.counters[C_FORCE_EVALS]), wall
 
 
-def asymptotic(rows: list, order: int) -> list:
+def asymptotic(rows: list, order: int) -> list:  # rows of (error, cost)
     """The runs of a ladder where truncation error dominates: below E_HI, above E_LO, and each
     at least 2^(order - 1) times smaller than the one before (half the nominal halving
     factor): past that point round-off or a pre-asymptotic bend decides the error."""
@@ -107,14 +116,14 @@ def error_ratios(fixed: list, variable: list, order: int) -> list[float]:
 
 
 def per_step(case, steps: int, rounds: int) -> None:
-    """ns per step of each pair, interleaved round by round in this process, best round; one
+    """ns per step of each method, interleaved round by round in this process, best round; one
     sample at the end (the variable-step run's side step is a single step of the table)."""
     body, y0 = case.body, case.euler_state()
     eps = 1e-4
     best = {}
     for _ in range(rounds):
-        for pair in PAIRS:
-            for name in pair:
+        for triple in TRIPLES:
+            for name in triple:
                 st = get(name).start(FORM_EULER, body.params(), 0.0, y0, {"step": eps})
                 st.advance_to(eps)  # compiled and loaded before the clock starts
                 t0 = time.perf_counter()
@@ -123,9 +132,10 @@ def per_step(case, steps: int, rounds: int) -> None:
                 n = int(st.counters[C_STEPS])
                 best[name] = min(best.get(name, math.inf), wall / max(n, 1) * 1e9)
     print(f"\nns per step, Euler form, {case.name}, best of {rounds} rounds (CPU: {cpu()}):")
-    for fixed_name, var_name in PAIRS:
-        f, v = best[fixed_name], best[var_name]
-        print(f"  {fixed_name:14s} {f:7.1f}   {var_name:22s} {v:7.1f}   ratio {v / f:.2f}")
+    for fixed_name, *var_names in TRIPLES:
+        f = best[fixed_name]
+        cells = "   ".join(f"{v:26s} {best[v]:7.1f} ({best[v] / f:.2f}x)" for v in var_names)
+        print(f"  {fixed_name:14s} {f:7.1f}   {cells}")
 
 
 def main() -> None:
@@ -153,25 +163,36 @@ def main() -> None:
         interval = case.horizon / (case.samples - 1)
         steps = [interval / 2**k for k in range(args.ladder or LADDER.get(case.name, 10))]
         print(f"\n{case.name}: horizon {case.horizon} s, {case.samples} samples")
-        for fixed_name, var_name in PAIRS:
-            rows = {}
+        for triple in TRIPLES:
+            rows = {name: [] for name in triple}
+            live = set(triple)
             t0 = time.perf_counter()
-            for name in (fixed_name, var_name):
-                rows[name] = []
-                for h in steps:
+            for h in steps:  # the three methods interleaved rung by rung
+                for name in triple:
+                    if name not in live:
+                        continue
                     rows[name].append(one_run(name, case, h, times, ref))
-                    if len(rows[name]) > 1 and max(e for e, _ in rows[name][-2:]) < E_LO:
-                        break
+                    if len(rows[name]) > 1 and max(r[0] for r in rows[name][-2:]) < E_LO:
+                        live.discard(name)
             wall = time.perf_counter() - t0
-            for name in (fixed_name, var_name):
-                cells = "  ".join(f"{e:.1e}/{c}" for e, c in rows[name])
-                print(f"  {name:22s} error/force evaluations: {cells}")
-            g = gains(rows[fixed_name], rows[var_name], get(var_name).info.order)
-            span = f"{min(g):.3g}-{max(g):.3g}x over {len(g)} runs" if g else "no overlap"
-            print(f"  gain of {var_name}, kicks at equal error: {span} ({wall:.1f} s)")
-            r = error_ratios(rows[fixed_name], rows[var_name], get(var_name).info.order)
-            span = f"{min(r):.3g}-{max(r):.3g}x over {len(r)} runs" if r else "no overlap"
-            print(f"  gain of {var_name}, error at equal kicks: {span}")
+            for name in triple:
+                cells = "  ".join(f"{e:.1e}/{c}/{w:.3g}s" for e, c, w in rows[name])
+                print(f"  {name:26s} error/force evaluations/seconds: {cells}")
+            fixed_name = triple[0]
+            for var_name in triple[1:]:
+                order = get(var_name).info.order
+                for what, k in (("kicks", 1), ("seconds", 2)):
+                    fixed = [(r[0], r[k]) for r in rows[fixed_name]]
+                    var = [(r[0], r[k]) for r in rows[var_name]]
+                    g = gains(fixed, var, order)
+                    span = f"{min(g):.3g}-{max(g):.3g}x over {len(g)} runs" if g else "no overlap"
+                    r = error_ratios(fixed, var, order)
+                    rspan = f"{min(r):.3g}-{max(r):.3g}x" if r else "no overlap"
+                    print(
+                        f"  gain of {var_name} in {what}: at equal error {span}; "
+                        f"error at equal {what} {rspan}"
+                    )
+            print(f"  ({wall:.1f} s)")
 
 
 if __name__ == "__main__":
