@@ -35,8 +35,6 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from topdrift.integrators.base import (
-    N_COUNTERS,
-    ST_OK,
     Method,
     MethodInfo,
     MethodRefused,
@@ -44,18 +42,15 @@ from topdrift.integrators.base import (
 )
 from topdrift.integrators.splitting.compositions import TABLE_BY_KEY, SplittingTable
 from topdrift.integrators.splitting.methods import checked_start
+from topdrift.integrators.splitting.step_point_stepper import CALL_STEPS, StepPointStepper
 from topdrift.integrators.splitting.sundman_kernel import (
     N_AUX,
     N_EULER,
     start_point,
-    sundman_sample,
     sundman_steps,
 )
 from topdrift.integrators.validation import (
     SnapshotRefused,
-    check_snapshot,
-    snapshot_identity,
-    stepper_fields,
 )
 from topdrift.models.body import P_H3, P_INV1, P_INV3, P_MGZ
 from topdrift.models.flows import FREE_EXACT, N_KICK_RATES
@@ -64,8 +59,6 @@ from topdrift.models.forms import FORM_EULER
 # The tables that get a variable-step twin: the Strang step and one composition of order 4 and
 # of order 6 (the same three as the -axes twins, methods.AXES_TABLES).
 SUNDMAN_TABLES = ("", "s4", "kl6")
-# Steps per kernel call: a long interval is advanced in pieces so that no call runs unbounded.
-CALL_STEPS = 1 << 20
 SOURCE = (
     "step control: Hairer and Soderlind, SIAM J. Sci. Comput. 26 (2005) 1838; Sundman "
     "transformation: Hairer, Appl. Numer. Math. 25 (1997) 219; monitor sigma = "
@@ -81,128 +74,35 @@ def rate_scale2(params: np.ndarray, y: np.ndarray) -> float:
 
 
 @dataclass
-class SundmanStepper(Stepper):
-    """A variable-step run: the step point (t_n as clock hi + lo, y_n in w, aux at y_n, its
-    turns) and the handed-out sample y at t (one step of t - t_n from the point)."""
+class SundmanStepper(StepPointStepper):
+    """A time-reversible variable-step run (step_point_stepper.py); its control constant is the
+    monitor's rate scale Omega^2, and aux holds the kick's rates and the step density rho."""
 
-    method: Method | None = None
-    settings: dict = field(default_factory=dict)
-    eps: float = 0.0  # > 0; its sign per call is the direction
     omega2: float = 1.0
-    w: np.ndarray = field(default_factory=lambda: np.zeros(N_EULER))
     aux: np.ndarray = field(default_factory=lambda: np.zeros(N_AUX))
-    clock: np.ndarray = field(default_factory=lambda: np.zeros(2))
-    w_turns: np.ndarray = field(default_factory=lambda: np.zeros(2, dtype=np.int64))
     backup: np.ndarray = field(default_factory=lambda: np.zeros(N_EULER + N_AUX))
-    rates: np.ndarray = field(default_factory=lambda: np.zeros(N_KICK_RATES))
 
-    @property
-    def t_point(self) -> float:
-        """t_n, the time of the last step point, rounded once."""
-        return float(self.clock[0] + self.clock[1])
-
-    def _sample(self, t_end: float) -> int:
+    def take_steps(self, eps: float, t_end: float) -> tuple[int, bool]:
         m = self.method
-        dt = (t_end - self.clock[0]) - self.clock[1]
-        out = np.empty(N_EULER)
-        turns = self.w_turns.copy()
-        st = sundman_sample(
-            self.params, m.kick_table, m.drift_table, dt, self.w, self.aux, out, self.rates,
-            self.counters, turns,
+        status, _, reached = sundman_steps(
+            self.params, m.kick_table, m.drift_table, eps, self.omega2, t_end, CALL_STEPS,
+            self.w, self.aux, self.clock, self.backup, self.counters, self.w_turns,
         )  # fmt: skip
-        if st != ST_OK:
-            return int(st)
-        self.y = out
-        self.turns[:] = turns
-        return ST_OK
+        return status, reached
 
-    def advance_to(self, t_end: float) -> int:
-        if self.status != ST_OK:
-            return self.status
-        t_end = float(t_end)
-        if not np.isfinite(t_end):
-            raise MethodRefused(f"{self.method.name}: t = {t_end!r} is not a finite time")
-        if t_end == self.t:
-            return ST_OK
-        if self.turns.shape[0] == 0 and self.w_turns.shape[0] != 0:
-            # keep_angles_unfolded() was called: the step points do not fold either
-            self.w_turns = np.zeros(0, dtype=np.int64)
-        # The direction of the steps is that of t_end from the step point; turning back is
-        # allowed (the state is a closed point with its rho): it retraces the steps taken.
-        ahead = (t_end - self.clock[0]) - self.clock[1]
-        eps = self.eps if ahead >= 0.0 else -self.eps
-        m = self.method
-        while True:
-            status, _, reached = sundman_steps(
-                self.params, m.kick_table, m.drift_table, eps, self.omega2, t_end, CALL_STEPS,
-                self.w, self.aux, self.clock, self.backup, self.counters, self.w_turns,
-            )  # fmt: skip
-            if status != ST_OK or reached:
-                break
-        if status == ST_OK:
-            status = self._sample(t_end)
-            if status == ST_OK:
-                self.t = t_end
-                return ST_OK
-        # the last good state is the step point
-        self.t = self.t_point
-        self.t_fail = self.t
-        self.y = self.w.copy()
-        self.turns[:] = self.w_turns
-        self.status = int(status)
-        return self.status
+    def control_fields(self) -> dict:
+        return {"omega2": (float, ())}
 
-    def _fields(self) -> dict:
-        return {
-            **stepper_fields(N_COUNTERS),
-            "y": (np.float64, (N_EULER,)),
-            "turns": (np.int64, self.turns.shape),
-            "w": (np.float64, (N_EULER,)),
-            "aux": (np.float64, (N_AUX,)),
-            "clock": (np.float64, (2,)),
-            "w_turns": (np.int64, self.w_turns.shape),
-            "omega2": (float, ()),
-        }
+    def control_state(self) -> dict:
+        return {"omega2": self.omega2}
 
-    def snapshot(self) -> dict:
-        snap = snapshot_identity(self.method.name, self.form, self.settings)
-        snap.update(
-            t=self.t,
-            status=self.status,
-            t_fail=self.t_fail,
-            counters=self.counters.copy(),
-            y=self.y.copy(),
-            turns=self.turns.copy(),
-            w=self.w.copy(),
-            aux=self.aux.copy(),
-            clock=self.clock.copy(),
-            w_turns=self.w_turns.copy(),
-            omega2=self.omega2,
-        )
-        return snap
-
-    def restore(self, snap: dict) -> None:
-        check_snapshot(
-            snap,
-            method=self.method.name,
-            form=self.form,
-            settings=self.settings,
-            fields=self._fields(),
-        )
+    def check_control(self, snap: dict) -> None:
         if not (snap["aux"][N_KICK_RATES] > 0.0 and snap["omega2"] > 0.0):
             raise SnapshotRefused(
                 f"{self.method.name}: snapshot's step density rho or rate scale is not > 0"
             )
-        self.t = float(snap["t"])
-        self.status = int(snap["status"])
-        self.t_fail = float(snap["t_fail"])
-        self.counters[:] = snap["counters"]
-        self.y = np.array(snap["y"], dtype=np.float64)
-        self.turns[:] = snap["turns"]
-        self.w[:] = snap["w"]
-        self.aux[:] = snap["aux"]
-        self.clock[:] = snap["clock"]
-        self.w_turns[:] = snap["w_turns"]
+
+    def restore_control(self, snap: dict) -> None:
         self.omega2 = float(snap["omega2"])
 
 

@@ -29,8 +29,6 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from topdrift.integrators.base import (
-    N_COUNTERS,
-    ST_OK,
     Method,
     MethodInfo,
     MethodRefused,
@@ -38,8 +36,8 @@ from topdrift.integrators.base import (
 )
 from topdrift.integrators.splitting.compositions import TABLE_BY_KEY, SplittingTable
 from topdrift.integrators.splitting.methods import checked_start
+from topdrift.integrators.splitting.step_point_stepper import CALL_STEPS, StepPointStepper
 from topdrift.integrators.splitting.sundman import rate_scale2
-from topdrift.integrators.splitting.sundman_kernel import sundman_sample
 from topdrift.integrators.splitting.sundman_sym_kernel import (
     F_E,
     F_INV_OMEGA2,
@@ -54,16 +52,12 @@ from topdrift.integrators.splitting.sundman_sym_kernel import (
 )
 from topdrift.integrators.validation import (
     SnapshotRefused,
-    check_snapshot,
-    snapshot_identity,
-    stepper_fields,
 )
 from topdrift.models.body import P_H3, P_INV1, P_INV3
-from topdrift.models.flows import FREE_EXACT, N_KICK_RATES
+from topdrift.models.flows import FREE_EXACT
 from topdrift.models.forms import FORM_EULER
 
 SYM_TABLES = ("", "s4", "kl6")
-CALL_STEPS = 1 << 20  # steps per kernel call: no call runs unbounded
 SOURCE = (
     "time transformation in extended phase space, K = g (H - H0) with the generalized "
     "Stormer-Verlet step: Hairer, Appl. Numer. Math. 25 (1997) 219; monitor g(theta) = "
@@ -87,126 +81,36 @@ def minus_energy(params: np.ndarray, y: np.ndarray, aux: np.ndarray) -> float:
 
 
 @dataclass
-class SymSundmanStepper(Stepper):
-    """A run: the step point (t_n as clock hi + lo, y_n in w, aux at its theta, its turns), the
-    frozen constants, and the handed-out sample y at t (one step of t - t_n from the point)."""
+class SymSundmanStepper(StepPointStepper):
+    """A symplectic variable-step run (step_point_stepper.py); its control constants are the
+    frozen p_phi0, p_psi0, 1 / Omega^2 and e = -H(y0), and aux holds the kick's values at the
+    point's theta."""
 
-    method: Method | None = None
-    settings: dict = field(default_factory=dict)
-    eps: float = 0.0
     frozen: np.ndarray = field(default_factory=lambda: np.zeros(N_FROZEN))
-    w: np.ndarray = field(default_factory=lambda: np.zeros(N_EULER))
     aux: np.ndarray = field(default_factory=lambda: np.zeros(N_AUX))
-    clock: np.ndarray = field(default_factory=lambda: np.zeros(2))
-    w_turns: np.ndarray = field(default_factory=lambda: np.zeros(2, dtype=np.int64))
     backup: np.ndarray = field(default_factory=lambda: np.zeros(N_EULER + N_AUX + 2))
-    rates: np.ndarray = field(default_factory=lambda: np.zeros(N_KICK_RATES))
 
-    @property
-    def t_point(self) -> float:
-        """t_n, the time of the last step point, rounded once."""
-        return float(self.clock[0] + self.clock[1])
-
-    def _sample(self, t_end: float) -> int:
-        m = self.method
-        dt = (t_end - self.clock[0]) - self.clock[1]
-        out = np.empty(N_EULER)
-        turns = self.w_turns.copy()
-        st = sundman_sample(
-            self.params, m.kick_table, m.drift_table, dt, self.w, self.aux, out, self.rates,
-            self.counters, turns,
+    def take_steps(self, eps: float, t_end: float) -> tuple[int, bool]:
+        status, _, reached = sym_steps(
+            self.params, self.frozen, self.method.gammas, eps, t_end, CALL_STEPS, self.w,
+            self.aux, self.clock, self.backup, self.counters, self.w_turns,
         )  # fmt: skip
-        if st != ST_OK:
-            return int(st)
-        self.y = out
-        self.turns[:] = turns
-        return ST_OK
+        return status, reached
 
-    def advance_to(self, t_end: float) -> int:
-        if self.status != ST_OK:
-            return self.status
-        t_end = float(t_end)
-        if not np.isfinite(t_end):
-            raise MethodRefused(f"{self.method.name}: t = {t_end!r} is not a finite time")
-        if t_end == self.t:
-            return ST_OK
-        if self.turns.shape[0] == 0 and self.w_turns.shape[0] != 0:
-            self.w_turns = np.zeros(0, dtype=np.int64)  # keep_angles_unfolded() was called
-        # Steps run in the direction of t_end from the step point; turning back retraces them.
-        ahead = (t_end - self.clock[0]) - self.clock[1]
-        eps = self.eps if ahead >= 0.0 else -self.eps
-        m = self.method
-        while True:
-            status, _, reached = sym_steps(
-                self.params, self.frozen, m.gammas, eps, t_end, CALL_STEPS, self.w, self.aux,
-                self.clock, self.backup, self.counters, self.w_turns,
-            )  # fmt: skip
-            if status != ST_OK or reached:
-                break
-        if status == ST_OK:
-            status = self._sample(t_end)
-            if status == ST_OK:
-                self.t = t_end
-                return ST_OK
-        self.t = self.t_point  # the last good state is the step point
-        self.t_fail = self.t
-        self.y = self.w.copy()
-        self.turns[:] = self.w_turns
-        self.status = int(status)
-        return self.status
+    def control_fields(self) -> dict:
+        return {"frozen": (np.float64, (N_FROZEN,))}
 
-    def _fields(self) -> dict:
-        return {
-            **stepper_fields(N_COUNTERS),
-            "y": (np.float64, (N_EULER,)),
-            "turns": (np.int64, self.turns.shape),
-            "w": (np.float64, (N_EULER,)),
-            "aux": (np.float64, (N_AUX,)),
-            "clock": (np.float64, (2,)),
-            "w_turns": (np.int64, self.w_turns.shape),
-            "frozen": (np.float64, (N_FROZEN,)),
-        }
+    def control_state(self) -> dict:
+        return {"frozen": self.frozen.copy()}
 
-    def snapshot(self) -> dict:
-        snap = snapshot_identity(self.method.name, self.form, self.settings)
-        snap.update(
-            t=self.t,
-            status=self.status,
-            t_fail=self.t_fail,
-            counters=self.counters.copy(),
-            y=self.y.copy(),
-            turns=self.turns.copy(),
-            w=self.w.copy(),
-            aux=self.aux.copy(),
-            clock=self.clock.copy(),
-            w_turns=self.w_turns.copy(),
-            frozen=self.frozen.copy(),
-        )
-        return snap
-
-    def restore(self, snap: dict) -> None:
-        check_snapshot(
-            snap,
-            method=self.method.name,
-            form=self.form,
-            settings=self.settings,
-            fields=self._fields(),
-        )
+    def check_control(self, snap: dict) -> None:
         if not (snap["frozen"][F_INV_OMEGA2] > 0.0 and np.all(np.isfinite(snap["frozen"]))):
             raise SnapshotRefused(
                 f"{self.method.name}: snapshot's monitor constants are not finite, "
                 "or 1/Omega^2 is not > 0"
             )
-        self.t = float(snap["t"])
-        self.status = int(snap["status"])
-        self.t_fail = float(snap["t_fail"])
-        self.counters[:] = snap["counters"]
-        self.y = np.array(snap["y"], dtype=np.float64)
-        self.turns[:] = snap["turns"]
-        self.w[:] = snap["w"]
-        self.aux[:] = snap["aux"]
-        self.clock[:] = snap["clock"]
-        self.w_turns[:] = snap["w_turns"]
+
+    def restore_control(self, snap: dict) -> None:
         self.frozen[:] = snap["frozen"]
 
 
