@@ -68,6 +68,7 @@ from topdrift.integrators.extrapolation.kernel import (
     line_step,
     line_verdict,
     proposal,
+    retry,
     scaled_size,
     steps_of,
     work_for,
@@ -381,11 +382,7 @@ def _advance(form, work):
         if not accepted:
             counters[C_REJECTED] += 1
             was_rejected = True
-            if kn > last:
-                kn = last
-                hn = hw[last]
-            k = max(K_MIN, kn)
-            h_prop = min(hn, h_big)
+            k, h_prop = retry(kn, hn, last, hw, h_big)
             continue
         for i in range(n):
             ft[i] = table[i]

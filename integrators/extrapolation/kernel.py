@@ -288,6 +288,16 @@ def proposal(k, last, hw, was_rejected, h_big, d):
     return kn, hn
 
 
+@njit(cache=True, inline="always")
+def retry(kn, hn, last, hw, h_big):
+    """The line and step of the attempt after a rejected one: no higher than the lines that
+    failed, with no longer a step."""
+    if kn > last:
+        kn = last
+        hn = hw[last]
+    return max(K_MIN, kn), min(hn, h_big)
+
+
 @njit(cache=True)
 def _advance(form, work):
     """Step until t_out, landing on it; write the state there into y_out. Returns a status; on
@@ -361,14 +371,9 @@ def _advance(form, work):
         nonfinite = False
         kn, hn = proposal(k, last, hw, was_rejected, h_big, HARMONIC)
         if not accepted:
-            # Retry no higher than the lines that failed, with no longer a step.
             counters[C_REJECTED] += 1
             was_rejected = True
-            if kn > last:
-                kn = last
-                hn = hw[last]
-            k = max(K_MIN, kn)
-            h_prop = min(hn, h_big)
+            k, h_prop = retry(kn, hn, last, hw, h_big)
             continue
         for i in range(n):
             ft[i] = table[i]
