@@ -85,35 +85,6 @@ N_TOL = 4
 NONNEG = 0x3FFF_FFFF_FFFF_FFFF
 
 
-# The forms' states have 6 and 7 components, so the plain loops for n < 4 never run in a
-# built-in run; called rather than inlined, they are typed once instead of at every inlined site
-# of combine and weighted_pair.
-@njit(cache=True)
-def combine_short(n, m, w, base, h, y, K, out):
-    """combine for n < 4: one component at a time, the sum over j in order."""
-    for k in range(n):
-        acc = 0.0
-        for j in range(m):
-            acc += w[base + j] * K[j * n + k]
-        if y is None:
-            out[k] = acc
-        else:
-            out[k] = y[k] + h * acc
-
-
-@njit(cache=True)
-def weighted_pair_short(n, m, w, K, out):
-    """weighted_pair for n < 4."""
-    for k in range(n):
-        acc = 0.0
-        acc3 = 0.0
-        for j in range(m):
-            acc += w[j] * K[j * n + k]
-            acc3 += w[m + j] * K[j * n + k]
-        out[k] = acc
-        out[n + k] = acc3
-
-
 @njit(cache=True, inline="always")
 def combine(n, m, w, base, h, y, K, out):
     """out = y + h sum_{j < m} w[base + j] K_j; with y None, out = sum_{j < m} w[base + j] K_j
@@ -127,7 +98,14 @@ def combine(n, m, w, base, h, y, K, out):
     than a second pass over out); `y is None` is decided when numba compiles each call site."""
     base = base & NONNEG
     if n < 4:
-        combine_short(n, m, w, base, h, y, K, out)
+        for k in range(n):
+            acc = 0.0
+            for j in range(m):
+                acc += w[base + j] * K[j * n + k]
+            if y is None:
+                out[k] = acc
+            else:
+                out[k] = y[k] + h * acc
         return
     k0 = 0
     while True:
@@ -165,7 +143,14 @@ def weighted_pair(n, m, w, K, out):
     """out[:n] = sum_{j < m} w[j] K_j and out[n:2n] = sum_{j < m} w[m + j] K_j: both error rows
     in one pass over the stages, each K load serving both sums."""
     if n < 4:
-        weighted_pair_short(n, m, w, K, out)
+        for k in range(n):
+            acc = 0.0
+            acc3 = 0.0
+            for j in range(m):
+                acc += w[j] * K[j * n + k]
+                acc3 += w[m + j] * K[j * n + k]
+            out[k] = acc
+            out[n + k] = acc3
         return
     k0 = 0
     while True:
