@@ -206,7 +206,7 @@ def unfolded_size(k, v, off_phi, off_psi):
     return abs(v)
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def first_derivative(form, p, y, f, counters):
     """f = rhs(y) at the start of a run, counted like every other evaluation."""
     rhs(form, y, p, f)
@@ -214,7 +214,7 @@ def first_derivative(form, p, y, f, counters):
     counters[C_FORCE_EVALS] += 1
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counters):
     """Hairer's starting step (Hairer, Norsett and Wanner, Solving ODEs I, sec. II.4) [from
     memory], in the variant of scipy's select_initial_step: f must hold rhs(y); costs one
@@ -248,6 +248,17 @@ def initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counter
     else:
         h1 = (0.01 / max(d1, d2)) ** (1.0 / (order + 1))
     return min(100.0 * h0, h1, interval)
+
+
+# One compiled start for both (two entries compiled the model's functions in twice the time).
+@njit(cache=True)
+def start_run(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, pick_step, counters):
+    """f = rhs(y), counted; then, when pick_step, Hairer's starting step (initial_step),
+    returned; 0.0 when not pick_step."""
+    first_derivative(form, p, y, f, counters)
+    if not pick_step:
+        return 0.0
+    return initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counters)
 
 
 @njit(cache=True)
