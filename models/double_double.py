@@ -8,9 +8,13 @@ integer count of whole turns.
 
 The error-free transformations are the usual ones (common practice): Knuth's two-sum, and
 Dekker's product with Veltkamp's splitting (no fused multiply-add is assumed). The scalar
-functions are numba-compiled and inlined into the kernels that use them (exact_kernels.py); the
-array functions at the bottom are thin wrappers over compiled loops, for the slower paths and
-the tests. Nothing here may be compiled with fastmath: every rounding is part of the algorithm.
+functions are numba-compiled; the error-free transformations are inlined into their callers
+(lane_flows.py vectorises two_prod), while add, mul, reduce_turns and linear_remainder, which
+run once per sample and never in a step loop, are called: inlined, each site was typed again
+when numba compiled the exact solution's kernels (most of their cold compile; called, the
+roundings are the same and the exact solution's cost per sample measured the same). The array
+functions at the bottom are thin wrappers over compiled loops, for the slower paths and the
+tests. Nothing here may be compiled with fastmath: every rounding is part of the algorithm.
 """
 
 from __future__ import annotations
@@ -59,7 +63,7 @@ def two_prod(a, b):
     return p, ((ah * bh - p) + ah * bl + al * bh) + al * bl
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def add(ah, al, bh, bl):
     """(ah + al) + (bh + bl), renormalised (the accurate double-double sum)."""
     s, e = two_sum(ah, bh)
@@ -68,14 +72,14 @@ def add(ah, al, bh, bl):
     return fast_two_sum(s, e + f)
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def mul(ah, al, bh, bl):
     """(ah + al) (bh + bl), renormalised."""
     p, e = two_prod(ah, bh)
     return fast_two_sum(p, e + (ah * bl + al * bh))
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def reduce_turns(hi, lo):
     """(vh, vl, turns) with hi + lo == (vh + vl) + 2 pi turns and vh + vl in (-pi, pi], decided
     on the double-double (a value a hair above pi goes to -pi); turns an integer-valued double."""
@@ -91,7 +95,7 @@ def reduce_turns(hi, lo):
     return vh, vl, k
 
 
-@njit(cache=True, inline="always")
+@njit(cache=True)
 def linear_remainder(a0, a1, a2, b0, b1, c0, c1, c2, th, tl):
     """(j1, j2, rh, rl) with a t + b = c (j1 + j2) + (rh + rl), |rh + rl| <= c / 2 up to rounding,
     for t = th + tl and b double-doubles, a and c triple-doubles (three words, about 160 bits,

@@ -64,7 +64,7 @@ def fold_euler(y, turns):
 
 
 # Called, not inlined: it runs once per angle and sample, never in a step loop, and each inlined
-# copy of its double-double arithmetic is typed and optimised again (record_sample has two).
+# copy of its double-double arithmetic is typed and optimised again (record_euler has two).
 @njit(cache=True)
 def true_angle(a, k):
     """(angle, turns): a + T k as an angle folded by 2 pi into [-pi, pi] (rounded once) and its

@@ -43,62 +43,22 @@ N_SCALARS = 5
 NO_TURNS = np.zeros(0, dtype=np.int64)
 
 
-@njit(cache=True)
-def record_sample(form, y, kturns, p, j, state, euler, turns, quat, mom, axis, scal, ye, yb, inv):
-    """Write sample j of state y (native form) into the row j of each buffer.
-
-    In the Euler form, phi and psi are y's angles plus the stepper's whole turns of fl(2 pi)
-    (kturns: two int64, or empty where the stepper does not fold; models/turns.py); they are
-    written to `euler` (and to `state`) folded by 2 pi into [-pi, pi], with their whole 2 pi
-    turns in `turns`, so that no bit is lost however far they have grown. In the body form the
-    angles come from the quaternion and are known only modulo 2 pi: turns are written as 0 and
-    not stored (the writer leaves them out).
-
-    Returns False when the state is not finite (nothing is then written but `state`).
-    ye (6), yb (7) and inv (5) are scratch arrays owned by the caller.
-    """
-    n = y.shape[0]
+@njit(cache=True, inline="always")
+def _copy_state(y, j, state):
+    """state[j] = y; False when y is not finite."""
     ok = True
-    for i in range(n):
+    for i in range(y.shape[0]):
         state[j, i] = y[i]
         if not math.isfinite(y[i]):
             ok = False
-    if not ok:
-        return False
-    if form == FORM_EULER:
-        k_phi = float(kturns[T_PHI]) if kturns.shape[0] == N_TURNS else 0.0
-        k_psi = float(kturns[T_PSI]) if kturns.shape[0] == N_TURNS else 0.0
-        phi, n_phi = true_angle(y[0], k_phi)
-        psi, n_psi = true_angle(y[2], k_psi)
-        for i in range(6):
-            ye[i] = y[i]
-        # The attitude from the angles folded by 2 pi itself (the kernel's y lacks the part of
-        # its turns that fl(2 pi) misses, 2.4e-16 rad a turn), and with the sign the unfolded
-        # angles give: a whole turn of phi or psi turns the quaternion into its negative.
-        ye[0] = phi
-        ye[2] = psi
-        euler_to_body(ye, yb)
-        if (int(n_phi) + int(n_psi)) % 2 != 0:
-            for i in range(4):
-                yb[i] = -yb[i]
-        euler[j, 0] = phi
-        euler[j, 1] = y[1]
-        euler[j, 2] = psi
-        state[j, 0] = phi
-        state[j, 2] = psi
-        turns[j, 0] = np.int64(n_phi)
-        turns[j, 1] = np.int64(n_psi)
-    else:
-        turns[j, 0] = 0
-        turns[j, 1] = 0
-        for i in range(7):
-            yb[i] = y[i]
-        # At sin(theta) = 0 only phi + psi is defined; to_euler still returns a split of it,
-        # which is what is stored (the quaternion dataset is exact there).
-        body_to_euler(y, ye)
-        euler[j, 0] = ye[0]
-        euler[j, 1] = ye[1]
-        euler[j, 2] = ye[2]
+    return ok
+
+
+@njit(cache=True, inline="always")
+def _record_rest(form, y, p, j, yb, quat, mom, axis, scal, inv):
+    """The part of a sample both forms share: quaternion, momentum, figure axis (from yb, the
+    body-form state) and the invariants of the form that was integrated (converting first would
+    add round-off). Returns False when the energy is not finite."""
     q0, q1, q2, q3 = yb[0], yb[1], yb[2], yb[3]
     quat[j, 0] = q0
     quat[j, 1] = q1
@@ -112,7 +72,6 @@ def record_sample(form, y, kturns, p, j, state, euler, turns, quat, mom, axis, s
     axis[j, 0] = ax
     axis[j, 1] = ay
     axis[j, 2] = az
-    # The invariants of the form that was integrated: converting first would add round-off.
     invariants(form, y, p, inv)
     scal[j, S_ENERGY] = inv[INV_ENERGY]
     scal[j, S_P_PHI] = inv[INV_P_PHI]
@@ -122,9 +81,71 @@ def record_sample(form, y, kturns, p, j, state, euler, turns, quat, mom, axis, s
     return math.isfinite(inv[INV_ENERGY])
 
 
+# One entry per form (the stepper's form is known before the first sample), so that a run
+# compiles only its own form's conversions and invariants: an entry taking the form as data
+# compiles both (measured in docs/timing.md).
+@njit(cache=True)
+def record_euler(y, kturns, p, j, state, euler, turns, quat, mom, axis, scal, ye, yb, inv):
+    """Write sample j of the Euler-form state y into the row j of each buffer.
+
+    phi and psi are y's angles plus the stepper's whole turns of fl(2 pi) (kturns: two int64, or
+    empty where the stepper does not fold; models/turns.py); they are written to `euler` (and to
+    `state`) folded by 2 pi into [-pi, pi], with their whole 2 pi turns in `turns`, so that no
+    bit is lost however far they have grown.
+
+    Returns False when the state is not finite (nothing is then written but `state`).
+    ye (6), yb (7) and inv (5) are scratch arrays owned by the caller.
+    """
+    if not _copy_state(y, j, state):
+        return False
+    k_phi = float(kturns[T_PHI]) if kturns.shape[0] == N_TURNS else 0.0
+    k_psi = float(kturns[T_PSI]) if kturns.shape[0] == N_TURNS else 0.0
+    phi, n_phi = true_angle(y[0], k_phi)
+    psi, n_psi = true_angle(y[2], k_psi)
+    for i in range(6):
+        ye[i] = y[i]
+    # The attitude from the angles folded by 2 pi itself (the kernel's y lacks the part of
+    # its turns that fl(2 pi) misses, 2.4e-16 rad a turn), and with the sign the unfolded
+    # angles give: a whole turn of phi or psi turns the quaternion into its negative.
+    ye[0] = phi
+    ye[2] = psi
+    euler_to_body(ye, yb)
+    if (int(n_phi) + int(n_psi)) % 2 != 0:
+        for i in range(4):
+            yb[i] = -yb[i]
+    euler[j, 0] = phi
+    euler[j, 1] = y[1]
+    euler[j, 2] = psi
+    state[j, 0] = phi
+    state[j, 2] = psi
+    turns[j, 0] = np.int64(n_phi)
+    turns[j, 1] = np.int64(n_psi)
+    return _record_rest(FORM_EULER, y, p, j, yb, quat, mom, axis, scal, inv)
+
+
+@njit(cache=True)
+def record_body(y, kturns, p, j, state, euler, turns, quat, mom, axis, scal, ye, yb, inv):
+    """Write sample j of the body-form state y into the row j of each buffer (record_euler's
+    arguments). The angles come from the quaternion and are known only modulo 2 pi: turns are
+    written as 0 and not stored (the writer leaves them out); kturns is not read."""
+    if not _copy_state(y, j, state):
+        return False
+    turns[j, 0] = 0
+    turns[j, 1] = 0
+    for i in range(7):
+        yb[i] = y[i]
+    # At sin(theta) = 0 only phi + psi is defined; to_euler still returns a split of it,
+    # which is what is stored (the quaternion dataset is exact there).
+    body_to_euler(y, ye)
+    euler[j, 0] = ye[0]
+    euler[j, 1] = ye[1]
+    euler[j, 2] = ye[2]
+    return _record_rest(FORM_BODY, y, p, j, yb, quat, mom, axis, scal, inv)
+
+
 class SampleBuffers:
     """Preallocated sample rows (one run's samples between writes, or one sample of every member
-    of an ensemble), plus the scratch arrays of record_sample."""
+    of an ensemble), plus the scratch arrays of record_euler and record_body."""
 
     def __init__(self, rows: int, width: int):
         self.state = np.zeros((rows, width))
@@ -143,10 +164,10 @@ class SampleBuffers:
     def record(
         self, form: int, y: np.ndarray, p: np.ndarray, j: int, kturns: np.ndarray = NO_TURNS
     ) -> bool:
-        """Row j from state y and the stepper's turns kturns (see record_sample); False when
-        the state is not finite."""
-        return record_sample(
-            form,
+        """Row j from state y and the stepper's turns kturns (record_euler, record_body);
+        False when the state is not finite."""
+        record = record_euler if form == FORM_EULER else record_body
+        return record(
             y,
             kturns,
             p,

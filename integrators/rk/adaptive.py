@@ -57,8 +57,7 @@ from topdrift.integrators.rk.embedded_kernel import (
     TL_RTOL,
     TL_T_BOUND,
     advance_kernel,
-    first_derivative,
-    initial_step,
+    start_run,
 )
 from topdrift.integrators.rk.packed import pack
 from topdrift.integrators.rk.tableaux import DOP853, DP5, Tableau
@@ -177,24 +176,24 @@ class EmbeddedStepper(ControlledStepper):
         st.dense = np.zeros((3 + tab.dense.shape[0]) * n)
         st.ctrl = np.zeros(N_CTRL)
         st.counters = np.zeros(N_COUNTERS, dtype=np.int64)
-        first_derivative(form, params, st.yi, st.f, st.counters)
-        if s["first_step"] is not None:
+        pick = s["first_step"] is None
+        interval = math.inf if st.horizon is None else st.horizon - t0
+        h0 = start_run(
+            form,
+            params,
+            st.yi,
+            st.f,
+            st.ytmp,
+            st.ftmp,
+            s["rtol"],
+            s["atol"],
+            tab.error_order,
+            interval,
+            pick,
+            st.counters,
+        )
+        if not pick:
             h0 = s["first_step"]
-        else:
-            interval = math.inf if st.horizon is None else st.horizon - t0
-            h0 = initial_step(
-                form,
-                params,
-                st.yi,
-                st.f,
-                st.ytmp,
-                st.ftmp,
-                s["rtol"],
-                s["atol"],
-                tab.error_order,
-                interval,
-                st.counters,
-            )
         st.ctrl[CT_T] = t0
         st.ctrl[CT_H] = h0
         st.ctrl[CT_T_OLD] = t0

@@ -195,18 +195,18 @@ def weighted_pair(n, m, w, K, out):
 
 
 @njit(cache=True, inline="always")
-def unfolded_size(form, k, v, off_phi, off_psi):
-    """|v| for component k, with the turns put back into phi and psi (rounded once: it only
-    scales the tolerance). In the body form, and with no turns counted, |v| itself."""
-    if form == FORM_EULER:
-        if k == E_PHI:
-            return abs(v + off_phi)
-        if k == E_PSI:
-            return abs(v + off_psi)
+def unfolded_size(k, v, off_phi, off_psi):
+    """|v| for component k of an Euler-form state, with the turns put back into phi and psi
+    (rounded once: it only scales the tolerance); with no turns counted, |v| itself. The body
+    form takes |v| (the kernel branches on the form, so that its compile leaves this out)."""
+    if k == E_PHI:
+        return abs(v + off_phi)
+    if k == E_PSI:
+        return abs(v + off_psi)
     return abs(v)
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def first_derivative(form, p, y, f, counters):
     """f = rhs(y) at the start of a run, counted like every other evaluation."""
     rhs(form, y, p, f)
@@ -214,7 +214,7 @@ def first_derivative(form, p, y, f, counters):
     counters[C_FORCE_EVALS] += 1
 
 
-@njit(cache=True)
+@njit(cache=True, inline="always")
 def initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counters):
     """Hairer's starting step (Hairer, Norsett and Wanner, Solving ODEs I, sec. II.4) [from
     memory], in the variant of scipy's select_initial_step: f must hold rhs(y); costs one
@@ -250,15 +250,33 @@ def initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counter
     return min(100.0 * h0, h1, interval)
 
 
+# One compiled start for both (two entries compiled the model's functions in twice the time).
+@njit(cache=True)
+def start_run(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, pick_step, counters):
+    """f = rhs(y), counted; then, when pick_step, Hairer's starting step (initial_step),
+    returned; 0.0 when not pick_step."""
+    first_derivative(form, p, y, f, counters)
+    if not pick_step:
+        return 0.0
+    return initial_step(form, p, y, f, ytmp, ftmp, rtol, atol, order, interval, counters)
+
+
 @njit(cache=True)
 def _build_dense(form, p, a, d, cfg, y, yold, K, ytmp, dense, ctrl, counters):
     n = y.shape[0]
     ns = cfg[CFG_N_STAGES]
     rows = cfg[CFG_N_ROWS]
     h = ctrl[CT_H_PREV]
-    # Extra stages of the last step (DOP853's 14..16), from y_old with the step's own h.
+    # Extra stages of the last step (DOP853's 14..16), from y_old with the step's own h. Plain
+    # loops, not combine: the same sums in the same order (combine's bits are the plain loop's),
+    # run once per output sample, and each inlined combine is typed again (cold compile time).
     for i in range(ns + 1, rows):
-        combine(n, i, a, i * rows, h, yold, K, ytmp)
+        base = i * rows
+        for k in range(n):
+            acc = 0.0
+            for j in range(i):
+                acc += a[base + j] * K[j * n + k]
+            ytmp[k] = yold[k] + h * acc
         rhs(form, ytmp, p, K[i * n : (i + 1) * n])
         counters[C_EVALS] += 1
         counters[C_FORCE_EVALS] += 1
@@ -269,10 +287,12 @@ def _build_dense(form, p, a, d, cfg, y, yold, K, ytmp, dense, ctrl, counters):
         dense[n + k] = h * K[k] - dy
         dense[2 * n + k] = 2.0 * dy - h * (K[k] + K[knew + k])
     for r in range(cfg[CFG_N_DENSE]):
-        base = (3 + r) * n
-        combine(n, rows, d, r * rows, 1.0, None, K, ytmp)
+        base = r * rows
         for k in range(n):
-            dense[base + k] = h * ytmp[k]
+            acc = 0.0
+            for j in range(rows):
+                acc += d[base + j] * K[j * n + k]
+            dense[(3 + r) * n + k] = h * acc
     ctrl[CT_DENSE_OK] = 1.0
 
 
@@ -377,14 +397,14 @@ def _advance(form, work):
                     yn = ynew[k]
                     if not math.isfinite(yn):
                         finite = False
-                    sc = (
-                        atol
-                        + max(
-                            unfolded_size(form, k, y[k], off_phi, off_psi),
-                            unfolded_size(form, k, yn, off_phi, off_psi),
+                    if form == FORM_EULER:
+                        size = max(
+                            unfolded_size(k, y[k], off_phi, off_psi),
+                            unfolded_size(k, yn, off_phi, off_psi),
                         )
-                        * rtol
-                    )
+                    else:
+                        size = max(abs(y[k]), abs(yn))
+                    sc = atol + size * rtol
                     ek = h * etmp[k] / sc
                     s += ek * ek
                 err = math.sqrt(s / n)
@@ -396,14 +416,14 @@ def _advance(form, work):
                     yn = ynew[k]
                     if not math.isfinite(yn):
                         finite = False
-                    sc = (
-                        atol
-                        + max(
-                            unfolded_size(form, k, y[k], off_phi, off_psi),
-                            unfolded_size(form, k, yn, off_phi, off_psi),
+                    if form == FORM_EULER:
+                        size = max(
+                            unfolded_size(k, y[k], off_phi, off_psi),
+                            unfolded_size(k, yn, off_phi, off_psi),
                         )
-                        * rtol
-                    )
+                    else:
+                        size = max(abs(y[k]), abs(yn))
+                    sc = atol + size * rtol
                     e5 = etmp[k] / sc
                     e3 = etmp[n + k] / sc
                     s5 += e5 * e5
@@ -442,7 +462,8 @@ def _advance(form, work):
             yold[k] = y[k]
             y[k] = ynew[k]
             f[k] = K[knew + k]
-        if folding:
+        # A branch on the form itself, which numba prunes in the body form's compile.
+        if form == FORM_EULER and folding:
             k_phi = turns[T_PHI]
             k_psi = turns[T_PSI]
             fold_euler(y, turns)
