@@ -12,6 +12,7 @@ subclass supplies: `take_steps`, and `control_fields` / `control_state` / `check
 
 from __future__ import annotations
 
+from abc import abstractmethod
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -39,24 +40,25 @@ class StepPointStepper(Stepper):
     rates: np.ndarray = field(default_factory=lambda: np.zeros(N_KICK_RATES))
 
     # What a subclass supplies.
+    @abstractmethod
     def take_steps(self, eps: float, t_end: float) -> tuple[int, bool]:
         """At most CALL_STEPS steps of eps towards t_end: (status, whether the point reached it)."""
-        raise NotImplementedError
 
+    @abstractmethod
     def control_fields(self) -> dict:
         """check_snapshot's field table for the step control's constants."""
-        raise NotImplementedError
 
+    @abstractmethod
     def control_state(self) -> dict:
         """Those constants, copied, for a snapshot."""
-        raise NotImplementedError
 
+    @abstractmethod
     def check_control(self, snap: dict) -> None:
         """Raise SnapshotRefused when the snapshot's constants cannot drive the control."""
-        raise NotImplementedError
 
+    @abstractmethod
     def restore_control(self, snap: dict) -> None:
-        raise NotImplementedError
+        """Set the constants from a checked snapshot."""
 
     @property
     def t_point(self) -> float:
