@@ -158,7 +158,7 @@ INV_FACTORIAL = np.array([1.0 / math.factorial(k) for k in range(M_MAX + 1)])
 @njit(cache=True, inline="always")
 def _line(form, p, y, f, h, nj, za, zb, ft, fl, zm):
     """Gragg's modified midpoint rule over nj substeps of h from y (f = rhs(y)); za, zb end as
-    z_(nj-1), z_nj and ft as f(z_nj). With gather, fl holds f_0..f_nj and zm z_(nj/2)."""
+    z_(nj-1), z_nj and ft as f(z_nj); fl holds f_0..f_nj and zm z_(nj/2)."""
     n = y.shape[0]
     h2 = 2.0 * h
     half = nj // 2
